@@ -18,6 +18,7 @@ from typing import Any, ClassVar, Self
 __all__ = [
     "SCHEMA_VERSION",
     "CalibrationEvent",
+    "Rejected",
     "Record",
     "StationState",
     "StationStatus",
@@ -288,3 +289,37 @@ def record_from_dict(data: dict[str, Any]) -> Record:
     if kind not in _KINDS:
         raise ValueError(f"unknown record kind {kind!r}; expected one of {', '.join(_KINDS)}")
     return _KINDS[kind].from_dict(data)
+
+
+@dataclass(frozen=True, slots=True)
+class Rejected:
+    """Input that could not become a record: kept, with why, for the quarantine table."""
+
+    station: str
+    profile: str
+    raw: str
+    reason: str
+    received_at: datetime
+    line_no: int | None = None
+
+    kind: ClassVar[str] = "quarantine"
+
+    def __post_init__(self) -> None:
+        _check_text("station", self.station)
+        _check_text("reason", self.reason)
+        _check_time("received_at", self.received_at)
+        object.__setattr__(self, "received_at", _to_utc(self.received_at))
+        if not isinstance(self.raw, str):
+            raise ValueError("raw must be a string (hex-encode bytes and registers)")
+
+    def to_dict(self) -> dict[str, Any]:
+        return {
+            "schema": SCHEMA_VERSION,
+            "kind": self.kind,
+            "station": self.station,
+            "profile": self.profile,
+            "raw": self.raw,
+            "reason": self.reason,
+            "received_at": _iso(self.received_at),
+            "line_no": self.line_no,
+        }
