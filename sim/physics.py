@@ -16,6 +16,7 @@ from __future__ import annotations
 import math
 import random
 from dataclasses import dataclass
+from typing import ClassVar
 
 from gateway.calibration import sccm_to_m3s
 from gateway.units import KELVIN_OFFSET, P_STD_PA, T_STD_K
@@ -54,6 +55,8 @@ def fill_pressure_pa(test_pressure_pa: float, leak_sccm: float, fill_capacity_sc
 class TestConditions:
     """Everything that decides one test's pressure trace (SI units, gauge pressures)."""
 
+    __test__: ClassVar[bool] = False  # not a pytest class
+
     volume_m3: float
     test_pressure_pa: float
     stabilise_s: float
@@ -78,6 +81,8 @@ class TestConditions:
 @dataclass(frozen=True, slots=True)
 class TestOutcome:
     """Pressures the station sees (gauge, Pa) and the loss it measures over the test time."""
+
+    __test__: ClassVar[bool] = False
 
     pressure_at_test_start_pa: float
     pressure_at_test_end_pa: float

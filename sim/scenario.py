@@ -136,6 +136,7 @@ class Station:
     load_s: tuple[float, float] = (4.0, 12.0)  # operator handling between cycles
     pause_probability: float = 0.01
     pause_s: tuple[float, float] = (60.0, 600.0)
+    min_cycle_s: float = 20.0  # shortest cycle, result to result (clamp, vent, unload)
     faults: Faults = field(default_factory=Faults)
 
 
@@ -606,6 +607,7 @@ def _station(r: _Reader, lines: Mapping[str, str], programs: Mapping[str, Progra
         load_s=r.pair("load", d.load_s, "time"),
         pause_probability=r.fraction("pause_probability", d.pause_probability),
         pause_s=r.pair("pause", d.pause_s, "time"),
+        min_cycle_s=r.quantity("min_cycle", "time", f"{d.min_cycle_s} s"),
     )
     if station.device_id > 247:
         raise r.fail("device_id", "a Modbus device id 1..247")

@@ -146,6 +146,7 @@ class _State:
     retest: _Part | None = None
     recalibrate: bool = False
     failed_calibrations: int = 0
+    last_result: float = -math.inf
 
 
 class StationModel:
@@ -343,27 +344,33 @@ class StationModel:
         offset = self.rng.gauss(pop.part_offset_mean_k, pop.part_offset_sd_k)
         if retest:
             offset *= 0.5  # it waited at the station a while
+        leak_total = part.true_leak_sccm + self.seal_leak_sccm()
+        reached = fill_pressure_pa(program.test_pressure_pa, leak_total, program.fill_capacity_sccm)
+        aborted = self.rng.random() < pop.abort_fraction
+        gross = not aborted and reached < program.test_pressure_pa * (1 - program.fill_tolerance)
+        stop_fraction = self.rng.uniform(0.2, 0.95) if aborted else 1.0
+        run_s = program.fill_s + program.stabilise_s + program.test_s
+        until_end = program.fill_s if gross else stop_fraction * run_s
+        # clamping, venting and unloading give results a floor in spacing, gross/aborted too
+        load = max(load, s.last_result + self.station.min_cycle_s - s.t - until_end)
         t_fill = s.t + load
         t_stab = t_fill + program.fill_s
         t_test = t_stab + program.stabilise_s
         t_end = t_test + program.test_s
-        leak_total = part.true_leak_sccm + self.seal_leak_sccm()
-        reached = fill_pressure_pa(program.test_pressure_pa, leak_total, program.fill_capacity_sccm)
-        aborted = self.rng.random() < pop.abort_fraction
         states: list[tuple[float, str]] = [(s.t, "idle"), (t_fill, "fill")]
         loss = 0.0
         leak = 0.0
         pressure = reached
         reason = ""
         if aborted:
-            stop = t_fill + self.rng.uniform(0.2, 0.95) * (t_end - t_fill)
+            stop = t_fill + until_end
             states += [(t, n) for t, n in ((t_stab, "stabilise"), (t_test, "test")) if t < stop]
             ended = stop
             verdict = Verdict.ABORTED
             reason = "stopped by the operator"
             if stop < t_stab:
                 pressure = reached * (stop - t_fill) / program.fill_s
-        elif reached < program.test_pressure_pa * (1 - program.fill_tolerance):
+        elif gross:
             ended = t_stab
             verdict = Verdict.GROSS
             reason = "test pressure not reached"
@@ -425,7 +432,9 @@ class StationModel:
             retest=retest,
         )
         ends = ended + VENT_S
+        s.last_result = ended
         states.append((ended, "vent"))
+        states.append((ended + VENT_S, "idle"))
         s.t = ends
         return Activity(
             states=tuple(states),

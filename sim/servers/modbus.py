@@ -68,12 +68,12 @@ class _ModbusStation:
     def _device(self) -> SimDevice:
         size = self.regmap.size
         block = [SimData(0, count=size, values=0, datatype=DataType.REGISTERS)]
-        empty_bits = [SimData(0, count=1, values=False, datatype=DataType.BITS)]
-        empty_regs = [SimData(0, count=1, values=0, datatype=DataType.REGISTERS)]
+        bits = [SimData(0, count=1, values=False, datatype=DataType.BITS)]
+        none = [SimData(0, count=1, datatype=DataType.INVALID)]  # the other table: exception 02
         if self.regmap.function == 3:
-            simdata = (empty_bits, empty_bits, block, empty_regs)
+            simdata = (bits, bits, block, none)
         else:
-            simdata = (empty_bits, empty_bits, empty_regs, block)
+            simdata = (bits, bits, none, block)
         return SimDevice(id=self.device_id, simdata=simdata, action=self._action)
 
     async def _action(
