@@ -9,7 +9,8 @@ import pint
 import pytest
 from scipy import constants
 
-from gateway.calibration import Calibration, expected_loss_pa, test_time_for_loss
+from gateway.calibration import Calibration, expected_loss_pa
+from gateway.calibration import test_time_for_loss as time_for_loss
 from gateway.cli import main
 from gateway.records import TestResult
 from gateway.units import convert, to_canonical
@@ -55,7 +56,7 @@ def test_decay_against_mole_balance(reference_c: float) -> None:
     mol_per_s = 101325.0 * (leak * 1e-6 / 60.0) / (constants.R * t_ref)
     expected = mol_per_s * dt * constants.R * t_ref / volume
     assert expected_loss_pa(volume, leak, dt, reference_c=reference_c) == pytest.approx(expected)
-    assert test_time_for_loss(volume, leak, expected, reference_c=reference_c) == pytest.approx(dt)
+    assert time_for_loss(volume, leak, expected, reference_c=reference_c) == pytest.approx(dt)
 
 
 def test_calibration_trade_example() -> None:
