@@ -25,6 +25,7 @@ from __future__ import annotations
 import math
 from collections.abc import Sequence
 from dataclasses import dataclass
+from typing import Literal
 
 import numpy as np
 from scipy import stats
@@ -51,6 +52,7 @@ class TestTimeAdvice(ResultMixin):
     current_test_s: float
     sigma_loss_pa: float
     sigma_loss_upper_pa: float
+    sigma_method: str
     sensitivity: float
     tolerance_sccm: float
     current_pct_grr: float
@@ -106,6 +108,7 @@ def advise_test_time(
     max_test_s: float | None = None,
     step_s: float = 0.1,
     points: int = 40,
+    sigma_method: Literal["std", "moving-range"] = "std",
 ) -> TestTimeAdvice:
     """Predict %GRR vs test time and recommend the shortest time meeting ``target_pct``."""
     x = np.asarray(losses_pa, dtype=float)
@@ -126,11 +129,18 @@ def advise_test_time(
     )
     if not tolerance > 0:
         raise ValueError(f"tolerance (reject limit − lower limit) must be > 0, got {tolerance}")
-    sigma0 = float(x.std(ddof=1))
+    if sigma_method == "std":
+        sigma0, dof = float(x.std(ddof=1)), float(n - 1)
+    elif sigma_method == "moving-range":
+        # MR̄/d2 (d2 = 1.128) ignores slow drift between tests; its precision is that of about
+        # 0.62·(n − 1) degrees of freedom (common approximation for individuals, from memory).
+        sigma0, dof = float(np.abs(np.diff(x)).mean()) / 1.128, 0.62 * (n - 1)
+    else:
+        raise ValueError(f"sigma_method must be 'std' or 'moving-range', got {sigma_method!r}")
     if sigma0 <= 0:
         raise ValueError("the master part's losses do not vary: noise cannot be estimated")
-    chi_low = float(stats.chi2.ppf((1.0 - confidence) / 2.0, n - 1))
-    sigma_hi = sigma0 * math.sqrt((n - 1) / chi_low)
+    chi_low = float(stats.chi2.ppf((1.0 - confidence) / 2.0, dof))
+    sigma_hi = sigma0 * math.sqrt(dof / chi_low)
     now = grr_at(test_s, test_s, sigma0, sensitivity, tolerance, sqrt_fraction)
     f = sqrt_fraction
 
@@ -168,6 +178,7 @@ def advise_test_time(
         current_test_s=test_s,
         sigma_loss_pa=sigma0,
         sigma_loss_upper_pa=sigma_hi,
+        sigma_method=sigma_method,
         sensitivity=sensitivity,
         tolerance_sccm=tolerance,
         current_pct_grr=now.pct_grr,

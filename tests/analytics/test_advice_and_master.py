@@ -104,3 +104,12 @@ def test_master_pick_is_lowest_among_tight() -> None:
 def test_master_missing_column() -> None:
     with pytest.raises(ValueError, match="'part'"):
         qualify_master(pd.DataFrame({"value": [1.0]}))
+
+
+def test_moving_range_sigma_ignores_slow_drift() -> None:
+    # σ = MR̄/1.128 (NIST e-Handbook 6.3.2.2): a linear creep adds nothing to the moving range.
+    noise = np.array([0.2, -0.2] * 10)
+    creeping = 10 + noise + 0.5 * np.arange(20)
+    a = advise_test_time(creeping, 4.0, 0.05, 2.0, sigma_method="moving-range")
+    assert a.sigma_loss_pa == pytest.approx(float(np.abs(np.diff(creeping)).mean()) / 1.128)
+    assert a.sigma_loss_pa < advise_test_time(creeping, 4.0, 0.05, 2.0).sigma_loss_pa / 3
