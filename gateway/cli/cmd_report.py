@@ -842,12 +842,8 @@ def _advise(args: argparse.Namespace, get_store: Callable[[], Any]) -> Report:
             latest = results.sort_values("ended_at").iloc[-1]
             test_s = float(latest["test_s"]) if test_s is None else test_s
             reject = float(latest["reject_limit_sccm"]) if reject is None else reject
-            if (
-                lower is None
-                and latest.get("lower_limit_sccm") is not None
-                and not _isnan(latest["lower_limit_sccm"])
-            ):
-                lower = float(latest["lower_limit_sccm"])
+            if lower is None and args.reject_limit is None:
+                lower = _latest_lower(results.sort_values("ended_at"))
         source = f"{len(losses)} calibrations of {station}/{program} (master-part losses)"
         filters = f.to_dict()
     a = advise_test_time(
@@ -905,10 +901,6 @@ def _tolerance(results: pd.DataFrame) -> float:
     limit = float(ordered["reject_limit_sccm"].iloc[-1])
     lower = _latest_lower(ordered)
     return limit - lower if lower is not None else limit
-
-
-def _isnan(value: Any) -> bool:
-    return isinstance(value, float) and math.isnan(value)
 
 
 def _master(args: argparse.Namespace, get_store: Callable[[], Any]) -> Report:
