@@ -47,7 +47,9 @@ __all__ = [
     "project_drift",
 ]
 
-DriftStatus = Literal["insufficient data", "no drift", "drifting away", "reaches limit", "at limit"]
+DriftStatus = Literal[
+    "insufficient data", "no drift", "drifting", "drifting away", "reaches limit", "at limit"
+]
 _D2 = 1.128  # d2 for moving ranges of two (NIST e-Handbook 6.3.2.2)
 
 
@@ -210,7 +212,7 @@ def project_drift(
 
     significant = not (lo <= 0.0 <= hi)
     if limit is None:
-        return make("drifting away" if significant else "no drift", None, None,
+        return make("drifting" if significant else "no drift", None, None,
                     "no limit configured; slope reported only")  # fmt: skip
     beyond = current >= limit if upper else current <= limit
     if beyond:
