@@ -31,7 +31,7 @@ def split_fields(spec: SerialSpec, kind: LineKind, text: str) -> dict[str, str]:
     """Raw fields of one line for one line kind; raises _NoMatch or FieldError."""
     dialect = spec.dialect
     strip = dialect.strip
-    if dialect.kind == "delimited":
+    if kind.dialect == "delimited":
         parts = [_clean(p, strip) for p in text.split(dialect.separator)]
         raw = dict(zip(kind.columns, parts, strict=False))
         if kind.when is not None and not kind.when.holds(raw):
@@ -42,7 +42,7 @@ def split_fields(spec: SerialSpec, kind: LineKind, text: str) -> dict[str, str]:
                 f"{dialect.separator!r}, expected {len(kind.columns)}"
             )
         return raw
-    if dialect.kind == "fixed":
+    if kind.dialect == "fixed":
         raw = {c.name: _clean(text[c.start : c.start + c.width], strip) for c in kind.fixed}
         if kind.when is not None and not kind.when.holds(raw):
             raise _NoMatch
@@ -52,7 +52,7 @@ def split_fields(spec: SerialSpec, kind: LineKind, text: str) -> dict[str, str]:
                 f"{kind.record} line is {len(text.rstrip())} characters, expected at most {need}"
             )
         return raw
-    if dialect.kind == "regex":
+    if kind.dialect == "regex":
         assert kind.pattern is not None
         match = re.fullmatch(kind.pattern, text)
         if match is None:
@@ -61,7 +61,7 @@ def split_fields(spec: SerialSpec, kind: LineKind, text: str) -> dict[str, str]:
         if kind.when is not None and not kind.when.holds(raw):
             raise _NoMatch
         return raw
-    raise AssertionError(dialect.kind)
+    raise AssertionError(kind.dialect)
 
 
 def _pairs(spec: SerialSpec, lines: Sequence[str], first_line_no: int) -> dict[str, str]:
@@ -107,9 +107,14 @@ class SerialParser:
             ) from None
         return text
 
-    @staticmethod
-    def _raw_of(item: str | bytes) -> str:
-        return item if isinstance(item, str) else item.hex(" ")
+    def _raw_of(self, item: str | bytes) -> str:
+        """Audit text: the line itself, or its bytes as hex when they are not valid text."""
+        if isinstance(item, str):
+            return item
+        try:
+            return item.decode(self.spec.encoding)
+        except UnicodeDecodeError:
+            return item.hex(" ")
 
     def _precheck(self, item: str | bytes) -> str:
         if len(item) > self.spec.max_line:

@@ -353,10 +353,15 @@ def _condition(r: _Reader, raw: Any, path: str, names: Sequence[str] | None) -> 
 
 def _line_kind(r: _Reader, data: Any, record: str, dialect: str) -> LineKind:
     path = record
-    allowed = {"delimited": ("when", "columns", "fields"),
+    if "dialect" in data:  # a line kind may use another line dialect than the profile's
+        choices = ("delimited", "fixed", "regex")
+        if dialect == "keyvalue":
+            r.fail(f"{path}.dialect", "no per-kind dialect in a keyvalue profile", data["dialect"])
+        dialect = r.string(data, "dialect", path, choices=choices)
+    allowed = {"delimited": ("dialect", "when", "columns", "fields"),
                "keyvalue": ("when", "fields"),
-               "fixed": ("when", "columns", "fields"),
-               "regex": ("when", "pattern", "fields")}[dialect]
+               "fixed": ("dialect", "when", "columns", "fields"),
+               "regex": ("dialect", "when", "pattern", "fields")}[dialect]
     r.table(data, path, allowed)
     names: list[str] | None = None
     columns: tuple[str, ...] = ()
@@ -407,8 +412,8 @@ def _line_kind(r: _Reader, data: Any, record: str, dialect: str) -> LineKind:
     when = _condition(r, data["when"], f"{path}.when", names) if "when" in data else None
     fields = _fields(r, r.sub(data, "fields", path), f"{path}.fields", record, registers=False,
                      raw_names=names)
-    return LineKind(record=record, fields=fields, when=when, columns=columns, fixed=fixed,  # type: ignore[arg-type]
-                    pattern=pattern)
+    return LineKind(record=record, fields=fields, dialect=dialect,  # type: ignore[arg-type]
+                    when=when, columns=columns, fixed=fixed, pattern=pattern)
 
 
 def _serial(r: _Reader, doc: dict[str, Any], label: str, ref_c: float) -> SerialSpec:
@@ -470,8 +475,6 @@ def _serial(r: _Reader, doc: dict[str, Any], label: str, ref_c: float) -> Serial
     if kind == "keyvalue" and pair_sep is None and mode != "request":
         r.fail("dialect.pair_separator", "a pair separator for key=value lines in stream mode "
                "(answer blocks need mode = \"request\")")
-    if kind != "delimited" and kind != "keyvalue" and "separator" in d:
-        r.fail("dialect.separator", f"no separator for kind = {kind!r}", d["separator"])
     strip = r.boolean(d, "strip", "dialect", True)
     kinds = []
     for record in ("result", "calibration"):

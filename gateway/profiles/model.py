@@ -141,6 +141,7 @@ class LineKind:
 
     record: RecordKind
     fields: tuple[FieldSpec, ...]
+    dialect: Literal["delimited", "keyvalue", "fixed", "regex"] = "delimited"
     when: Condition | None = None
     columns: tuple[str, ...] = ()  # delimited
     fixed: tuple[FixedColumn, ...] = ()  # fixed-width
