@@ -131,7 +131,7 @@ def encode_value(
         return _from_bytes(data.ljust(2 * width, b"\x00"), "big", byte_order)
     code = NUMERIC_TYPES[kind][0]
     number = float(value) if kind == "float32" else int(value)
-    if kind == "float32" and not math.isnan(number) and abs(number) > 3.4028234663852886e38:
+    if kind == "float32" and math.isfinite(number) and abs(number) > 3.4028234663852886e38:
         raise DecodeError(f"{value!r} is out of float32 range")
     try:
         data = struct.pack(">" + code, number)
