@@ -552,7 +552,8 @@ def _modbus(r: _Reader, doc: dict[str, Any], label: str, ref_c: float) -> Modbus
         r.table(st, "modbus.state", ("address", "type", "codes", "word_order", "byte_order"))
         address = r.integer(st, "address", "modbus.state", lo=0, hi=65535)
         type_name = r.string(st, "type", "modbus.state", "uint16", ("uint16", "int16", "uint32"))
-        state = RegisterField(0, type_name, parse_type(type_name)[1],
+        # a standalone register: ``at`` is its absolute address
+        state = RegisterField(address, type_name, parse_type(type_name)[1],
                               r.string(st, "word_order", "modbus.state", wo, ("big", "little")),
                               r.string(st, "byte_order", "modbus.state", bo, ("big", "little")))
         codes = r.get(st, "codes", "modbus.state", (dict,), "a table of register value = state")

@@ -88,7 +88,11 @@ class StationContext:
 
 @dataclass(frozen=True, slots=True)
 class RegisterField:
-    """Where a value sits in a register block and how its words are laid out."""
+    """Where a value sits and how its words are laid out.
+
+    ``at`` is the offset inside a result slot or calibration block; for the standalone state
+    register it is the absolute address.
+    """
 
     at: int
     type: str

@@ -177,3 +177,10 @@ def test_acknowledge_disabled_unless_enabled(tmp_path: Path) -> None:
     path = _edit(tmp_path, "lf-mbrtu", "[modbus.state]",
                  "[modbus.acknowledge]\nenabled = true\naddress = 10\n\n[modbus.state]")
     _fails(path, "modbus.acknowledge.enabled", "function = 3")
+
+
+def test_state_register_keeps_its_address(tmp_path: Path) -> None:
+    path = _edit(tmp_path, "lf-mbtcp", "[modbus.state]\naddress = 0",
+                 "[modbus.state]\naddress = 50")
+    state = load_profile(path).modbus.state  # type: ignore[union-attr]
+    assert state is not None and state.at == 50

@@ -131,6 +131,7 @@ def test_counters_and_state() -> None:
     assert tcp.decode_counter([0x0001, 0x0002]) == 0x00010002
     assert rtu.decode_counter([0x0002, 0x0001]) == 0x00010002
     assert rtu.decode_calibration_counter([5, 0]) == 5
+    assert tcp.state is not None and (tcp.state.at, tcp.state.width) == (0, 1)
     assert tcp.decode_state([5]) == StationState.CALIBRATING
     assert tcp.decode_state([2]) == StationState.TESTING
     assert tcp.decode_state([6]) is None
