@@ -20,6 +20,7 @@ import pandas as pd
 from analytics._result import ResultMixin
 
 __all__ = [
+    "COUNT_COLUMNS",
     "DEFAULT_SHIFTS",
     "ShiftCalendar",
     "ShiftWindow",
@@ -191,28 +192,39 @@ class ShiftCalendar:
         return ts.dt.tz_convert(self.timezone).dt.date
 
 
+COUNT_COLUMNS = ("n", "parts", "first_pass", "final_pass", "tests", "no_part_id")
+
+
 def counts_to_shifts(
     counts: pd.DataFrame,
     calendar: ShiftCalendar,
     *,
     time_col: str = "bucket",
-    count_col: str = "n",
+    count_cols: Sequence[str] | None = None,
     bucket: timedelta = timedelta(hours=1),
 ) -> tuple[pd.DataFrame, bool]:
-    """Fold pre-aggregated UTC bucket counts (e.g. the store's hourly verdict counts) into shifts.
+    """Fold pre-aggregated UTC bucket counts (e.g. the store's hourly verdict or first-pass
+    counts) into shifts.
 
-    Each bucket goes to the shift its start falls in. Returns the summed frame (columns
-    ``shift_date``, ``shift``, the other non-count columns, ``n``) and ``exact``: False when some
-    bucket straddles a shift boundary (a zone with a non-whole-hour offset, or a shift boundary
-    not on the hour), in which case counts near that boundary may sit in the neighbouring shift.
+    Each bucket goes to the shift its start falls in; count columns (default: those of
+    ``COUNT_COLUMNS`` present) are summed, every other column is a grouping key. Returns the
+    summed frame (``shift_date``, ``shift``, keys, counts) and ``exact``: False when some bucket
+    straddles a shift boundary (a zone with a non-whole-hour offset, or a shift boundary not on
+    the hour), in which case counts near that boundary may sit in the neighbouring shift.
     """
-    if time_col not in counts.columns or count_col not in counts.columns:
+    cols = (
+        list(count_cols)
+        if count_cols is not None
+        else [c for c in COUNT_COLUMNS if c in counts.columns]
+    )
+    if time_col not in counts.columns or not cols or any(c not in counts.columns for c in cols):
         raise ValueError(
-            f"counts need columns {time_col!r} and {count_col!r}; got {', '.join(counts.columns)}"
+            f"counts need a {time_col!r} column and count column(s) "
+            f"{', '.join(cols or COUNT_COLUMNS)}; got {', '.join(map(str, counts.columns))}"
         )
+    group = [c for c in counts.columns if c != time_col and c not in cols]
     if counts.empty:
-        group = [c for c in counts.columns if c not in (time_col, count_col)]
-        return pd.DataFrame(columns=["shift_date", "shift", *group, count_col]), True
+        return pd.DataFrame(columns=["shift_date", "shift", *group, *cols]), True
     starts = pd.to_datetime(counts[time_col], utc=True)
     at_start = calendar.assign(starts)
     last = starts + pd.Timedelta(bucket) - pd.Timedelta(microseconds=1)
@@ -221,11 +233,10 @@ def counts_to_shifts(
         (at_start["shift"].astype(str) == at_end["shift"].astype(str)).all()
         and (at_start["shift_date"].astype(str) == at_end["shift_date"].astype(str)).all()
     )
-    group = [c for c in counts.columns if c not in (time_col, count_col)]
-    frame = pd.concat([at_start, counts[[*group, count_col]]], axis=1)
+    frame = pd.concat([at_start, counts[[*group, *cols]]], axis=1)
     frame = frame[frame["shift"].notna()]
     out = (
-        frame.groupby(["shift_date", "shift", *group], dropna=False, sort=True)[count_col]
+        frame.groupby(["shift_date", "shift", *group], dropna=False, sort=True)[cols]
         .sum()
         .reset_index()
     )

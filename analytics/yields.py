@@ -250,10 +250,11 @@ def yield_from_counts(
 ) -> pd.DataFrame:
     """Yields from the store's pre-aggregated counts (no row loading).
 
-    ``verdict_counts`` and ``first_pass_counts`` have the grouping columns, ``verdict`` and
-    ``n``; the latter counts each part's first test. Returns one row per group with tests,
-    aborted, passed, test_yield and (when first-pass counts are given) parts, first_pass,
-    first_pass_yield.
+    ``verdict_counts`` has the grouping columns, ``verdict`` and ``n``. ``first_pass_counts`` is
+    either the store's shape (grouping columns, ``parts``, ``first_pass``, ``final_pass``, …)
+    or ``verdict`` + ``n`` of each part's first test. Returns one row per group with tests,
+    aborted, passed_tests, test_yield and, with first-pass counts, parts, first_pass,
+    first_pass_yield (and final_pass, final_yield when given).
     """
     by = list(by)
 
@@ -285,12 +286,28 @@ def yield_from_counts(
     counted = out["tests"] - out["aborted"]
     out["test_yield"] = (out["passed_tests"] / counted).where(counted > 0)
     if first_pass_counts is not None:
-        fp = fold(first_pass_counts, "f_")
-        merged = out.merge(fp, on=by, how="left") if by else pd.concat([out, fp], axis=1)
-        merged = merged.fillna({"f_total": 0, "f_aborted": 0, "f_pass": 0})
-        out["parts"] = (merged["f_total"] - merged["f_aborted"]).astype(int).to_numpy()
-        out["first_pass"] = merged["f_pass"].astype(int).to_numpy()
+        if "parts" in first_pass_counts.columns:  # the store's shape: parts, first_pass, ...
+            _require(first_pass_counts, [*by, "parts", "first_pass"])
+            cols = [c for c in ("parts", "first_pass", "final_pass", "tests", "no_part_id")
+                    if c in first_pass_counts.columns]  # fmt: skip
+            fp = (first_pass_counts.groupby(by, dropna=False)[cols].sum().reset_index() if by
+                  else pd.DataFrame([first_pass_counts[cols].sum()]))  # fmt: skip
+            # the store's ``tests`` counts tests of those parts: keep it apart from ``tests``
+            fp = fp.rename(columns={"tests": "part_tests"})
+            cols = ["part_tests" if c == "tests" else c for c in cols]
+            merged = out.merge(fp, on=by, how="left") if by else pd.concat([out, fp], axis=1)
+            merged = merged.fillna({c: 0 for c in cols})
+            for c in cols:
+                out[c] = merged[c].astype(int).to_numpy()
+        else:  # verdict + n of each part's first test
+            fp = fold(first_pass_counts, "f_")
+            merged = out.merge(fp, on=by, how="left") if by else pd.concat([out, fp], axis=1)
+            merged = merged.fillna({"f_total": 0, "f_aborted": 0, "f_pass": 0})
+            out["parts"] = (merged["f_total"] - merged["f_aborted"]).astype(int).to_numpy()
+            out["first_pass"] = merged["f_pass"].astype(int).to_numpy()
         out["first_pass_yield"] = (out["first_pass"] / out["parts"]).where(out["parts"] > 0)
+        if "final_pass" in out.columns:
+            out["final_yield"] = (out["final_pass"] / out["parts"]).where(out["parts"] > 0)
     return out
 
 

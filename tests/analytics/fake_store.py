@@ -43,6 +43,12 @@ class FakeStore:
 
 
 def demo_store(seed: int = 1) -> FakeStore:
+    """The demo records (see ``demo_records``) behind the in-memory store."""
+    results, cals = demo_records(seed)
+    return FakeStore(results_frame(results), calibrations_frame(cals))
+
+
+def demo_records(seed: int = 1) -> tuple[list[TestResult], list[CalibrationEvent]]:
     """Two stations of line L1, program HX-210: 40 parts (some retested), a gauge study of
     5 parts × 2 stations × 3 trials, 3 candidate masters, and 20 daily calibrations per
     station, the second station's master loss creeping up."""
@@ -96,4 +102,4 @@ def demo_store(seed: int = 1) -> FakeStore:
                 standard_ref_pressure_pa=50_000.0, ratio=standard / master,
                 sensitivity=5.0 / (standard - master), passed=True,
             ))  # fmt: skip
-    return FakeStore(results_frame(results), calibrations_frame(cals))
+    return results, cals

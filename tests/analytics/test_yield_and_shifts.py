@@ -202,3 +202,24 @@ def test_pareto() -> None:
     assert v.rows[0].category == "reject" and v.total == 5
     c = pareto_from_counts(pd.DataFrame({"verdict": ["pass", "reject"], "n": [9, 1]}))
     assert c.rows[0].share == pytest.approx(0.9)
+
+
+def test_yield_from_store_shaped_first_pass_counts_by_shift() -> None:
+    # Hourly first-pass counts in the store's shape (a part sits in the hour of its first test)
+    # fold into Berlin shifts and give first-pass and final yield per shift.
+    fp = pd.DataFrame({
+        "station": "S1",
+        "bucket": pd.to_datetime(["2026-03-28T20:00Z", "2026-03-28T21:00Z", "2026-03-29T03:00Z",
+                                  "2026-03-29T04:00Z"], utc=True),
+        "parts": [10, 20, 30, 5], "first_pass": [9, 18, 24, 5], "final_pass": [10, 20, 29, 5],
+        "tests": [11, 22, 37, 5], "no_part_id": 0,
+    })  # fmt: skip
+    folded, exact = counts_to_shifts(fp, BERLIN)
+    assert exact and set(folded.columns) >= {"shift_date", "shift", "station", "parts", "tests"}
+    night = folded[(folded["shift"] == "night")].iloc[0]
+    assert (int(night["parts"]), int(night["first_pass"])) == (50, 42)  # 21:00Z and 03:00Z
+    verdicts = pd.DataFrame({"shift": ["night", "night"], "verdict": ["pass", "reject"],
+                             "n": [52, 7]})  # fmt: skip
+    out = yield_from_counts(verdicts, folded[folded["shift"] == "night"], by=["shift"])
+    assert out.loc[0, "first_pass_yield"] == pytest.approx(42 / 50)
+    assert out.loc[0, "final_yield"] == pytest.approx(49 / 50)
