@@ -25,7 +25,18 @@ if TYPE_CHECKING:
 ORDER = 40
 SCHEMA = 1
 DEFAULT_STORE = "sqlite:///./leakfleet.db"
-KINDS = ("yield", "capability", "calibration", "grr", "type1", "advise", "master")
+KINDS = (
+    "yield",
+    "capability",
+    "calibration",
+    "grr",
+    "type1",
+    "advise",
+    "master",
+    "part",
+    "retests",
+    "standards",
+)
 
 _RELATIVE = re.compile(r"^\s*(\d+(?:\.\d+)?)\s*([smhdw])\s*$")
 _SECONDS = {"s": 1, "m": 60, "h": 3600, "d": 86400, "w": 7 * 86400}
@@ -202,6 +213,59 @@ def register(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
     )
     p.add_argument("--min-tests", type=int, default=3, help="readings needed per candidate (3)")
     p.set_defaults(func=_handler("master"))
+
+    p = kinds.add_parser(
+        "part",
+        parents=[common, source],
+        help="one part's history: every test and retest with the calibration in force",
+        description=(
+            "Every test of PART_ID across all stations, oldest first, with the calibration in "
+            "force at each test (the station's latest calibration of that program before it)."
+        ),
+    )
+    p.add_argument("part_id", metavar="PART_ID", help="the part's id (serial number)")
+    p.set_defaults(func=_handler("part"))
+
+    p = kinds.add_parser(
+        "retests",
+        parents=[common, source],
+        help="retest-until-pass: parts that passed only on a retest, marginal passes, alarms",
+        description=(
+            "Parts that failed and later passed, by station/program/shift; the share of passes "
+            "that needed a retest; parts that passed only after two or more rejects; passes in "
+            "the guard band after a reject; an alarm when a station's retest share jumps in a "
+            "day or shift (binomial test against its other days or shifts)."
+        ),
+    )
+    p.add_argument("--by", default="station", help="station,program,shift,day (default station)")
+    p.add_argument("--timezone", default="UTC", help="plant time zone for day and shift")
+    p.add_argument(
+        "--shifts",
+        default="early=06:00-14:00,late=14:00-22:00,night=22:00-06:00",
+        help="shift calendar NAME=HH:MM-HH:MM,...",
+    )
+    p.add_argument("--guard-band", help="guard band below the limit, e.g. 0.2sccm (10 %% of limit)")
+    p.add_argument("--alarm-period", choices=("day", "shift"), default="day", help="alarm period")
+    p.set_defaults(func=_handler("retests"))
+
+    p = kinds.add_parser(
+        "standards",
+        parents=[common, source],
+        help="leak standards due or overdue; calibrations run with an overdue standard",
+        description=(
+            "Reads the leak-standard register from --standards FILE.csv (columns serial, "
+            "station, nominal_sccm, reference_pressure_pa, certificate_date and due_date or "
+            "interval_months; optional uncertainty_pct) and lists which are due within --within "
+            "days or overdue; with a store, flags calibrations run with an overdue standard and "
+            "the measured sensitivity's drift per standard."
+        ),
+    )
+    p.add_argument("--standards", required=True, metavar="FILE.csv", help="leak-standard register")
+    p.add_argument("--within", type=int, default=30, help="days ahead that count as due (30)")
+    p.add_argument("--today", help="the date to judge on (default today, plant time zone)")
+    p.add_argument("--timezone", default="UTC", help="plant time zone for dates")
+    p.add_argument("--no-store", action="store_true", help="register only, do not read the store")
+    p.set_defaults(func=_handler("standards"))
 
 
 def _handler(kind: str) -> Callable[[argparse.Namespace], int]:
@@ -387,6 +451,9 @@ def build_report(kind: str, args: argparse.Namespace, store: Any | None = None) 
         "type1": _type1,
         "advise": _advise,
         "master": _master,
+        "part": _part,
+        "retests": _retests,
+        "standards": _standards,
     }
     opened: list[Any] = []
 
@@ -952,6 +1019,237 @@ def _master(args: argparse.Namespace, get_store: Callable[[], Any]) -> Report:
         + (f"\n  {sel.note}" if sel.note else "")
     )
     return Report("master", filters, {"source": source, **sel.to_dict()}, text)
+
+
+def _part(args: argparse.Namespace, get_store: Callable[[], Any]) -> Report:
+    from analytics import part_history
+
+    f = filters_from(args)
+    store = get_store()
+    results = _store_results(store, f, part_id=args.part_id)
+    cals = _store_calibrations(store, Filters(f.since, f.until)) if not results.empty else None
+    h = part_history(results, cals, args.part_id)
+    if not h.tests:
+        text = f"Part {args.part_id}: no tests in the selection."
+    else:
+        text = (
+            f"Part {args.part_id}: {h.note}; final verdict {h.final_verdict}"
+            + (f" after {h.rejects_before_pass} reject(s)" if h.rejects_before_pass else "")
+            + "\n"
+            + table(
+                [
+                    "ended (UTC)",
+                    "station",
+                    "program",
+                    "cycle",
+                    "verdict",
+                    "leak sccm",
+                    "limit",
+                    "calibration (UTC)",
+                    "master Pa",
+                    "standard Pa",
+                ],
+                [
+                    [
+                        t.ended_at.strftime("%Y-%m-%d %H:%M:%S"),
+                        t.station,
+                        t.program,
+                        t.cycle,
+                        t.verdict,
+                        _num(t.leak_rate_sccm),
+                        _num(t.reject_limit_sccm),
+                        t.calibration_at.strftime("%Y-%m-%d %H:%M") if t.calibration_at else "none",
+                        _num(t.master_loss_pa),
+                        _num(t.standard_loss_pa),
+                    ]
+                    for t in h.tests
+                ],
+            )
+        )
+    return Report("part", f.to_dict(), h.to_dict(), text)
+
+
+def _retests(args: argparse.Namespace, get_store: Callable[[], Any]) -> Report:
+    from analytics import ShiftCalendar, retest_analysis
+
+    f = filters_from(args)
+    by = tuple(b.strip() for b in args.by.split(",") if b.strip())
+    for key in by:
+        if key not in ("station", "program", "line", "shift", "day"):
+            raise ValueError(f"--by: cannot group retests by {key!r}")
+    calendar = ShiftCalendar(args.timezone, _parse_shifts(args.shifts))
+    guard = _quantity(args.guard_band, "leak", "sccm", "--guard-band")
+    results = _store_results(get_store(), f)
+    r = retest_analysis(
+        results, by=by, calendar=calendar, guard_band=guard, alarm_period=args.alarm_period
+    )
+    lines = [
+        f"Retests: {r.parts} parts with ids, {r.passed_parts} passed, {r.passed_after_retest} "
+        f"of them only on a retest ({_pct(r.share_of_passes_after_retest)} of passes); {r.note}",
+        "Passed only after ≥ 2 rejects: "
+        + (", ".join(r.passed_after_two_or_more_rejects) or "none"),
+    ]
+    if r.by_group:
+        lines += [
+            "",
+            table(
+                [*by, "passes", "after retest", "share"],
+                [
+                    [*(g[k] for k in by), g["passes"], g["passed_after_retest"], _pct(g["share"])]
+                    for g in r.by_group
+                ],
+            ),
+        ]
+    if r.marginal_passes:
+        lines += [
+            "",
+            "Marginal passes after a reject (in the guard band)",
+            table(
+                ["part", "station", "ended (UTC)", "leak sccm", "limit", "rejects before"],
+                [
+                    [
+                        m["part_id"],
+                        m["station"],
+                        str(m["ended_at"])[:19],
+                        _num(m["leak_rate_sccm"]),
+                        _num(m["reject_limit_sccm"]),
+                        m["rejects_before"],
+                    ]
+                    for m in r.marginal_passes
+                ],
+            ),
+        ]
+    lines += ["", "Alarms: " + ("none" if not r.alarms else "")]
+    lines += [f"  {a.message}" for a in r.alarms]
+    return Report("retests", f.to_dict(), r.to_dict(), "\n".join(lines))
+
+
+def _read_standards(path: str) -> list[Any]:
+    """The leak-standard register from CSV; errors name the line and column."""
+    from analytics import LeakStandard
+
+    frame = read_tidy_csv(
+        path,
+        {
+            "serial": str,
+            "station": str,
+            "nominal_sccm": float,
+            "reference_pressure_pa": float,
+            "certificate_date": str,
+        },
+    )
+    with Path(path).open(newline="", encoding="utf-8-sig") as handle:
+        extra = list(csv.DictReader(handle))
+    out = []
+    for i, (row, raw) in enumerate(zip(frame.to_dict("records"), extra, strict=True), start=2):
+        raw = {k.strip().lower(): (v or "").strip() for k, v in raw.items() if k}
+
+        def day(col: str, text: str, line: int = i) -> date:
+            try:
+                return date.fromisoformat(text)
+            except ValueError:
+                raise ValueError(
+                    f"{path}:{line}: column {col!r}: expected a date YYYY-MM-DD, got {text!r}"
+                ) from None
+
+        due = raw.get("due_date", "")
+        months = raw.get("interval_months", "")
+        if not due and not months:
+            raise ValueError(f"{path}:{i}: give column 'due_date' or 'interval_months'")
+        try:
+            interval = int(months) if months else None
+            uncertainty = float(raw["uncertainty_pct"]) if raw.get("uncertainty_pct") else None
+        except ValueError:
+            raise ValueError(
+                f"{path}:{i}: interval_months must be a whole number and uncertainty_pct a number"
+            ) from None
+        out.append(
+            LeakStandard(
+                serial=row["serial"],
+                station=row["station"],
+                nominal_sccm=row["nominal_sccm"],
+                reference_pressure_pa=row["reference_pressure_pa"],
+                certificate_date=day("certificate_date", row["certificate_date"]),
+                due_date=day("due_date", due) if due else None,
+                interval_months=interval,
+                uncertainty_pct=uncertainty,
+            )
+        )
+    return out
+
+
+def _standards(args: argparse.Namespace, get_store: Callable[[], Any]) -> Report:
+    from zoneinfo import ZoneInfo
+
+    from analytics import flag_overdue_calibrations, standard_drift, standards_due
+
+    standards = _read_standards(args.standards)
+    today = (
+        date.fromisoformat(args.today)
+        if args.today
+        else datetime.now(UTC).astimezone(ZoneInfo(args.timezone)).date()
+    )
+    status = standards_due(standards, today, args.within)
+    text = f"Leak standards on {today.isoformat()} (due within {args.within} days)\n" + table(
+        ["serial", "station", "nominal sccm", "due", "days left", "status"],
+        [
+            [
+                s.serial,
+                s.station,
+                _num(s.nominal_sccm),
+                s.due_date.isoformat(),
+                s.days_left,
+                s.status,
+            ]
+            for s in status
+        ],
+    )
+    result: dict[str, Any] = {
+        "today": today.isoformat(),
+        "standards": [s.to_dict() for s in status],
+    }
+    filters = None
+    if not args.no_store:
+        f = filters_from(args)
+        filters = f.to_dict()
+        cals = _store_calibrations(get_store(), f)
+        overdue_runs: list[dict[str, Any]] = []
+        drift: list[dict[str, Any]] = []
+        if not cals.empty:
+            flagged = flag_overdue_calibrations(cals, standards, args.timezone)
+            bad = flagged[flagged["standard_overdue"]]
+            overdue_runs = [
+                {
+                    "station": str(r["station"]),
+                    "program": str(r["program"]),
+                    "ended_at": pd_iso(r["ended_at"]),
+                    "standard": r["standard_serial"],
+                }
+                for r in bad.to_dict("records")
+            ]
+            for s in standards:
+                d = standard_drift(cals, s)
+                drift.append({"serial": s.serial, "station": s.station, **d.to_dict()})
+        result |= {"overdue_calibrations": overdue_runs, "sensitivity_drift": drift}
+        text += f"\n\nCalibrations run with an overdue standard: {len(overdue_runs)}"
+        text += "".join(
+            f"\n  {o['ended_at'][:16]}  {o['station']}  {o['program']}  {o['standard']}"
+            for o in overdue_runs[:20]
+        )
+        if drift:
+            text += "\n\nMeasured sensitivity per standard since its certificate\n" + table(
+                ["serial", "station", "n", "slope per day", "status"],
+                [
+                    [d["serial"], d["station"], d["n"], _num(d["slope_per_day"]), d["status"]]
+                    for d in drift
+                ],
+            )
+    return Report("standards", filters, result, text)
+
+
+def pd_iso(value: Any) -> str:
+    """ISO 8601 text of a pandas/py datetime."""
+    return str(value.isoformat()) if hasattr(value, "isoformat") else str(value)
 
 
 if __name__ == "__main__":  # pragma: no cover

@@ -148,8 +148,56 @@ def test_help_for_every_kind() -> None:
     out = subprocess.run([sys.executable, "-m", "gateway", "report", "--help"], cwd=root,
                          capture_output=True, text=True, timeout=60)  # fmt: skip
     assert out.returncode == 0
-    for kind in ("yield", "capability", "calibration", "grr", "type1", "advise", "master"):
+    from gateway.cli.cmd_report import KINDS
+
+    for kind in KINDS:
         assert kind in out.stdout
         with pytest.raises(SystemExit) as exit_info:
             main(["report", kind, "--help"])
         assert exit_info.value.code == 0
+
+
+def test_part_history_report() -> None:
+    report = _run(["part", "HX210-0003"], store=demo_store())
+    tests = report.result["tests"]
+    assert [t["verdict"] for t in tests] == ["reject", "pass"]
+    assert all(t["calibration_at"] is not None for t in tests)
+    assert "final verdict pass after 1 reject(s)" in report.text
+    assert "no tests" in _run(["part", "nope"], store=demo_store()).text
+
+
+def test_retests_report() -> None:
+    report = _run(["retests", "--by", "station,shift", "--timezone", "Europe/Berlin"],
+                  store=demo_store())  # fmt: skip
+    assert report.result["passed_after_retest"] == 4
+    json.dumps(report.document(), allow_nan=False)
+
+
+def test_standards_report(tmp_path: Path) -> None:
+    path = tmp_path / "standards.csv"
+    path.write_text(
+        "serial,station,nominal_sccm,reference_pressure_pa,certificate_date,due_date,interval_months\n"
+        "LS-3021,L1-S1,5,50000,2025-03-01,,12\n"
+        "LS-3022,L1-S2,5,50000,2025-02-01,2026-02-20,\n"
+    )
+    report = _run(["standards", "--standards", str(path), "--today", "2026-02-25",
+                   "--timezone", "Europe/Berlin"], store=demo_store())  # fmt: skip
+    status = {s["serial"]: s for s in report.result["standards"]}
+    assert (
+        status["LS-3021"]["status"] == "due soon" and status["LS-3021"]["due_date"] == "2026-03-01"
+    )
+    assert status["LS-3022"]["status"] == "overdue"
+    # L1-S2 calibrated daily until 2026-03-01: the runs after 20 Feb used an overdue standard.
+    overdue = report.result["overdue_calibrations"]
+    assert overdue and {o["station"] for o in overdue} == {"L1-S2"}
+    assert all(o["ended_at"] >= "2026-02-21" for o in overdue)
+
+
+def test_standards_bad_date_names_line_and_column(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    path = tmp_path / "s.csv"
+    path.write_text("serial,station,nominal_sccm,reference_pressure_pa,certificate_date,due_date\n"
+                    "LS-1,S1,5,50000,01.02.2025,2026-01-01\n")  # fmt: skip
+    assert main(["report", "standards", "--standards", str(path), "--no-store"]) == 2
+    assert "s.csv:2: column 'certificate_date': expected a date" in capsys.readouterr().err

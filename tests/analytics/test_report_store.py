@@ -27,6 +27,8 @@ KINDS = [
     ["type1", "--part", "M-A", "--reference", "-0.3"],
     ["advise", "--station", "L1-S2"],
     ["master", "--parts", "M-A,M-B,M-C"],
+    ["part", "HX210-0013"],
+    ["retests", "--by", "station,shift"],
 ]
 WINDOW = ["--since", "2026-01-01", "--until", "2026-04-01"]
 
@@ -65,4 +67,4 @@ def test_report_from_sqlite_matches_reference(
 def test_missing_store_file_is_one_line(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
     code = main(["report", "yield", "--store", f"sqlite:///{tmp_path}/nope/none.db"])
     err = capsys.readouterr().err
-    assert code in (0, 2) and "Traceback" not in err
+    assert code == 2 and "error:" in err and "Traceback" not in err
