@@ -37,8 +37,10 @@ __all__ = [
     "bissell_interval",
     "capability",
     "capability_from_summary",
+    "fixed_edges",
     "guard_band_share",
     "histogram",
+    "histogram_from_counts",
     "ppm_above",
 ]
 
@@ -122,6 +124,46 @@ def histogram(
         method=method,
         reject_limit=reject_limit,
         lower_limit=lower_limit,
+    )
+
+
+def fixed_edges(
+    lo: float,
+    hi: float,
+    bins: int = 30,
+    *,
+    reject_limit: float | None = None,
+    lower_limit: float | None = None,
+) -> list[float]:
+    """Equal-width edges over [lo, hi] widened to include the limits, for the store's
+    ``histogram(edges=...)`` when only summary statistics (min, max) are at hand."""
+    if bins < 1:
+        raise ValueError(f"bins must be >= 1, got {bins}")
+    low = min(lo, lower_limit) if lower_limit is not None else lo
+    high = max(hi, reject_limit) if reject_limit is not None else hi
+    if high <= low:
+        high = low + (abs(low) * 1e-3 or 1e-3)
+    return [float(e) for e in np.linspace(low, high, bins + 1)]
+
+
+def histogram_from_counts(
+    counts: Sequence[tuple[float, float, int]],
+    *,
+    reject_limit: float | None = None,
+    lower_limit: float | None = None,
+) -> Histogram:
+    """A Histogram from (bin_lo, bin_hi, n) rows as the store returns them; rows with an
+    infinite edge hold the readings below / above the range."""
+    under = sum(int(n) for lo, _, n in counts if math.isinf(lo))
+    over = sum(int(n) for _, hi, n in counts if math.isinf(hi))
+    inner = sorted(
+        (float(lo), float(hi), int(n))
+        for lo, hi, n in counts
+        if not math.isinf(lo) and not math.isinf(hi)
+    )
+    edges = [inner[0][0], *(hi for _, hi, _ in inner)] if inner else []
+    return Histogram(
+        edges, [n for _, _, n in inner], under, over, "fixed", reject_limit, lower_limit
     )
 
 

@@ -110,3 +110,16 @@ def test_histogram_counts_every_reading(values: list[float], bins: int) -> None:
     h = histogram(values, method="fixed", bins=bins)
     assert sum(h.counts) + h.under + h.over == len(values)
     assert len(h.edges) == len(h.counts) + 1
+
+
+def test_fixed_edges_and_counts_round_trip() -> None:
+    from analytics.capability import fixed_edges, histogram_from_counts
+
+    edges = fixed_edges(-0.5, 1.5, 4, reject_limit=2.0)
+    assert edges == pytest.approx([-0.5, 0.125, 0.75, 1.375, 2.0])
+    x = np.array([-1.0, 0.0, 0.5, 1.0, 1.9, 2.5, 3.0])
+    counts, _ = np.histogram(x[(x >= -0.5) & (x <= 2.0)], bins=edges)  # numpy's binning rule
+    rows = [(-math.inf, -0.5, 1), *zip(edges[:-1], edges[1:], counts.tolist(), strict=True),
+            (2.0, math.inf, 2)]  # fmt: skip
+    h = histogram_from_counts(rows, reject_limit=2.0)
+    assert h.edges == edges and h.counts == counts.tolist() and (h.under, h.over) == (1, 2)
