@@ -326,45 +326,28 @@ def grr_anova(
     f_int = ms_int / ms_err if ms_err > 0 else math.inf
     p_int = float(stats.f.sf(f_int, df_int, df_err)) if ms_err > 0 else 0.0
     pooled = p_int > pool_alpha
+    # Pooled: interaction joins repeatability and main effects are tested against the pooled
+    # mean square; otherwise against the interaction mean square (AIAG MSA 4th ed.).
+    df_res, ms_res = df_int + df_err, (ss_int + ss_err) / (df_int + df_err)
+    df_den, ms_den = (df_res, ms_res) if pooled else (df_int, ms_int)
+    f_op, f_part = ms_op / ms_den, ms_part / ms_den
+    table = [
+        AnovaRow(
+            "part", df_part, ss_part, ms_part, f_part, float(stats.f.sf(f_part, df_part, df_den))
+        ),
+        AnovaRow("operator", df_op, ss_op, ms_op, f_op, float(stats.f.sf(f_op, df_op, df_den))),
+    ]
     if pooled:
-        df_res = df_int + df_err
-        ms_res = (ss_int + ss_err) / df_res
-        f_op, f_part = ms_op / ms_res, ms_part / ms_res
-        table = [
-            AnovaRow(
-                "part",
-                df_part,
-                ss_part,
-                ms_part,
-                f_part,
-                float(stats.f.sf(f_part, df_part, df_res)),
-            ),
-            AnovaRow("operator", df_op, ss_op, ms_op, f_op, float(stats.f.sf(f_op, df_op, df_res))),
-            AnovaRow("repeatability (pooled)", df_res, ss_int + ss_err, ms_res, None, None),
-        ]
-        var_e = ms_res
-        var_int = 0.0
-        var_op = max(0.0, (ms_op - ms_res) / (p * r))
-        var_part = max(0.0, (ms_part - ms_res) / (o * r))
+        table.append(
+            AnovaRow("repeatability (pooled)", df_res, ss_int + ss_err, ms_res, None, None)
+        )
     else:
-        f_op, f_part = ms_op / ms_int, ms_part / ms_int
-        table = [
-            AnovaRow(
-                "part",
-                df_part,
-                ss_part,
-                ms_part,
-                f_part,
-                float(stats.f.sf(f_part, df_part, df_int)),
-            ),
-            AnovaRow("operator", df_op, ss_op, ms_op, f_op, float(stats.f.sf(f_op, df_op, df_int))),
-            AnovaRow("part x operator", df_int, ss_int, ms_int, f_int, p_int),
-            AnovaRow("repeatability", df_err, ss_err, ms_err, None, None),
-        ]
-        var_e = ms_err
-        var_int = max(0.0, (ms_int - ms_err) / r)
-        var_op = max(0.0, (ms_op - ms_int) / (p * r))
-        var_part = max(0.0, (ms_part - ms_int) / (o * r))
+        table.append(AnovaRow("part x operator", df_int, ss_int, ms_int, f_int, p_int))
+        table.append(AnovaRow("repeatability", df_err, ss_err, ms_err, None, None))
+    var_e = ms_res if pooled else ms_err
+    var_int = 0.0 if pooled else max(0.0, (ms_int - ms_err) / r)
+    var_op = max(0.0, (ms_op - ms_den) / (p * r))
+    var_part = max(0.0, (ms_part - ms_den) / (o * r))
     ss_total = float(((cube - grand) ** 2).sum())
     table.append(AnovaRow("total", o * p * r - 1, ss_total, ss_total / (o * p * r - 1), None, None))
     note = f"interaction p = {p_int:.3g} " + (

@@ -25,6 +25,7 @@ if TYPE_CHECKING:
 ORDER = 40
 SCHEMA = 1
 DEFAULT_STORE = "sqlite:///./leakfleet.db"
+DEFAULT_SHIFTS = "early=06:00-14:00,late=14:00-22:00,night=22:00-06:00"
 KINDS = (
     "yield",
     "capability",
@@ -69,6 +70,17 @@ def register(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
     source.add_argument("--station", help="only this station")
     source.add_argument("--line", help="only this line")
     source.add_argument("--program", help="only this test program")
+    shifts = argparse.ArgumentParser(add_help=False)
+    shifts.add_argument(
+        "--timezone",
+        default="UTC",
+        help="plant time zone (IANA) for day and shift, e.g. Europe/Berlin",
+    )
+    shifts.add_argument(
+        "--shifts",
+        default=DEFAULT_SHIFTS,
+        help=f"shift calendar NAME=HH:MM-HH:MM,... on the local clock (default {DEFAULT_SHIFTS})",
+    )
     csv_input = argparse.ArgumentParser(add_help=False)
     csv_input.add_argument(
         "--input", metavar="FILE.csv", help="read a tidy CSV file instead of the store"
@@ -76,7 +88,7 @@ def register(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
 
     p = kinds.add_parser(
         "yield",
-        parents=[common, source],
+        parents=[common, source, shifts],
         help="first-pass yield, final yield, retest rate, reject Pareto",
         description=(
             "First-pass yield (a part's first test decides; falls back to test-level yield "
@@ -91,14 +103,11 @@ def register(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
         help="comma-separated groupings: station,line,program,part,day,shift (default station)",
     )
     p.add_argument(
-        "--timezone", default="UTC", help="plant time zone for day and shift, e.g. Europe/Berlin"
+        "--pareto",
+        choices=("reason", "verdict"),
+        default="reason",
+        help="Pareto of reject reasons (default) or of all verdicts",
     )
-    p.add_argument(
-        "--shifts",
-        default="early=06:00-14:00,late=14:00-22:00,night=22:00-06:00",
-        help="shift calendar NAME=HH:MM-HH:MM,... on the local clock (default three 8 h shifts)",
-    )
-    p.add_argument("--pareto", choices=("reason", "verdict"), default="reason", help="Pareto of")
     p.set_defaults(func=_handler("yield"))
 
     p = kinds.add_parser(
@@ -228,7 +237,7 @@ def register(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
 
     p = kinds.add_parser(
         "retests",
-        parents=[common, source],
+        parents=[common, source, shifts],
         help="retest-until-pass: parts that passed only on a retest, marginal passes, alarms",
         description=(
             "Parts that failed and later passed, by station/program/shift; the share of passes "
@@ -238,12 +247,6 @@ def register(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
         ),
     )
     p.add_argument("--by", default="station", help="station,program,shift,day (default station)")
-    p.add_argument("--timezone", default="UTC", help="plant time zone for day and shift")
-    p.add_argument(
-        "--shifts",
-        default="early=06:00-14:00,late=14:00-22:00,night=22:00-06:00",
-        help="shift calendar NAME=HH:MM-HH:MM,...",
-    )
     p.add_argument("--guard-band", help="guard band below the limit, e.g. 0.2sccm (10 %% of limit)")
     p.add_argument("--alarm-period", choices=("day", "shift"), default="day", help="alarm period")
     p.set_defaults(func=_handler("retests"))
