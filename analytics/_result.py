@@ -14,6 +14,7 @@ from enum import Enum
 from typing import Any
 
 import numpy as np
+import pandas as pd
 
 __all__ = ["ResultMixin", "jsonable"]
 
@@ -41,6 +42,8 @@ def jsonable(value: Any) -> Any:
         return [jsonable(v) for v in value]
     if isinstance(value, np.ndarray):
         return [jsonable(v) for v in value.tolist()]
+    if value is pd.NA or value is pd.NaT:
+        return None
     if hasattr(value, "isoformat"):  # pandas Timestamp
         return value.isoformat()
     return value

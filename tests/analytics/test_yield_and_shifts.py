@@ -223,3 +223,13 @@ def test_yield_from_store_shaped_first_pass_counts_by_shift() -> None:
     out = yield_from_counts(verdicts, folded[folded["shift"] == "night"], by=["shift"])
     assert out.loc[0, "first_pass_yield"] == pytest.approx(42 / 50)
     assert out.loc[0, "final_yield"] == pytest.approx(49 / 50)
+
+
+def test_to_dict_turns_missing_values_into_null() -> None:
+    import json
+
+    from analytics._result import jsonable
+
+    assert json.loads(json.dumps(jsonable({"a": pd.NA, "b": pd.NaT, "c": float("nan")}))) == {
+        "a": None, "b": None, "c": None
+    }  # fmt: skip
