@@ -21,6 +21,8 @@ __all__ = ["ResultMixin", "jsonable"]
 
 def jsonable(value: Any) -> Any:
     """Convert a value (recursively) to something ``json.dumps`` accepts without NaN."""
+    if value is None or value is pd.NA or value is pd.NaT:  # NaT is a datetime: check first
+        return None
     if dataclasses.is_dataclass(value) and not isinstance(value, type):
         return {f.name: jsonable(getattr(value, f.name)) for f in dataclasses.fields(value)}
     if isinstance(value, Enum):
@@ -42,8 +44,6 @@ def jsonable(value: Any) -> Any:
         return [jsonable(v) for v in value]
     if isinstance(value, np.ndarray):
         return [jsonable(v) for v in value.tolist()]
-    if value is pd.NA or value is pd.NaT:
-        return None
     if hasattr(value, "isoformat"):  # pandas Timestamp
         return value.isoformat()
     return value
