@@ -8,7 +8,7 @@ from pathlib import Path
 
 from gateway.errors import ConfigError, StoreError
 
-__all__ = ["EPOCH", "from_us", "sqlite_path", "store_error", "to_us"]
+__all__ = ["ACCEPTED_URLS", "EPOCH", "from_us", "sqlite_path", "store_error", "to_us"]
 
 EPOCH = datetime(1970, 1, 1, tzinfo=UTC)
 _US = timedelta(microseconds=1)
