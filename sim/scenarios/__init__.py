@@ -1,0 +1,1 @@
+"""Built-in scenarios (TOML files shipped with the package)."""
