@@ -41,6 +41,7 @@ from gateway.records import (
 from gateway.store._sqlite import from_us, sqlite_path, store_error, to_us
 from gateway.store.schema import (
     CALIBRATION_COLUMNS,
+    HOUR_US,
     MIGRATIONS,
     QUARANTINE_COLUMNS,
     RESULT_COLUMNS,
@@ -255,17 +256,16 @@ class Journal:
             conn = self._conn
             try:
                 conn.execute("BEGIN IMMEDIATE")
-                before = conn.total_changes
+                # rowcount, not total_changes: the summary triggers' own writes must not count
+                inserted = quarantined = 0
                 if results:
-                    conn.executemany(_INSERT_RESULT, results)
+                    inserted += conn.executemany(_INSERT_RESULT, results).rowcount
                 if calibrations:
-                    conn.executemany(_INSERT_CALIBRATION, calibrations)
+                    inserted += conn.executemany(_INSERT_CALIBRATION, calibrations).rowcount
                 if statuses:
-                    conn.executemany(_INSERT_STATUS, statuses)
-                records_done = conn.total_changes
+                    inserted += conn.executemany(_INSERT_STATUS, statuses).rowcount
                 if rejected:
-                    conn.executemany(_INSERT_QUARANTINE, rejected)
-                after = conn.total_changes
+                    quarantined = conn.executemany(_INSERT_QUARANTINE, rejected).rowcount
                 conn.execute("COMMIT")
             except sqlite3.Error as exc:
                 self._rollback()
@@ -273,8 +273,6 @@ class Journal:
             except BaseException:
                 self._rollback()
                 raise
-        inserted = records_done - before
-        quarantined = after - records_done
         return WriteStats(inserted, total - inserted - quarantined, quarantined)
 
     def _rollback(self) -> None:
@@ -352,7 +350,8 @@ class Journal:
         """Delete records older than ``older_than`` that every listed sink has confirmed.
 
         With no sinks listed, age alone decides. Quarantine rows (which no sink forwards) go by
-        age. Returns the number of rows deleted.
+        age. The summaries of the hours and parts touched are rebuilt from the rows that
+        remain, so they always describe what is stored. Returns the number of rows deleted.
         """
         cutoff = to_us(older_than)
         deleted = 0
@@ -360,7 +359,6 @@ class Journal:
             conn = self._conn
             try:
                 conn.execute("BEGIN IMMEDIATE")
-                before = conn.total_changes
                 for kind in KINDS:
                     table = TABLES[kind]
                     bound: int | None = None
@@ -371,17 +369,21 @@ class Journal:
                         ).fetchone()
                         seq = int(row[0]) if row else 0
                         bound = seq if bound is None else min(bound, seq)
-                    if bound is None:
-                        conn.execute(
-                            f"DELETE FROM {table} WHERE {_AGE_COLUMN[table]} < ?", (cutoff,)
-                        )
-                    elif bound > 0:
-                        conn.execute(
-                            f"DELETE FROM {table} WHERE seq <= ? AND {_AGE_COLUMN[table]} < ?",
-                            (bound, cutoff),
-                        )
-                conn.execute("DELETE FROM quarantine WHERE received_at < ?", (cutoff,))
-                deleted = conn.total_changes - before
+                    if bound == 0:
+                        continue  # a listed sink has confirmed nothing of this kind yet
+                    cond = f"{_AGE_COLUMN[table]} < :cutoff"
+                    if bound is not None:
+                        cond += " AND seq <= :bound"
+                    params = {"cutoff": cutoff, "bound": bound}
+                    if kind == "result":
+                        deleted += self._prune_results(cond, params)
+                    else:
+                        deleted += conn.execute(
+                            f"DELETE FROM {table} WHERE {cond}", params
+                        ).rowcount
+                deleted += conn.execute(
+                    "DELETE FROM quarantine WHERE received_at < ?", (cutoff,)
+                ).rowcount
                 conn.execute("COMMIT")
             except sqlite3.Error as exc:
                 self._rollback()
@@ -390,6 +392,55 @@ class Journal:
                 self._rollback()
                 raise
         return deleted
+
+    def _prune_results(self, cond: str, params: dict[str, Any]) -> int:
+        """Delete results matching ``cond`` and keep result_hours / parts true to the rest."""
+        conn = self._conn
+        h = HOUR_US
+        conn.execute("CREATE TEMP TABLE IF NOT EXISTS prune_hours (hour INTEGER PRIMARY KEY)")
+        conn.execute("CREATE TEMP TABLE IF NOT EXISTS prune_parts (part_id TEXT PRIMARY KEY)")
+        conn.execute("DELETE FROM prune_hours")
+        conn.execute("DELETE FROM prune_parts")
+        conn.execute(
+            f"INSERT OR IGNORE INTO prune_hours SELECT (ended_at / {h}) * {h} FROM results "
+            f"WHERE {cond}",
+            params,
+        )
+        conn.execute(
+            "INSERT OR IGNORE INTO prune_parts SELECT part_id FROM results "
+            f"WHERE {cond} AND part_id IS NOT NULL",
+            params,
+        )
+        n = conn.execute(f"DELETE FROM results WHERE {cond}", params).rowcount
+        conn.execute("DELETE FROM result_hours WHERE hour IN (SELECT hour FROM prune_hours)")
+        conn.execute(
+            f"""INSERT INTO result_hours
+            SELECT p.hour, r.station, r.line, r.program, r.verdict, COUNT(*),
+                   SUM(r.part_id IS NULL), SUM(r.leak_rate_sccm),
+                   SUM(r.leak_rate_sccm * r.leak_rate_sccm), MIN(r.leak_rate_sccm),
+                   MAX(r.leak_rate_sccm)
+            FROM prune_hours p JOIN results r
+              ON r.ended_at >= p.hour AND r.ended_at < p.hour + {h}
+            GROUP BY p.hour, r.station, r.line, r.program, r.verdict"""
+        )
+        # parts that lost tests: drop their summary, rebuild it from the tests that remain
+        # (the triggers on parts move their share of part_hours accordingly)
+        conn.execute("DELETE FROM parts WHERE part_id IN (SELECT part_id FROM prune_parts)")
+        conn.execute(
+            """INSERT INTO parts
+            WITH t AS (
+                SELECT part_id, ended_at, seq, station, line, program, verdict,
+                       ROW_NUMBER() OVER (PARTITION BY part_id ORDER BY ended_at, seq) AS a,
+                       ROW_NUMBER() OVER (PARTITION BY part_id
+                                          ORDER BY ended_at DESC, seq DESC) AS b,
+                       COUNT(*) OVER (PARTITION BY part_id) AS n
+                FROM results WHERE part_id IN (SELECT part_id FROM prune_parts))
+            SELECT f.part_id, f.n, f.ended_at, f.seq, f.station, f.line, f.program, f.verdict,
+                   l.ended_at, l.seq, l.verdict
+            FROM t f JOIN t l ON l.part_id = f.part_id AND l.b = 1
+            WHERE f.a = 1"""
+        )
+        return n
 
     def close(self) -> None:
         """Checkpoint and close; safe to call twice."""

@@ -18,6 +18,7 @@ from gateway.errors import StoreError
 
 __all__ = [
     "CALIBRATION_COLUMNS",
+    "HOUR_US",
     "MIGRATIONS",
     "QUARANTINE_COLUMNS",
     "RESULT_COLUMNS",
@@ -48,6 +49,118 @@ QUARANTINE_COLUMNS: tuple[str, ...] = (
 
 #: kind → table, as used by read_after / cursors / backlog.
 TABLES: dict[str, str] = {"result": "results", "calibration": "calibrations", "status": "statuses"}
+
+# Summaries kept by triggers, so every writer (the journal, a backfill, a migration) keeps them
+# right and a duplicate that INSERT OR IGNORE skipped never counts. They let the dashboard's
+# yield and summary queries read a few rows per station-hour instead of every result: SQLite
+# aggregates ~1 µs per row, so a month of a busy plant (1 M results) cannot be summed from the
+# raw rows within a second. Hours are UTC, ``hour`` = the hour's start in µs.
+HOUR_US = 3_600_000_000
+
+
+def _part_share(row: str, sign: int) -> str:
+    """Trigger SQL adding (+1) or removing (-1) one part's share of its first-test hour."""
+    hour = f"({row}.first_ended_at / {HOUR_US}) * {HOUR_US}"
+    values = (
+        f"{hour}, {row}.station, {row}.line, {row}.program, {sign}, "
+        f"{sign} * ({row}.first_verdict = 'pass'), {sign} * ({row}.last_verdict = 'pass'), "
+        f"{sign} * {row}.tests"
+    )
+    delete_empty = (
+        f"DELETE FROM part_hours WHERE hour = {hour} AND station = {row}.station "
+        f"AND line = {row}.line AND program = {row}.program AND parts = 0;"
+        if sign < 0
+        else ""
+    )
+    return (
+        f"INSERT INTO part_hours VALUES ({values}) ON CONFLICT DO UPDATE SET "
+        "parts = parts + excluded.parts, first_pass = first_pass + excluded.first_pass, "
+        "final_pass = final_pass + excluded.final_pass, tests = tests + excluded.tests; "
+        + delete_empty
+    )
+
+
+_ROLLUPS: tuple[str, ...] = (
+    """CREATE TABLE result_hours (
+        hour INTEGER NOT NULL,
+        station TEXT NOT NULL,
+        line TEXT NOT NULL,
+        program TEXT NOT NULL,
+        verdict TEXT NOT NULL,
+        n INTEGER NOT NULL,
+        no_part INTEGER NOT NULL,
+        leak_sum REAL NOT NULL,
+        leak_sumsq REAL NOT NULL,
+        leak_min REAL NOT NULL,
+        leak_max REAL NOT NULL,
+        PRIMARY KEY (hour, station, line, program, verdict)
+    ) WITHOUT ROWID""",
+    f"""CREATE TRIGGER results_ai_hours AFTER INSERT ON results BEGIN
+        INSERT INTO result_hours VALUES (
+            (NEW.ended_at / {HOUR_US}) * {HOUR_US}, NEW.station, NEW.line, NEW.program,
+            NEW.verdict, 1, NEW.part_id IS NULL, NEW.leak_rate_sccm,
+            NEW.leak_rate_sccm * NEW.leak_rate_sccm, NEW.leak_rate_sccm, NEW.leak_rate_sccm)
+        ON CONFLICT DO UPDATE SET
+            n = n + 1, no_part = no_part + excluded.no_part,
+            leak_sum = leak_sum + excluded.leak_sum,
+            leak_sumsq = leak_sumsq + excluded.leak_sumsq,
+            leak_min = MIN(leak_min, excluded.leak_min),
+            leak_max = MAX(leak_max, excluded.leak_max);
+    END""",
+    # One row per part id: its first and last test (by ended_at, then seq) and how many.
+    """CREATE TABLE parts (
+        part_id TEXT PRIMARY KEY,
+        tests INTEGER NOT NULL,
+        first_ended_at INTEGER NOT NULL,
+        first_seq INTEGER NOT NULL,
+        station TEXT NOT NULL,
+        line TEXT NOT NULL,
+        program TEXT NOT NULL,
+        first_verdict TEXT NOT NULL,
+        last_ended_at INTEGER NOT NULL,
+        last_seq INTEGER NOT NULL,
+        last_verdict TEXT NOT NULL
+    ) WITHOUT ROWID""",
+    "CREATE INDEX ix_parts_first ON parts (first_ended_at)",
+    """CREATE TRIGGER results_ai_parts AFTER INSERT ON results
+    WHEN NEW.part_id IS NOT NULL BEGIN
+        INSERT INTO parts VALUES (
+            NEW.part_id, 1, NEW.ended_at, NEW.seq, NEW.station, NEW.line, NEW.program,
+            NEW.verdict, NEW.ended_at, NEW.seq, NEW.verdict)
+        ON CONFLICT DO UPDATE SET
+            tests = tests + 1,
+            station = IIF(excluded.first_ended_at < first_ended_at, excluded.station, station),
+            line = IIF(excluded.first_ended_at < first_ended_at, excluded.line, line),
+            program = IIF(excluded.first_ended_at < first_ended_at, excluded.program, program),
+            first_verdict = IIF(excluded.first_ended_at < first_ended_at,
+                                excluded.first_verdict, first_verdict),
+            first_seq = IIF(excluded.first_ended_at < first_ended_at,
+                            excluded.first_seq, first_seq),
+            first_ended_at = MIN(excluded.first_ended_at, first_ended_at),
+            last_verdict = IIF(excluded.last_ended_at >= last_ended_at,
+                               excluded.last_verdict, last_verdict),
+            last_seq = IIF(excluded.last_ended_at >= last_ended_at, excluded.last_seq, last_seq),
+            last_ended_at = MAX(excluded.last_ended_at, last_ended_at);
+    END""",
+    # Parts per hour of their first test; a part's contribution moves when its first or last
+    # test changes (subtract the old row's share, add the new one's).
+    """CREATE TABLE part_hours (
+        hour INTEGER NOT NULL,
+        station TEXT NOT NULL,
+        line TEXT NOT NULL,
+        program TEXT NOT NULL,
+        parts INTEGER NOT NULL,
+        first_pass INTEGER NOT NULL,
+        final_pass INTEGER NOT NULL,
+        tests INTEGER NOT NULL,
+        PRIMARY KEY (hour, station, line, program)
+    ) WITHOUT ROWID""",
+    f"""CREATE TRIGGER parts_ai AFTER INSERT ON parts BEGIN {_part_share("NEW", +1)} END""",
+    f"""CREATE TRIGGER parts_au AFTER UPDATE ON parts BEGIN
+        {_part_share("OLD", -1)} {_part_share("NEW", +1)}
+    END""",
+    f"""CREATE TRIGGER parts_ad AFTER DELETE ON parts BEGIN {_part_share("OLD", -1)} END""",
+)
 
 _V1: tuple[str, ...] = (
     """CREATE TABLE results (
@@ -136,6 +249,7 @@ _V1: tuple[str, ...] = (
     "CREATE INDEX ix_statuses_station_time ON statuses (station, at)",
     "CREATE INDEX ix_statuses_time ON statuses (at)",
     "CREATE INDEX ix_quarantine_time ON quarantine (received_at)",
+    *_ROLLUPS,
 )
 
 

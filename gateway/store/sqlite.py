@@ -34,7 +34,8 @@ from gateway.store.schema import (
 
 __all__ = ["SqliteStore", "open_sqlite_store"]
 
-_BUCKET_US = {"hour": 3_600_000_000, "day": 86_400_000_000}
+_HOUR = 3_600_000_000
+_BUCKET_US = {"hour": _HOUR, "day": 24 * _HOUR}
 _TIME_COLUMNS = ("ended_at", "received_at", "at", "bucket")
 _RESULT_SELECT = ("seq", "record_id", *RESULT_COLUMNS)
 _CALIBRATION_SELECT = ("seq", "record_id", *CALIBRATION_COLUMNS)
@@ -100,6 +101,62 @@ def _bucket_expr(bucket: Bucket | None, column: str = "ended_at") -> str | None:
         raise ValueError(f"bucket must be 'hour', 'day' or None, got {bucket!r}")
     width = _BUCKET_US[bucket]  # a whitelisted integer, safe to inline
     return f"({column} / {width}) * {width}"
+
+
+def _names(by: Sequence[str], bucket: Bucket | None) -> list[str]:
+    names = _group_columns(by)
+    if bucket is not None:
+        _bucket_expr(bucket)  # validates
+        names.append("bucket")
+    return names
+
+
+class _Span:
+    """A time range split into whole UTC hours (summaries) and the partial hours at its ends."""
+
+    def __init__(self, lo: int | None, hi: int | None) -> None:
+        if lo is not None and hi is not None and hi < lo:
+            raise ValueError("until is before since")
+        h1 = None if lo is None else -(-lo // _HOUR) * _HOUR
+        h2 = None if hi is None else (hi // _HOUR) * _HOUR
+        self.params: dict[str, int] = {}
+        self._raw: list[tuple[int | None, int | None]] = []
+        self._summary: tuple[int | None, int | None] | None = (h1, h2)
+        if h1 is not None and h2 is not None and h1 >= h2:
+            self._raw, self._summary = [(lo, hi)], None
+        else:
+            if lo is not None and h1 is not None and lo < h1:
+                self._raw.append((lo, h1))
+            if hi is not None and h2 is not None and h2 < hi:
+                self._raw.append((h2, hi))
+
+    def raw(self, column: str) -> str | None:
+        """Condition on a raw time column for the partial hours, or None when there are none."""
+        parts = []
+        for i, (lo, hi) in enumerate(self._raw):
+            conds = []
+            if lo is not None:
+                self.params[f"r{i}lo"] = lo
+                conds.append(f"{column} >= :r{i}lo")
+            if hi is not None:
+                self.params[f"r{i}hi"] = hi
+                conds.append(f"{column} < :r{i}hi")
+            parts.append("(" + " AND ".join(conds) + ")")
+        return " OR ".join(parts) if parts else None
+
+    def summary(self) -> str | None:
+        """Condition on ``hour`` for the whole hours, or None when the range has none."""
+        if self._summary is None:
+            return None
+        h1, h2 = self._summary
+        conds = []
+        if h1 is not None:
+            self.params["h1"] = h1
+            conds.append("hour >= :h1")
+        if h2 is not None:
+            self.params["h2"] = h2
+            conds.append("hour < :h2")
+        return " AND ".join(conds) or "1"
 
 
 def _limit(limit: int | None) -> str:
@@ -321,16 +378,57 @@ class SqliteStore:
         return self._latest("calibrations", _CALIBRATION_SELECT, "ended_at")
 
     # -- aggregates -----------------------------------------------------------------------------
-    @staticmethod
-    def _groups(by: Sequence[str], bucket: Bucket | None) -> tuple[list[str], list[str]]:
-        """(select expressions, output names) for the grouping columns and bucket."""
-        cols = _group_columns(by)
-        exprs, names = list(cols), list(cols)
-        bucket_sql = _bucket_expr(bucket)
-        if bucket_sql is not None:
-            exprs.append(f"{bucket_sql} AS bucket")
-            names.append("bucket")
-        return exprs, names
+    # Counts and sums read the hourly summaries (result_hours, part_hours) for the whole UTC
+    # hours inside the range and the raw rows only for the partial hours at its two ends, so
+    # the cost follows the number of station-hours, not of results; the answer is the same.
+
+    def _aggregate(
+        self,
+        names: list[str],
+        bucket: Bucket | None,
+        parts: Sequence[tuple[str, str, str, str]],
+        outer: str,
+        filters: _Where,
+        since: datetime | None,
+        until: datetime | None,
+        extra_keys: Sequence[str] = (),
+    ) -> list[tuple[Any, ...]]:
+        """Run ``outer`` over the UNION ALL of ``parts``.
+
+        Each part is (table, time column, aggregate select list, extra condition); a time
+        column of ``hour`` marks a summary table, read for whole hours only.
+        """
+        span = _Span(_us("since", since), _us("until", until))
+        filt = "".join(" AND " + p for p in filters.parts)
+        keys = [*names, *extra_keys]
+        group = f" GROUP BY {', '.join(keys)}" if keys else ""
+        subs = []
+        for table, time_col, aggs, cond in parts:
+            where = span.summary() if time_col == "hour" else span.raw(time_col)
+            if where is None:
+                continue
+            exprs = [*names[: len(names) - (bucket is not None)]]
+            bucket_sql = _bucket_expr(bucket, time_col)
+            if bucket_sql is not None:
+                exprs.append(f"{bucket_sql} AS bucket")
+            select = ", ".join([*exprs, *extra_keys, aggs])
+            subs.append(f"SELECT {select} FROM {table} WHERE ({where}){cond}{filt}{group}")
+        if not subs:
+            return []
+        params = {**filters.params, **span.params}
+        order = f" ORDER BY {', '.join(keys)}" if keys else ""
+        sql = f"SELECT {', '.join([*keys, outer])} FROM ({' UNION ALL '.join(subs)}){group}{order}"
+        with self._lock:
+            try:
+                return self._conn.execute(sql, params).fetchall()
+            except sqlite3.Error as exc:
+                raise store_error(exc, self.path, "querying") from exc
+
+    def _frame(self, rows: list[tuple[Any, ...]], columns: Sequence[str]) -> pd.DataFrame:
+        frame = pd.DataFrame.from_records(rows, columns=list(columns))
+        if "bucket" in frame.columns:
+            frame["bucket"] = pd.to_datetime(frame["bucket"].astype("int64"), unit="us", utc=True)
+        return frame
 
     def verdict_counts(
         self,
@@ -343,20 +441,17 @@ class SqliteStore:
         line: str | None = None,
         program: str | None = None,
     ) -> pd.DataFrame:
-        exprs, names = self._groups(by, bucket)
-        where = (
-            _Where()
-            .time("ended_at", since, until)
-            .eq("station", station)
-            .eq("line", line)
-            .eq("program", program)
-        )
-        keys = [*names, "verdict"]
-        sql = (
-            f"SELECT {', '.join([*exprs, 'verdict'])}, COUNT(*) AS n FROM results{where.sql()} "
-            f"GROUP BY {', '.join(keys)} ORDER BY {', '.join(keys)}"
-        )
-        return self._fetch(sql, where.params, [*keys, "n"])
+        names = _names(by, bucket)
+        filters = _Where().eq("station", station).eq("line", line).eq("program", program)
+        rows = self._aggregate(
+            names, bucket,
+            [("results", "ended_at", "COUNT(*) AS n", ""),
+             ("result_hours", "hour", "SUM(n) AS n", "")],
+            "SUM(n)", filters, since, until, extra_keys=("verdict",),
+        )  # fmt: skip
+        frame = self._frame(rows, [*names, "verdict", "n"])
+        frame["n"] = frame["n"].astype("int64")
+        return frame
 
     def first_pass_counts(
         self,
@@ -369,59 +464,27 @@ class SqliteStore:
         line: str | None = None,
         program: str | None = None,
     ) -> pd.DataFrame:
-        exprs, names = self._groups(by, bucket)
-        where = (
-            _Where()
-            .time("ended_at", since, until)
-            .eq("station", station)
-            .eq("line", line)
-            .eq("program", program)
-        )
-        inner_where = where.sql() + (" AND " if where.parts else " WHERE ")
-        group_sql = ", ".join(names) if names else "NULL"
-        join_on = " AND ".join(f"l.{n} IS p.{n}" for n in names) or "1"
-        select_groups = (", ".join(names) + ", ") if names else ""
-        # Tests of one part in order of end time (seq breaks ties: arrival order). The first
-        # row per part carries its group, the first verdict, the last verdict and the count.
-        sql = f"""
-        WITH tests AS (
-            SELECT {", ".join([*exprs, "verdict"])},
-                   ROW_NUMBER() OVER w AS k,
-                   LAST_VALUE(verdict) OVER (w ROWS BETWEEN UNBOUNDED PRECEDING
-                                                AND UNBOUNDED FOLLOWING) AS final_verdict,
-                   COUNT(*) OVER (PARTITION BY part_id) AS tries
-            FROM results{inner_where}part_id IS NOT NULL
-            WINDOW w AS (PARTITION BY part_id ORDER BY ended_at, seq)
-        ),
-        parts AS (
-            SELECT {select_groups}COUNT(*) AS parts,
-                   SUM(verdict = 'pass') AS first_pass,
-                   SUM(final_verdict = 'pass') AS final_pass,
-                   SUM(tries) AS tests
-            FROM tests WHERE k = 1 GROUP BY {group_sql}
-        ),
-        loose AS (
-            SELECT {select_groups}COUNT(*) AS no_part_id
-            FROM (SELECT {", ".join(exprs) if exprs else "1"}
-                  FROM results{inner_where}part_id IS NULL)
-            GROUP BY {group_sql}
-        )
-        SELECT * FROM (
-            SELECT {"".join(f"p.{n}, " for n in names)}p.parts, p.first_pass, p.final_pass,
-                   p.tests, COALESCE(l.no_part_id, 0)
-            FROM parts p LEFT JOIN loose l ON {join_on}
-            UNION ALL
-            SELECT {"".join(f"l.{n}, " for n in names)}0, 0, 0, 0, l.no_part_id
-            FROM loose l
-            WHERE NOT EXISTS (SELECT 1 FROM parts p
-                              WHERE {join_on})
-        ) ORDER BY {", ".join(str(i + 1) for i in range(len(names))) or "1"}
-        """
-        out = [*names, "parts", "first_pass", "final_pass", "tests", "no_part_id"]
-        frame = self._fetch(sql, where.params, out)
-        for col in ("parts", "first_pass", "final_pass", "tests", "no_part_id"):
-            frame[col] = frame[col].astype("int64")
-        return frame
+        names = _names(by, bucket)
+        filters = _Where().eq("station", station).eq("line", line).eq("program", program)
+        zeros = "0 AS parts, 0 AS first_pass, 0 AS final_pass, 0 AS tests"
+        rows = self._aggregate(
+            names, bucket,
+            [("parts", "first_ended_at",
+              "COUNT(*) AS parts, SUM(first_verdict = 'pass') AS first_pass, "
+              "SUM(last_verdict = 'pass') AS final_pass, SUM(tests) AS tests, 0 AS no_part", ""),
+             ("part_hours", "hour",
+              "SUM(parts) AS parts, SUM(first_pass) AS first_pass, "
+              "SUM(final_pass) AS final_pass, SUM(tests) AS tests, 0 AS no_part", ""),
+             ("results", "ended_at", f"{zeros}, COUNT(*) AS no_part", " AND part_id IS NULL"),
+             ("result_hours", "hour", f"{zeros}, SUM(no_part) AS no_part", " AND no_part > 0")],
+            "SUM(parts), SUM(first_pass), SUM(final_pass), SUM(tests), SUM(no_part)",
+            filters, since, until,
+        )  # fmt: skip
+        counts = ["parts", "first_pass", "final_pass", "tests", "no_part_id"]
+        frame = self._frame(rows, [*names, *counts])
+        frame[counts] = frame[counts].fillna(0).astype("int64")
+        frame = frame[(frame["parts"] > 0) | (frame["no_part_id"] > 0)]
+        return frame.reset_index(drop=True)
 
     def histogram(
         self,
@@ -477,32 +540,31 @@ class SqliteStore:
         line: str | None = None,
         program: str | None = None,
     ) -> pd.DataFrame:
-        exprs, names = self._groups(by, bucket)
-        where = (
-            _Where()
-            .time("ended_at", since, until)
-            .eq("station", station)
-            .eq("line", line)
-            .eq("program", program)
-        )
-        group = f" GROUP BY {', '.join(names)} ORDER BY {', '.join(names)}" if names else ""
-        sql = (
-            f"SELECT {''.join(x + ', ' for x in exprs)}COUNT(*), SUM(leak_rate_sccm), "
-            "SUM(leak_rate_sccm * leak_rate_sccm), MIN(leak_rate_sccm), MAX(leak_rate_sccm) "
-            f"FROM results{where.sql()}{group}"
-        )
-        raw = self._fetch(sql, where.params, [*names, "n", "s1", "s2", "min", "max"])
-        if not names:
-            raw = raw[raw["n"] > 0]
+        names = _names(by, bucket)
+        filters = _Where().eq("station", station).eq("line", line).eq("program", program)
+        # an aborted test measured nothing: its reading would only distort the statistics
+        not_aborted = " AND verdict <> 'aborted'"
+        rows = self._aggregate(
+            names, bucket,
+            [("results", "ended_at",
+              "COUNT(*) AS n, SUM(leak_rate_sccm) AS s1, "
+              "SUM(leak_rate_sccm * leak_rate_sccm) AS s2, MIN(leak_rate_sccm) AS lo, "
+              "MAX(leak_rate_sccm) AS hi", not_aborted),
+             ("result_hours", "hour",
+              "SUM(n) AS n, SUM(leak_sum) AS s1, SUM(leak_sumsq) AS s2, MIN(leak_min) AS lo, "
+              "MAX(leak_max) AS hi", not_aborted)],
+            "SUM(n), SUM(s1), SUM(s2), MIN(lo), MAX(hi)", filters, since, until,
+        )  # fmt: skip
+        raw = self._frame(rows, [*names, "n", "s1", "s2", "min", "max"])
+        raw = raw[raw["n"].notna() & (raw["n"] > 0)]
         n = raw["n"].astype("int64")
         s1 = raw["s1"].astype(float)
         s2 = raw["s2"].astype(float)
-        mean = s1 / n
         # textbook sum-of-squares variance; clip tiny negative round-off to zero
         var = ((s2 - s1 * s1 / n) / (n - 1)).where(n > 1).clip(lower=0.0)
         frame = raw[names].copy()
         frame["n"] = n
-        frame["mean"] = mean
+        frame["mean"] = s1 / n
         frame["std"] = np.sqrt(var)
         frame["min"] = raw["min"].astype(float)
         frame["max"] = raw["max"].astype(float)

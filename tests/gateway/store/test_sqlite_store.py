@@ -191,10 +191,12 @@ def test_first_pass_counts(plant: SqliteStore) -> None:
     ]
     overall = plant.first_pass_counts(by=())
     assert _records(overall, cols[1:]) == [(5, 3, 4, 7, 2)]
-    # filters choose which tests count: at L1-S2 alone, B's first test there passed; D (at
-    # exactly T0 + 1 day) falls outside the half-open first day
+    # a part counts where and when its first test happened; filters pick on that first test.
+    # D (at exactly T0 + 1 day) falls outside the half-open first day
     day1 = plant.first_pass_counts(T0, T0 + DAY, station="L1-S2")
-    assert _records(day1, cols) == [("L1-S2", 2, 1, 1, 3, 0)]
+    assert _records(day1, cols) == [("L1-S2", 1, 0, 0, 2, 0)]
+    # B's retest at L1-S2 does not make it an L1-S2 part
+    assert _records(plant.first_pass_counts(station="L1-S2"), cols) == [("L1-S2", 2, 1, 1, 3, 0)]
     # a group made only of results without part ids still reports them
     loose = plant.first_pass_counts(T0 + timedelta(minutes=60), T0 + timedelta(minutes=80))
     assert _records(loose, cols) == [("L1-S1", 0, 0, 0, 0, 1)]
@@ -221,13 +223,14 @@ def test_histogram_by_hand(plant: SqliteStore) -> None:
 
 
 def test_leak_summary_by_hand(plant: SqliteStore) -> None:
-    s = plant.leak_summary(station="L2-S1")
-    row = s.iloc[0]
-    assert (row["station"], row["n"], row["min"], row["max"]) == ("L2-S1", 2, 0.0, 0.8)
-    assert row["mean"] == pytest.approx(0.4)
-    assert row["std"] == pytest.approx(math.sqrt(0.32))  # ((0.4)² + (0.4)²) / (2 - 1)
-    single = plant.leak_summary(station="L1-S1", since=T0 + timedelta(minutes=60))
-    assert single.iloc[0]["n"] == 1 and math.isnan(single.iloc[0]["std"])
+    row = plant.leak_summary(station="L1-S1").iloc[0]
+    assert (row["station"], row["n"], row["min"], row["max"]) == ("L1-S1", 3, 0.4, 2.5)
+    # readings 0.4, 2.5, 0.6: mean 3.5 / 3; squared deviations sum to 2.686667, / (3 - 1)
+    assert row["mean"] == pytest.approx(3.5 / 3)
+    assert row["std"] == pytest.approx(math.sqrt(2.6866667 / 2), rel=1e-6)
+    # the aborted test on L2-S1 measured nothing and is left out: one reading, no spread
+    single = plant.leak_summary(station="L2-S1").iloc[0]
+    assert single["n"] == 1 and single["mean"] == 0.8 and math.isnan(single["std"])
 
 
 def test_calibration_series(plant: SqliteStore) -> None:
