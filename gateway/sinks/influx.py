@@ -215,7 +215,6 @@ def _ident(name: str) -> str:
     return name.replace("\\", "\\\\").replace('"', '\\"')
 
 
-@register_sink("influxdb")
 def make_influx(name: str, options: Mapping[str, Any], ctx: SinkContext) -> JournalForwarder:
     """``[sinks.<name>] type = "influxdb"``: validate options now, connect when run."""
     opts = InfluxOptions.from_options(options)
@@ -223,4 +222,5 @@ def make_influx(name: str, options: Mapping[str, Any], ctx: SinkContext) -> Jour
                             ForwarderOptions.from_options(options))
 
 
+register_sink("influxdb")(make_influx)
 register_sink("influx")(make_influx)

@@ -292,10 +292,12 @@ class MqttClient:
             await stack.aclose()
 
 
-@register_sink("mqtt")
 def make_mqtt(name: str, options: Mapping[str, Any], ctx: SinkContext) -> JournalForwarder:
     """``[sinks.<name>] type = "mqtt"``: validate options now, connect when run."""
     opts = MqttOptions.from_options(options, ctx)
     fwd = ForwarderOptions.from_options(options)
     client = MqttClient(opts, ctx, name, timeout_s=fwd.send_timeout_s)
     return JournalForwarder(name, client, fwd)
+
+
+register_sink("mqtt")(make_mqtt)
