@@ -429,9 +429,7 @@ class Runtime:
             ]
             await stop.wait()
             log.info("stopping: %d item(s) waiting for the journal", writer.pending)
-            for task in bus_tasks:
-                task.cancel()
-            await asyncio.gather(*bus_tasks, return_exceptions=True)
+            await _cancel_all(bus_tasks)
             at = utcnow()
             await writer.put([
                 StationStatus(station=t.station, at=at, state=StationState.OFFLINE,
@@ -448,6 +446,19 @@ class Runtime:
             await fwd.run(self.config.store, stop)
         except Exception:  # a sink that fails to run is disabled, the gateway keeps going
             log.exception("sink %s failed and is disabled", fwd.name)
+
+
+async def _cancel_all(tasks: Sequence[asyncio.Task[None]]) -> None:
+    """Cancel until done: a library's ``wait_for`` (3.11) may swallow a cancellation that
+    races with a completed read, so one ``cancel()`` is not always enough."""
+    pending = {t for t in tasks if not t.done()}
+    while pending:
+        for task in pending:
+            task.cancel()
+        _, pending = await asyncio.wait(pending, timeout=0.5)
+    for task in tasks:
+        if not task.cancelled() and task.exception() is not None:
+            log.error("bus task %s ended with %r", task.get_name(), task.exception())
 
 
 def run_gateway(config: GatewayConfig) -> int:

@@ -107,7 +107,10 @@ class LineLink:
             if remaining <= 0:
                 return None
             try:
-                data = await asyncio.wait_for(self._reader.read(_CHUNK), remaining)
+                # asyncio.timeout, not wait_for: on 3.11 wait_for can swallow a cancellation
+                # that races with a completed read, and shutdown depends on cancellation
+                async with asyncio.timeout(remaining):
+                    data = await self._reader.read(_CHUNK)
             except TimeoutError:
                 return None
             except (ConnectionError, OSError) as exc:
@@ -130,7 +133,8 @@ class LineLink:
         """Collect input that arrives within ``wait`` seconds plus what is buffered."""
         with contextlib.suppress(TimeoutError):
             while True:
-                data = await asyncio.wait_for(self._reader.read(_CHUNK), max(wait, 0.0001))
+                async with asyncio.timeout(max(wait, 0.0001)):
+                    data = await self._reader.read(_CHUNK)
                 if not data:
                     break
                 self._lines.extend(self._splitter.feed(data))
