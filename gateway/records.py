@@ -18,8 +18,8 @@ from typing import Any, ClassVar, Self
 __all__ = [
     "SCHEMA_VERSION",
     "CalibrationEvent",
-    "Rejected",
     "Record",
+    "Rejected",
     "StationState",
     "StationStatus",
     "TestResult",
@@ -122,7 +122,9 @@ class _RecordMixin:
     def from_dict(cls, data: dict[str, Any]) -> Self:
         schema = data.get("schema", SCHEMA_VERSION)
         if schema != SCHEMA_VERSION:
-            raise ValueError(f"unsupported record schema {schema!r} (this build reads {SCHEMA_VERSION})")
+            raise ValueError(
+                f"unsupported record schema {schema!r} (this build reads {SCHEMA_VERSION})"
+            )
         kind = data.get("kind", cls.kind)
         if kind != cls.kind:
             raise ValueError(f"expected a {cls.kind} record, got kind {kind!r}")

@@ -211,10 +211,10 @@ def guess_kind(unit: str) -> Kind:
     """The kind a unit belongs to (used by ``calc convert``)."""
     for kind in ("pressure", "leak", "volume", "time", "temperature"):
         try:
-            normalise_unit(unit, kind)  # type: ignore[arg-type]
+            normalise_unit(unit, kind)
         except UnitError:
             continue
-        return kind  # type: ignore[return-value]
+        return kind
     every = ", ".join(u for k in _FACTORS for u in known_units(k))
     raise UnitError(f"unknown unit {unit!r}; known: {every}")
 

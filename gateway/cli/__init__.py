@@ -14,6 +14,7 @@ import importlib
 import pkgutil
 import sys
 from collections.abc import Sequence
+from types import ModuleType
 
 from gateway import __version__
 from gateway.errors import LeakfleetError
@@ -21,7 +22,7 @@ from gateway.errors import LeakfleetError
 __all__ = ["build_parser", "main"]
 
 
-def _command_modules() -> list[object]:
+def _command_modules() -> list[ModuleType]:
     modules = []
     for info in pkgutil.iter_modules(__path__):
         if info.name.startswith("cmd_"):
@@ -40,7 +41,7 @@ def build_parser() -> argparse.ArgumentParser:
     parser.add_argument("--version", action="version", version=f"leakfleet {__version__}")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND")
     for module in _command_modules():
-        module.register(sub)  # type: ignore[attr-defined]
+        module.register(sub)
     return parser
 
 

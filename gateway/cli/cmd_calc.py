@@ -31,9 +31,13 @@ def register(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
             "A part that loses less than the master reads negative."
         ),
     )
-    p.add_argument("--loss", required=True, help="the part's pressure loss over the test, e.g. 0.10psi")
+    p.add_argument(
+        "--loss", required=True, help="the part's pressure loss over the test, e.g. 0.10psi"
+    )
     p.add_argument("--master-loss", required=True, help="the master part's loss (zero offset)")
-    p.add_argument("--standard-loss", required=True, help="the master part's loss with the leak standard open")
+    p.add_argument(
+        "--standard-loss", required=True, help="the master part's loss with the leak standard open"
+    )
     p.add_argument("--standard", required=True, help="the leak standard's flow, e.g. 5sccm")
     p.add_argument("--unit", default="sccm", help="unit to print the leak rate in (default sccm)")
     _common(p)
@@ -42,12 +46,17 @@ def register(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
     p = calc.add_parser(
         "decay",
         help="expected pressure loss for a leak, volume and test time",
-        description="Expected loss = Q x P_std x t / V (ideal gas, gas at the reference temperature).",
+        description="Expected loss = Q x P_std x t / V (ideal gas at the reference temperature).",
     )
-    p.add_argument("--volume", required=True, help="test volume (part + fixture + circuit), e.g. 120cc")
+    p.add_argument(
+        "--volume", required=True, help="test volume (part + fixture + circuit), e.g. 120cc"
+    )
     p.add_argument("--leak", required=True, help="leak rate, e.g. 5sccm")
     p.add_argument("--test-time", required=True, help="test time, e.g. 10s")
-    p.add_argument("--pressure", help="test pressure (gauge), e.g. 10psi; used to check the loss is < 10 %% of it")
+    p.add_argument(
+        "--pressure",
+        help="test pressure (gauge), e.g. 10psi; used to check the loss is < 10 %% of it",
+    )
     p.add_argument("--gas-temperature", help="gas temperature if not the reference, e.g. 25C")
     p.add_argument("--unit", default="Pa", help="unit to print the loss in (default Pa)")
     _common(p)
@@ -56,7 +65,7 @@ def register(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
     p = calc.add_parser(
         "test-time",
         help="test time needed for a leak to show a given loss",
-        description="Test time = V x loss / (Q x P_std) (ideal gas, gas at the reference temperature).",
+        description="Test time = V x loss / (Q x P_std) (ideal gas at the reference temperature).",
     )
     p.add_argument("--volume", required=True, help="test volume, e.g. 120cc")
     p.add_argument("--leak", required=True, help="leak rate to detect, e.g. 5sccm")
@@ -74,10 +83,16 @@ def register(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
     p.add_argument("from_unit", metavar="FROM", help="unit of the value")
     p.add_argument("to_unit", metavar="TO", help="unit wanted")
     p.add_argument(
-        "--from-reference", type=float, default=0.0, help="reference °C of FROM (0 or 20, sccm/sccs/slm only)"
+        "--from-reference",
+        type=float,
+        default=0.0,
+        help="reference °C of FROM (0 or 20, sccm/sccs/slm only)",
     )
     p.add_argument(
-        "--to-reference", type=float, default=0.0, help="reference °C of TO (0 or 20, sccm/sccs/slm only)"
+        "--to-reference",
+        type=float,
+        default=0.0,
+        help="reference °C of TO (0 or 20, sccm/sccs/slm only)",
     )
     p.add_argument("--json", action="store_true", help="print one JSON object")
     p.set_defaults(func=_convert)

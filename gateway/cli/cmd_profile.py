@@ -1,0 +1,176 @@
+"""``leakfleet profile``: list, show and check station profiles (the integrator's tools)."""
+
+from __future__ import annotations
+
+import argparse
+import json
+from pathlib import Path
+from typing import Any
+
+ORDER = 30
+
+_SKIP = {"station", "line", "received_at", "raw", "profile", "schema", "kind", "record_id"}
+
+
+def register(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
+    parser = sub.add_parser(
+        "profile",
+        help="list, show and check station profiles",
+        description=(
+            "Station profiles describe how a station type talks and how its fields map to "
+            "canonical records. 'check' runs a profile over a captured sample and shows every "
+            "record and every rejected line with the reason."
+        ),
+    )
+    cmds = parser.add_subparsers(dest="profile_command", metavar="ACTION", required=True)
+
+    p = cmds.add_parser("list", help="list the built-in profiles (and those in --profiles DIR)",
+                        description="List profiles: name, version, transport, description.")
+    _dirs(p)
+    p.add_argument("--json", action="store_true", help="print one JSON document")
+    p.set_defaults(func=_list)
+
+    p = cmds.add_parser("show", help="print a profile's TOML and where it comes from",
+                        description="Print a profile file (built-in name, name in --profiles "
+                        "DIR, or a path).")
+    p.add_argument("profile", metavar="PROFILE", help="profile name or path to a .toml file")
+    _dirs(p)
+    p.set_defaults(func=_show)
+
+    p = cmds.add_parser(
+        "check",
+        help="parse a captured sample with a profile",
+        description=(
+            "Parse SAMPLE with PROFILE and print each canonical record and each rejected "
+            "line with its line number and reason, then a summary. SAMPLE is the station's "
+            "text output (serial profiles) or a register dump in JSON (Modbus profiles, "
+            "format in gateway/profiles/README.md). Exit code 0 when the sample was parsed "
+            "(even with rejects), 2 for an invalid profile or unreadable sample."
+        ),
+    )
+    p.add_argument("profile", metavar="PROFILE", help="profile name or path to a .toml file")
+    p.add_argument("sample", metavar="SAMPLE", help="captured sample file")
+    p.add_argument("--json", action="store_true", help="print one JSON document")
+    p.add_argument("--station", default="SAMPLE", help="station id to put on records")
+    p.add_argument("--line", default="L1", help="production line to put on records")
+    p.add_argument("--timezone", default="UTC",
+                   help="station time zone for timestamps without an offset (default UTC)")
+    p.add_argument("--program", action="append", default=[], metavar="N=NAME",
+                   help="Modbus program number to name, e.g. --program 1=HX-210 (repeatable)")
+    _dirs(p)
+    p.set_defaults(func=_check)
+
+
+def _dirs(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--profiles", action="append", default=[], metavar="DIR", type=Path,
+                   help="directory with more profile files (repeatable)")
+
+
+def _list(args: argparse.Namespace) -> int:
+    from gateway.profiles import builtin_profiles, load_profile
+
+    names = list(builtin_profiles())
+    for directory in args.profiles:
+        names += [p.stem for p in sorted(Path(directory).glob("*.toml")) if p.stem not in names]
+    profiles = [load_profile(n, args.profiles) for n in names]
+    if args.json:
+        print(json.dumps([{"name": p.name, "version": p.version, "transport": p.transport,
+                           "description": p.description, "source": p.source}
+                          for p in profiles], indent=2))
+        return 0
+    width = max((len(p.name) for p in profiles), default=4)
+    for p in profiles:
+        print(f"{p.name:<{width}}  {p.version:<6}  {p.transport:<6}  {p.description}")
+    return 0
+
+
+def _show(args: argparse.Namespace) -> int:
+    from gateway.profiles import load_profile
+
+    profile = load_profile(args.profile, args.profiles)
+    print(f"# {profile.label}  ({profile.source})")
+    print(Path(profile.source).read_text(encoding="utf-8"), end="")
+    return 0
+
+
+def _programs(values: list[str]) -> dict[int, str]:
+    out = {}
+    for value in values:
+        number, sep, name = value.partition("=")
+        if not sep or not number.strip().isdigit() or not name.strip():
+            raise ValueError(f"--program: expected N=NAME such as 1=HX-210, got {value!r}")
+        out[int(number)] = name.strip()
+    return out
+
+
+def _fmt(value: Any) -> str:
+    if isinstance(value, float):
+        return f"{value:.6g}"
+    return str(value)
+
+
+def _check(args: argparse.Namespace) -> int:
+    from datetime import UTC, datetime
+    from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
+
+    from gateway.errors import ConfigError
+    from gateway.profiles import StationContext, load_profile
+    from gateway.profiles.check import check_sample
+    from gateway.records import Rejected
+
+    if args.timezone.upper() != "UTC":
+        try:
+            ZoneInfo(args.timezone)
+        except (ZoneInfoNotFoundError, ValueError):
+            raise ValueError(f"--timezone: expected an IANA time zone, got {args.timezone!r}"
+                             ) from None
+    profile = load_profile(args.profile, args.profiles)
+    try:
+        data = Path(args.sample).read_bytes()
+    except OSError as exc:
+        raise ConfigError(f"{args.sample}: cannot read sample: {exc.strerror or exc}") from None
+    ctx = StationContext(args.station, args.line, args.timezone, _programs(args.program))
+    entries = check_sample(profile, data, ctx, datetime.now(UTC), args.sample)
+    counts = {"result": 0, "calibration": 0, "rejected": 0}
+    for e in entries:
+        if isinstance(e.item, Rejected):
+            counts["rejected"] += 1
+        elif e.item is not None:
+            counts[e.item.kind] += 1
+    if args.json:
+        doc = {
+            "profile": profile.label, "sample": args.sample, "station": ctx.station,
+            "line": ctx.line, "timezone": ctx.timezone,
+            "entries": [
+                {"line_no": e.line_no, "where": e.where,
+                 "kind": "rejected" if isinstance(e.item, Rejected)
+                 else (e.item.kind if e.item is not None else "note"),
+                 "record": None if e.item is None else e.item.to_dict(), "note": e.note}
+                for e in entries
+            ],
+            "summary": {"results": counts["result"], "calibrations": counts["calibration"],
+                        "rejected": counts["rejected"]},
+        }
+        print(json.dumps(doc, indent=2))
+        return 0
+    print(f"profile {profile.label}   sample {args.sample}   station {ctx.station} / "
+          f"{ctx.line}   time zone {ctx.timezone}")
+    where_w = max((len(e.where) for e in entries), default=4)
+    for e in entries:
+        print()
+        if e.item is None:
+            print(f"{e.where:<{where_w}}  {'note':<11}  {e.note}")
+        elif isinstance(e.item, Rejected):
+            print(f"{e.where:<{where_w}}  {'REJECTED':<11}  {e.item.reason}")
+            print(f"{'':<{where_w}}  {'':<11}  raw: {e.item.raw[:200]!r}")
+        else:
+            data_ = e.item.to_dict()
+            print(f"{e.where:<{where_w}}  {e.item.kind:<11}  id {e.item.record_id}")
+            names = [k for k in data_ if k not in _SKIP and data_[k] not in (None, "")]
+            key_w = max(len(k) for k in names)
+            for k in names:
+                print(f"{'':<{where_w}}  {'':<11}  {k:<{key_w}}  {_fmt(data_[k])}")
+    print()
+    print(f"summary: {counts['result']} results, {counts['calibration']} calibrations, "
+          f"{counts['rejected']} rejected")
+    return 0

@@ -1,0 +1,354 @@
+"""Frozen profile objects: what the loader builds from TOML and what drivers consume.
+
+A profile says how one station type talks (serial line or Modbus register map) and how each raw
+field becomes a canonical field. The objects here are data plus small pure methods; parsing
+lives in ``lines`` and ``normalise``, register codecs in ``registers``.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field
+from datetime import datetime
+from typing import TYPE_CHECKING, Literal
+
+from gateway.records import CalibrationEvent, Rejected, StationState, TestResult
+
+if TYPE_CHECKING:
+    from gateway.profiles.lines import SerialParser
+
+__all__ = [
+    "CAL_FIELDS",
+    "RESULT_FIELDS",
+    "AckSpec",
+    "BlockSpec",
+    "Condition",
+    "FieldSpec",
+    "FixedColumn",
+    "LineKind",
+    "ModbusSpec",
+    "Parsed",
+    "Profile",
+    "RegisterField",
+    "RequestSpec",
+    "RingSpec",
+    "SerialSpec",
+    "StationContext",
+]
+
+Parsed = TestResult | CalibrationEvent | Rejected
+RecordKind = Literal["result", "calibration"]
+ValueKind = Literal[
+    "int", "timestamp", "program", "verdict", "text", "bool", "number",
+    "pressure", "leak", "time", "temperature",
+]
+
+# canonical field → (value kind, required). Modbus results take ``cycle`` from the head guard.
+RESULT_FIELDS: dict[str, tuple[ValueKind, bool]] = {
+    "cycle": ("int", True),
+    "ended_at": ("timestamp", True),
+    "program": ("program", True),
+    "verdict": ("verdict", True),
+    "test_pressure_pa": ("pressure", True),
+    "pressure_loss_pa": ("pressure", True),
+    "leak_rate_sccm": ("leak", True),
+    "reject_limit_sccm": ("leak", True),
+    "lower_limit_sccm": ("leak", False),
+    "fill_s": ("time", True),
+    "stabilise_s": ("time", True),
+    "test_s": ("time", True),
+    "part_id": ("text", False),
+    "temperature_c": ("temperature", False),
+    "reason": ("text", False),
+}
+# ratio and sensitivity are derived from the losses when the station does not send them.
+CAL_FIELDS: dict[str, tuple[ValueKind, bool]] = {
+    "ended_at": ("timestamp", True),
+    "program": ("program", True),
+    "master_loss_pa": ("pressure", True),
+    "standard_loss_pa": ("pressure", True),
+    "standard_sccm": ("leak", True),
+    "standard_ref_pressure_pa": ("pressure", True),
+    "ratio": ("number", False),
+    "sensitivity": ("number", False),
+    "passed": ("bool", True),
+    "reason": ("text", False),
+}
+
+
+@dataclass(frozen=True)
+class StationContext:
+    """Per-station facts the profile cannot know; built by the runtime from its config."""
+
+    station: str
+    line: str
+    timezone: str = "UTC"
+    programs: Mapping[int, str] = field(default_factory=dict)
+
+
+@dataclass(frozen=True, slots=True)
+class RegisterField:
+    """Where a value sits and how its words are laid out.
+
+    ``at`` is the offset inside a result slot or calibration block; for the standalone state
+    register it is the absolute address.
+    """
+
+    at: int
+    type: str
+    width: int
+    word_order: Literal["big", "little"] = "big"
+    byte_order: Literal["big", "little"] = "big"
+    null: float | int | None = None  # sentinel meaning "no value"; math.nan for NaN
+
+
+@dataclass(frozen=True, slots=True)
+class FieldSpec:
+    """How one canonical field is made from one raw field (a column/key/group, or registers)."""
+
+    canonical: str
+    kind: ValueKind
+    source: str | None = None  # raw field name (lines)
+    register: RegisterField | None = None  # modbus
+    unit: str | None = None
+    unit_from: str | None = None  # raw field holding the unit, e.g. PU=psi
+    scale: float = 1.0
+    offset: float = 0.0
+    empty_none: bool = False  # empty text (or the null sentinel) means "no value"
+    codes: Mapping[str, str | bool] | None = None  # verdict / passed code table
+    time_format: str | None = None  # strftime pattern, "iso" or "unix"
+    timezone: str | None = None  # None: the station's zone (StationContext.timezone)
+    program_lookup: bool = False  # number → StationContext.programs
+
+
+@dataclass(frozen=True, slots=True)
+class Condition:
+    """A discriminator: raw field ``field`` is one of ``values``."""
+
+    field: str
+    values: tuple[str, ...]
+
+    def holds(self, raw: Mapping[str, str]) -> bool:
+        return raw.get(self.field) in self.values
+
+
+@dataclass(frozen=True, slots=True)
+class FixedColumn:
+    name: str
+    start: int  # 0-based character index
+    width: int
+
+
+@dataclass(frozen=True, slots=True)
+class LineKind:
+    """One kind of line/answer (result or calibration) in a serial dialect."""
+
+    record: RecordKind
+    fields: tuple[FieldSpec, ...]
+    dialect: Literal["delimited", "keyvalue", "fixed", "regex"] = "delimited"
+    when: Condition | None = None
+    columns: tuple[str, ...] = ()  # delimited
+    fixed: tuple[FixedColumn, ...] = ()  # fixed-width
+    pattern: str | None = None  # regex with named groups
+
+
+@dataclass(frozen=True, slots=True)
+class Dialect:
+    kind: Literal["delimited", "keyvalue", "fixed", "regex"]
+    kinds: tuple[LineKind, ...]
+    separator: str = ";"
+    pair_separator: str | None = None  # keyvalue: pairs on one line instead of one per line
+    strip: bool = True
+
+
+@dataclass(frozen=True, slots=True)
+class RequestSpec:
+    """One query of a request/response station and how its answer ends."""
+
+    query: bytes
+    end_line: str | None = None
+    lines: int | None = None
+    timeout_s: float = 2.0
+    empty: str | None = None  # an answer consisting of just this line means "nothing yet"
+
+
+@dataclass(frozen=True)
+class SerialSpec:
+    mode: Literal["stream", "request"]
+    baudrate: int
+    bytesize: int
+    parity: str
+    stopbits: float
+    encoding: str
+    terminator: bytes
+    max_line: int
+    requests: list[RequestSpec]
+    dialect: Dialect
+    profile_label: str
+    leak_reference_c: float = 0.0
+    request_gap_s: float = 0.0
+
+    def parser(self, ctx: StationContext) -> SerialParser:
+        from gateway.profiles.lines import SerialParser
+
+        return SerialParser(self, ctx)
+
+
+@dataclass(frozen=True, slots=True)
+class RingSpec:
+    """The result ring: a counter register and ``depth`` slots of ``length`` registers."""
+
+    counter_address: int
+    counter_type: str
+    base: int
+    stride: int
+    depth: int
+    length: int
+    head_guard: int
+    tail_guard: int
+    fields: tuple[FieldSpec, ...]
+    word_order: Literal["big", "little"] = "big"
+    byte_order: Literal["big", "little"] = "big"
+
+    @property
+    def counter_registers(self) -> int:
+        return 2 if self.counter_type.endswith("32") else 1
+
+    def slot_address(self, cycle: int) -> int:
+        return self.base + self.stride * (cycle % self.depth)
+
+
+@dataclass(frozen=True, slots=True)
+class BlockSpec:
+    """The newest-calibration block, guarded by its own counter."""
+
+    counter_address: int
+    counter_type: str
+    address: int
+    length: int
+    head_guard: int
+    tail_guard: int
+    fields: tuple[FieldSpec, ...]
+    word_order: Literal["big", "little"] = "big"
+    byte_order: Literal["big", "little"] = "big"
+
+    @property
+    def counter_registers(self) -> int:
+        return 2 if self.counter_type.endswith("32") else 1
+
+
+@dataclass(frozen=True, slots=True)
+class AckSpec:
+    """Optional acknowledge register: the cycle just read is written here (off by default)."""
+
+    address: int
+    type: str
+
+    def encode(self, cycle: int, word_order: Literal["big", "little"] = "big") -> list[int]:
+        from gateway.profiles.registers import encode_value
+
+        return encode_value(cycle, self.type, word_order=word_order)
+
+
+@dataclass(frozen=True)
+class ModbusSpec:
+    framer: Literal["tcp", "rtu"]
+    device_id: int
+    function: Literal[3, 4]
+    poll_interval_s: float
+    timeout_s: float
+    word_order: Literal["big", "little"]
+    byte_order: Literal["big", "little"]
+    state: RegisterField | None
+    state_map: dict[int, StationState]
+    result: RingSpec
+    calibration: BlockSpec | None
+    acknowledge: AckSpec | None
+    profile_label: str
+    baudrate: int = 19200
+    bytesize: int = 8
+    parity: str = "N"
+    stopbits: float = 1
+    string_encoding: str = "ascii"
+    leak_reference_c: float = 0.0
+
+    def decode_counter(self, regs: Sequence[int]) -> int:
+        """The result counter from its registers as read (DecodeError if they are not words)."""
+        return self._counter(regs, self.result.counter_type)
+
+    def decode_calibration_counter(self, regs: Sequence[int]) -> int:
+        if self.calibration is None:
+            raise ValueError("this profile has no calibration block")
+        return self._counter(regs, self.calibration.counter_type)
+
+    def _counter(self, regs: Sequence[int], type_name: str) -> int:
+        from gateway.profiles.registers import decode_registers
+
+        value = decode_registers(
+            list(regs), type_name, word_order=self.word_order, byte_order=self.byte_order
+        )
+        assert isinstance(value, int)
+        return value
+
+    def decode_state(self, regs: Sequence[int]) -> StationState | None:
+        """The station state, or None when the register holds a code the profile does not map."""
+        if self.state is None:
+            return None
+        from gateway.errors import DecodeError
+        from gateway.profiles.registers import decode_registers
+
+        try:
+            value = decode_registers(
+                list(regs),
+                self.state.type,
+                word_order=self.state.word_order,
+                byte_order=self.state.byte_order,
+            )
+        except DecodeError:
+            return None
+        return self.state_map.get(value) if isinstance(value, int) else None
+
+    def decode_result(
+        self,
+        regs: Sequence[int],
+        expected_cycle: int,
+        ctx: StationContext,
+        received_at: datetime,
+    ) -> TestResult | Rejected:
+        from gateway.profiles.normalise import decode_block
+
+        address = self.result.slot_address(expected_cycle)
+        out = decode_block(self, "result", self.result, address, regs, expected_cycle, ctx,
+                           received_at)
+        assert not isinstance(out, CalibrationEvent)
+        return out
+
+    def decode_calibration(
+        self,
+        regs: Sequence[int],
+        expected_counter: int,
+        ctx: StationContext,
+        received_at: datetime,
+    ) -> CalibrationEvent | Rejected:
+        from gateway.profiles.normalise import decode_block
+
+        if self.calibration is None:
+            raise ValueError("this profile has no calibration block")
+        out = decode_block(self, "calibration", self.calibration, self.calibration.address,
+                           regs, expected_counter, ctx, received_at)
+        assert not isinstance(out, TestResult)
+        return out
+
+
+@dataclass(frozen=True)
+class Profile:
+    """A loaded, validated station profile."""
+
+    name: str
+    version: str
+    label: str
+    description: str
+    transport: Literal["serial", "modbus"]
+    serial: SerialSpec | None
+    modbus: ModbusSpec | None
+    source: str = ""  # file it was loaded from
