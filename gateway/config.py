@@ -357,7 +357,8 @@ def _station(
         if want is None:
             raise r.fail(f"{p}overrides.{k}", f"one of {', '.join(_OVERRIDES)} (unknown key)")
         if isinstance(v, bool) or not isinstance(v, (want, int) if want is float else want):
-            raise r.fail(f"{p}overrides.{k}", f"a {want.__name__}", v)
+            kind = {int: "an integer", float: "a number", str: "a string"}[want]
+            raise r.fail(f"{p}overrides.{k}", kind, v)
 
     return StationConfig(
         id=sid,
@@ -409,13 +410,14 @@ def _check_buses(r: _Reader, stations: Sequence[StationConfig]) -> None:
                 f"stations[{group[1].id}].endpoint",
                 f"an endpoint of its own (a serial station cannot share {endpoint} with {names})",
             )
-        ids = [s.overrides.get("device_id", s.profile.modbus.device_id) for s in group]
+        specs = [s.profile.modbus for s in group if s.profile.modbus is not None]
+        ids = [s.overrides.get("device_id", m.device_id) for s, m in zip(group, specs, strict=True)]
         if len(set(ids)) != len(ids):
             raise r.fail(
                 f"stations[{group[1].id}].overrides.device_id",
                 f"distinct device ids on the shared bus {endpoint} ({names})",
                 ids,
             )
-        framers = {s.profile.modbus.framer for s in group}
+        framers = {m.framer for m in specs}
         if len(framers) > 1:
             raise r.fail(f"stations[{group[1].id}].profile", f"one framer per bus {endpoint}")

@@ -211,8 +211,11 @@ async def run_request_station(
                     backoff.reset()
                     await _emit(outbox, health.succeeded(received_at))
                     if not answer.complete:
-                        raw = "\n".join(handler.text(x.data) for x in answer.lines)
-                        handler.line_no += len(answer.lines)
+                        # the cut-off line's start (no terminator yet) belongs to this answer
+                        more, tail = link.take_buffered()
+                        cut = [*answer.lines, *more] + ([RawLine(tail)] if tail else [])
+                        raw = "\n".join(handler.text(x.data) for x in cut)
+                        handler.line_no += len(cut)
                         ending = req.end_line or f"{req.lines} lines"
                         await outbox.put([
                             handler.reject(

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import asyncio
+import dataclasses
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
 from datetime import UTC, datetime
@@ -13,6 +14,7 @@ from hypothesis import given
 from hypothesis import strategies as st
 
 from gateway.drivers.base import Item, Pacing, StationTarget
+from gateway.profiles import StationContext, load_profile
 from gateway.drivers.lines import LineLink, LineSplitter, RawLine
 from gateway.drivers.serial import LineHandler, read_answer, run_request_station
 from gateway.records import Rejected, StationState, StationStatus, TestResult
@@ -104,62 +106,26 @@ async def test_no_answer_is_empty_and_incomplete() -> None:
 
 
 # -- request/response station over the mock transport ------------------------------------------
-@dataclass
-class _Req:
-    query: bytes
-    end_line: str | None = "END"
-    lines: int | None = None
-    timeout_s: float = 0.2
-    empty: str | None = "NONE"
+def kv_answer(cycle: int) -> bytes:
+    """An lf-kv ?LAST answer as sim/README.md documents it."""
+    lines = [
+        "TYPE=RES", f"CYC={cycle}", "TS=2026-12-02T06:15:09Z", "PRG=MV-44", "SN=MV44-000123",
+        "VRD=GOOD", "PU=psi", "LU=sccm", "P=20.003", "DP=0.01040", "LR=0.512", "LIM=3.500",
+        "LLIM=", "TF=2.5", "TST=6.0", "TT=8.0", "TMP=21.7", "END",
+    ]  # fmt: skip
+    return b"".join(line.encode() + b"\r\n" for line in lines)
 
 
-class _KvParser:
-    """Stand-in for a key=value profile parser: CYC=<n> makes a result, anything else rejects."""
-
-    def __init__(self, ctx: Any) -> None:
-        self.ctx = ctx
-
-    def parse(self, lines: list[str], first: int, received_at: datetime) -> list[Any]:
-        if lines == ["NONE"]:
-            return []
-        kv = dict(line.split("=", 1) for line in lines if "=" in line)
-        if len(kv) != len(lines) or "CYC" not in kv or not kv["CYC"].isdigit():
-            return [Rejected(self.ctx.station, "kv@1", "\n".join(lines), "not a result",
-                             received_at, first)]
-        return [TestResult(
-            station=self.ctx.station, line=self.ctx.line, cycle=int(kv["CYC"]),
-            ended_at=datetime(2026, 12, 2, 6, tzinfo=UTC), received_at=received_at,
-            program="MV-44", verdict="pass", test_pressure_pa=137_900.0, pressure_loss_pa=1.0,
-            leak_rate_sccm=0.5, reject_limit_sccm=3.5, fill_s=2.5, stabilise_s=6, test_s=8,
-            raw="\n".join(lines), profile="kv@1",
-        )]
+NONE = b"NONE\r\nEND\r\n"
 
 
-@dataclass
-class _SerialSpec:
-    requests: list[_Req]
-    mode: str = "request"
-    encoding: str = "ascii"
-    terminator: bytes = b"\r\n"
-    max_line: int = 256
-    request_gap_s: float = 0.0
-
-    def parser(self, ctx: Any) -> _KvParser:
-        return _KvParser(ctx)
-
-
-@dataclass
-class _Profile:
-    serial: _SerialSpec
-    label: str = "kv@1"
-    transport: str = "serial"
-    modbus: None = None
-
-
-@dataclass
-class _Ctx:
-    station: str = "K1"
-    line: str = "L1"
+def kv_profile(timeout_s: float = 0.2) -> Any:
+    """The built-in lf-kv profile, asking only ?LAST (the tests script one query)."""
+    profile = load_profile("lf-kv")
+    assert profile.serial is not None
+    requests = [dataclasses.replace(profile.serial.requests[0], timeout_s=timeout_s)]
+    return dataclasses.replace(profile, serial=dataclasses.replace(profile.serial,
+                                                                   requests=requests))
 
 
 @dataclass
@@ -171,10 +137,10 @@ class Collect:
         self.items.extend(items)
 
 
-def target(requests: list[_Req]) -> StationTarget:
+def target(timeout_s: float = 0.2) -> StationTarget:
     return StationTarget(
-        station="K1", endpoint="mock", profile=_Profile(_SerialSpec(requests)),  # type: ignore[arg-type]
-        context=_Ctx(), poll_interval_s=0.01, timeout_s=0.2,  # type: ignore[arg-type]
+        station="K1", endpoint="mock", profile=kv_profile(timeout_s),
+        context=StationContext(station="K1", line="L1"), poll_interval_s=0.01, timeout_s=0.2,
     )
 
 
@@ -210,10 +176,8 @@ def cycles(items: list[Item]) -> list[int]:
 
 
 async def test_repeated_last_answer_is_stored_once() -> None:
-    answers = iter([b"NONE\r\nEND\r\n"] + [b"CYC=1\r\nEND\r\n"] * 5 + [b"CYC=2\r\nEND\r\n"] * 50)
-    out, peers = await run_for(
-        target([_Req(b"?LAST\r")]), lambda q: next(answers), lambda c: 2 in cycles(c.items)
-    )
+    answers = iter([NONE] + [kv_answer(1)] * 5 + [kv_answer(2)] * 50)
+    out, peers = await run_for(target(), lambda q: next(answers), lambda c: 2 in cycles(c.items))
     assert cycles(out.items) == [1, 2]
     assert peers[0].sent[0] == b"?LAST\r"  # the query exactly as the profile gives it
     statuses = [i for i in out.items if isinstance(i, StationStatus)]
@@ -221,18 +185,16 @@ async def test_repeated_last_answer_is_stored_once() -> None:
 
 
 async def test_noise_before_an_answer_is_quarantined_and_the_result_still_read() -> None:
-    answers = iter([b"\xfe\x81junk\r\nCYC=7\r\nEND\r\n"] + [b"CYC=7\r\nEND\r\n"] * 50)
-    out, _ = await run_for(target([_Req(b"?LAST\r")]), lambda q: next(answers),
-                           lambda c: 7 in cycles(c.items))
+    answers = iter([b"\xfe\x81junk\r\n" + kv_answer(7)] + [kv_answer(7)] * 50)
+    out, _ = await run_for(target(), lambda q: next(answers), lambda c: 7 in cycles(c.items))
     rejected = [i for i in out.items if isinstance(i, Rejected)]
     assert len(rejected) == 1 and "\\xfe\\x81junk" in rejected[0].raw  # exact bytes kept
     assert cycles(out.items) == [7]
 
 
 async def test_truncated_answer_is_quarantined_and_the_next_one_read() -> None:
-    answers = iter([b"CYC=3\r\n", b"CYC=3\r\nEND\r\n"] + [b"CYC=3\r\nEND\r\n"] * 50)
-    out, _ = await run_for(target([_Req(b"?LAST\r")]), lambda q: next(answers),
-                           lambda c: 3 in cycles(c.items))
+    answers = iter([kv_answer(3)[:60]] + [kv_answer(3)] * 50)
+    out, _ = await run_for(target(), lambda q: next(answers), lambda c: 3 in cycles(c.items))
     rejected = [i for i in out.items if isinstance(i, Rejected)]
     assert len(rejected) == 1 and "incomplete" in rejected[0].reason
 
@@ -242,9 +204,9 @@ async def test_silent_station_goes_offline_once_then_recovers() -> None:
 
     def script(q: bytes) -> bytes:
         state["n"] += 1
-        return b"" if state["n"] <= 6 else b"CYC=9\r\nEND\r\n"
+        return b"" if state["n"] <= 6 else kv_answer(9)
 
-    t = target([_Req(b"?LAST\r", timeout_s=0.02)])
+    t = target(timeout_s=0.02)
     out, _ = await run_for(t, script, lambda c: 9 in cycles(c.items))
     states = [i.state for i in out.items if isinstance(i, StationStatus)]
     assert states == [StationState.OFFLINE, StationState.ONLINE]
@@ -256,15 +218,15 @@ async def test_late_answer_is_parsed_before_the_next_query() -> None:
 
     def script(q: bytes) -> bytes:
         calls["n"] += 1
-        return b"" if calls["n"] == 1 else b"CYC=4\r\nEND\r\n"
+        return b"" if calls["n"] == 1 else kv_answer(4)
 
     link, _ = mock_link(script)
-    handler = LineHandler(target([_Req(b"?LAST\r")]))
+    handler = LineHandler(target())
     out = Collect()
     from gateway.drivers.serial import _stale_input
 
     await link.write(b"?LAST\r", 1)
-    link._reader.feed_data(b"CYC=5\r\nEND\r\nhalf")  # a late answer and a cut line
+    link._reader.feed_data(kv_answer(5) + b"TYPE=RES\r\nCY")  # a late answer and a cut one
     await _stale_input(link, handler, "END", out)
     assert cycles(out.items) == [5]
     assert [i.reason for i in out.items if isinstance(i, Rejected)] == [
