@@ -120,7 +120,7 @@ def test_mistakes_name_file_key_and_expectation(
 
 def test_modbus_tcp_profile_needs_a_tcp_endpoint(tmp_path: Path) -> None:
     bad = GOOD.replace('profile = "lf-mbrtu"', 'profile = "lf-mbtcp"')
-    with pytest.raises(ConfigError, match=r"L2-S3\]\.endpoint: expected tcp://host:port for Modbus"):
+    with pytest.raises(ConfigError, match=r"L2-S3\]\.endpoint: expected tcp://host:port for Mod"):
         load_config(write(tmp_path, bad))
 
 
