@@ -1,7 +1,7 @@
 VENV ?= .venv
 PY := $(VENV)/bin/python
 
-.PHONY: demo test services
+.PHONY: demo test services lint
 
 $(VENV)/.installed: pyproject.toml
 	python3 -m venv $(VENV)
@@ -15,5 +15,9 @@ services:
 demo: $(VENV)/.installed
 	$(VENV)/bin/leakfleet sim --scenario demo --speed 60
 
-test: $(VENV)/.installed services
+lint: $(VENV)/.installed
+	$(VENV)/bin/ruff check .
+	$(VENV)/bin/mypy
+
+test: $(VENV)/.installed services lint
 	$(PY) -m pytest

@@ -1,0 +1,481 @@
+"""The journal: the gateway's local source of truth, and the seam every forwarder reads from.
+
+Every accepted record is committed here before anything else sees it. Forwarders read forward
+from a persisted per-sink cursor (``read_after`` / ``set_cursor``), so a sink that is down delays
+its data and never loses it; ``prune`` only removes what every listed sink has passed.
+
+Durability: SQLite in WAL mode with ``synchronous=NORMAL``. A ``write()`` that returned has its
+transaction appended to the WAL file in the operating system's page cache, so a crash or
+``kill -9`` of the gateway process loses nothing already acknowledged (tested). What NORMAL gives
+up against FULL is the fsync at every commit: after an operating-system crash or power loss the
+most recent commits (those since the last checkpoint's fsync) can be rolled back, but the file is
+never corrupted. Pass ``durable=True`` (``synchronous=FULL``) where a power cut must not lose
+even the last batch; it costs one fsync per batch.
+
+Threading: the runtime calls the journal from one writer at a time via ``asyncio.to_thread``
+(which may use a different pool thread each call), so the connection allows any thread and a
+lock serialises calls. Forwarders may share the same object.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import sqlite3
+import threading
+from collections.abc import Callable, Iterable, Sequence
+from dataclasses import dataclass
+from datetime import datetime
+from pathlib import Path
+from typing import Any, Literal
+
+from gateway.errors import StoreError
+from gateway.records import (
+    CalibrationEvent,
+    Record,
+    Rejected,
+    StationState,
+    StationStatus,
+    TestResult,
+    Verdict,
+)
+from gateway.store._sqlite import from_us, sqlite_path, store_error, to_us
+from gateway.store.schema import (
+    CALIBRATION_COLUMNS,
+    HOUR_US,
+    MIGRATIONS,
+    QUARANTINE_COLUMNS,
+    RESULT_COLUMNS,
+    STATUS_COLUMNS,
+    TABLES,
+    Migration,
+    migrate,
+)
+
+__all__ = ["Journal", "Kind", "WriteStats", "open_journal", "quarantine_id"]
+
+Kind = Literal["result", "calibration", "status"]
+KINDS: tuple[Kind, ...] = ("result", "calibration", "status")
+
+
+@dataclass(frozen=True, slots=True)
+class WriteStats:
+    """What one ``write()`` did: new records, ignored repeats, new quarantine rows.
+
+    ``inserted`` counts new results, calibrations and statuses; ``quarantined`` new quarantine
+    rows; ``duplicates`` every item (of any kind) that was already in the journal.
+    """
+
+    inserted: int = 0
+    duplicates: int = 0
+    quarantined: int = 0
+
+
+def quarantine_id(item: Rejected) -> str:
+    """Identity of one rejection, so a retried batch does not quarantine it twice."""
+    key = "|".join(
+        (item.station, item.profile, item.reason, item.received_at.isoformat(), str(item.line_no))
+    )
+    digest = hashlib.blake2b(key.encode(), digest_size=12)
+    digest.update(b"\0" + item.raw.encode("utf-8", "surrogatepass"))
+    return digest.hexdigest()
+
+
+# Row builders: one attribute fetch per column, in column order, nothing else.
+def _result_row(r: TestResult) -> tuple[Any, ...]:
+    return (
+        r.record_id, r.station, r.line, r.cycle, to_us(r.ended_at), to_us(r.received_at),
+        r.program, r.verdict.value, r.test_pressure_pa, r.pressure_loss_pa, r.leak_rate_sccm,
+        r.reject_limit_sccm, r.fill_s, r.stabilise_s, r.test_s, r.part_id, r.reason,
+        r.lower_limit_sccm, r.temperature_c, r.calibration_ref, r.raw, r.profile,
+    )  # fmt: skip
+
+
+def _calibration_row(c: CalibrationEvent) -> tuple[Any, ...]:
+    return (
+        c.record_id, c.station, c.line, to_us(c.ended_at), to_us(c.received_at), c.program,
+        c.master_loss_pa, c.standard_loss_pa, c.standard_sccm, c.standard_ref_pressure_pa,
+        c.ratio, c.sensitivity, int(c.passed), c.reason, c.raw, c.profile,
+    )  # fmt: skip
+
+
+def _status_row(s: StationStatus) -> tuple[Any, ...]:
+    return (s.record_id, s.station, to_us(s.at), s.state.value, s.detail)
+
+
+def _quarantine_row(q: Rejected) -> tuple[Any, ...]:
+    return (
+        quarantine_id(q),
+        q.station,
+        q.profile,
+        q.raw,
+        q.reason,
+        to_us(q.received_at),
+        q.line_no,
+    )
+
+
+def _insert_sql(table: str, columns: Sequence[str]) -> str:
+    cols = ("record_id", *columns)
+    return (
+        f"INSERT OR IGNORE INTO {table} ({', '.join(cols)}) VALUES ({', '.join('?' * len(cols))})"
+    )
+
+
+_INSERT_RESULT = _insert_sql("results", RESULT_COLUMNS)
+_INSERT_CALIBRATION = _insert_sql("calibrations", CALIBRATION_COLUMNS)
+_INSERT_STATUS = _insert_sql("statuses", STATUS_COLUMNS)
+_INSERT_QUARANTINE = _insert_sql("quarantine", QUARANTINE_COLUMNS)
+
+
+# Record rebuilders for read_after (rows come back in the SELECT column order below).
+def _result_from(row: tuple[Any, ...]) -> TestResult:
+    (st, ln, cy, end, rec, prog, verdict, tp, loss, leak, rl, fill, stab, test, part, reason,
+     lower, temp, cal, raw, prof) = row  # fmt: skip
+    return TestResult(
+        st, ln, cy, from_us(end), from_us(rec), prog, Verdict(verdict), tp, loss, leak, rl,
+        fill, stab, test, part, reason, lower, temp, cal, raw, prof,
+    )  # fmt: skip
+
+
+def _calibration_from(row: tuple[Any, ...]) -> CalibrationEvent:
+    (st, ln, end, rec, prog, master, std_loss, std_sccm, ref_p, ratio, sens, passed, reason,
+     raw, prof) = row  # fmt: skip
+    return CalibrationEvent(
+        st, ln, from_us(end), from_us(rec), prog, master, std_loss, std_sccm, ref_p, ratio,
+        sens, bool(passed), reason, raw, prof,
+    )  # fmt: skip
+
+
+def _status_from(row: tuple[Any, ...]) -> StationStatus:
+    st, at, state, detail = row
+    return StationStatus(st, from_us(at), StationState(state), detail)
+
+
+_READERS: dict[str, tuple[str, Callable[[tuple[Any, ...]], Record]]] = {
+    "result": (
+        f"SELECT seq, {', '.join(RESULT_COLUMNS)} FROM results WHERE seq > ? ORDER BY seq LIMIT ?",
+        _result_from,
+    ),
+    "calibration": (
+        f"SELECT seq, {', '.join(CALIBRATION_COLUMNS)} FROM calibrations "
+        "WHERE seq > ? ORDER BY seq LIMIT ?",
+        _calibration_from,
+    ),
+    "status": (
+        f"SELECT seq, {', '.join(STATUS_COLUMNS)} FROM statuses WHERE seq > ? ORDER BY seq LIMIT ?",
+        _status_from,
+    ),
+}
+# Which column tells a row's age, per table (statuses carry no received_at; "at" is the
+# gateway's own observation time, so it plays that role).
+_AGE_COLUMN = {"results": "received_at", "calibrations": "received_at", "statuses": "at"}
+
+
+def _check_kind(kind: str) -> str:
+    if kind not in TABLES:
+        raise ValueError(f"kind must be one of {', '.join(TABLES)}, got {kind!r}")
+    return TABLES[kind]
+
+
+class Journal:
+    """Synchronous SQLite journal; see the module docstring for durability and threading."""
+
+    def __init__(
+        self,
+        path: Path | str,
+        *,
+        durable: bool = False,
+        busy_timeout_s: float = 5.0,
+        migrations: Sequence[Migration] = MIGRATIONS,
+    ) -> None:
+        self.path = Path(path)
+        self._lock = threading.Lock()
+        try:
+            if str(self.path) != ":memory:":
+                self.path.parent.mkdir(parents=True, exist_ok=True)
+        except OSError as exc:
+            raise StoreError(f"journal {self.path}: cannot create its directory ({exc})") from exc
+        try:
+            self._conn = sqlite3.connect(
+                str(self.path),
+                timeout=busy_timeout_s,
+                isolation_level=None,  # we issue BEGIN/COMMIT ourselves
+                check_same_thread=False,
+            )
+        except sqlite3.Error as exc:
+            raise store_error(exc, self.path, "opening") from exc
+        try:
+            mode = self._conn.execute("PRAGMA journal_mode=WAL").fetchone()[0]
+            if str(mode).lower() != "wal" and str(self.path) != ":memory:":
+                raise StoreError(
+                    f"journal {self.path}: the filesystem does not support WAL mode "
+                    f"(got {mode!r}); put the journal on a local disk"
+                )
+            self._conn.execute(f"PRAGMA synchronous={'FULL' if durable else 'NORMAL'}")
+            # a larger page cache keeps the unique-key and dashboard index pages of a big
+            # journal in memory, which is what insert speed depends on (SQLite default: 2 MB)
+            self._conn.execute("PRAGMA cache_size = -32768")
+            self.version = migrate(self._conn, migrations, where=str(self.path))
+        except sqlite3.Error as exc:
+            self._conn.close()
+            raise store_error(exc, self.path, "opening and migrating") from exc
+        except BaseException:
+            self._conn.close()
+            raise
+
+    # -- write side ---------------------------------------------------------------------------
+    def write(
+        self, items: Iterable[TestResult | CalibrationEvent | StationStatus | Rejected]
+    ) -> WriteStats:
+        """Store a batch in ONE transaction; repeats of stored records are counted, not stored.
+
+        On failure nothing of the batch is stored and StoreError says why; the journal stays
+        consistent, so the caller may retry the same batch later (repeats are ignored).
+        """
+        results: list[tuple[Any, ...]] = []
+        calibrations: list[tuple[Any, ...]] = []
+        statuses: list[tuple[Any, ...]] = []
+        rejected: list[tuple[Any, ...]] = []
+        for item in items:
+            # exact type dispatch: cheaper than isinstance chains on the hot path
+            t = type(item)
+            if t is TestResult:
+                results.append(_result_row(item))  # type: ignore[arg-type]
+            elif t is Rejected:
+                rejected.append(_quarantine_row(item))  # type: ignore[arg-type]
+            elif t is StationStatus:
+                statuses.append(_status_row(item))  # type: ignore[arg-type]
+            elif t is CalibrationEvent:
+                calibrations.append(_calibration_row(item))  # type: ignore[arg-type]
+            else:
+                raise TypeError(f"cannot journal a {t.__name__}")
+        total = len(results) + len(calibrations) + len(statuses) + len(rejected)
+        if total == 0:
+            return WriteStats()
+        with self._lock:
+            conn = self._conn
+            try:
+                conn.execute("BEGIN IMMEDIATE")
+                # rowcount, not total_changes: the summary triggers' own writes must not count
+                inserted = quarantined = 0
+                if results:
+                    inserted += conn.executemany(_INSERT_RESULT, results).rowcount
+                if calibrations:
+                    inserted += conn.executemany(_INSERT_CALIBRATION, calibrations).rowcount
+                if statuses:
+                    inserted += conn.executemany(_INSERT_STATUS, statuses).rowcount
+                if rejected:
+                    quarantined = conn.executemany(_INSERT_QUARANTINE, rejected).rowcount
+                conn.execute("COMMIT")
+            except sqlite3.Error as exc:
+                self._rollback()
+                raise store_error(exc, self.path, f"writing a batch of {total}") from exc
+            except BaseException:
+                self._rollback()
+                raise
+        return WriteStats(inserted, total - inserted - quarantined, quarantined)
+
+    def _rollback(self) -> None:
+        try:
+            if self._conn.in_transaction:
+                self._conn.execute("ROLLBACK")
+        except sqlite3.Error:
+            # SQLite may already have rolled back (e.g. on SQLITE_FULL); nothing else to undo.
+            pass
+
+    # -- forwarder side -------------------------------------------------------------------------
+    def read_after(self, kind: Kind, after_seq: int, limit: int) -> list[tuple[int, Record]]:
+        """Up to ``limit`` records of ``kind`` with seq > ``after_seq``, oldest first."""
+        _check_kind(kind)
+        if limit <= 0:
+            return []
+        sql, build = _READERS[kind]
+        rows = self._query(sql, (after_seq, limit), f"reading {kind} records")
+        return [(row[0], build(row[1:])) for row in rows]
+
+    def max_seq(self, kind: Kind) -> int:
+        """Highest seq ever assigned for ``kind`` (0 when none), even if pruned since.
+
+        Seqs only grow and are never reused, but may have gaps (an ignored duplicate can use
+        one up), so count with ``backlog``, never by subtracting seqs.
+        """
+        table = _check_kind(kind)
+        rows = self._query("SELECT seq FROM sqlite_sequence WHERE name = ?", (table,), "reading")
+        return int(rows[0][0]) if rows else 0
+
+    def get_cursor(self, sink: str, kind: Kind) -> int:
+        """Last seq ``sink`` confirmed for ``kind`` (0 when it never confirmed one)."""
+        _check_kind(kind)
+        rows = self._query(
+            "SELECT seq FROM sink_cursors WHERE sink = ? AND kind = ?", (sink, kind), "reading"
+        )
+        return int(rows[0][0]) if rows else 0
+
+    def set_cursor(self, sink: str, kind: Kind, seq: int) -> None:
+        """Persist that ``sink`` has everything of ``kind`` up to and including ``seq``."""
+        _check_kind(kind)
+        if not sink:
+            raise ValueError("sink name must be non-empty")
+        if isinstance(seq, bool) or not isinstance(seq, int) or seq < 0:
+            raise ValueError(f"cursor seq must be a non-negative integer, got {seq!r}")
+        self._execute_write(
+            "INSERT INTO sink_cursors (sink, kind, seq) VALUES (?, ?, ?) "
+            "ON CONFLICT (sink, kind) DO UPDATE SET seq = excluded.seq",
+            (sink, kind, seq),
+            f"saving the cursor of sink {sink!r}",
+        )
+
+    def backlog(self, sink: str) -> dict[Kind, tuple[int, datetime | None]]:
+        """Per kind: how many records ``sink`` has not confirmed, and the oldest one's time.
+
+        The time is the first unsent record's ``received_at`` (``at`` for statuses): seq is
+        arrival order, so that is the record that has waited longest.
+        """
+        out: dict[Kind, tuple[int, datetime | None]] = {}
+        for kind in KINDS:
+            table = TABLES[kind]
+            cursor = self.get_cursor(sink, kind)
+            (count,) = self._query(
+                f"SELECT COUNT(*) FROM {table} WHERE seq > ?", (cursor,), "reading the backlog"
+            )[0]
+            oldest = self._query(
+                f"SELECT {_AGE_COLUMN[table]} FROM {table} WHERE seq > ? ORDER BY seq LIMIT 1",
+                (cursor,),
+                "reading the backlog",
+            )
+            out[kind] = (int(count), from_us(oldest[0][0]) if oldest else None)
+        return out
+
+    def prune(self, older_than: datetime, sinks: Sequence[str]) -> int:
+        """Delete records older than ``older_than`` that every listed sink has confirmed.
+
+        With no sinks listed, age alone decides. Quarantine rows (which no sink forwards) go by
+        age. The summaries of the hours and parts touched are rebuilt from the rows that
+        remain, so they always describe what is stored. Returns the number of rows deleted.
+        """
+        cutoff = to_us(older_than)
+        deleted = 0
+        with self._lock:
+            conn = self._conn
+            try:
+                conn.execute("BEGIN IMMEDIATE")
+                for kind in KINDS:
+                    table = TABLES[kind]
+                    bound: int | None = None
+                    for sink in sinks:
+                        row = conn.execute(
+                            "SELECT seq FROM sink_cursors WHERE sink = ? AND kind = ?",
+                            (sink, kind),
+                        ).fetchone()
+                        seq = int(row[0]) if row else 0
+                        bound = seq if bound is None else min(bound, seq)
+                    if bound == 0:
+                        continue  # a listed sink has confirmed nothing of this kind yet
+                    cond = f"{_AGE_COLUMN[table]} < :cutoff"
+                    if bound is not None:
+                        cond += " AND seq <= :bound"
+                    params = {"cutoff": cutoff, "bound": bound}
+                    if kind == "result":
+                        deleted += self._prune_results(cond, params)
+                    else:
+                        deleted += conn.execute(
+                            f"DELETE FROM {table} WHERE {cond}", params
+                        ).rowcount
+                deleted += conn.execute(
+                    "DELETE FROM quarantine WHERE received_at < ?", (cutoff,)
+                ).rowcount
+                conn.execute("COMMIT")
+            except sqlite3.Error as exc:
+                self._rollback()
+                raise store_error(exc, self.path, "pruning") from exc
+            except BaseException:
+                self._rollback()
+                raise
+        return deleted
+
+    def _prune_results(self, cond: str, params: dict[str, Any]) -> int:
+        """Delete results matching ``cond`` and keep result_hours / parts true to the rest."""
+        conn = self._conn
+        h = HOUR_US
+        conn.execute("CREATE TEMP TABLE IF NOT EXISTS prune_hours (hour INTEGER PRIMARY KEY)")
+        conn.execute("CREATE TEMP TABLE IF NOT EXISTS prune_parts (part_id TEXT PRIMARY KEY)")
+        conn.execute("DELETE FROM prune_hours")
+        conn.execute("DELETE FROM prune_parts")
+        conn.execute(
+            f"INSERT OR IGNORE INTO prune_hours SELECT (ended_at / {h}) * {h} FROM results "
+            f"WHERE {cond}",
+            params,
+        )
+        conn.execute(
+            "INSERT OR IGNORE INTO prune_parts SELECT part_id FROM results "
+            f"WHERE {cond} AND part_id IS NOT NULL",
+            params,
+        )
+        n = conn.execute(f"DELETE FROM results WHERE {cond}", params).rowcount
+        conn.execute("DELETE FROM result_hours WHERE hour IN (SELECT hour FROM prune_hours)")
+        conn.execute(
+            f"""INSERT INTO result_hours
+            SELECT p.hour, r.station, r.line, r.program, r.verdict, COUNT(*),
+                   SUM(r.part_id IS NULL), SUM(r.leak_rate_sccm),
+                   SUM(r.leak_rate_sccm * r.leak_rate_sccm), MIN(r.leak_rate_sccm),
+                   MAX(r.leak_rate_sccm)
+            FROM prune_hours p JOIN results r
+              ON r.ended_at >= p.hour AND r.ended_at < p.hour + {h}
+            GROUP BY p.hour, r.station, r.line, r.program, r.verdict"""
+        )
+        # parts that lost tests: drop their summary, rebuild it from the tests that remain
+        # (the triggers on parts move their share of part_hours accordingly)
+        conn.execute("DELETE FROM parts WHERE part_id IN (SELECT part_id FROM prune_parts)")
+        conn.execute(
+            """INSERT INTO parts
+            WITH t AS (
+                SELECT part_id, ended_at, seq, station, line, program, verdict,
+                       ROW_NUMBER() OVER (PARTITION BY part_id ORDER BY ended_at, seq) AS a,
+                       ROW_NUMBER() OVER (PARTITION BY part_id
+                                          ORDER BY ended_at DESC, seq DESC) AS b,
+                       COUNT(*) OVER (PARTITION BY part_id) AS n
+                FROM results WHERE part_id IN (SELECT part_id FROM prune_parts))
+            SELECT f.part_id, f.n, f.ended_at, f.seq, f.station, f.line, f.program, f.verdict,
+                   l.ended_at, l.seq, l.verdict
+            FROM t f JOIN t l ON l.part_id = f.part_id AND l.b = 1
+            WHERE f.a = 1"""
+        )
+        return n
+
+    def close(self) -> None:
+        """Checkpoint and close; safe to call twice."""
+        with self._lock:
+            try:
+                self._conn.close()
+            except sqlite3.Error as exc:
+                raise store_error(exc, self.path, "closing") from exc
+
+    def __enter__(self) -> Journal:
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        self.close()
+
+    # -- helpers --------------------------------------------------------------------------------
+    def _query(self, sql: str, params: Sequence[Any], action: str) -> list[tuple[Any, ...]]:
+        with self._lock:
+            try:
+                return self._conn.execute(sql, params).fetchall()
+            except sqlite3.Error as exc:
+                raise store_error(exc, self.path, action) from exc
+
+    def _execute_write(self, sql: str, params: Sequence[Any], action: str) -> None:
+        with self._lock:
+            try:
+                self._conn.execute(sql, params)
+            except sqlite3.Error as exc:
+                self._rollback()
+                raise store_error(exc, self.path, action) from exc
+
+
+def open_journal(url: str, *, durable: bool = False) -> Journal:
+    """Open (creating directories, schema and pending migrations) the journal at ``url``.
+
+    ``url`` is ``sqlite:///relative/path.db``, ``sqlite:////absolute/path.db`` or a bare path.
+    """
+    return Journal(sqlite_path(url), durable=durable)

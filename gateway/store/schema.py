@@ -1,0 +1,313 @@
+"""Journal schema, its version and the migration steps that bring an older journal up to date.
+
+Column names are the canonical record field names, so an export or a query needs no mapping.
+Timestamps are INTEGER microseconds since the Unix epoch, UTC: exact (a float would round),
+compact, and bucketable by hour or day with plain integer arithmetic in SQL.
+
+A migration is a list of SQL statements run inside one transaction together with the version
+bump, so a journal is always at exactly one version, never half-migrated.
+"""
+
+from __future__ import annotations
+
+import sqlite3
+from collections.abc import Sequence
+from dataclasses import dataclass
+
+from gateway.errors import StoreError
+
+__all__ = [
+    "CALIBRATION_COLUMNS",
+    "HOUR_US",
+    "MIGRATIONS",
+    "QUARANTINE_COLUMNS",
+    "RESULT_COLUMNS",
+    "SCHEMA_VERSION",
+    "STATUS_COLUMNS",
+    "TABLES",
+    "Migration",
+    "migrate",
+    "schema_version",
+]
+
+# Canonical field order (as in gateway.records), without seq and record_id.
+RESULT_COLUMNS: tuple[str, ...] = (
+    "station", "line", "cycle", "ended_at", "received_at", "program", "verdict",
+    "test_pressure_pa", "pressure_loss_pa", "leak_rate_sccm", "reject_limit_sccm",
+    "fill_s", "stabilise_s", "test_s", "part_id", "reason", "lower_limit_sccm",
+    "temperature_c", "calibration_ref", "raw", "profile",
+)  # fmt: skip
+CALIBRATION_COLUMNS: tuple[str, ...] = (
+    "station", "line", "ended_at", "received_at", "program", "master_loss_pa",
+    "standard_loss_pa", "standard_sccm", "standard_ref_pressure_pa", "ratio", "sensitivity",
+    "passed", "reason", "raw", "profile",
+)  # fmt: skip
+STATUS_COLUMNS: tuple[str, ...] = ("station", "at", "state", "detail")
+QUARANTINE_COLUMNS: tuple[str, ...] = (
+    "station", "profile", "raw", "reason", "received_at", "line_no",
+)  # fmt: skip
+
+#: kind → table, as used by read_after / cursors / backlog.
+TABLES: dict[str, str] = {"result": "results", "calibration": "calibrations", "status": "statuses"}
+
+# Summaries kept by triggers, so every writer (the journal, a backfill, a migration) keeps them
+# right and a duplicate that INSERT OR IGNORE skipped never counts. They let the dashboard's
+# yield and summary queries read a few rows per station-hour instead of every result: SQLite
+# aggregates ~1 µs per row, so a month of a busy plant (1 M results) cannot be summed from the
+# raw rows within a second. Hours are UTC, ``hour`` = the hour's start in µs.
+HOUR_US = 3_600_000_000
+
+
+def _part_share(row: str, sign: int) -> str:
+    """Trigger SQL adding (+1) or removing (-1) one part's share of its first-test hour."""
+    hour = f"({row}.first_ended_at / {HOUR_US}) * {HOUR_US}"
+    values = (
+        f"{hour}, {row}.station, {row}.line, {row}.program, {sign}, "
+        f"{sign} * ({row}.first_verdict = 'pass'), {sign} * ({row}.last_verdict = 'pass'), "
+        f"{sign} * {row}.tests"
+    )
+    delete_empty = (
+        f"DELETE FROM part_hours WHERE hour = {hour} AND station = {row}.station "
+        f"AND line = {row}.line AND program = {row}.program AND parts = 0;"
+        if sign < 0
+        else ""
+    )
+    return (
+        f"INSERT INTO part_hours VALUES ({values}) ON CONFLICT DO UPDATE SET "
+        "parts = parts + excluded.parts, first_pass = first_pass + excluded.first_pass, "
+        "final_pass = final_pass + excluded.final_pass, tests = tests + excluded.tests; "
+        + delete_empty
+    )
+
+
+_ROLLUPS: tuple[str, ...] = (
+    """CREATE TABLE result_hours (
+        hour INTEGER NOT NULL,
+        station TEXT NOT NULL,
+        line TEXT NOT NULL,
+        program TEXT NOT NULL,
+        verdict TEXT NOT NULL,
+        n INTEGER NOT NULL,
+        no_part INTEGER NOT NULL,
+        leak_sum REAL NOT NULL,
+        leak_sumsq REAL NOT NULL,
+        leak_min REAL NOT NULL,
+        leak_max REAL NOT NULL,
+        PRIMARY KEY (hour, station, line, program, verdict)
+    ) WITHOUT ROWID""",
+    f"""CREATE TRIGGER results_ai_hours AFTER INSERT ON results BEGIN
+        INSERT INTO result_hours VALUES (
+            (NEW.ended_at / {HOUR_US}) * {HOUR_US}, NEW.station, NEW.line, NEW.program,
+            NEW.verdict, 1, NEW.part_id IS NULL, NEW.leak_rate_sccm,
+            NEW.leak_rate_sccm * NEW.leak_rate_sccm, NEW.leak_rate_sccm, NEW.leak_rate_sccm)
+        ON CONFLICT DO UPDATE SET
+            n = n + 1, no_part = no_part + excluded.no_part,
+            leak_sum = leak_sum + excluded.leak_sum,
+            leak_sumsq = leak_sumsq + excluded.leak_sumsq,
+            leak_min = MIN(leak_min, excluded.leak_min),
+            leak_max = MAX(leak_max, excluded.leak_max);
+    END""",
+    # One row per part id: its first and last test (by ended_at, then seq) and how many.
+    """CREATE TABLE parts (
+        part_id TEXT PRIMARY KEY,
+        tests INTEGER NOT NULL,
+        first_ended_at INTEGER NOT NULL,
+        first_seq INTEGER NOT NULL,
+        station TEXT NOT NULL,
+        line TEXT NOT NULL,
+        program TEXT NOT NULL,
+        first_verdict TEXT NOT NULL,
+        last_ended_at INTEGER NOT NULL,
+        last_seq INTEGER NOT NULL,
+        last_verdict TEXT NOT NULL
+    ) WITHOUT ROWID""",
+    "CREATE INDEX ix_parts_first ON parts (first_ended_at)",
+    """CREATE TRIGGER results_ai_parts AFTER INSERT ON results
+    WHEN NEW.part_id IS NOT NULL BEGIN
+        INSERT INTO parts VALUES (
+            NEW.part_id, 1, NEW.ended_at, NEW.seq, NEW.station, NEW.line, NEW.program,
+            NEW.verdict, NEW.ended_at, NEW.seq, NEW.verdict)
+        ON CONFLICT DO UPDATE SET
+            tests = tests + 1,
+            station = IIF(excluded.first_ended_at < first_ended_at, excluded.station, station),
+            line = IIF(excluded.first_ended_at < first_ended_at, excluded.line, line),
+            program = IIF(excluded.first_ended_at < first_ended_at, excluded.program, program),
+            first_verdict = IIF(excluded.first_ended_at < first_ended_at,
+                                excluded.first_verdict, first_verdict),
+            first_seq = IIF(excluded.first_ended_at < first_ended_at,
+                            excluded.first_seq, first_seq),
+            first_ended_at = MIN(excluded.first_ended_at, first_ended_at),
+            last_verdict = IIF(excluded.last_ended_at >= last_ended_at,
+                               excluded.last_verdict, last_verdict),
+            last_seq = IIF(excluded.last_ended_at >= last_ended_at, excluded.last_seq, last_seq),
+            last_ended_at = MAX(excluded.last_ended_at, last_ended_at);
+    END""",
+    # Parts per hour of their first test; a part's contribution moves when its first or last
+    # test changes (subtract the old row's share, add the new one's).
+    """CREATE TABLE part_hours (
+        hour INTEGER NOT NULL,
+        station TEXT NOT NULL,
+        line TEXT NOT NULL,
+        program TEXT NOT NULL,
+        parts INTEGER NOT NULL,
+        first_pass INTEGER NOT NULL,
+        final_pass INTEGER NOT NULL,
+        tests INTEGER NOT NULL,
+        PRIMARY KEY (hour, station, line, program)
+    ) WITHOUT ROWID""",
+    f"""CREATE TRIGGER parts_ai AFTER INSERT ON parts BEGIN {_part_share("NEW", +1)} END""",
+    f"""CREATE TRIGGER parts_au AFTER UPDATE ON parts BEGIN
+        {_part_share("OLD", -1)} {_part_share("NEW", +1)}
+    END""",
+    f"""CREATE TRIGGER parts_ad AFTER DELETE ON parts BEGIN {_part_share("OLD", -1)} END""",
+)
+
+_V1: tuple[str, ...] = (
+    """CREATE TABLE results (
+        seq INTEGER PRIMARY KEY AUTOINCREMENT,
+        record_id TEXT NOT NULL UNIQUE,
+        station TEXT NOT NULL,
+        line TEXT NOT NULL,
+        cycle INTEGER NOT NULL,
+        ended_at INTEGER NOT NULL,
+        received_at INTEGER NOT NULL,
+        program TEXT NOT NULL,
+        verdict TEXT NOT NULL,
+        test_pressure_pa REAL NOT NULL,
+        pressure_loss_pa REAL NOT NULL,
+        leak_rate_sccm REAL NOT NULL,
+        reject_limit_sccm REAL NOT NULL,
+        fill_s REAL NOT NULL,
+        stabilise_s REAL NOT NULL,
+        test_s REAL NOT NULL,
+        part_id TEXT,
+        reason TEXT NOT NULL DEFAULT '',
+        lower_limit_sccm REAL,
+        temperature_c REAL,
+        calibration_ref TEXT,
+        raw TEXT NOT NULL DEFAULT '',
+        profile TEXT NOT NULL DEFAULT '',
+        UNIQUE (station, cycle, ended_at)
+    )""",
+    """CREATE TABLE calibrations (
+        seq INTEGER PRIMARY KEY AUTOINCREMENT,
+        record_id TEXT NOT NULL UNIQUE,
+        station TEXT NOT NULL,
+        line TEXT NOT NULL,
+        ended_at INTEGER NOT NULL,
+        received_at INTEGER NOT NULL,
+        program TEXT NOT NULL,
+        master_loss_pa REAL NOT NULL,
+        standard_loss_pa REAL NOT NULL,
+        standard_sccm REAL NOT NULL,
+        standard_ref_pressure_pa REAL NOT NULL,
+        ratio REAL NOT NULL,
+        sensitivity REAL NOT NULL,
+        passed INTEGER NOT NULL,
+        reason TEXT NOT NULL DEFAULT '',
+        raw TEXT NOT NULL DEFAULT '',
+        profile TEXT NOT NULL DEFAULT '',
+        UNIQUE (station, program, ended_at)
+    )""",
+    """CREATE TABLE statuses (
+        seq INTEGER PRIMARY KEY AUTOINCREMENT,
+        record_id TEXT NOT NULL UNIQUE,
+        station TEXT NOT NULL,
+        at INTEGER NOT NULL,
+        state TEXT NOT NULL,
+        detail TEXT NOT NULL DEFAULT '',
+        UNIQUE (station, at, state)
+    )""",
+    # Rejected input has no natural key; record_id hashes all of it (including received_at), so
+    # only a retried write of the very same rejection is ignored, never two real arrivals.
+    """CREATE TABLE quarantine (
+        seq INTEGER PRIMARY KEY AUTOINCREMENT,
+        record_id TEXT NOT NULL UNIQUE,
+        station TEXT NOT NULL,
+        profile TEXT NOT NULL,
+        raw TEXT NOT NULL,
+        reason TEXT NOT NULL,
+        received_at INTEGER NOT NULL,
+        line_no INTEGER
+    )""",
+    """CREATE TABLE sink_cursors (
+        sink TEXT NOT NULL,
+        kind TEXT NOT NULL,
+        seq INTEGER NOT NULL,
+        PRIMARY KEY (sink, kind)
+    ) WITHOUT ROWID""",
+    # Dashboard indexes. The extra trailing columns make them covering for the aggregate
+    # queries (verdict counts, histogram, summary), so those never touch the wide table rows.
+    "CREATE INDEX ix_results_station_time ON results "
+    "(station, ended_at, program, verdict, leak_rate_sccm)",
+    "CREATE INDEX ix_results_program_time ON results (program, ended_at)",
+    "CREATE INDEX ix_results_time ON results "
+    "(ended_at, station, line, program, verdict, leak_rate_sccm)",
+    "CREATE INDEX ix_results_part ON results (part_id, ended_at) WHERE part_id IS NOT NULL",
+    "CREATE INDEX ix_calibrations_station_time ON calibrations (station, program, ended_at)",
+    "CREATE INDEX ix_calibrations_time ON calibrations (ended_at)",
+    "CREATE INDEX ix_statuses_station_time ON statuses (station, at)",
+    "CREATE INDEX ix_statuses_time ON statuses (at)",
+    "CREATE INDEX ix_quarantine_time ON quarantine (received_at)",
+    *_ROLLUPS,
+)
+
+
+@dataclass(frozen=True, slots=True)
+class Migration:
+    """One step from ``version - 1`` to ``version``."""
+
+    version: int
+    statements: tuple[str, ...]
+    description: str = ""
+
+
+MIGRATIONS: tuple[Migration, ...] = (Migration(1, _V1, "initial schema"),)
+SCHEMA_VERSION = MIGRATIONS[-1].version
+
+
+def schema_version(conn: sqlite3.Connection) -> int:
+    """0 for a fresh file, else the version stored in ``meta``."""
+    has_meta = conn.execute(
+        "SELECT 1 FROM sqlite_master WHERE type = 'table' AND name = 'meta'"
+    ).fetchone()
+    if not has_meta:
+        return 0
+    row = conn.execute("SELECT schema_version FROM meta").fetchone()
+    return 0 if row is None else int(row[0])
+
+
+def migrate(
+    conn: sqlite3.Connection, migrations: Sequence[Migration] = MIGRATIONS, *, where: str = ""
+) -> int:
+    """Bring the journal up to the newest version; each pending step runs once, atomically.
+
+    ``conn`` must be in autocommit mode (``isolation_level=None``); the write lock is taken
+    first (BEGIN IMMEDIATE) so two processes opening a fresh journal cannot both migrate it.
+    Returns the resulting version.
+    """
+    target = migrations[-1].version if migrations else 0
+    conn.execute("BEGIN IMMEDIATE")
+    try:
+        current = schema_version(conn)
+        if current > target:
+            raise StoreError(
+                f"journal {where}: schema version {current} is newer than this build "
+                f"understands ({target}); upgrade leakfleet"
+            )
+        if current == 0:
+            conn.execute("CREATE TABLE IF NOT EXISTS meta (schema_version INTEGER NOT NULL)")
+            conn.execute("INSERT INTO meta (schema_version) VALUES (0)")
+        for step in migrations:
+            if step.version <= current:
+                continue
+            for statement in step.statements:
+                conn.execute(statement)
+            conn.execute("UPDATE meta SET schema_version = ?", (step.version,))
+            current = step.version
+        conn.execute("COMMIT")
+    except BaseException:
+        if conn.in_transaction:
+            conn.execute("ROLLBACK")
+        raise
+    return current
