@@ -29,10 +29,10 @@ from dataclasses import dataclass, field
 from typing import Any, Protocol
 
 from gateway.config import GatewayConfig
-from gateway.drivers.base import Item, Pacing, StationTarget, utcnow
+from gateway.drivers.base import Item, Outbox, Pacing, StationTarget, utcnow
 from gateway.errors import ConfigError, StoreError
-from gateway.health import Backoff
-from gateway.records import StationState, StationStatus
+from gateway.health import Backoff, ClockWatch
+from gateway.records import StationState, StationStatus, TestResult
 
 __all__ = [
     "Forwarder",
@@ -345,8 +345,33 @@ def _buses(targets: Sequence[StationTarget]) -> dict[str, list[StationTarget]]:
     return buses
 
 
+class _FlaggingOutbox:
+    """Passes items to the writer, adding a status note when a station clock jumps back."""
+
+    def __init__(self, writer: JournalWriter, health: Mapping[str, Any]) -> None:
+        self._writer = writer
+        self._health = health
+        self._clock = ClockWatch()
+
+    @property
+    def accepting(self) -> bool:
+        return self._writer.accepting
+
+    async def put(self, items: Sequence[Item]) -> None:
+        notes: list[Item] = []
+        for item in items:
+            if isinstance(item, TestResult):
+                note = self._clock.check(item.station, item.cycle, item.ended_at)
+                if note is not None:
+                    log.warning("%s: %s", item.station, note)
+                    h = self._health.get(item.station)
+                    state = getattr(h, "state", None) or StationState.ONLINE
+                    notes.append(StationStatus(item.station, utcnow(), state, note))
+        await self._writer.put([*items, *notes] if notes else items)
+
+
 def _bus_runner(
-    stations: list[StationTarget], outbox: JournalWriter, pacing: Pacing
+    stations: list[StationTarget], outbox: Outbox, pacing: Pacing
 ) -> Callable[[], Awaitable[None]]:
     from gateway.drivers.modbus import run_modbus_bus
     from gateway.drivers.serial import run_request_station, run_stream_station
@@ -364,7 +389,7 @@ def _bus_runner(
 
 async def _supervise(
     name: str, stations: list[StationTarget], run: Callable[[], Awaitable[None]],
-    outbox: JournalWriter, pacing: Pacing,
+    outbox: Outbox, pacing: Pacing,
 ) -> None:
     """Keep a bus task alive: a bug in one bus is logged and retried, never fatal to the rest."""
     backoff = Backoff(pacing.backoff_initial_s, pacing.backoff_max_s)
@@ -420,9 +445,10 @@ class Runtime:
             sink_stop = asyncio.Event()
             for fwd in self.forwarders:
                 tg.create_task(self._forward(fwd, sink_stop), name=f"sink {fwd.name}")
+            outbox = _FlaggingOutbox(writer, {t.station: t.health for t in self.targets})
             bus_tasks = [
                 tg.create_task(
-                    _supervise(ep, group, _bus_runner(group, writer, pacing), writer, pacing),
+                    _supervise(ep, group, _bus_runner(group, outbox, pacing), outbox, pacing),
                     name=f"bus {ep}",
                 )
                 for ep, group in _buses(self.targets).items()
