@@ -26,13 +26,14 @@ import time
 from collections import deque
 from collections.abc import Awaitable, Callable, Mapping, Sequence
 from dataclasses import dataclass, field
-from typing import Any, Protocol
+from typing import Any
 
 from gateway.config import GatewayConfig
 from gateway.drivers.base import Item, Outbox, Pacing, StationTarget, utcnow
 from gateway.errors import ConfigError, StoreError
 from gateway.health import Backoff, ClockWatch
 from gateway.records import StationState, StationStatus, TestResult
+from gateway.sinks import REGISTRY, Forwarder, SinkContext, SinkFactory
 
 __all__ = [
     "Forwarder",
@@ -48,35 +49,17 @@ log = logging.getLogger(__name__)
 
 
 # -- sinks ------------------------------------------------------------------------------------
-@dataclass(frozen=True)
-class SinkContext:
-    """What a forwarder needs to know about the gateway it runs in."""
-
-    site: str
-    gateway_id: str
-    store_url: str
-    stations: Mapping[str, str]  # station → line
-
-
-class Forwarder(Protocol):
-    """A sink: reads the journal from its own cursor and pushes on, until ``stop`` is set."""
-
-    name: str
-
-    async def run(self, store_url: str, stop: asyncio.Event) -> None: ...
-
-
-SinkFactory = Callable[[str, Mapping[str, Any], SinkContext], Forwarder]
-
-
 def sink_registry() -> Mapping[str, SinkFactory]:
-    """``gateway.sinks.REGISTRY`` (sink type → factory) when the sinks package provides one."""
-    try:
-        import gateway.sinks as sinks
-    except ImportError:
-        return {}
-    registry = getattr(sinks, "REGISTRY", None)
-    return registry if isinstance(registry, Mapping) else {}
+    """Sink type → factory; sink modules register themselves when imported."""
+    import importlib
+
+    for module in ("gateway.sinks.mqtt", "gateway.sinks.influx"):
+        try:
+            importlib.import_module(module)
+        except ImportError as exc:
+            if exc.name != module:
+                log.debug("sink module %s unavailable: %s", module, exc)
+    return REGISTRY
 
 
 def build_forwarders(config: GatewayConfig) -> list[Forwarder]:
@@ -422,6 +405,8 @@ class Runtime:
         cfg = self.config
         from gateway.store import open_journal
 
+        self.forwarders = build_forwarders(cfg)  # sink mistakes stop us before anything starts
+
         if self.writer is None:
             self.writer = JournalWriter(
                 lambda: open_journal(cfg.store),
@@ -434,7 +419,6 @@ class Runtime:
         journal = await writer.open()
         resume = await writer.call(resume_points, cfg.store) if journal is not None else {}
         self.targets = build_targets(cfg, resume)
-        self.forwarders = build_forwarders(cfg)
         pacing = cfg.runtime.pacing
         log.info(
             "gateway %s (%s): %d station(s) on %d bus(es), journal %s",
