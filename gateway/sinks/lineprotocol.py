@@ -12,10 +12,11 @@ https://docs.influxdata.com/influxdb/v1.6/write_protocols/line_protocol_referenc
 - measurement: comma and space are escaped with a backslash;
 - tag keys, tag values and field keys: comma, equals sign and space;
 - string field values are double-quoted, with double quote and backslash escaped.
-The reference says newlines are not supported in tag or field values, so a newline or carriage
-return becomes a space in tags and the two characters ``\\n`` / ``\\r`` in string fields (raw audit
-text stays readable). A tag value may not be empty (the tag is omitted) nor end in a backslash
-(which would escape the separator after it; a trailing backslash is dropped).
+The reference says newlines are not supported in tag or field values, so a newline, carriage
+return or tab becomes a space in names and tags, and a newline / carriage return the two
+characters ``\\n`` / ``\\r`` in string fields (raw audit text stays readable). A tag value may
+not be empty (the tag is omitted) nor end in a backslash (which would escape the separator
+after it; a trailing backslash is dropped).
 """
 
 from __future__ import annotations
@@ -53,7 +54,7 @@ def timestamp_ns(at: datetime) -> int:
 
 
 def _no_newlines(text: str) -> str:
-    return text.replace("\r", " ").replace("\n", " ")
+    return text.replace("\r", " ").replace("\n", " ").replace("\t", " ")
 
 
 def escape_measurement(name: str) -> str:
