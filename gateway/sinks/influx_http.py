@@ -155,9 +155,17 @@ class InfluxHttp:
             params["rp"] = self.target.retention_policy
         self.request("POST", "/write", params, body.encode("utf-8"))
 
-    def query(self, q: str, *, database: bool = True) -> list[dict[str, Any]]:
-        """Run InfluxQL; returns the ``results`` list (ns epochs). Statement errors raise."""
+    def query(
+        self, q: str, *, database: bool = True, bind: dict[str, Any] | None = None
+    ) -> list[dict[str, Any]]:
+        """Run InfluxQL; returns the ``results`` list (ns epochs). Statement errors raise.
+
+        ``bind`` values fill ``$name`` placeholders server-side (the v1 API's ``params``), so
+        no value is ever spliced into query text.
+        """
         params = {"q": q, "epoch": "ns"}
+        if bind:
+            params["params"] = json.dumps(bind)
         if database:
             params["db"] = self.target.database
             if self.target.retention_policy:
