@@ -6,12 +6,14 @@ from __future__ import annotations
 import configparser
 from pathlib import Path
 
+import pytest
+
 from gateway.cli import main
 
 DEPLOY = Path(__file__).resolve().parents[3] / "deploy"
 
 
-def test_example_gateway_config_checks(capsys) -> None:  # type: ignore[no-untyped-def]
+def test_example_gateway_config_checks(capsys: pytest.CaptureFixture[str]) -> None:
     assert main(["gateway", "--config", str(DEPLOY / "gateway.toml"), "--check"]) == 0
     out = capsys.readouterr().out
     assert "sink mqtt" in out and "sink influx" in out
