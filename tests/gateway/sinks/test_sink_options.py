@@ -99,3 +99,15 @@ def test_metrics_endpoint_on_loopback() -> None:
     assert 'leakfleet_records_received_total{kind="result",station="L1-S1"} 3.0' in text
     assert 'leakfleet_station_state{leakfleet_station_state="testing",station="L1-S1"} 1.0' in text
     assert "leakfleet_poll_latency_seconds_bucket" in text
+
+
+def test_missing_server_skips_locally_and_fails_in_ci(monkeypatch: pytest.MonkeyPatch) -> None:
+    from tests.support import servers
+
+    monkeypatch.setattr(servers.shutil, "which", lambda *a, **k: None)
+    monkeypatch.delenv("CI", raising=False)
+    with pytest.raises(pytest.skip.Exception, match="apt-get install mosquitto"):
+        servers.require_binary("mosquitto")
+    monkeypatch.setenv("CI", "true")
+    with pytest.raises(pytest.fail.Exception, match="CI must provide real servers"):
+        servers.require_binary("influxd")
