@@ -180,6 +180,8 @@ class RetestReport(ResultMixin):
     parts_without_id: int
     note: str = ""
     by: tuple[str, ...] = field(default_factory=tuple)
+    # every part that passed only on a retest: where and when its pass ran (for shift reports)
+    retested_passes: list[dict[str, Any]] = field(default_factory=list)
 
 
 def _part_sequences(results: pd.DataFrame) -> pd.DataFrame:
@@ -258,23 +260,18 @@ def retest_analysis(
     passed = parts[parts["passed"]]
     after = passed[passed["rejects_before"] > 0]
     two_plus = sorted(after.loc[after["rejects_before"] >= 2, "part_id"].astype(str))
-    marginal = []
+    marginal, retested = [], []
     for r in after.to_dict("records"):
         band = guard_band if guard_band is not None else 0.1 * abs(r["reject_limit_sccm"])
-        if r["reject_limit_sccm"] - band < r["leak_rate_sccm"] <= r["reject_limit_sccm"]:
-            marginal.append(
-                {
-                    k: r[k]
-                    for k in (
-                        "part_id",
-                        "station",
-                        "ended_at",
-                        "leak_rate_sccm",
-                        "reject_limit_sccm",
-                        "rejects_before",
-                    )
-                }
-            )
+        is_marginal = r["reject_limit_sccm"] - band < r["leak_rate_sccm"] <= r["reject_limit_sccm"]
+        keys = ("part_id", "station", "ended_at", "leak_rate_sccm", "reject_limit_sccm",
+                "rejects_before")  # fmt: skip
+        if is_marginal:
+            marginal.append({k: r[k] for k in keys})
+        retested.append(
+            {k: r[k] for k in (*keys, "line", "program", "day", "shift")}
+            | {"marginal": is_marginal}
+        )
     by_group = []
     if len(passed) and by:
         for key, g in passed.groupby(list(by), sort=True):
@@ -305,6 +302,7 @@ def retest_analysis(
         parts_without_id=without_id,
         note=note,
         by=tuple(by),
+        retested_passes=sorted(retested, key=lambda r: (r["ended_at"], r["part_id"])),
     )
 
 

@@ -1,4 +1,5 @@
-"""``leakfleet report``: yield, capability, calibration health, gauge studies, test-time advice.
+"""``leakfleet report``: yield, capability, calibration health, gauge studies, test-time advice,
+audit reports (part history, retests, leak standards) and the printable shift report.
 
 The edge between a store (or a CSV file) and ``analytics``: this module reads, the analytics
 functions compute, and the result prints as a table or, with ``--json``, as one JSON document
@@ -37,6 +38,7 @@ KINDS = (
     "part",
     "retests",
     "standards",
+    "shift",
 )
 
 _RELATIVE = re.compile(r"^\s*(\d+(?:\.\d+)?)\s*([smhdw])\s*$")
@@ -270,6 +272,47 @@ def register(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
     p.add_argument("--no-store", action="store_true", help="register only, do not read the store")
     p.set_defaults(func=_handler("standards"))
 
+    p = kinds.add_parser(
+        "shift",
+        parents=[common, shifts],
+        help="one shift per line: yield, rejects, retests, calibration state, alarms, standards",
+        description=(
+            "The report of one shift (--date, --shift on the plant's local clock), one section "
+            "per line: first-pass and final yield, rejects by reason, the share of passes that "
+            "needed a retest, each station's calibration state and the alarms raised, and the "
+            "leak standards due. --html FILE writes it as one self-contained printable page "
+            "(A4 or Letter); --json prints the same figures. Parts count in the shift of their "
+            "first test; a pass that needed a retest counts in the shift where it ran."
+        ),
+    )
+    p.add_argument(
+        "--store", default=DEFAULT_STORE, help=f"store URL (default {DEFAULT_STORE})"
+    )
+    p.add_argument(
+        "--date", required=True, help="production date YYYY-MM-DD (a night shift's start date)"
+    )
+    p.add_argument("--shift", required=True, help="shift name from the calendar, e.g. early")
+    p.add_argument("--line", help="only this line")
+    p.add_argument("--html", metavar="FILE", help="also write the report as one HTML file")
+    p.add_argument(
+        "--paper", choices=("a4", "letter"), default="a4", help="print page size (a4)"
+    )
+    p.add_argument("--standards", metavar="FILE.csv", help="leak-standard register (see standards)")
+    p.add_argument("--within", type=int, default=30, help="days ahead that count as due (30)")
+    p.add_argument(
+        "--history",
+        type=float,
+        default=7.0,
+        metavar="DAYS",
+        help="days before the shift read for retests, retest alarms and calibration charts (7)",
+    )
+    p.add_argument("--guard-band", help="guard band below the limit, e.g. 0.2sccm (10 %% of limit)")
+    p.add_argument(
+        "--min-ratio", type=float, help="alarm when a calibration's ratio is below this"
+    )
+    p.add_argument("--master-loss-limit", help="master loss limit for the drift projection")
+    p.set_defaults(func=_shift_handler)
+
 
 def _handler(kind: str) -> Callable[[argparse.Namespace], int]:
     def run(args: argparse.Namespace) -> int:
@@ -457,6 +500,7 @@ def build_report(kind: str, args: argparse.Namespace, store: Any | None = None) 
         "part": _part,
         "retests": _retests,
         "standards": _standards,
+        "shift": _shift,
     }
     opened: list[Any] = []
 
@@ -1248,6 +1292,138 @@ def _standards(args: argparse.Namespace, get_store: Callable[[], Any]) -> Report
                 ],
             )
     return Report("standards", filters, result, text)
+
+
+def _shift_handler(args: argparse.Namespace) -> int:
+    """Build the shift report; write the HTML page when asked, print JSON or text."""
+    from gateway.reports import render_shift_html
+
+    report = build_report("shift", args)
+    document = report.document()
+    if args.html:
+        page = render_shift_html(document, paper=args.paper)
+        try:
+            Path(args.html).write_text(page, encoding="utf-8")
+        except OSError as exc:
+            raise ValueError(f"--html {args.html}: cannot write ({exc.strerror})") from None
+        print(f"wrote {args.html}", file=sys.stderr)
+    if not report.result["has_data"]:
+        print(f"leakfleet report shift: note: {report.result['note']}", file=sys.stderr)
+    print(json.dumps(document, allow_nan=False, indent=2) if args.json else report.text)
+    return 0
+
+
+def _shift_date(text: str, timezone: str) -> date:
+    from zoneinfo import ZoneInfo
+
+    today = datetime.now(UTC).astimezone(ZoneInfo(timezone)).date()
+    word = text.strip().lower()
+    if word in ("today", "yesterday"):
+        return today - timedelta(days=1 if word == "yesterday" else 0)
+    try:
+        return date.fromisoformat(text.strip())
+    except ValueError:
+        raise ValueError(
+            f"--date: expected a date YYYY-MM-DD (or today, yesterday), got {text!r}"
+        ) from None
+
+
+def _shift(args: argparse.Namespace, get_store: Callable[[], Any]) -> Report:
+    import pandas as pd
+
+    from analytics import HealthConfig, ShiftCalendar, shift_report
+
+    calendar = ShiftCalendar(args.timezone, _parse_shifts(args.shifts))
+    day = _shift_date(args.date, args.timezone)
+    if args.shift not in calendar.names:
+        raise ValueError(
+            f"--shift: unknown shift {args.shift!r}; the calendar has {', '.join(calendar.names)}"
+        )
+    if not (0 <= args.history <= 366):
+        raise ValueError(f"--history: expected 0..366 days, got {args.history:g}")
+    if args.within < 0:
+        raise ValueError(f"--within: expected days ≥ 0, got {args.within}")
+    window = calendar.window(day, args.shift)
+    standards = _read_standards(args.standards) if args.standards else []
+    health = HealthConfig(
+        min_ratio=args.min_ratio,
+        master_loss_limit_pa=_quantity(
+            args.master_loss_limit, "pressure", "Pa", "--master-loss-limit"
+        ),
+    )
+    since = window.start - timedelta(days=args.history)
+    store = get_store()
+    results = store.results(since, window.end, line=args.line)
+    cals = store.calibrations(window.end - timedelta(days=args.history), window.end,
+                              line=args.line)  # fmt: skip
+    stations = store.stations() if hasattr(store, "stations") else None
+    if stations is not None and args.line is not None:
+        stations = stations[stations["line"].astype("string") == args.line]
+    statuses = None
+    if hasattr(store, "statuses"):
+        names = set(stations["station"].astype(str)) if stations is not None else set()
+        names |= set(results["station"].astype(str)) if len(results) else set()
+        frames = [store.statuses(window.start, window.end)]
+        frames += [
+            store.statuses(None, window.start, station=n, limit=1, newest_first=True)
+            for n in sorted(names)
+        ]
+        frames = [f for f in frames if len(f)]
+        statuses = pd.concat(frames, ignore_index=True) if frames else None
+    r = shift_report(
+        window, calendar, results, cals, statuses, stations, standards,
+        history_since=since, within_days=args.within,
+        guard_band=_quantity(args.guard_band, "leak", "sccm", "--guard-band"),
+        health=health, line=args.line,
+    )  # fmt: skip
+    result = r.to_dict()
+    filters = {
+        "date": day.isoformat(),
+        "shift": args.shift,
+        "line": args.line,
+        "since": window.start.isoformat(),
+        "until": window.end.isoformat(),
+    }
+    return Report("shift", filters, result, _shift_text(result, calendar))
+
+
+def _shift_text(r: dict[str, Any], calendar: Any) -> str:
+    """The shift report as plain text (the table view of the same document)."""
+    start = datetime.fromisoformat(r["start"]).astimezone(calendar.tz)
+    end = datetime.fromisoformat(r["end"]).astimezone(calendar.tz)
+    lines = [
+        f"Shift {r['shift_date']} {r['shift']}: {start:%Y-%m-%d %H:%M} – {end:%Y-%m-%d %H:%M} "
+        f"({r['timezone']}), {r['tests']} tests"
+    ]
+    if not r["has_data"]:
+        lines.append(f"  {r['note']}")
+    for sec in r["lines"]:
+        rt = sec["retests"]
+        lines += [
+            "",
+            f"Line {sec['line']}: {sec['tests']} tests, {sec['parts']} parts; first-pass yield "
+            f"{_pct(sec['first_pass_yield'])}, final yield {_pct(sec['final_yield'])}; "
+            f"{rt['passed_after_retest']} of {rt['passes']} passes needed a retest "
+            f"({_pct(rt['share'])})" + (f"; {sec['note']}" if sec["note"] else ""),
+        ]
+        if sec["rejects"]["rows"]:
+            lines.append(
+                "  rejects: "
+                + ", ".join(f"{x['category']} {x['n']}" for x in sec["rejects"]["rows"][:8])
+            )
+        for s in sec["stations"]:
+            lines.append(
+                f"  {s['station']}: {s['tests']} tests, calibration {s['calibration_state']}"
+                + (f" (last {s['last_calibration_at'][:16]})" if s["last_calibration_at"] else "")
+                + (f", standard {s['standard_serial']}" if s["standard_serial"] else "")
+            )
+        lines += [f"  alarm {a['station']}: {a['message']}" for a in sec["alarms"]]
+        lines += [
+            f"  standard {x['serial']} ({x['station']}) due {x['due_date']}: {x['status']}"
+            for x in sec["standards"]
+            if x["status"] != "ok"
+        ]
+    return "\n".join(lines)
 
 
 def pd_iso(value: Any) -> str:
