@@ -52,6 +52,8 @@ svg{display:block;max-width:100%%;height:auto}
 table{border-collapse:collapse;width:100%%;font-size:8.5pt;margin:1mm 0 2mm}
 th,td{border-bottom:1px solid %(grid)s;padding:.8mm 1.5mm;text-align:left;vertical-align:top}
 th{color:%(muted)s;font-weight:normal;border-bottom:1px solid %(muted)s}
+table.wide{font-size:7.5pt}
+td.t{white-space:nowrap}
 td.n,th.n{text-align:right;font-variant-numeric:tabular-nums;white-space:nowrap}
 .bad{color:%(reject)s;font-weight:bold}
 .warn{color:%(retest)s;font-weight:bold}
@@ -125,13 +127,14 @@ class _Page:
         return self.field(path, value, text, tag="td", cls=cls)
 
 
-def _thead(*columns: str) -> str:
+def _thead(*columns: str, cls: str = "") -> str:
     """Table start with a header row; a leading ``#`` marks a right-aligned number column."""
     cells = "".join(
         f'<th class="n">{escape(c[1:])}</th>' if c.startswith("#") else f"<th>{escape(c)}</th>"
         for c in columns
     )
-    return f"<table><thead><tr>{cells}</tr></thead><tbody>"
+    klass = f' class="{cls}"' if cls else ""
+    return f"<table{klass}><thead><tr>{cells}</tr></thead><tbody>"
 
 
 def _bar_chart_yield(fp: float | None, final: float | None, label: str) -> str:
@@ -208,7 +211,7 @@ def _bar_chart_retests(passes: int, after: int) -> str:
 def _pareto_chart(rows: Sequence[Mapping[str, Any]]) -> str:
     """Pareto of reject reasons: bars by falling count, cumulative share as a line."""
     shown = list(rows[:8])
-    w, h, left, right, top, bottom = 660, 230, 40, 40, 12, 78
+    w, h, left, right, top, bottom = 660, 200, 40, 40, 12, 58
     span_x, span_y = w - left - right, h - top - bottom
     out = [
         f'<svg xmlns="http://www.w3.org/2000/svg" viewBox="0 0 {w} {h}" width="{w}" '
@@ -269,6 +272,19 @@ def _kpi(page: _Page, label: str, path: Sequence[str | int], value: Any, text: s
     )
 
 
+def _line_charts(page: _Page, sec: Mapping[str, Any]) -> None:
+    rt = sec["retests"]
+    page.add(
+        '<div class="charts"><figure>',
+        _bar_chart_yield(sec["first_pass_yield"], sec["final_yield"], "yield"),
+        "<figcaption>First-pass yield: the part's first test passed. Final yield: its latest "
+        "test by the end of the shift passed.</figcaption></figure><figure>",
+        _bar_chart_retests(int(rt["passes"]), int(rt["passed_after_retest"])),
+        "<figcaption>Passes in this shift, by whether the part needed a retest.</figcaption>",
+        "</figure></div>",
+    )
+
+
 def _line(page: _Page, i: int, sec: Mapping[str, Any]) -> None:
     base: list[str | int] = ["lines", i]
     f = page.field
@@ -304,15 +320,8 @@ def _line(page: _Page, i: int, sec: Mapping[str, Any]) -> None:
         "</div>",
     )
     rt = sec["retests"]
-    page.add(
-        '<div class="charts"><figure>',
-        _bar_chart_yield(sec["first_pass_yield"], sec["final_yield"], "yield"),
-        "<figcaption>First-pass yield: the part's first test passed. Final yield: its latest "
-        "test by the end of the shift passed.</figcaption></figure><figure>",
-        _bar_chart_retests(int(rt["passes"]), int(rt["passed_after_retest"])),
-        "<figcaption>Passes in this shift, by whether the part needed a retest.</figcaption>",
-        "</figure></div>",
-    )
+    if sec["has_data"]:
+        _line_charts(page, sec)
     page.add(
         '<p class="meta">',
         f([*base, "first_pass"], sec["first_pass"]),
@@ -326,7 +335,7 @@ def _line(page: _Page, i: int, sec: Mapping[str, Any]) -> None:
         f([*base, "tests_without_part_id"], sec["tests_without_part_id"]),
         " test(s) without a part id (yield basis: ",
         f([*base, "basis"], sec["basis"], sec["basis"]),
-        ")." + (f" {escape(sec['note'])}." if sec["note"] else ""),
+        ")." + (f" {escape(sec['note'])}." if sec["note"] and sec["has_data"] else ""),
         "</p>",
     )
 
@@ -432,6 +441,7 @@ def _line(page: _Page, i: int, sec: Mapping[str, Any]) -> None:
             "#in shift (failed)",
             "standard",
             "drift",
+            cls="wide",
         ),
     )
     for j, s in enumerate(sec["stations"]):
@@ -443,7 +453,7 @@ def _line(page: _Page, i: int, sec: Mapping[str, Any]) -> None:
             page.td([*p, "tests"], s["tests"]),
             f"<td>{escape(s['state_at_end'] or '–')}</td>",
             page.td([*p, "calibration_state"], state, state, cls=cls),
-            f"<td>{page.local(s['last_calibration_at'])}</td>",
+            f'<td class="t">{page.local(s["last_calibration_at"], "%d %b %H:%M")}</td>',
             page.td([*p, "master_loss_pa"], s["master_loss_pa"]),
             page.td([*p, "standard_loss_pa"], s["standard_loss_pa"]),
             page.td([*p, "ratio"], s["ratio"]),
