@@ -185,3 +185,97 @@ def test_html_is_self_contained_and_printable(
     assert not re.search(r"https?://(?!www\.w3\.org/2000/svg)", html)
     assert html.count('<section class="line"') == 2
     assert "break-before:page" in html and html.count("<svg") >= 3
+
+
+def _config(directory: Path, url: str, extra: str = "") -> Path:
+    """A gateway config for the hand-built plant: zone, shifts and the standards register."""
+    standards = "".join(
+        f'[[standards]]\nserial = "{serial}"\nstation = "{station}"\nnominal = "{flow} sccm"\n'
+        f'reference_pressure = "50 kPa"\ncertificate_date = {cert}\n{due}\n'
+        + (f"uncertainty_pct = {unc}\n" if unc else "")
+        for serial, station, flow, cert, due, unc in (
+            ("LS-101", "L1-S1", 5, "2025-01-14", "due_date = 2026-01-14", 2),
+            ("LS-102", "L1-S2", 5, "2025-02-28", "interval_months = 11", 2),
+            ("LS-201", "L2-S1", 5, "2025-06-01", "due_date = 2026-06-01", 2),
+            ("LS-900", "OLD-S9", 5, "2024-01-01", "due_date = 2025-01-01", None),
+        )
+    )
+    stations = "".join(
+        f'[[stations]]\nid = "{sid}"\nline = "{sid[:2]}"\nprofile = "lf-delim"\n'
+        f'endpoint = "tcp://127.0.0.1:{port}"\n'
+        for sid, port in (("L1-S1", 15901), ("L1-S2", 15902), ("L2-S1", 15903))
+    )
+    path = directory / "plant.toml"
+    path.write_text(
+        f'site = "Northmere Works"\ntimezone = "Europe/Berlin"\nstore = "{url}"\n{extra}'
+        '[shifts]\nearly = "06:00"\nlate = "14:00"\nnight = "22:00"\n'
+        f"{standards}{stations}"
+    )
+    return path
+
+
+def test_config_gives_zone_shifts_register_and_store(
+    journal: tuple[str, Path], tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    url, _ = journal
+    config = _config(tmp_path, url)
+    night = ["--date", "2026-01-14", "--shift", "night", "--json"]
+    assert main(["report", "shift", "--config", str(config), *night]) == 0
+    from_config = json.loads(capsys.readouterr().out)
+    from_options = _shift(journal, capsys, *night[:-1])
+    assert from_config["result"] == from_options["result"]
+    assert from_config["filters"]["config"] == str(config)
+    # Options override the config: the same shift name on the UTC clock is another window.
+    assert main(["report", "shift", "--config", str(config), "--timezone", "UTC", *night]) == 0
+    assert json.loads(capsys.readouterr().out)["result"]["start"] == "2026-01-14T22:00:00+00:00"
+    assert main(["report", "standards", "--config", str(config), "--today", "2026-01-15",
+                 "--json"]) == 0  # fmt: skip
+    doc = json.loads(capsys.readouterr().out)["result"]
+    assert {s["serial"]: s["status"] for s in doc["standards"]}["LS-101"] == "overdue"
+    # L1-S1 calibrated at 00:00 Berlin on the 15th: the config's zone makes that the 15th.
+    assert [o["standard"] for o in doc["overdue_calibrations"]] == ["LS-101"]
+
+
+def test_demo_config_has_a_standard_near_its_due_date(capsys: pytest.CaptureFixture[str]) -> None:
+    argv = ["report", "standards", "--config", "demo", "--no-store", "--today", "2026-12-02",
+            "--json"]  # fmt: skip
+    assert main(argv) == 0
+    status = json.loads(capsys.readouterr().out)["result"]["standards"]
+    assert [s["serial"] for s in status if s["status"] != "ok"] == ["LS-3022"]
+    assert status[0]["serial"] == "LS-3022" and status[0]["days_left"] == 19
+
+
+@pytest.mark.parametrize(
+    ("extra", "expected"),
+    [
+        ('[[standards]]\nserial = "LS-7"\nstation = "L1-S1"\nnominal = "5 sccm"\n'
+         'reference_pressure = "50 kPa"\ninterval_months = 12\n',
+         "plant.toml: standards[LS-7].certificate_date: expected a date"),
+        ('[[standards]]\nserial = "LS-8"\nstation = "L1-S1"\nnominal = "5 furlongs"\n'
+         'reference_pressure = "50 kPa"\ncertificate_date = 2025-01-01\ninterval_months = 12\n',
+         "plant.toml: standards[LS-8].nominal:"),
+    ],
+)  # fmt: skip
+def test_bad_register_in_config_is_one_line(
+    journal: tuple[str, Path], tmp_path: Path, capsys: pytest.CaptureFixture[str],
+    extra: str, expected: str,
+) -> None:  # fmt: skip
+    url, _ = journal
+    config = _config(tmp_path, url)
+    config.write_text(config.read_text() + extra)
+    code = main(["report", "shift", "--config", str(config), "--date", "2026-01-14",
+                 "--shift", "night"])  # fmt: skip
+    err = capsys.readouterr().err
+    assert code == 2 and expected in err and len(err.strip().splitlines()) == 1
+
+
+def test_bad_shift_in_config_is_one_line(
+    journal: tuple[str, Path], tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    url, _ = journal
+    config = _config(tmp_path, url)
+    config.write_text(config.read_text().replace('early = "06:00"', 'early = "6am"'))
+    code = main(["report", "shift", "--config", str(config), "--date", "2026-01-14",
+                 "--shift", "night"])  # fmt: skip
+    err = capsys.readouterr().err
+    assert code == 2 and "plant.toml: shifts.early: expected a local start time" in err
