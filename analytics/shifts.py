@@ -201,6 +201,16 @@ class ShiftCalendar:
             shift_date[before] = previous_date[before]
         return pd.DataFrame({"shift_date": shift_date, "shift": shift}, index=timestamps.index)
 
+    def labels(self, timestamps: pd.Series) -> pd.Series:
+        """Each timestamp's shift as text, "YYYY-MM-DD name", or "(no shift)" (the grouping
+        key of yields and retests by shift)."""
+        assigned = self.assign(timestamps)
+        has = assigned["shift"].notna()
+        out = pd.Series("(no shift)", index=assigned.index, dtype=object)
+        dates = assigned.loc[has, "shift_date"].astype(str)
+        out[has] = dates + " " + assigned.loc[has, "shift"].astype(str)
+        return out
+
     def local_date(self, timestamps: pd.Series) -> pd.Series:
         """Local calendar date of each UTC timestamp (the 'day' grouping)."""
         ts = pd.to_datetime(timestamps, utc=True)
