@@ -76,15 +76,16 @@ _BATCH_PARTS = f"""INSERT INTO temp.fold_parts
 # ...then each batch part into its stored summary, one upsert per part.
 _UPSERT_PARTS = f"INSERT INTO parts SELECT * FROM temp.fold_parts WHERE true {_MERGE_PART}"
 
+_ADD_PART_HOURS = """ON CONFLICT DO UPDATE SET
+        parts = parts + excluded.parts, first_pass = first_pass + excluded.first_pass,
+        final_pass = final_pass + excluded.final_pass, tests = tests + excluded.tests"""
+
 _SETTLE = (
-    """INSERT INTO part_hours
+    f"""INSERT INTO part_hours
     SELECT hour, station, line, program, SUM(parts), SUM(first_pass), SUM(final_pass),
            SUM(tests)
     FROM temp.part_delta WHERE true GROUP BY hour, station, line, program
-    HAVING SUM(parts) <> 0 OR SUM(first_pass) <> 0 OR SUM(final_pass) <> 0 OR SUM(tests) <> 0
-    ON CONFLICT DO UPDATE SET
-        parts = parts + excluded.parts, first_pass = first_pass + excluded.first_pass,
-        final_pass = final_pass + excluded.final_pass, tests = tests + excluded.tests""",
+    {_ADD_PART_HOURS}""",
     # an hour-group that lost its last part is removed, as if it never had one
     """DELETE FROM part_hours WHERE parts = 0 AND (hour, station, line, program) IN
     (SELECT hour, station, line, program FROM temp.part_delta WHERE parts < 0)""",
@@ -97,26 +98,30 @@ def _ensure_temp(conn: sqlite3.Connection) -> None:
         conn.execute(statement)
 
 
-def part_shares(conn: sqlite3.Connection, sign: int, keys: str) -> None:
-    """Record (+1) or take back (-1) the ``part_hours`` share of the parts listed in ``keys``.
+def part_shares(conn: sqlite3.Connection, sign: int, keys: str) -> int:
+    """Add (+1) or take back (-1) the ``part_hours`` share of the parts listed in ``keys``.
 
-    ``keys`` is a fixed table name with a ``part_id`` primary key (never user input); the
-    shares accumulate in ``temp.part_delta`` until ``settle_part_hours``.
+    ``keys`` is a fixed table name with a ``part_id`` primary key (never user input). Shares
+    are added straight into ``part_hours``; ones taken back wait in ``temp.part_delta`` for
+    ``settle_part_hours``, which also drops the groups they leave empty. Take back before
+    changing ``parts``, add after. Returns how many hour-groups the shares touched.
     """
-    if sign not in (1, -1):
+    share = f"""(p.first_ended_at / {_H}) * {_H} AS h, p.station AS s, p.line AS l,
+        p.program AS g, {sign} * COUNT(*), {sign} * SUM(p.first_verdict = 'pass'),
+        {sign} * SUM(p.last_verdict = 'pass'), {sign} * SUM(p.tests)
+        FROM {keys} k CROSS JOIN parts p ON p.part_id = k.part_id GROUP BY h, s, l, g"""
+    if sign == 1:
+        sql = f"INSERT INTO part_hours SELECT {share} {_ADD_PART_HOURS}"
+    elif sign == -1:
+        _ensure_temp(conn)
+        sql = f"INSERT INTO temp.part_delta SELECT {share}"
+    else:
         raise ValueError("sign must be +1 or -1")
-    _ensure_temp(conn)
-    conn.execute(
-        f"""INSERT INTO temp.part_delta
-        SELECT (p.first_ended_at / {_H}) * {_H}, p.station, p.line, p.program, {sign},
-               {sign} * (p.first_verdict = 'pass'), {sign} * (p.last_verdict = 'pass'),
-               {sign} * p.tests
-        FROM {keys} k CROSS JOIN parts p ON p.part_id = k.part_id"""
-    )
+    return int(conn.execute(sql).rowcount)
 
 
 def settle_part_hours(conn: sqlite3.Connection) -> None:
-    """Apply the shares collected by ``part_shares`` to ``part_hours`` (net, per key)."""
+    """Apply the shares taken back by ``part_shares`` to ``part_hours``."""
     for statement in _SETTLE:
         conn.execute(statement)
 
@@ -132,10 +137,11 @@ def fold_results(conn: sqlite3.Connection, after_seq: int) -> None:
     conn.execute("DELETE FROM temp.fold_parts")
     if conn.execute(_BATCH_PARTS, (after_seq,)).rowcount <= 0:
         return  # no part ids in the batch
-    part_shares(conn, -1, "temp.fold_parts")
+    moved = part_shares(conn, -1, "temp.fold_parts")  # parts seen before (retests)
     conn.execute(_UPSERT_PARTS)
     part_shares(conn, +1, "temp.fold_parts")
-    settle_part_hours(conn)
+    if moved:
+        settle_part_hours(conn)
 
 
 def rebuild_summaries(conn: sqlite3.Connection) -> None:
