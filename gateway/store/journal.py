@@ -83,11 +83,12 @@ def quarantine_id(item: Rejected) -> str:
     return digest.hexdigest()
 
 
-# Row builders: one attribute fetch per column, in column order, nothing else.
+# Row builders: one attribute fetch per column, in column order, nothing else. Enum members
+# are StrEnums, which sqlite3 binds as their text without a ``.value`` lookup.
 def _result_row(r: TestResult) -> tuple[Any, ...]:
     return (
         r.record_id, r.station, r.line, r.cycle, to_us(r.ended_at), to_us(r.received_at),
-        r.program, r.verdict.value, r.test_pressure_pa, r.pressure_loss_pa, r.leak_rate_sccm,
+        r.program, r.verdict, r.test_pressure_pa, r.pressure_loss_pa, r.leak_rate_sccm,
         r.reject_limit_sccm, r.fill_s, r.stabilise_s, r.test_s, r.part_id, r.reason,
         r.lower_limit_sccm, r.temperature_c, r.calibration_ref, r.raw, r.profile,
     )  # fmt: skip
@@ -102,7 +103,7 @@ def _calibration_row(c: CalibrationEvent) -> tuple[Any, ...]:
 
 
 def _status_row(s: StationStatus) -> tuple[Any, ...]:
-    return (s.record_id, s.station, to_us(s.at), s.state.value, s.detail)
+    return (s.record_id, s.station, to_us(s.at), s.state, s.detail)
 
 
 def _quarantine_row(q: Rejected) -> tuple[Any, ...]:
