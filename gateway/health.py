@@ -3,8 +3,11 @@
 ``StationHealth`` keeps ``last_success`` / ``last_error`` and turns state changes into
 ``StationStatus`` records. Logging follows one rule: an error once when a station starts
 failing, debug while it keeps failing, info when it recovers, so a dead station does not flood
-the log. ``Backoff`` is capped exponential backoff with jitter ("equal jitter": half the step is
-fixed, half random) so a plant of stations that lost the network together does not reconnect in
+the log. Every failed exchange and every completed poll round also lands in the station's
+Prometheus series (``gateway.metrics``; cheap, served only when configured).
+
+``Backoff`` is capped exponential backoff with jitter ("equal jitter": half the step is fixed,
+half random) so a plant of stations that lost the network together does not reconnect in
 lock-step.
 """
 
@@ -14,7 +17,9 @@ import logging
 import random
 from dataclasses import dataclass, field
 from datetime import UTC, datetime
+from typing import Any
 
+from gateway import metrics
 from gateway.records import StationState, StationStatus
 
 __all__ = ["Backoff", "ClockWatch", "StationHealth"]
@@ -66,6 +71,18 @@ class StationHealth:
     last_error_at: datetime | None = None
     failures: int = 0
     counters: dict[str, int] = field(default_factory=dict)
+    _metrics: Any = field(init=False, repr=False, compare=False)
+
+    def __post_init__(self) -> None:
+        self._metrics = metrics.for_station(self.station)
+
+    def polled(self, seconds: float) -> None:
+        """A poll round completed (request to complete answer): its latency for the metrics."""
+        self._metrics.poll.observe(max(0.0, seconds))
+
+    def error(self) -> None:
+        """A failed exchange that changes no state (a Modbus exception reply): counted only."""
+        self._metrics.errors.inc()
 
     def count(self, what: str, n: int = 1) -> None:
         """Tally events worth a metric (torn reads, exceptions, gaps) without logging each."""
@@ -96,6 +113,7 @@ class StationHealth:
         self.last_error = error
         self.last_error_at = at
         self.failures += 1
+        self._metrics.errors.inc()
         if self.failures < self.offline_after:
             log.debug("%s: %s (tolerated, %d)", self.station, error, self.failures)
             return None

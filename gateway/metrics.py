@@ -28,7 +28,9 @@ from gateway.records import StationState
 __all__ = [
     "REGISTRY",
     "MetricsServer",
+    "StationMetrics",
     "exposition",
+    "for_station",
     "poll_latency",
     "records_received",
     "records_rejected",
@@ -135,6 +137,53 @@ def sink_backlog(sink: str, kind: str, count: int, oldest_age_s: float) -> None:
 
 def sink_connected(sink: str, up: bool) -> None:
     _sink_up.labels(sink).set(1 if up else 0)
+
+
+RECEIVED_KINDS = ("result", "calibration", "status", "rejected")
+STORED_KINDS = ("result", "calibration", "status")
+
+
+@dataclass(frozen=True, slots=True)
+class StationMetrics:
+    """One station's counter children, bound once.
+
+    ``labels()`` takes the metric's lock and hashes the label tuple on every call; the runtime
+    updates these per record, so it keeps the children (an ``inc`` is then one small lock in
+    prometheus-client's value). Binding also makes every series exist at 0 from the start.
+    """
+
+    station: str
+    received: dict[str, Any]  # kind (RECEIVED_KINDS) -> counter child
+    stored: dict[str, Any]  # kind (STORED_KINDS) -> counter child
+    rejected: Any
+    errors: Any
+    poll: Any  # histogram child
+
+    def state(self, state: str | StationState) -> None:
+        station_state(self.station, state)  # rare (state changes): no child to keep
+
+
+_stations: dict[str, StationMetrics] = {}
+_stations_lock = threading.Lock()
+
+
+def for_station(station: str) -> StationMetrics:
+    """The cached children of ``station`` (created on first use)."""
+    m = _stations.get(station)
+    if m is None:
+        with _stations_lock:
+            m = _stations.get(station)
+            if m is None:
+                m = StationMetrics(
+                    station=station,
+                    received={k: _received.labels(station, k) for k in RECEIVED_KINDS},
+                    stored={k: _stored.labels(station, k) for k in STORED_KINDS},
+                    rejected=_rejected.labels(station),
+                    errors=_station_errors.labels(station),
+                    poll=_poll.labels(station),
+                )
+                _stations[station] = m
+    return m
 
 
 def exposition() -> bytes:

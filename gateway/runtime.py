@@ -12,6 +12,12 @@ bounded buffer and retries with backoff. While it is failing, ``accepting`` is f
 pollers stop reading result slots, so stations keep results in their rings; streaming lines are
 held in memory up to the bound, after which readers wait (and TCP pushes back on the station).
 A bus task that dies of a bug is logged and restarted; it never takes the others down.
+
+Metrics (``gateway.metrics``, served on 127.0.0.1 when ``[metrics] prometheus_port`` is set):
+what the drivers hand over is counted per station and kind as it passes the outbox, what the
+journal newly committed (repeats excluded) after each write, so ``records_stored`` and
+``records_rejected`` equal what the journal holds; state changes come from the same status
+records the journal gets.
 """
 
 from __future__ import annotations
@@ -28,12 +34,13 @@ from collections.abc import Awaitable, Callable, Mapping, Sequence
 from dataclasses import dataclass, field
 from typing import Any
 
+from gateway import metrics
 from gateway.aio import within
 from gateway.config import GatewayConfig
 from gateway.drivers.base import Item, Outbox, Pacing, StationTarget, utcnow
 from gateway.errors import ConfigError, StoreError
 from gateway.health import Backoff, ClockWatch
-from gateway.records import StationState, StationStatus, TestResult
+from gateway.records import CalibrationEvent, Rejected, StationState, StationStatus, TestResult
 from gateway.sinks import REGISTRY, Forwarder, SinkContext, SinkFactory
 
 __all__ = [
@@ -242,7 +249,8 @@ class JournalWriter:
         batch = [self._pending[i] for i in range(n)]
         loop = asyncio.get_running_loop()
         try:
-            stats = await loop.run_in_executor(self._executor, self._journal.write, batch)
+            stats, stored = await loop.run_in_executor(self._executor, _write_counted,
+                                                       self._journal, batch)
         except StoreError as exc:
             self.stats["failed_writes"] += 1
             if self._failing is None:
@@ -264,6 +272,9 @@ class JournalWriter:
             self._failing = None
         for key in ("inserted", "duplicates", "quarantined"):
             self.stats[key] += int(getattr(stats, key, 0))
+        for (station, kind), count in stored.items():
+            m = metrics.for_station(station)
+            (m.rejected if kind == "rejected" else m.stored[kind]).inc(count)
         return True
 
     async def _close_journal(self) -> None:
@@ -273,6 +284,58 @@ class JournalWriter:
             with contextlib.suppress(StoreError, sqlite3.Error):
                 await loop.run_in_executor(self._executor, journal.close)
         self._executor.shutdown(wait=False)
+
+
+_KIND: dict[type, str] = {
+    TestResult: "result", CalibrationEvent: "calibration", StationStatus: "status",
+    Rejected: "rejected",
+}
+Tally = dict[tuple[str, str], int]  # (station, kind) -> count
+
+
+def _tally(items: Sequence[Item]) -> Tally:
+    out: Tally = {}
+    for item in items:
+        key = (item.station, _KIND[type(item)])
+        out[key] = out.get(key, 0) + 1
+    return out
+
+
+def _write_counted(journal: Any, batch: Sequence[Item]) -> tuple[Any, Tally]:
+    """``journal.write(batch)`` plus what it newly stored per (station, kind); journal thread.
+
+    A batch without repeats (the usual case) is tallied as it is. When the journal ignored
+    repeats (a ring re-read after a restart, a station sending its last result again), the
+    new rows are the ones with a seq above the pre-write maximum (this is the only writer), so
+    they are read back to attribute them; quarantine repeats (a retried identical rejection)
+    are attributed in batch order.
+    """
+    batch_tally = _tally(batch)
+    kinds = {kind for _, kind in batch_tally if kind != "rejected"}
+    max_seq = getattr(journal, "max_seq", None)
+    before = {k: max_seq(k) for k in kinds} if callable(max_seq) else None
+    stats = journal.write(batch)
+    if int(getattr(stats, "duplicates", 0)) == 0:
+        return stats, batch_tally
+    stored: Tally = {}
+    if before is not None:
+        try:
+            for kind in kinds:
+                limit = sum(n for (_, k), n in batch_tally.items() if k == kind)
+                for _, record in journal.read_after(kind, before[kind], limit):
+                    key = (record.station, kind)
+                    stored[key] = stored.get(key, 0) + 1
+        except StoreError as exc:  # committed already: only the per-station metric is lost
+            log.debug("cannot attribute stored records to stations: %s", exc)
+    left = int(getattr(stats, "quarantined", 0))
+    for item in batch:
+        if left <= 0:
+            break
+        if type(item) is Rejected:
+            key = (item.station, "rejected")
+            stored[key] = stored.get(key, 0) + 1
+            left -= 1
+    return stats, stored
 
 
 # -- stations ---------------------------------------------------------------------------------
@@ -330,12 +393,13 @@ def _buses(targets: Sequence[StationTarget]) -> dict[str, list[StationTarget]]:
 
 
 class _FlaggingOutbox:
-    """Passes items to the writer, adding a status note when a station clock jumps back."""
+    """Passes items to the writer, counting them and noting a station clock that jumps back."""
 
     def __init__(self, writer: JournalWriter, health: Mapping[str, Any]) -> None:
         self._writer = writer
         self._health = health
         self._clock = ClockWatch()
+        self._metrics = {station: metrics.for_station(station) for station in health}
 
     @property
     def accepting(self) -> bool:
@@ -344,14 +408,25 @@ class _FlaggingOutbox:
     async def put(self, items: Sequence[Item]) -> None:
         notes: list[Item] = []
         for item in items:
+            self._count(item)
             if isinstance(item, TestResult):
                 note = self._clock.check(item.station, item.cycle, item.ended_at)
                 if note is not None:
                     log.warning("%s: %s", item.station, note)
                     h = self._health.get(item.station)
                     state = getattr(h, "state", None) or StationState.ONLINE
-                    notes.append(StationStatus(item.station, utcnow(), state, note))
+                    status = StationStatus(item.station, utcnow(), state, note)
+                    self._count(status)
+                    notes.append(status)
         await self._writer.put([*items, *notes] if notes else items)
+
+    def _count(self, item: Item) -> None:
+        m = self._metrics.get(item.station)
+        if m is None:
+            m = self._metrics[item.station] = metrics.for_station(item.station)
+        m.received[_KIND[type(item)]].inc()
+        if isinstance(item, StationStatus):
+            m.state(item.state)
 
 
 def _bus_runner(
@@ -401,12 +476,21 @@ class Runtime:
     writer: JournalWriter | None = None
     targets: list[StationTarget] = field(default_factory=list)
     forwarders: list[Forwarder] = field(default_factory=list)
+    metrics_server: metrics.MetricsServer | None = None  # while running with metrics on
 
     async def run(self, stop: asyncio.Event) -> None:
+        self.forwarders = build_forwarders(self.config)  # sink mistakes stop us before anything
+        self.metrics_server = _serve_metrics(self.config)
+        try:
+            await self._run(stop)
+        finally:
+            server, self.metrics_server = self.metrics_server, None
+            if server is not None:
+                await asyncio.to_thread(server.close)  # waits for its serving thread
+
+    async def _run(self, stop: asyncio.Event) -> None:
         cfg = self.config
         from gateway.store import open_journal
-
-        self.forwarders = build_forwarders(cfg)  # sink mistakes stop us before anything starts
 
         if self.writer is None:
             self.writer = JournalWriter(
@@ -442,7 +526,7 @@ class Runtime:
             log.info("stopping: %d item(s) waiting for the journal", writer.pending)
             await _cancel_all(bus_tasks)
             at = utcnow()
-            await writer.put([
+            await outbox.put([
                 StationStatus(station=t.station, at=at, state=StationState.OFFLINE,
                               detail="gateway stopped")
                 for t in self.targets
@@ -457,6 +541,20 @@ class Runtime:
             await fwd.run(self.config.store, stop)
         except Exception:  # a sink that fails to run is disabled, the gateway keeps going
             log.exception("sink %s failed and is disabled", fwd.name)
+
+
+def _serve_metrics(config: GatewayConfig) -> metrics.MetricsServer | None:
+    """Start the Prometheus endpoint if configured; a port we cannot take is the user's to fix."""
+    mc = config.metrics
+    if not mc.enabled:
+        return None
+    try:
+        return metrics.serve(mc.prometheus_port, mc.bind)
+    except OSError as exc:
+        raise ConfigError(
+            f"{config.source}: metrics.prometheus_port: cannot listen on "
+            f"{mc.bind}:{mc.prometheus_port} ({exc.strerror or exc}); expected a free port"
+        ) from None
 
 
 async def _cancel_all(tasks: Sequence[asyncio.Task[None]]) -> None:

@@ -46,6 +46,11 @@ def register(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
     )
     parser.add_argument("--log-json", action="store_true", help="log one JSON object per line")
     parser.add_argument(
+        "--metrics-port", metavar="N", type=_port,
+        help="serve Prometheus metrics on http://127.0.0.1:N/metrics (overrides [metrics] "
+             "prometheus_port; 0 switches them off; the bind address stays the config's)",
+    )
+    parser.add_argument(
         "--check", action="store_true",
         help="validate the config and every profile, print a summary and exit",
     )
@@ -54,6 +59,16 @@ def register(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
 
     add_sink_arguments(parser)
     parser.set_defaults(func=_run)
+
+
+def _port(text: str) -> int:
+    try:
+        port = int(text)
+    except ValueError:
+        port = -1
+    if not 0 <= port <= 65535:
+        raise argparse.ArgumentTypeError(f"expected a TCP port from 0 to 65535, got {text!r}")
+    return port
 
 
 class _JsonFormatter(logging.Formatter):
@@ -91,6 +106,12 @@ def _run(args: argparse.Namespace) -> int:
     from gateway.sinks.cli import with_cli_sinks
 
     config = with_cli_sinks(config, args.mqtt, args.influx)
+    if args.metrics_port is not None:
+        import dataclasses
+
+        config = dataclasses.replace(
+            config, metrics=dataclasses.replace(config.metrics, prometheus_port=args.metrics_port)
+        )
     if args.check:
         from gateway.runtime import build_forwarders
 
@@ -102,6 +123,9 @@ def _run(args: argparse.Namespace) -> int:
                   f"every {st.poll_interval_s:g} s, timeout {st.timeout_s:g} s")
         for name in config.sinks:
             print(f"  sink {name}")
+        if config.metrics.enabled:
+            print(f"  metrics http://{config.metrics.bind}:{config.metrics.prometheus_port}"
+                  "/metrics")
         return 0
     setup_logging(args.log_level, args.log_json)
     from gateway.runtime import run_gateway

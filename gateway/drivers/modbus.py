@@ -511,10 +511,13 @@ async def _poll_one(
     target: StationTarget, reader: RingReader, link: Any, outbox: Outbox
 ) -> None:
     health = target.health
+    loop = asyncio.get_running_loop()
+    started = loop.time()
     try:
         outcome = await reader.poll(link, take_results=outbox.accepting)
     except ExceptionReply as exc:
         health.count(f"exception_{exc.code:02d}")
+        health.error()
         log.debug("%s: %s; retrying next poll", target.station, exc)
         return  # the station is there and will answer again; nothing to report
     except NoAnswer as exc:
@@ -532,6 +535,7 @@ async def _poll_one(
         link.close()
         await _emit(outbox, health.failed(str(exc), state=StationState.FAULT))
         return
+    health.polled(loop.time() - started)  # the whole consistent read: header, slots, header
     items: list[Item] = []
     status = health.succeeded()
     if status is not None:

@@ -194,14 +194,19 @@ async def run_request_station(
         try:
             while True:
                 started = loop.time()
+                wire_s, answered = 0.0, 0  # the round's request-to-answer time, for metrics
                 for req in spec.requests:
                     await _stale_input(link, handler, req.end_line, outbox)
+                    asked = loop.time()
                     await link.write(req.query, target.timeout_s)
                     timeout = target.timeout_s if target.timeout_explicit else req.timeout_s
                     answer = await read_answer(
                         link, req.end_line, req.lines, timeout, pacing.line_gap_s, spec.encoding
                     )
                     received_at = utcnow()
+                    if answer.lines or answer.complete:
+                        wire_s += loop.time() - asked
+                        answered += 1
                     if not answer.lines and not answer.complete:
                         await _emit(
                             outbox,
@@ -235,6 +240,8 @@ async def run_request_station(
                     await outbox.put(handler.parse(answer.lines, received_at))
                     if spec.request_gap_s:
                         await sleep_for(spec.request_gap_s)
+                if answered and answered == len(spec.requests):
+                    health.polled(wire_s)  # a round with an unanswered request is an error
                 await sleep_for(target.poll_interval_s - (loop.time() - started))
         except TransportError as exc:
             await _emit(outbox, health.failed(str(exc)))

@@ -205,6 +205,7 @@ class JournalForwarder:
             finally:
                 await self._close(graceful=stop.is_set())
             if not stop.is_set():
+                await self._refresh_backlog(journal)  # the backlog grows most while it is down
                 await _sleep_unless(stop, self.backoff.next_delay())
         await self._refresh_backlog(journal, force=True)
 

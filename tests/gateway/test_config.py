@@ -137,6 +137,16 @@ def test_check_prints_the_stations_and_exits_0(capsys: pytest.CaptureFixture[str
     assert "ok: site 'Northmere Works'" in out and "L2-S3" in out and "lf-mbrtu@" in out
 
 
+def test_metrics_port_flag_overrides_the_config(capsys: pytest.CaptureFixture[str]) -> None:
+    assert load_config("demo").metrics.enabled is False  # off unless asked for
+    assert main(["gateway", "--config", "demo", "--metrics-port", "9108", "--check"]) == 0
+    assert "metrics http://127.0.0.1:9108/metrics" in capsys.readouterr().out
+    with pytest.raises(SystemExit) as exc:
+        main(["gateway", "--config", "demo", "--metrics-port", "70000", "--check"])
+    assert exc.value.code == 2
+    assert "--metrics-port: expected a TCP port from 0 to 65535" in capsys.readouterr().err
+
+
 def test_bad_config_is_one_line_and_exit_2(tmp_path: Path) -> None:
     import subprocess
 

@@ -169,11 +169,11 @@ async def test_modbus_tcp_reads_results_and_never_writes() -> None:
     server = ModbusTcpServer(device, address=("127.0.0.1", 0))
     await server.serve_forever(background=True)
     try:
-        port = server.transport.sockets[0].getsockname()[1]  # type: ignore[union-attr]
+        port = server.transport.sockets[0].getsockname()[1]  # type: ignore[attr-defined]
         out = Collect()
         t = target("lf-mbtcp", f"tcp://127.0.0.1:{port}", poll=0.02)
         async with running(run_modbus_bus([t], out, FAST)):
-            await until(lambda: len(out.of(TestResult)) >= 5 and out.of(CalibrationEvent))
+            await until(lambda: len(out.of(TestResult)) >= 5 and bool(out.of(CalibrationEvent)))
             polls = len(out.items)
             await asyncio.sleep(0.3)  # many more polls with nothing new
         assert [r.cycle for r in out.of(TestResult)] == [1, 2, 3, 4, 5]
