@@ -1,0 +1,1 @@
+"""Shipped gateway configurations (``leakfleet gateway --config demo``)."""

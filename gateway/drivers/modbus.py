@@ -1,0 +1,559 @@
+"""Modbus stations: the consistent ring read, and the pymodbus link it runs over.
+
+``RingReader`` is the handshake of sim/README.md ("Consistent read") written once for every
+Modbus profile: read the result counter, the slots not seen yet (at most a ring's depth back),
+the counter again, and accept a slot only when its head and tail guards equal the expected cycle
+and it cannot have been overwritten meanwhile. The calibration block is read the same way with
+its own counter. It talks to a ``RegisterLink`` (one method, ``read``), so its logic is tested
+with scripted register sequences and runs unchanged over TCP or RTU.
+
+A torn block (guards disagree: the station was writing while we read) is not bad station data:
+it is retried on the next poll and counted; only a block that stays undecodable goes to the
+quarantine. The reader never writes to a station.
+"""
+
+from __future__ import annotations
+
+import asyncio
+import contextlib
+import logging
+from collections.abc import Sequence
+from dataclasses import dataclass, field
+from datetime import datetime
+from typing import TYPE_CHECKING, Any, Protocol
+
+from gateway.drivers.base import (
+    ExceptionReply,
+    Item,
+    LinkLost,
+    NoAnswer,
+    Outbox,
+    Pacing,
+    StationTarget,
+    sleep_for,
+    utcnow,
+)
+from gateway.drivers.lines import split_host_port
+from gateway.errors import ProtocolError, TransportError
+from gateway.records import CalibrationEvent, Rejected, StationState, StationStatus, TestResult
+
+if TYPE_CHECKING:
+    from gateway.profiles import ModbusSpec, StationContext
+
+__all__ = [
+    "MAX_READ",
+    "PollOutcome",
+    "PymodbusLink",
+    "RegisterLink",
+    "RingReader",
+    "plan_reads",
+    "run_modbus_bus",
+]
+
+log = logging.getLogger(__name__)
+
+MAX_READ = 125  # registers per read request (Modbus application protocol spec, 6.3)
+_MERGE_GAP = 16  # read a few unused registers rather than make another round trip
+_MAX_TORN_RETRIES = 5
+
+
+class RegisterLink(Protocol):
+    """The transport seam: read ``count`` registers with function 3 or 4."""
+
+    async def read(self, function: int, address: int, count: int, device_id: int) -> list[int]:
+        """Registers as read; ``ExceptionReply``, ``NoAnswer`` or ``LinkLost`` otherwise."""
+
+    async def write(self, address: int, values: list[int], device_id: int) -> None:
+        """Write holding registers: used only for a profile's acknowledge register."""
+
+
+def field_span(spec_field: Any) -> tuple[int, int]:
+    """(address, register count) of a profile register field."""
+    return int(spec_field.at), int(spec_field.width)
+
+
+def plan_reads(spans: Sequence[tuple[int, int]]) -> list[tuple[int, int]]:
+    """Merge (address, count) spans into as few reads as the 125-register limit allows."""
+    out: list[list[int]] = []
+    for address, count in sorted(spans):
+        if out:
+            start, n = out[-1]
+            end = max(start + n, address + count)
+            if address <= start + n + _MERGE_GAP and end - start <= MAX_READ:
+                out[-1][1] = end - start
+                continue
+        out.append([address, count])
+    return [(a, n) for a, n in out]
+
+
+@dataclass
+class PollOutcome:
+    """What one poll brought: items to journal plus numbers for health and tests."""
+
+    items: list[Item] = field(default_factory=list)
+    state: StationState | None = None
+    counter: int = 0
+    accepted: int = 0
+    torn: int = 0
+    missed: int = 0
+
+
+class RingReader:
+    """Consistent reads of one station's result ring and calibration block."""
+
+    def __init__(
+        self,
+        station: str,
+        profile_label: str,
+        spec: ModbusSpec,
+        context: StationContext,
+        *,
+        resume_cycle: int | None = None,
+        device_id: int | None = None,
+        max_torn_retries: int = _MAX_TORN_RETRIES,
+    ) -> None:
+        self.station = station
+        self.profile_label = profile_label
+        self.spec = spec
+        self.context = context
+        self.device_id = spec.device_id if device_id is None else device_id
+        self.function = spec.function
+        self.seen: int | None = resume_cycle  # newest cycle handled (journalled or quarantined)
+        self._resumed = resume_cycle is not None
+        self.cal_seen: int | None = None
+        self._torn: dict[int, int] = {}
+        self._cal_torn = 0
+        ring = spec.result
+        self._counter_span = (int(ring.counter_address), int(ring.counter_registers))
+        cal = spec.calibration
+        self._cal_counter_span = (
+            (int(cal.counter_address), int(cal.counter_registers)) if cal is not None else None
+        )
+        self._state_span = field_span(spec.state) if spec.state is not None else None
+        self._acked: int | None = None
+
+    def pending_ack(self) -> tuple[int, list[int]] | None:
+        """(address, registers) to acknowledge the newest handled cycle, if the profile asks.
+
+        Without an ``acknowledge`` register in the profile this is always None: the gateway
+        never writes to a station on its own initiative.
+        """
+        ack = self.spec.acknowledge
+        if ack is None or self.seen is None or self.seen == self._acked or self.seen <= 0:
+            return None
+        self._acked = self.seen
+        return int(ack.address), list(ack.encode(self.seen, self.spec.word_order))
+
+    # -- the poll ---------------------------------------------------------------------------
+    async def poll(self, link: RegisterLink, *, take_results: bool = True) -> PollOutcome:
+        out = PollOutcome()
+        header = await self._read_header(link)
+        received_at = utcnow()
+        if self._state_span is not None:
+            out.state = self.spec.decode_state(self._slice(header, self._state_span))
+        c1 = self.spec.decode_counter(self._slice(header, self._counter_span))
+        out.counter = c1
+        cc1 = (
+            self.spec.decode_calibration_counter(self._slice(header, self._cal_counter_span))
+            if self._cal_counter_span is not None
+            else 0
+        )
+        if not take_results:
+            return out  # the journal is full: leave results in the station's ring
+
+        ring = self.spec.result
+        depth = int(ring.depth)
+        cycles = self._cycles_to_read(c1, depth, out, received_at)
+        blocks: dict[int, list[int]] = {}
+        for cycle in cycles:
+            address = int(ring.slot_address(cycle))
+            blocks[cycle] = await self._read(link, address, int(ring.length))
+        cal_regs: list[int] | None = None
+        cal = self.spec.calibration
+        if cal is not None and cc1 > 0 and cc1 != self.cal_seen:
+            cal_regs = await self._read(link, int(cal.address), int(cal.length))
+        if not blocks and cal_regs is None:
+            return out
+
+        header2 = await self._read_header(link)
+        c2 = self.spec.decode_counter(self._slice(header2, self._counter_span))
+        if blocks:
+            self._accept_results(blocks, c1, c2, depth, received_at, out)
+        if cal_regs is not None and self._cal_counter_span is not None:
+            cc2 = self.spec.decode_calibration_counter(
+                self._slice(header2, self._cal_counter_span)
+            )
+            self._accept_calibration(cal_regs, cc1, cc2, received_at, out)
+        return out
+
+    def _cycles_to_read(
+        self, c1: int, depth: int, out: PollOutcome, received_at: datetime
+    ) -> list[int]:
+        if c1 <= 0:
+            return []
+        if self.seen is None:
+            self.seen = max(0, c1 - depth)  # first contact: whatever the ring still holds
+        elif c1 < self.seen:
+            log.warning(
+                "%s: result counter went back from %d to %d (station reset?); rereading its ring",
+                self.station, self.seen, c1,
+            )
+            self.seen = max(0, c1 - depth)
+            self._torn.clear()
+        first = max(self.seen + 1, c1 - depth + 1)
+        if first > self.seen + 1:
+            self._gap(self.seen + 1, first - 1, depth, received_at, out)
+            self.seen = first - 1
+        if self._resumed:
+            # after a restart, read the whole ring once: a cycle torn at the moment the last
+            # run stopped is read now, and repeats are ignored by the journal
+            self._resumed = False
+            first = max(1, c1 - depth + 1)
+        return list(range(first, c1 + 1))
+
+    def _gap(self, lo: int, hi: int, depth: int, at: datetime, out: PollOutcome) -> None:
+        out.missed += hi - lo + 1
+        what = f"cycles {lo}..{hi}" if hi > lo else f"cycle {lo}"
+        detail = (
+            f"gap: {what} overwritten in the station's ring (depth {depth}) before they could "
+            "be read"
+        )
+        log.warning("%s: %s", self.station, detail)
+        state = out.state or StationState.ONLINE  # restate the current state, with the gap
+        out.items.append(StationStatus(station=self.station, at=at, state=state, detail=detail))
+
+    def _accept_results(
+        self,
+        blocks: dict[int, list[int]],
+        c1: int,
+        c2: int,
+        depth: int,
+        received_at: datetime,
+        out: PollOutcome,
+    ) -> None:
+        if c2 < c1:
+            log.debug("%s: counter moved back during the read (%d -> %d)", self.station, c1, c2)
+            return
+        advance = True
+        for cycle in sorted(blocks):
+            if c2 >= cycle + depth:
+                # its slot may have been rewritten while we read: the next poll reports the gap
+                advance = False
+                continue
+            decoded = self.spec.decode_result(blocks[cycle], cycle, self.context, received_at)
+            if isinstance(decoded, TestResult):
+                out.items.append(decoded)
+                out.accepted += 1
+                self._torn.pop(cycle, None)
+            elif isinstance(decoded, Rejected) and _is_torn(decoded):
+                out.torn += 1
+                tries = self._torn.get(cycle, 0) + 1
+                self._torn[cycle] = tries
+                if tries < _MAX_TORN_RETRIES:
+                    log.debug("%s: torn read of cycle %d (%d)", self.station, cycle, tries)
+                    advance = False
+                    continue
+                self._torn.pop(cycle, None)
+                out.items.append(_persisted(decoded, tries))
+            else:
+                out.items.append(decoded)  # consistent but undecodable: bad data, quarantine
+            if advance:
+                self.seen = cycle
+
+    def _accept_calibration(
+        self, regs: list[int], cc1: int, cc2: int, received_at: datetime, out: PollOutcome
+    ) -> None:
+        if cc2 != cc1:
+            log.debug("%s: calibration counter moved during the read", self.station)
+            return
+        decoded = self.spec.decode_calibration(regs, cc1, self.context, received_at)
+        if isinstance(decoded, CalibrationEvent):
+            out.items.append(decoded)
+        elif isinstance(decoded, Rejected) and _is_torn(decoded):
+            out.torn += 1
+            self._cal_torn += 1
+            if self._cal_torn < _MAX_TORN_RETRIES:
+                return
+            out.items.append(_persisted(decoded, self._cal_torn))
+        else:
+            out.items.append(decoded)
+        self._cal_torn = 0
+        self.cal_seen = cc1
+
+    # -- register access ----------------------------------------------------------------------
+    def _header_spans(self) -> list[tuple[int, int]]:
+        spans = [self._counter_span]
+        if self._cal_counter_span is not None:
+            spans.append(self._cal_counter_span)
+        if self._state_span is not None:
+            spans.append(self._state_span)
+        return spans
+
+    async def _read_header(self, link: RegisterLink) -> dict[int, int]:
+        regs: dict[int, int] = {}
+        for address, count in plan_reads(self._header_spans()):
+            values = await self._read(link, address, count)
+            regs.update(zip(range(address, address + count), values, strict=True))
+        return regs
+
+    @staticmethod
+    def _slice(regs: dict[int, int], span: tuple[int, int]) -> list[int]:
+        address, count = span
+        return [regs[a] for a in range(address, address + count)]
+
+    async def _read(self, link: RegisterLink, address: int, count: int) -> list[int]:
+        values = await link.read(self.function, address, count, self.device_id)
+        if len(values) != count:
+            raise ProtocolError(
+                f"{self.station}: asked for {count} registers at {address}, got {len(values)}"
+            )
+        return values
+
+
+def _is_torn(rejected: Rejected) -> bool:
+    return rejected.reason.lower().startswith("torn")
+
+
+def _persisted(rejected: Rejected, tries: int) -> Rejected:
+    return Rejected(
+        station=rejected.station,
+        profile=rejected.profile,
+        raw=rejected.raw,
+        reason=f"{rejected.reason} (still inconsistent after {tries} reads)",
+        received_at=rejected.received_at,
+        line_no=rejected.line_no,
+    )
+
+
+class PymodbusLink:
+    """A pymodbus async client (TCP, or RTU on a serial port) with one lock for its bus.
+
+    pymodbus's own reconnect is switched off (``reconnect_delay=0``): the bus loop reconnects
+    with our backoff, so there is one retry policy to reason about.
+    """
+
+    def __init__(
+        self,
+        endpoint: str,
+        *,
+        framer: str = "tcp",
+        timeout: float = 1.0,
+        baudrate: int = 19200,
+        bytesize: int = 8,
+        parity: str = "N",
+        stopbits: int = 1,
+        name: str = "",
+    ) -> None:
+        self.endpoint = endpoint
+        self.framer = framer
+        self.timeout = timeout
+        self.baudrate, self.bytesize, self.parity, self.stopbits = (
+            baudrate, bytesize, parity, stopbits
+        )
+        self.name = name or endpoint
+        self.lock = asyncio.Lock()  # a client is not task-safe; an RS-485 bus is one wire
+        self._client: Any = None
+
+    def _make_client(self) -> Any:
+        from pymodbus.client import AsyncModbusSerialClient, AsyncModbusTcpClient
+        from pymodbus.framer import FramerType
+
+        framer = FramerType.RTU if self.framer == "rtu" else FramerType.SOCKET
+        common: dict[str, Any] = {"timeout": self.timeout, "retries": 0, "reconnect_delay": 0}
+        if self.endpoint.startswith("tcp://"):
+            host, port = split_host_port(self.endpoint[len("tcp://") :])
+            return AsyncModbusTcpClient(host, port=port, framer=framer, **common)
+        return AsyncModbusSerialClient(
+            self.endpoint,
+            framer=FramerType.RTU,
+            baudrate=self.baudrate,
+            bytesize=self.bytesize,
+            parity=self.parity,
+            stopbits=self.stopbits,
+            **common,
+        )
+
+    @property
+    def connected(self) -> bool:
+        return self._client is not None and bool(self._client.connected)
+
+    async def connect(self) -> None:
+        self.close()
+        client = self._make_client()
+        try:
+            ok = await asyncio.wait_for(client.connect(), self.timeout + 1.0)
+        except (TimeoutError, OSError) as exc:
+            client.close()
+            raise LinkLost(f"{self.name}: cannot connect: {exc or 'timeout'}") from exc
+        if not ok:
+            client.close()
+            raise LinkLost(f"{self.name}: cannot connect to {self.endpoint}")
+        self._client = client
+
+    def close(self) -> None:
+        if self._client is not None:
+            with contextlib.suppress(OSError):
+                self._client.close()
+            self._client = None
+
+    async def read(self, function: int, address: int, count: int, device_id: int) -> list[int]:
+        from pymodbus.exceptions import ConnectionException, ModbusException, ModbusIOException
+
+        if self._client is None:
+            raise LinkLost(f"{self.name}: not connected")
+        call = (
+            self._client.read_input_registers
+            if function == 4
+            else self._client.read_holding_registers
+        )
+        what = f"{self.name} device {device_id} fc{function} {address}+{count}"
+        async with self.lock:
+            try:
+                reply = await asyncio.wait_for(
+                    call(address, count=count, device_id=device_id), self.timeout + 0.5
+                )
+            except ConnectionException as exc:
+                raise LinkLost(f"{what}: connection lost: {exc}") from exc
+            except (ModbusIOException, TimeoutError) as exc:
+                raise NoAnswer(f"{what}: no answer within {self.timeout:g} s") from exc
+            except ModbusException as exc:
+                raise ProtocolError(f"{what}: {exc}") from exc
+            except OSError as exc:
+                raise LinkLost(f"{what}: {exc}") from exc
+        if reply.isError():
+            code = int(getattr(reply, "exception_code", 0) or 0)
+            raise ExceptionReply(code, what)
+        return list(reply.registers)
+
+    async def write(self, address: int, values: list[int], device_id: int) -> None:
+        from pymodbus.exceptions import ModbusException
+
+        if self._client is None:
+            raise LinkLost(f"{self.name}: not connected")
+        what = f"{self.name} device {device_id} write {address}+{len(values)}"
+        async with self.lock:
+            try:
+                reply = await asyncio.wait_for(
+                    self._client.write_registers(address, values, device_id=device_id),
+                    self.timeout + 0.5,
+                )
+            except (ModbusException, TimeoutError) as exc:
+                raise NoAnswer(f"{what}: {exc or 'timeout'}") from exc
+        if reply.isError():
+            raise ExceptionReply(int(getattr(reply, "exception_code", 0) or 0), what)
+
+
+async def run_modbus_bus(
+    targets: Sequence[StationTarget],
+    outbox: Outbox,
+    pacing: Pacing,
+    link: Any = None,
+) -> None:
+    """Poll every station on one bus (a TCP endpoint or a serial line) in turn, for ever."""
+    first = targets[0]
+    spec = first.profile.modbus
+    if spec is None:
+        raise TransportError(f"{first.station}: profile {first.profile.label} has no modbus spec")
+    opts = first.options
+    if link is None:
+        link = PymodbusLink(
+            first.endpoint,
+            framer=spec.framer,
+            timeout=first.timeout_s,
+            baudrate=opts.get("baudrate", getattr(spec, "baudrate", 19200)),
+            bytesize=opts.get("bytesize", getattr(spec, "bytesize", 8)),
+            parity=opts.get("parity", getattr(spec, "parity", "N")),
+            stopbits=opts.get("stopbits", getattr(spec, "stopbits", 1)),
+            name=first.endpoint,
+        )
+    readers = {}
+    for t in targets:
+        t.health.offline_after = pacing.offline_after
+        mspec = t.profile.modbus
+        assert mspec is not None
+        readers[t.station] = RingReader(
+            t.station,
+            t.profile.label,
+            mspec,
+            t.context,
+            resume_cycle=t.resume_cycle,
+            device_id=t.options.get("device_id"),
+        )
+    loop = asyncio.get_running_loop()
+    due = {t.station: loop.time() for t in targets}
+    backoff = pacing.backoff()
+    try:
+        while True:
+            if not link.connected:
+                try:
+                    await link.connect()
+                    backoff.reset()
+                except TransportError as exc:
+                    for t in targets:
+                        await _emit(outbox, t.health.failed(str(exc)))
+                    await sleep_for(backoff.next())
+                    continue
+            for t in targets:
+                if loop.time() < due[t.station]:
+                    continue
+                due[t.station] = loop.time() + t.poll_interval_s
+                await _poll_one(t, readers[t.station], link, outbox)
+                if not link.connected:
+                    break
+            if link.connected:
+                await sleep_for(min(due.values()) - loop.time())
+    finally:
+        link.close()
+
+
+async def _poll_one(
+    target: StationTarget, reader: RingReader, link: Any, outbox: Outbox
+) -> None:
+    health = target.health
+    try:
+        outcome = await reader.poll(link, take_results=outbox.accepting)
+    except ExceptionReply as exc:
+        health.count(f"exception_{exc.code:02d}")
+        log.debug("%s: %s; retrying next poll", target.station, exc)
+        return  # the station is there and will answer again; nothing to report
+    except NoAnswer as exc:
+        health.count("no_answer")
+        # a late answer would land on the next request: start that one on a fresh link
+        link.close()
+        await _emit(outbox, health.failed(str(exc)))
+        return
+    except LinkLost as exc:
+        link.close()
+        await _emit(outbox, health.failed(str(exc)))
+        return
+    except ProtocolError as exc:
+        health.count("protocol_error")
+        link.close()
+        await _emit(outbox, health.failed(str(exc), state=StationState.FAULT))
+        return
+    items: list[Item] = []
+    status = health.succeeded()
+    if status is not None:
+        items.append(status)
+    if outcome.state is not None:
+        observed = health.observed(outcome.state)
+        if observed is not None:
+            items.append(observed)
+    if outcome.torn:
+        health.count("torn", outcome.torn)
+    if outcome.missed:
+        health.count("missed", outcome.missed)
+    items.extend(outcome.items)
+    if items:
+        await outbox.put(items)
+    ack = reader.pending_ack()
+    if ack is not None:
+        try:
+            await link.write(ack[0], ack[1], reader.device_id)
+        except (ExceptionReply, NoAnswer) as exc:
+            log.warning("%s: acknowledge failed: %s", target.station, exc)
+
+
+async def _emit(outbox: Outbox, status: Item | None) -> None:
+    if status is not None:
+        await outbox.put([status])

@@ -1,0 +1,282 @@
+"""Serial line stations: streaming (listen to every line) and request/response (ask, read answer).
+
+Both run over a ``LineLink`` (a tty, ``socket://`` or ``tcp://``). What a line means is the
+profile parser's business; this module only frames lines and answers, stamps them with the time
+they arrived and a line number, and turns wire trouble into health changes. Lines the parser
+cannot use come back as ``Rejected`` and go to the quarantine with everything else.
+"""
+
+from __future__ import annotations
+
+import asyncio
+import logging
+from collections.abc import Callable, Sequence
+from dataclasses import dataclass, field
+from datetime import datetime
+from typing import TYPE_CHECKING, Any
+
+from gateway.drivers.base import Item, Outbox, Pacing, StationTarget, sleep_for, utcnow
+from gateway.drivers.lines import LineLink, RawLine, open_line_link
+from gateway.errors import TransportError
+from gateway.records import Rejected, StationState
+
+if TYPE_CHECKING:
+    from gateway.profiles import SerialSpec
+
+__all__ = ["LineHandler", "read_answer", "run_request_station", "run_stream_station"]
+
+log = logging.getLogger(__name__)
+
+_IDLE_READ_S = 5.0  # a streaming read wakes this often even on a silent line
+
+
+def _spec(target: StationTarget) -> SerialSpec:
+    spec = target.profile.serial
+    if spec is None:
+        raise TransportError(f"{target.station}: profile {target.profile.label} has no serial spec")
+    return spec
+
+
+async def open_for(target: StationTarget) -> LineLink:
+    """Open the station's line with its profile's framing and serial settings."""
+    spec = _spec(target)
+    opts = target.options
+    return await open_line_link(
+        target.endpoint,
+        terminator=spec.terminator,
+        max_line=spec.max_line,
+        timeout=target.timeout_s,
+        baudrate=opts.get("baudrate", spec.baudrate),
+        bytesize=opts.get("bytesize", spec.bytesize),
+        parity=opts.get("parity", spec.parity),
+        stopbits=opts.get("stopbits", spec.stopbits),
+        name=target.station,
+    )
+
+
+@dataclass
+class LineHandler:
+    """Decode, number and parse lines; never raises for what the wire brought."""
+
+    target: StationTarget
+    line_no: int = 0
+    _parser: Any = field(default=None, init=False)
+
+    def __post_init__(self) -> None:
+        self._parser = _spec(self.target).parser(self.target.context)
+
+    @property
+    def _encoding(self) -> str:
+        return _spec(self.target).encoding
+
+    def text(self, data: bytes) -> str:
+        # backslashreplace keeps undecodable bytes visible and exact in the quarantine
+        return data.decode(self._encoding, errors="backslashreplace")
+
+    def reject(self, raw: str, reason: str, received_at: datetime, line_no: int | None) -> Rejected:
+        return Rejected(
+            station=self.target.station,
+            profile=self.target.profile.label,
+            raw=raw,
+            reason=reason,
+            received_at=received_at,
+            line_no=line_no,
+        )
+
+    def parse(self, lines: Sequence[RawLine], received_at: datetime) -> list[Item]:
+        """One streamed line, or one whole answer, through the profile's parser."""
+        first = self.line_no + 1
+        self.line_no += len(lines)
+        for i, line in enumerate(lines):
+            if line.overlong:
+                limit = _spec(self.target).max_line
+                return [
+                    self.reject(
+                        self.text(line.data),
+                        f"line longer than {limit} bytes (cut there, the rest skipped)",
+                        received_at,
+                        first + i,
+                    )
+                ]
+        texts = [self.text(line.data) for line in lines]
+        try:
+            return list(self._parser.parse(texts, first, received_at))
+        except Exception as exc:  # a parser bug must not stop the station; keep the input
+            log.exception("%s: parser failed on line %d", self.target.station, first)
+            return [self.reject("\n".join(texts), f"parser error: {exc!r}", received_at, first)]
+
+
+async def run_stream_station(
+    target: StationTarget,
+    outbox: Outbox,
+    pacing: Pacing,
+    opener: Callable[[StationTarget], Any] = open_for,
+) -> None:
+    """Listen to a station that talks on its own; reconnect for ever with backoff."""
+    health = target.health
+    handler = LineHandler(target)
+    backoff = pacing.backoff()
+    while True:
+        try:
+            link: LineLink = await opener(target)
+        except TransportError as exc:
+            await _emit(outbox, health.failed(str(exc)))
+            await sleep_for(backoff.next())
+            continue
+        backoff.reset()
+        await _emit(outbox, health.succeeded())
+        try:
+            while True:
+                raw = await link.read_line(_IDLE_READ_S)
+                if raw is None:
+                    continue
+                if not raw.overlong and not raw.data.strip():
+                    continue  # a blank line carries nothing
+                items = handler.parse([raw], utcnow())
+                health.last_success = utcnow()
+                await outbox.put(items)
+        except TransportError as exc:
+            await _emit(outbox, health.failed(str(exc)))
+        finally:
+            await link.close()
+        await sleep_for(backoff.next())
+
+
+@dataclass(frozen=True)
+class Answer:
+    lines: list[RawLine]
+    complete: bool
+
+
+async def read_answer(
+    link: LineLink, end_line: str | None, count: int | None, timeout: float, gap: float,
+    encoding: str = "ascii",
+) -> Answer:
+    """Lines up to ``end_line`` (excluded) or ``count`` lines; incomplete on timeout or silence.
+
+    ``timeout`` bounds the wait for the first line, ``gap`` the silence between lines once the
+    answer has started (a cut-off answer is not waited for the full timeout).
+    """
+    end = end_line.encode(encoding) if end_line is not None else None
+    lines: list[RawLine] = []
+    while True:
+        raw = await link.read_line(timeout if not lines else gap)
+        if raw is None:
+            return Answer(lines, complete=False)
+        if end is not None and not raw.overlong and raw.data.strip() == end:
+            return Answer(lines, complete=True)
+        lines.append(raw)
+        if count is not None and len(lines) >= count:
+            return Answer(lines, complete=True)
+
+
+async def run_request_station(
+    target: StationTarget,
+    outbox: Outbox,
+    pacing: Pacing,
+    opener: Callable[[StationTarget], Any] = open_for,
+) -> None:
+    """Poll a station that only speaks when asked, one request after the other."""
+    spec = _spec(target)
+    health = target.health
+    health.offline_after = pacing.offline_after
+    handler = LineHandler(target)
+    backoff = pacing.backoff()
+    last: dict[bytes, list[bytes]] = {}  # last answer per query: stations repeat themselves
+    loop = asyncio.get_running_loop()
+    while True:
+        try:
+            link: LineLink = await opener(target)
+        except TransportError as exc:
+            await _emit(outbox, health.failed(str(exc), state=StationState.OFFLINE))
+            await sleep_for(backoff.next())
+            continue
+        try:
+            while True:
+                started = loop.time()
+                for req in spec.requests:
+                    await _stale_input(link, handler, req.end_line, outbox)
+                    await link.write(req.query, target.timeout_s)
+                    timeout = target.timeout_s if target.timeout_explicit else req.timeout_s
+                    answer = await read_answer(
+                        link, req.end_line, req.lines, timeout, pacing.line_gap_s, spec.encoding
+                    )
+                    received_at = utcnow()
+                    if not answer.lines and not answer.complete:
+                        await _emit(
+                            outbox,
+                            health.failed(f"no answer to {req.query!r} within {timeout:g} s"),
+                        )
+                        continue
+                    backoff.reset()
+                    await _emit(outbox, health.succeeded(received_at))
+                    if not answer.complete:
+                        # the cut-off line's start (no terminator yet) belongs to this answer
+                        more, tail = link.take_buffered()
+                        cut = [*answer.lines, *more] + ([RawLine(tail)] if tail else [])
+                        raw = "\n".join(handler.text(x.data) for x in cut)
+                        handler.line_no += len(cut)
+                        ending = req.end_line or f"{req.lines} lines"
+                        await outbox.put([
+                            handler.reject(
+                                raw,
+                                f"answer to {req.query!r} incomplete: no {ending} "
+                                "before the line went quiet",
+                                received_at,
+                                handler.line_no,
+                            )
+                        ])
+                        last.pop(req.query, None)
+                        continue
+                    key = [x.data for x in answer.lines]
+                    if last.get(req.query) == key:
+                        continue  # the same last result again: nothing new
+                    last[req.query] = key
+                    await outbox.put(handler.parse(answer.lines, received_at))
+                    if spec.request_gap_s:
+                        await sleep_for(spec.request_gap_s)
+                await sleep_for(target.poll_interval_s - (loop.time() - started))
+        except TransportError as exc:
+            await _emit(outbox, health.failed(str(exc)))
+        finally:
+            await link.close()
+        await sleep_for(backoff.next())
+
+
+async def _stale_input(
+    link: LineLink, handler: LineHandler, end_line: str | None, outbox: Outbox
+) -> None:
+    """Input that arrived between answers (a late answer, line noise) is parsed, not dropped."""
+    lines, tail = await link.drain_input(0.0)
+    if not lines and not tail:
+        return
+    received_at = utcnow()
+    encoding = _spec(handler.target).encoding
+    end = end_line.encode(encoding) if end_line is not None else None
+    items: list[Item] = []
+    chunk: list[RawLine] = []
+    for raw in lines:
+        if end is not None and raw.data.strip() == end:
+            items += handler.parse(chunk, received_at)
+            chunk = []
+        else:
+            chunk.append(raw)
+    if tail:
+        chunk.append(RawLine(tail))
+    if chunk:
+        handler.line_no += len(chunk)
+        items.append(
+            handler.reject(
+                "\n".join(handler.text(x.data) for x in chunk),
+                "unsolicited input between answers",
+                received_at,
+                handler.line_no,
+            )
+        )
+    log.debug("%s: %d stale item(s) before a query", handler.target.station, len(items))
+    await outbox.put(items)
+
+
+async def _emit(outbox: Outbox, status: Item | None) -> None:
+    if status is not None:
+        await outbox.put([status])

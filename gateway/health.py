@@ -1,0 +1,133 @@
+"""Per-station health and reconnect pacing.
+
+``StationHealth`` keeps ``last_success`` / ``last_error`` and turns state changes into
+``StationStatus`` records. Logging follows one rule: an error once when a station starts
+failing, debug while it keeps failing, info when it recovers, so a dead station does not flood
+the log. ``Backoff`` is capped exponential backoff with jitter ("equal jitter": half the step is
+fixed, half random) so a plant of stations that lost the network together does not reconnect in
+lock-step.
+"""
+
+from __future__ import annotations
+
+import logging
+import random
+from dataclasses import dataclass, field
+from datetime import UTC, datetime
+
+from gateway.records import StationState, StationStatus
+
+__all__ = ["Backoff", "StationHealth"]
+
+log = logging.getLogger(__name__)
+
+_LINK_STATES = frozenset({StationState.ONLINE, StationState.OFFLINE, StationState.FAULT})
+
+
+class Backoff:
+    """Delays of ``initial·2ⁿ`` capped at ``cap``, each drawn from ``[d/2, d]``."""
+
+    def __init__(
+        self, initial: float = 0.5, cap: float = 30.0, rng: random.Random | None = None
+    ) -> None:
+        if initial <= 0 or cap < initial:
+            raise ValueError(f"backoff needs 0 < initial <= cap, got {initial}, {cap}")
+        self.initial = initial
+        self.cap = cap
+        self._rng = rng or random.Random()
+        self._attempt = 0
+
+    def next(self) -> float:
+        step = min(self.cap, self.initial * (2 ** min(self._attempt, 30)))
+        self._attempt += 1
+        return step / 2 + self._rng.uniform(0, step / 2)
+
+    def reset(self) -> None:
+        self._attempt = 0
+
+    @property
+    def attempts(self) -> int:
+        return self._attempt
+
+
+def _now() -> datetime:
+    return datetime.now(UTC)
+
+
+@dataclass
+class StationHealth:
+    """What the gateway knows about one station's link and activity."""
+
+    station: str
+    offline_after: int = 1  # consecutive failures before the station counts as offline
+    state: StationState | None = None
+    last_success: datetime | None = None
+    last_error: str | None = None
+    last_error_at: datetime | None = None
+    failures: int = 0
+    counters: dict[str, int] = field(default_factory=dict)
+
+    def count(self, what: str, n: int = 1) -> None:
+        """Tally events worth a metric (torn reads, exceptions, gaps) without logging each."""
+        self.counters[what] = self.counters.get(what, 0) + n
+
+    def succeeded(self, at: datetime | None = None) -> StationStatus | None:
+        """An exchange worked; returns a status record when the station came (back) online."""
+        at = at or _now()
+        self.last_success = at
+        recovered = self.failures >= self.offline_after
+        self.failures = 0
+        if recovered:
+            log.info("%s: recovered (%s)", self.station, self.last_error)
+        if self.state in (None, StationState.OFFLINE, StationState.FAULT):
+            return self._set(StationState.ONLINE, "", at)
+        return None
+
+    def failed(
+        self,
+        error: str,
+        at: datetime | None = None,
+        state: StationState = StationState.OFFLINE,
+    ) -> StationStatus | None:
+        """An exchange failed; returns a status record on the change into ``state``."""
+        at = at or _now()
+        self.last_error = error
+        self.last_error_at = at
+        self.failures += 1
+        if self.failures < self.offline_after:
+            log.debug("%s: %s (tolerated, %d)", self.station, error, self.failures)
+            return None
+        if self.failures == self.offline_after:
+            log.error("%s: %s", self.station, error)
+        else:
+            log.debug("%s: still failing (%d): %s", self.station, self.failures, error)
+        if self.state != state:
+            return self._set(state, error, at, quiet=True)  # the error line above said it
+        return None
+
+    def observed(
+        self, state: StationState, detail: str = "", at: datetime | None = None
+    ) -> StationStatus | None:
+        """The station reported a process state (idle, testing, ...); a record when it changed."""
+        at = at or _now()
+        if self.state == state:
+            return None
+        return self._set(state, detail, at)
+
+    def _set(
+        self, state: StationState, detail: str, at: datetime, *, quiet: bool = False
+    ) -> StationStatus:
+        before = self.state
+        self.state = state
+        if not quiet:
+            # Link changes are what an operator wants to read; process states change every cycle.
+            link = state in _LINK_STATES or before in _LINK_STATES
+            log.log(
+                logging.INFO if link else logging.DEBUG,
+                "%s: %s -> %s%s",
+                self.station,
+                before or "start",
+                state,
+                f" ({detail})" if detail else "",
+            )
+        return StationStatus(station=self.station, at=at, state=state, detail=detail[:500])

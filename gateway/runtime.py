@@ -1,0 +1,479 @@
+"""The running gateway: one task per bus, one journal writer, the forwarders, clean shutdown.
+
+Task layout (all owned by one ``asyncio.TaskGroup``)::
+
+    bus tasks (one per serial line / TCP endpoint)  ──put──>  JournalWriter  ──>  Journal.write
+      └ serial stream | request/response | Modbus poll         (bounded queue,      (one thread)
+                                                               batches ≤ 250 ms)
+    forwarders (sinks), each reading the journal from its own cursor
+
+Back-pressure: the writer holds what it could not store yet (journal full or read-only) in a
+bounded buffer and retries with backoff. While it is failing, ``accepting`` is false and Modbus
+pollers stop reading result slots, so stations keep results in their rings; streaming lines are
+held in memory up to the bound, after which readers wait (and TCP pushes back on the station).
+A bus task that dies of a bug is logged and restarted; it never takes the others down.
+"""
+
+from __future__ import annotations
+
+import asyncio
+import concurrent.futures
+import contextlib
+import logging
+import signal
+import sqlite3
+import time
+from collections import deque
+from collections.abc import Awaitable, Callable, Mapping, Sequence
+from dataclasses import dataclass, field
+from typing import Any, Protocol
+
+from gateway.config import GatewayConfig
+from gateway.drivers.base import Item, Pacing, StationTarget, utcnow
+from gateway.errors import ConfigError, StoreError
+from gateway.health import Backoff
+from gateway.records import StationState, StationStatus
+
+__all__ = [
+    "Forwarder",
+    "JournalWriter",
+    "Runtime",
+    "SinkContext",
+    "build_targets",
+    "resume_points",
+    "run_gateway",
+]
+
+log = logging.getLogger(__name__)
+
+
+# -- sinks ------------------------------------------------------------------------------------
+@dataclass(frozen=True)
+class SinkContext:
+    """What a forwarder needs to know about the gateway it runs in."""
+
+    site: str
+    gateway_id: str
+    store_url: str
+    stations: Mapping[str, str]  # station → line
+
+
+class Forwarder(Protocol):
+    """A sink: reads the journal from its own cursor and pushes on, until ``stop`` is set."""
+
+    name: str
+
+    async def run(self, store_url: str, stop: asyncio.Event) -> None: ...
+
+
+SinkFactory = Callable[[str, Mapping[str, Any], SinkContext], Forwarder]
+
+
+def sink_registry() -> Mapping[str, SinkFactory]:
+    """``gateway.sinks.REGISTRY`` (sink type → factory) when the sinks package provides one."""
+    try:
+        import gateway.sinks as sinks
+    except ImportError:
+        return {}
+    registry = getattr(sinks, "REGISTRY", None)
+    return registry if isinstance(registry, Mapping) else {}
+
+
+def build_forwarders(config: GatewayConfig) -> list[Forwarder]:
+    """One forwarder per ``[sinks.<name>]`` table; a mistake is a ConfigError naming the table."""
+    if not config.sinks:
+        return []
+    registry = sink_registry()
+    ctx = SinkContext(
+        site=config.site,
+        gateway_id=config.gateway_id,
+        store_url=config.store,
+        stations={s.id: s.line for s in config.stations},
+    )
+    out: list[Forwarder] = []
+    for name, table in config.sinks.items():
+        kind = str(table.get("type", name))
+        factory = registry.get(kind)
+        if factory is None:
+            known = ", ".join(sorted(registry)) or "none installed"
+            raise ConfigError(
+                f"{config.source}: sinks.{name}: unknown sink type {kind!r} (known: {known})"
+            )
+        options = {k: v for k, v in table.items() if k != "type"}
+        try:
+            out.append(factory(name, options, ctx))
+        except (ValueError, TypeError, KeyError) as exc:
+            raise ConfigError(f"{config.source}: sinks.{name}: {exc}") from exc
+    return out
+
+
+# -- the journal writer -----------------------------------------------------------------------
+JournalFactory = Callable[[], Any]
+
+
+class JournalWriter:
+    """The single writer: batches items into ``Journal.write`` calls on one dedicated thread.
+
+    A batch is committed when it is full or ``max_delay_s`` after its oldest item arrived (the
+    default keeps a result's commit well inside 250 ms). Nothing is dropped on a store error:
+    items stay in ``pending`` (bounded by ``max_pending``) and the batch is retried.
+    """
+
+    def __init__(
+        self,
+        open_journal: JournalFactory,
+        *,
+        batch_size: int = 500,
+        max_delay_s: float = 0.1,
+        queue_size: int = 2000,
+        max_pending: int = 100_000,
+        retry_initial_s: float = 0.5,
+        retry_max_s: float = 10.0,
+    ) -> None:
+        self._open = open_journal
+        self.batch_size = batch_size
+        self.max_delay_s = max_delay_s
+        self.max_pending = max_pending
+        self._queue: asyncio.Queue[list[Item] | None] = asyncio.Queue(maxsize=queue_size)
+        self._pending: deque[Item] = deque()
+        self._oldest: float | None = None  # loop time the oldest pending item arrived
+        self._executor = concurrent.futures.ThreadPoolExecutor(1, thread_name_prefix="journal")
+        self._journal: Any = None
+        self._retry = Backoff(retry_initial_s, retry_max_s)
+        self._failing: str | None = None
+        self._closing = False
+        self.stats: dict[str, int] = {"inserted": 0, "duplicates": 0, "quarantined": 0,
+                                      "failed_writes": 0}
+
+    # Outbox -----------------------------------------------------------------------------------
+    async def put(self, items: Sequence[Item]) -> None:
+        if items:
+            await self._queue.put(list(items))
+
+    @property
+    def accepting(self) -> bool:
+        return self._failing is None and len(self._pending) < self.max_pending // 2
+
+    @property
+    def pending(self) -> int:
+        return len(self._pending) + self._queue.qsize()  # queued puts, a few items each
+
+    # lifecycle ----------------------------------------------------------------------------------
+    async def open(self) -> Any:
+        """Open the journal on the writer's thread (so every call to it happens there)."""
+        loop = asyncio.get_running_loop()
+        self._journal = await loop.run_in_executor(self._executor, self._open)
+        return self._journal
+
+    async def call(self, fn: Callable[..., Any], *args: Any) -> Any:
+        """Run ``fn(journal, *args)`` on the writer's thread (resume points, tests)."""
+        loop = asyncio.get_running_loop()
+        return await loop.run_in_executor(self._executor, fn, self._journal, *args)
+
+    async def close(self) -> None:
+        """Ask ``run`` to store everything queued and return."""
+        self._closing = True
+        await self._queue.put(None)
+
+    async def run(self, *, shutdown_grace_s: float = 10.0) -> None:
+        if self._journal is None:
+            await self.open()
+        loop = asyncio.get_running_loop()
+        closed_at: float | None = None
+        try:
+            while True:
+                if not self._pending and not self._closing:
+                    first = await self._queue.get()
+                    if first is None:
+                        self._closing = True
+                    else:
+                        self._take(first, loop.time())
+                self._drain_queue(loop.time())
+                if (
+                    not self._closing
+                    and len(self._pending) < self.batch_size
+                    and self._failing is None
+                    and self._oldest is not None
+                ):
+                    wait = self._oldest + self.max_delay_s - loop.time()
+                    if wait > 0:
+                        await self._collect_until(loop.time() + wait)
+                if self._pending:
+                    ok = await self._write_batch()
+                    if not ok:
+                        if self._closing:
+                            closed_at = closed_at or loop.time()
+                            if loop.time() - closed_at > shutdown_grace_s:
+                                log.error(
+                                    "journal still failing at shutdown: %d item(s) not stored",
+                                    len(self._pending),
+                                )
+                                return
+                        await self._collect_until(loop.time() + self._retry.next())
+                    continue
+                if self._closing and self._queue.empty():
+                    return
+        finally:
+            await self._close_journal()
+
+    # internals ----------------------------------------------------------------------------------
+    def _take(self, items: list[Item], now: float) -> None:
+        if not self._pending:
+            self._oldest = now
+        self._pending.extend(items)
+
+    def _drain_queue(self, now: float) -> None:
+        while len(self._pending) < self.max_pending:
+            try:
+                items = self._queue.get_nowait()
+            except asyncio.QueueEmpty:
+                return
+            if items is None:
+                self._closing = True
+            else:
+                self._take(items, now)
+
+    async def _collect_until(self, deadline: float) -> None:
+        """Keep taking arrivals (up to the bounds) until ``deadline`` or a full batch."""
+        loop = asyncio.get_running_loop()
+        while True:
+            remaining = deadline - loop.time()
+            if remaining <= 0 or len(self._pending) >= self.max_pending:
+                if remaining > 0:
+                    await asyncio.sleep(remaining)  # full: producers wait on the queue
+                return
+            if self._failing is None and len(self._pending) >= self.batch_size:
+                return
+            try:
+                items = await asyncio.wait_for(self._queue.get(), remaining)
+            except TimeoutError:
+                return
+            if items is None:
+                self._closing = True
+                return
+            self._take(items, loop.time())
+
+    async def _write_batch(self) -> bool:
+        n = min(self.batch_size, len(self._pending))
+        batch = [self._pending[i] for i in range(n)]
+        loop = asyncio.get_running_loop()
+        try:
+            stats = await loop.run_in_executor(self._executor, self._journal.write, batch)
+        except StoreError as exc:
+            self.stats["failed_writes"] += 1
+            if self._failing is None:
+                log.error(
+                    "journal write failed, holding %d item(s) in memory and retrying: %s",
+                    len(self._pending), exc,
+                )
+            else:
+                log.debug("journal still failing (%d held): %s", len(self._pending), exc)
+            self._failing = str(exc)
+            return False
+        for _ in range(n):
+            self._pending.popleft()
+        self._oldest = loop.time() if self._pending else None
+        self._retry.reset()
+        if self._failing is not None:
+            log.info("journal writable again (%s); %d item(s) still to store",
+                     self._failing, len(self._pending))
+            self._failing = None
+        for key in ("inserted", "duplicates", "quarantined"):
+            self.stats[key] += int(getattr(stats, key, 0))
+        return True
+
+    async def _close_journal(self) -> None:
+        loop = asyncio.get_running_loop()
+        if self._journal is not None:
+            journal, self._journal = self._journal, None
+            with contextlib.suppress(StoreError, sqlite3.Error):
+                await loop.run_in_executor(self._executor, journal.close)
+        self._executor.shutdown(wait=False)
+
+
+# -- stations ---------------------------------------------------------------------------------
+def resume_points(journal: Any, store_url: str) -> dict[str, int]:
+    """Per station, the cycle of the newest journalled result.
+
+    Modbus polling re-reads the whole ring on start (repeats are ignored by the journal's
+    unique keys), so this only lets it tell a real gap from a restart.
+    """
+    last_cycles = getattr(journal, "last_cycles", None)
+    if callable(last_cycles):
+        return {str(k): int(v) for k, v in last_cycles().items()}
+    try:
+        from gateway.store import open_store
+
+        frame = open_store(store_url).latest_results_per_station()
+    except (ImportError, AttributeError, StoreError, ValueError) as exc:
+        log.debug("no resume points from the journal: %s", exc)
+        return {}
+    if frame is None or "station" not in frame or "cycle" not in frame:
+        return {}
+    return {str(s): int(c) for s, c in zip(frame["station"], frame["cycle"], strict=True)}
+
+
+def build_targets(config: GatewayConfig, resume: Mapping[str, int]) -> list[StationTarget]:
+    from gateway.profiles import StationContext
+
+    targets = []
+    for st in config.stations:
+        ctx = StationContext(
+            station=st.id, line=st.line, timezone=st.timezone, programs=dict(st.programs)
+        )
+        targets.append(
+            StationTarget(
+                station=st.id,
+                endpoint=st.endpoint,
+                profile=st.profile,
+                context=ctx,
+                poll_interval_s=st.poll_interval_s,
+                timeout_s=st.timeout_s,
+                timeout_explicit=st.timeout_explicit,
+                resume_cycle=resume.get(st.id),
+                options=dict(st.overrides),
+            )
+        )
+    return targets
+
+
+def _buses(targets: Sequence[StationTarget]) -> dict[str, list[StationTarget]]:
+    """Stations grouped by the wire they share (an RS-485 line, a TCP endpoint)."""
+    buses: dict[str, list[StationTarget]] = {}
+    for t in targets:
+        buses.setdefault(t.endpoint, []).append(t)
+    return buses
+
+
+def _bus_runner(
+    stations: list[StationTarget], outbox: JournalWriter, pacing: Pacing
+) -> Callable[[], Awaitable[None]]:
+    from gateway.drivers.modbus import run_modbus_bus
+    from gateway.drivers.serial import run_request_station, run_stream_station
+
+    first = stations[0]
+    if first.profile.transport == "modbus":
+        return lambda: run_modbus_bus(stations, outbox, pacing)
+    assert first.profile.serial is not None
+    if first.profile.serial.mode == "stream":
+        return lambda: run_stream_station(first, outbox, pacing)
+
+    # config validation allows one serial station per line (profiles carry no addresses)
+    return lambda: run_request_station(first, outbox, pacing)
+
+
+async def _supervise(
+    name: str, stations: list[StationTarget], run: Callable[[], Awaitable[None]],
+    outbox: JournalWriter, pacing: Pacing,
+) -> None:
+    """Keep a bus task alive: a bug in one bus is logged and retried, never fatal to the rest."""
+    backoff = Backoff(pacing.backoff_initial_s, pacing.backoff_max_s)
+    while True:
+        try:
+            await run()
+            return
+        except Exception as exc:  # the boundary that keeps one station's bug local
+            log.exception("bus %s crashed; restarting it", name)
+            statuses: list[Item] = []
+            for t in stations:
+                s = t.health.failed(f"internal error: {exc!r}", state=StationState.FAULT)
+                if s is not None:
+                    statuses.append(s)
+            await outbox.put(statuses)
+        await asyncio.sleep(backoff.next())
+
+
+# -- the runtime ------------------------------------------------------------------------------
+@dataclass
+class Runtime:
+    """A configured gateway, ready to ``run`` until ``stop`` is set."""
+
+    config: GatewayConfig
+    writer: JournalWriter | None = None
+    targets: list[StationTarget] = field(default_factory=list)
+    forwarders: list[Forwarder] = field(default_factory=list)
+
+    async def run(self, stop: asyncio.Event) -> None:
+        cfg = self.config
+        from gateway.store import open_journal
+
+        if self.writer is None:
+            self.writer = JournalWriter(
+                lambda: open_journal(cfg.store),
+                batch_size=cfg.runtime.batch_size,
+                max_delay_s=cfg.runtime.max_delay_s,
+                queue_size=cfg.runtime.queue_size,
+                max_pending=cfg.runtime.max_pending,
+            )
+        writer = self.writer
+        journal = await writer.open()
+        resume = await writer.call(resume_points, cfg.store) if journal is not None else {}
+        self.targets = build_targets(cfg, resume)
+        self.forwarders = build_forwarders(cfg)
+        pacing = cfg.runtime.pacing
+        log.info(
+            "gateway %s (%s): %d station(s) on %d bus(es), journal %s",
+            cfg.gateway_id, cfg.site, len(self.targets), len(_buses(self.targets)), cfg.store,
+        )
+        async with asyncio.TaskGroup() as tg:
+            writer_task = tg.create_task(writer.run(), name="journal writer")
+            sink_stop = asyncio.Event()
+            for fwd in self.forwarders:
+                tg.create_task(self._forward(fwd, sink_stop), name=f"sink {fwd.name}")
+            bus_tasks = [
+                tg.create_task(
+                    _supervise(ep, group, _bus_runner(group, writer, pacing), writer, pacing),
+                    name=f"bus {ep}",
+                )
+                for ep, group in _buses(self.targets).items()
+            ]
+            await stop.wait()
+            log.info("stopping: %d item(s) waiting for the journal", writer.pending)
+            await _cancel_all(bus_tasks)
+            at = utcnow()
+            await writer.put([
+                StationStatus(station=t.station, at=at, state=StationState.OFFLINE,
+                              detail="gateway stopped")
+                for t in self.targets
+            ])
+            await writer.close()
+            await writer_task
+            sink_stop.set()
+        log.info("stopped: %s", ", ".join(f"{k} {v}" for k, v in writer.stats.items()))
+
+    async def _forward(self, fwd: Forwarder, stop: asyncio.Event) -> None:
+        try:
+            await fwd.run(self.config.store, stop)
+        except Exception:  # a sink that fails to run is disabled, the gateway keeps going
+            log.exception("sink %s failed and is disabled", fwd.name)
+
+
+async def _cancel_all(tasks: Sequence[asyncio.Task[None]]) -> None:
+    """Cancel until done: a library's ``wait_for`` (3.11) may swallow a cancellation that
+    races with a completed read, so one ``cancel()`` is not always enough."""
+    pending = {t for t in tasks if not t.done()}
+    while pending:
+        for task in pending:
+            task.cancel()
+        _, pending = await asyncio.wait(pending, timeout=0.5)
+    for task in tasks:
+        if not task.cancelled() and task.exception() is not None:
+            log.error("bus task %s ended with %r", task.get_name(), task.exception())
+
+
+def run_gateway(config: GatewayConfig) -> int:
+    """Run until SIGTERM/SIGINT; returns the process exit code."""
+
+    async def main() -> None:
+        stop = asyncio.Event()
+        loop = asyncio.get_running_loop()
+        for sig in (signal.SIGTERM, signal.SIGINT):
+            with contextlib.suppress(NotImplementedError, RuntimeError):
+                loop.add_signal_handler(sig, stop.set)
+        await Runtime(config).run(stop)
+
+    started = time.monotonic()
+    asyncio.run(main())
+    log.debug("ran %.1f s", time.monotonic() - started)
+    return 0
+

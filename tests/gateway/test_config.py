@@ -1,0 +1,151 @@
+"""gateway.toml: the shipped demo config, and one clear line for every kind of mistake."""
+
+from __future__ import annotations
+
+import sys
+import textwrap
+from pathlib import Path
+
+import pytest
+
+from gateway.cli import main
+from gateway.config import DEFAULT_STORE, load_config
+from gateway.errors import ConfigError
+
+pytestmark = pytest.mark.timeout(30)
+
+REPO = Path(__file__).resolve().parents[2]
+
+GOOD = """
+site = "Northmere Works"
+gateway_id = "gw-test"
+timezone = "Europe/Berlin"
+
+[[stations]]
+id = "L1-S1"
+line = "L1"
+profile = "lf-delim"
+endpoint = "tcp://127.0.0.1:15101"
+
+[[stations]]
+id = "L2-S3"
+line = "L2"
+profile = "lf-mbrtu"
+endpoint = "run/sim/L2-S3.tty"
+poll_interval = "250 ms"
+timeout = 1
+programs = { 1 = "MV-44" }
+overrides = { device_id = 7 }
+"""
+
+
+def write(tmp_path: Path, text: str) -> Path:
+    path = tmp_path / "gateway.toml"
+    path.write_text(textwrap.dedent(text))
+    return path
+
+
+def test_demo_config_matches_the_simulator_demo() -> None:
+    from sim.scenario import load_scenario
+
+    config = load_config("demo")
+    scenario = load_scenario("demo")
+    assert config.site == scenario.site and config.timezone == scenario.timezone
+    by_id = {s.id: s for s in config.stations}
+    assert set(by_id) == {s.name for s in scenario.stations}
+    for st in scenario.stations:
+        gw = by_id[st.name]
+        assert gw.profile.name == st.type
+        assert gw.line == st.line
+        if st.port is not None:
+            assert gw.endpoint == f"tcp://127.0.0.1:{st.port}"
+        else:
+            assert gw.endpoint == f"run/sim/{st.tty}.tty"
+        if gw.profile.modbus is not None:
+            assert dict(gw.programs) == dict(st.programs)
+            assert gw.overrides.get("device_id", gw.profile.modbus.device_id) == st.device_id
+
+
+def test_good_config_with_defaults(tmp_path: Path) -> None:
+    config = load_config(write(tmp_path, GOOD))
+    assert config.store == DEFAULT_STORE
+    delim, rtu = config.stations
+    assert delim.timezone == "Europe/Berlin"  # inherited from the top level
+    assert rtu.poll_interval_s == 0.25 and rtu.timeout_s == 1.0 and rtu.timeout_explicit
+    assert rtu.programs == {1: "MV-44"} and rtu.overrides == {"device_id": 7}
+    assert config.metrics.prometheus_port == 0 and config.metrics.bind == "127.0.0.1"
+    assert load_config(write(tmp_path, GOOD), store="sqlite:///x.db").store == "sqlite:///x.db"
+
+
+@pytest.mark.parametrize(
+    ("change", "message"),
+    [
+        (('site = "Northmere Works"', ""), "site: expected a value (required)"),
+        (('profile = "lf-delim"', 'profile = "lf-nope"'), "stations[L1-S1].profile"),
+        (('endpoint = "tcp://127.0.0.1:15101"', 'endpoint = "tcp://127.0.0.1"'),
+         "stations[L1-S1].endpoint: expected tcp://host:port"),
+        (('endpoint = "tcp://127.0.0.1:15101"', 'endpoint = "udp://x:1"'),
+         "stations[L1-S1].endpoint: expected tcp://host:port, socket://"),
+        (('poll_interval = "250 ms"', 'poll_interval = "fast"'),
+         "stations[L2-S3].poll_interval: expected a duration"),
+        (('poll_interval = "250 ms"', "poll_interval = -1"),
+         "stations[L2-S3].poll_interval: expected a duration above 0"),
+        (('timezone = "Europe/Berlin"', 'timezone = "Mars/Olympus"'),
+         "timezone: expected an IANA time zone"),
+        (("overrides = { device_id = 7 }", 'overrides = { device_id = "7" }'),
+         "stations[L2-S3].overrides.device_id: expected an integer"),
+        (("overrides = { device_id = 7 }", "overrides = { slave = 7 }"),
+         "stations[L2-S3].overrides.slave: expected one of device_id"),
+        (('programs = { 1 = "MV-44" }', 'programs = { one = "MV-44" }'),
+         "stations[L2-S3].programs.one"),
+        (('gateway_id = "gw-test"', 'gateway_id = "gw-test"\nsotre = "x"'),
+         "sotre: expected one of the keys"),
+        (('id = "L2-S3"', 'id = "L1-S1"'), "stations[L1-S1].id: expected a station id used once"),
+        (('endpoint = "run/sim/L2-S3.tty"', 'endpoint = "tcp://127.0.0.1:15101"'),
+         "expected an endpoint of its own"),
+        (('gateway_id = "gw-test"', 'gateway_id = "gw-test"\nstore = "influxdb://h:8086/db"'),
+         "store: expected a journal URL sqlite:///"),
+    ],
+)
+def test_mistakes_name_file_key_and_expectation(
+    tmp_path: Path, change: tuple[str, str], message: str
+) -> None:
+    path = write(tmp_path, GOOD.replace(*change))
+    with pytest.raises(ConfigError) as err:
+        load_config(path)
+    text = str(err.value)
+    assert text.startswith(str(path)) and message in text, text
+    assert "\n" not in text
+
+
+def test_modbus_tcp_profile_needs_a_tcp_endpoint(tmp_path: Path) -> None:
+    bad = GOOD.replace('profile = "lf-mbrtu"', 'profile = "lf-mbtcp"')
+    with pytest.raises(ConfigError, match=r"L2-S3\]\.endpoint: expected tcp://host:port for Mod"):
+        load_config(write(tmp_path, bad))
+
+
+def test_not_toml_and_missing_file(tmp_path: Path) -> None:
+    with pytest.raises(ConfigError, match="not valid TOML"):
+        load_config(write(tmp_path, "site = "))
+    with pytest.raises(ConfigError, match="no such config file"):
+        load_config(tmp_path / "nope.toml")
+
+
+def test_check_prints_the_stations_and_exits_0(capsys: pytest.CaptureFixture[str]) -> None:
+    assert main(["gateway", "--config", "demo", "--check"]) == 0
+    out = capsys.readouterr().out
+    assert "ok: site 'Northmere Works'" in out and "L2-S3" in out and "lf-mbrtu@" in out
+
+
+def test_bad_config_is_one_line_and_exit_2(tmp_path: Path) -> None:
+    import subprocess
+
+    path = write(tmp_path, GOOD.replace('profile = "lf-delim"', 'profile = "lf-nope"'))
+    proc = subprocess.run(
+        [sys.executable, "-m", "gateway", "gateway", "--config", str(path)],
+        cwd=REPO, capture_output=True, text=True, timeout=30,
+    )
+    assert proc.returncode == 2
+    lines = proc.stderr.strip().splitlines()
+    assert len(lines) == 1 and lines[0].startswith("leakfleet gateway: error: "), proc.stderr
+    assert "Traceback" not in proc.stderr
