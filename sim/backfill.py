@@ -83,13 +83,6 @@ def _wall(production_s: np.ndarray) -> np.ndarray:
     return production_s + weeks * (_WEEK_S - _PRODUCTION_S)
 
 
-def _mean_cycle_s(st: Station, programs: list[Program]) -> float:
-    p = programs[0]
-    body = p.fill_s + p.stabilise_s + p.test_s + _VENT_S + sum(st.load_s) / 2
-    pause = st.pause_probability * sum(st.pause_s) / 2
-    return max(st.min_cycle_s, body) + pause
-
-
 class _StationStream:
     """One station's history, produced chunk by chunk (keeps memory flat for any size)."""
 
@@ -301,10 +294,16 @@ def backfill(
     open_journal(str(path)).close()  # schema and migrations through the journal itself
     rng = np.random.default_rng(sc.seed if seed is None else seed)
     stations = list(sc.stations)
-    per_station = math.ceil(results / len(stations))
-    mean_s = sum(_mean_cycle_s(s, [sc.programs[n] for n in s.programs.values()])
-                 for s in stations) / len(stations)
-    span_s = mean_s * per_station * _WEEK_S / _PRODUCTION_S
+    # each station's time per result, measured on a throwaway sample of its own cycles; the
+    # results are shared out by rate, so every station's history ends at about ``end``
+    means = []
+    for st in stations:
+        probe = _StationStream(sc, st, np.random.default_rng(0), 0, 0.0)
+        probe.chunk(2000)
+        means.append(probe.prod_s / 2000)
+    rate = sum(1.0 / m for m in means)
+    shares = [1.0 / m / rate for m in means]
+    span_s = results / rate * _WEEK_S / _PRODUCTION_S
     end = end or datetime.now(UTC)
     t0 = end - timedelta(seconds=span_s)
     monday = (t0 - timedelta(days=t0.weekday())).replace(hour=0, minute=0, second=0,
@@ -334,11 +333,10 @@ def backfill(
         for stmt in triggers:
             conn.execute(f"DROP TRIGGER IF EXISTS {stmt.split()[2]}")
         while done < results:
-            take = min(_CHUNK, per_station)
             rows: list[tuple[Any, ...]] = []
             cal_rows: list[tuple[Any, ...]] = []
-            for s in streams:
-                r, c = s.chunk(take)
+            for s, share in zip(streams, shares, strict=True):
+                r, c = s.chunk(max(1, round(_CHUNK * len(streams) * share)))
                 rows += r
                 cal_rows += c
             rows.sort(key=lambda r: r[5])  # journal order: as received
