@@ -17,7 +17,7 @@ from datetime import UTC, datetime
 
 from gateway.records import StationState, StationStatus
 
-__all__ = ["Backoff", "StationHealth"]
+__all__ = ["Backoff", "ClockWatch", "StationHealth"]
 
 log = logging.getLogger(__name__)
 
@@ -76,9 +76,10 @@ class StationHealth:
         at = at or _now()
         self.last_success = at
         recovered = self.failures >= self.offline_after
-        self.failures = 0
         if recovered:
-            log.info("%s: recovered (%s)", self.station, self.last_error)
+            log.info("%s: recovered after %d failed attempt(s); last error: %s",
+                     self.station, self.failures, self.last_error)
+        self.failures = 0
         if self.state in (None, StationState.OFFLINE, StationState.FAULT):
             return self._set(StationState.ONLINE, "", at)
         return None
@@ -91,6 +92,7 @@ class StationHealth:
     ) -> StationStatus | None:
         """An exchange failed; returns a status record on the change into ``state``."""
         at = at or _now()
+        error = error.removeprefix(f"{self.station}: ")  # the log line names the station
         self.last_error = error
         self.last_error_at = at
         self.failures += 1
@@ -131,3 +133,32 @@ class StationHealth:
                 f" ({detail})" if detail else "",
             )
         return StationStatus(station=self.station, at=at, state=state, detail=detail[:500])
+
+
+class ClockWatch:
+    """Notices a station clock that jumps back (daylight saving, a battery swap).
+
+    Results are stored as the station reported them (its clock is the record's truth, and the
+    unique key includes the cycle, so an hour repeated does not collide); the jump itself is
+    flagged once, as a status detail, so an analyst knows why times overlap.
+    """
+
+    def __init__(self, tolerance_s: float = 300.0) -> None:
+        self.tolerance_s = tolerance_s
+        self._last: dict[str, tuple[int, datetime]] = {}
+
+    def check(self, station: str, cycle: int, ended_at: datetime) -> str | None:
+        """A note when a newer cycle ended well before the previous one, else None."""
+        last = self._last.get(station)
+        if last is not None and cycle <= last[0]:
+            return None  # a re-read of an older cycle (after a restart or a torn read)
+        self._last[station] = (cycle, ended_at)
+        if last is None:
+            return None
+        back = (last[1] - ended_at).total_seconds()
+        if back <= self.tolerance_s:
+            return None
+        return (
+            f"clock: cycle {cycle} ended at {ended_at.isoformat()}, {back / 60:.0f} min before "
+            f"cycle {last[0]} (station clock set back?)"
+        )

@@ -26,13 +26,14 @@ import time
 from collections import deque
 from collections.abc import Awaitable, Callable, Mapping, Sequence
 from dataclasses import dataclass, field
-from typing import Any, Protocol
+from typing import Any
 
 from gateway.config import GatewayConfig
-from gateway.drivers.base import Item, Pacing, StationTarget, utcnow
+from gateway.drivers.base import Item, Outbox, Pacing, StationTarget, utcnow
 from gateway.errors import ConfigError, StoreError
-from gateway.health import Backoff
-from gateway.records import StationState, StationStatus
+from gateway.health import Backoff, ClockWatch
+from gateway.records import StationState, StationStatus, TestResult
+from gateway.sinks import REGISTRY, Forwarder, SinkContext, SinkFactory
 
 __all__ = [
     "Forwarder",
@@ -48,35 +49,17 @@ log = logging.getLogger(__name__)
 
 
 # -- sinks ------------------------------------------------------------------------------------
-@dataclass(frozen=True)
-class SinkContext:
-    """What a forwarder needs to know about the gateway it runs in."""
-
-    site: str
-    gateway_id: str
-    store_url: str
-    stations: Mapping[str, str]  # station → line
-
-
-class Forwarder(Protocol):
-    """A sink: reads the journal from its own cursor and pushes on, until ``stop`` is set."""
-
-    name: str
-
-    async def run(self, store_url: str, stop: asyncio.Event) -> None: ...
-
-
-SinkFactory = Callable[[str, Mapping[str, Any], SinkContext], Forwarder]
-
-
 def sink_registry() -> Mapping[str, SinkFactory]:
-    """``gateway.sinks.REGISTRY`` (sink type → factory) when the sinks package provides one."""
-    try:
-        import gateway.sinks as sinks
-    except ImportError:
-        return {}
-    registry = getattr(sinks, "REGISTRY", None)
-    return registry if isinstance(registry, Mapping) else {}
+    """Sink type → factory; sink modules register themselves when imported."""
+    import importlib
+
+    for module in ("gateway.sinks.mqtt", "gateway.sinks.influx"):
+        try:
+            importlib.import_module(module)
+        except ImportError as exc:
+            if exc.name != module:
+                log.debug("sink module %s unavailable: %s", module, exc)
+    return REGISTRY
 
 
 def build_forwarders(config: GatewayConfig) -> list[Forwarder]:
@@ -345,8 +328,33 @@ def _buses(targets: Sequence[StationTarget]) -> dict[str, list[StationTarget]]:
     return buses
 
 
+class _FlaggingOutbox:
+    """Passes items to the writer, adding a status note when a station clock jumps back."""
+
+    def __init__(self, writer: JournalWriter, health: Mapping[str, Any]) -> None:
+        self._writer = writer
+        self._health = health
+        self._clock = ClockWatch()
+
+    @property
+    def accepting(self) -> bool:
+        return self._writer.accepting
+
+    async def put(self, items: Sequence[Item]) -> None:
+        notes: list[Item] = []
+        for item in items:
+            if isinstance(item, TestResult):
+                note = self._clock.check(item.station, item.cycle, item.ended_at)
+                if note is not None:
+                    log.warning("%s: %s", item.station, note)
+                    h = self._health.get(item.station)
+                    state = getattr(h, "state", None) or StationState.ONLINE
+                    notes.append(StationStatus(item.station, utcnow(), state, note))
+        await self._writer.put([*items, *notes] if notes else items)
+
+
 def _bus_runner(
-    stations: list[StationTarget], outbox: JournalWriter, pacing: Pacing
+    stations: list[StationTarget], outbox: Outbox, pacing: Pacing
 ) -> Callable[[], Awaitable[None]]:
     from gateway.drivers.modbus import run_modbus_bus
     from gateway.drivers.serial import run_request_station, run_stream_station
@@ -364,7 +372,7 @@ def _bus_runner(
 
 async def _supervise(
     name: str, stations: list[StationTarget], run: Callable[[], Awaitable[None]],
-    outbox: JournalWriter, pacing: Pacing,
+    outbox: Outbox, pacing: Pacing,
 ) -> None:
     """Keep a bus task alive: a bug in one bus is logged and retried, never fatal to the rest."""
     backoff = Backoff(pacing.backoff_initial_s, pacing.backoff_max_s)
@@ -397,6 +405,8 @@ class Runtime:
         cfg = self.config
         from gateway.store import open_journal
 
+        self.forwarders = build_forwarders(cfg)  # sink mistakes stop us before anything starts
+
         if self.writer is None:
             self.writer = JournalWriter(
                 lambda: open_journal(cfg.store),
@@ -409,7 +419,6 @@ class Runtime:
         journal = await writer.open()
         resume = await writer.call(resume_points, cfg.store) if journal is not None else {}
         self.targets = build_targets(cfg, resume)
-        self.forwarders = build_forwarders(cfg)
         pacing = cfg.runtime.pacing
         log.info(
             "gateway %s (%s): %d station(s) on %d bus(es), journal %s",
@@ -420,9 +429,10 @@ class Runtime:
             sink_stop = asyncio.Event()
             for fwd in self.forwarders:
                 tg.create_task(self._forward(fwd, sink_stop), name=f"sink {fwd.name}")
+            outbox = _FlaggingOutbox(writer, {t.station: t.health for t in self.targets})
             bus_tasks = [
                 tg.create_task(
-                    _supervise(ep, group, _bus_runner(group, writer, pacing), writer, pacing),
+                    _supervise(ep, group, _bus_runner(group, outbox, pacing), outbox, pacing),
                     name=f"bus {ep}",
                 )
                 for ep, group in _buses(self.targets).items()

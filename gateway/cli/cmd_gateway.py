@@ -84,6 +84,9 @@ def _run(args: argparse.Namespace) -> int:
 
     config = load_config(args.config, store=args.store, profile_dirs=args.profiles)
     if args.check:
+        from gateway.runtime import build_forwarders
+
+        build_forwarders(config)  # each sink checks its own table
         print(f"{config.source}: ok: site {config.site!r}, gateway {config.gateway_id!r}, "
               f"journal {config.store}")
         for st in config.stations:

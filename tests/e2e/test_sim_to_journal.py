@@ -106,9 +106,11 @@ async def test_demo_plant_with_faults_arrives_complete(tmp_path: Path) -> None:
     journal = read_journal(db)
     report = compare(truth, journal, station_types(plant), required=truth[t0:t1])
     assert report.ok, report.summary()
-    faults = {e.get("fault") for e in truth[t0:t1]}
-    assert {"torn", "duplicated", "truncated"} <= faults  # the faults really happened
-    assert report.expected > 1500 and report.garbage > 20, report.summary()
+    hours = SIMULATED_S / 3600
+    assert report.expected > 350 * hours and report.garbage > 4 * hours, report.summary()
+    if hours >= 2:
+        faults = {e.get("fault") for e in truth[t0:t1]}
+        assert {"torn", "duplicated", "truncated"} <= faults  # the faults really happened
     # garbage and cut lines are the only things in the quarantine
     assert report.quarantine_unexplained == [], report.summary()
     # Known profile leniency, not a runtime loss: a cut lf-delim line that still has all 15
@@ -116,3 +118,18 @@ async def test_demo_plant_with_faults_arrives_complete(tmp_path: Path) -> None:
     # parsed as data instead of quarantined. A handful per run; remove this allowance when the
     # built-in profiles check number formats and unknown keys.
     assert len(report.garbage_accepted) <= max(3, report.garbage // 10), report.summary()
+
+    # and what the user sees: `leakfleet export` lists every journalled result
+    import subprocess
+
+    export = subprocess.run(
+        [sys.executable, "-m", "gateway", "export", "--store", f"sqlite:///{db}"],
+        cwd=REPO, capture_output=True, text=True, timeout=60,
+    )
+    assert export.returncode == 0, export.stderr
+    import csv
+    import io
+
+    rows = list(csv.DictReader(io.StringIO(export.stdout)))  # raw answers span lines: quoted
+    assert len(rows) == len(journal["results"])
+    assert {r["record_id"] for r in rows} == {r["record_id"] for r in journal["results"]}

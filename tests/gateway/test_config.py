@@ -149,3 +149,55 @@ def test_bad_config_is_one_line_and_exit_2(tmp_path: Path) -> None:
     lines = proc.stderr.strip().splitlines()
     assert len(lines) == 1 and lines[0].startswith("leakfleet gateway: error: "), proc.stderr
     assert "Traceback" not in proc.stderr
+
+
+def test_sinks_come_from_the_registry_and_run_until_shutdown(tmp_path: Path) -> None:
+    import asyncio
+    from collections.abc import Mapping
+    from typing import Any
+
+    from gateway.runtime import Runtime
+    from gateway.sinks import REGISTRY, SinkContext
+
+    pytest.importorskip("gateway.store")
+    seen: dict[str, Any] = {}
+
+    class Recorder:
+        name = "rec"
+
+        def __init__(self, options: Mapping[str, Any], ctx: SinkContext) -> None:
+            if "topic" not in options:
+                raise ValueError("topic: expected a string")
+            seen["ctx"] = ctx
+
+        async def run(self, store_url: str, stop: asyncio.Event) -> None:
+            seen["started"] = store_url
+            await stop.wait()
+            seen["stopped"] = True
+
+    REGISTRY["recorder"] = lambda name, options, ctx: Recorder(options, ctx)
+    try:
+        text = GOOD + '\n[sinks.rec]\ntype = "recorder"\ntopic = "x"\n'
+        config = load_config(write(tmp_path, text), store=f"sqlite:///{tmp_path / 'j.db'}")
+        assert config.sinks == {"rec": {"type": "recorder", "topic": "x"}}
+
+        async def go() -> None:
+            stop = asyncio.Event()
+            task = asyncio.create_task(Runtime(config).run(stop))
+            while "started" not in seen:
+                await asyncio.sleep(0.01)
+            stop.set()
+            await asyncio.wait_for(task, 20)
+
+        asyncio.run(go())
+        assert seen["stopped"] and seen["ctx"].stations == {"L1-S1": "L1", "L2-S3": "L2"}
+
+        bad = load_config(write(tmp_path, GOOD + '\n[sinks.rec]\ntype = "recorder"\n'))
+        with pytest.raises(ConfigError, match=r"sinks\.rec: topic: expected a string"):
+            asyncio.run(Runtime(bad).run(asyncio.Event()))
+        assert main(["gateway", "--config", str(tmp_path / "gateway.toml"), "--check"]) == 2
+        unknown = load_config(write(tmp_path, GOOD + '\n[sinks.kafka]\nhost = "x"\n'))
+        with pytest.raises(ConfigError, match="unknown sink type 'kafka'"):
+            asyncio.run(Runtime(unknown).run(asyncio.Event()))
+    finally:
+        REGISTRY.pop("recorder", None)

@@ -160,3 +160,18 @@ def test_health_logs_error_once_and_info_on_recovery(caplog: pytest.LogCaptureFi
     s = h.succeeded()
     assert s is not None and s.state is StationState.ONLINE
     assert any(r.levelname == "INFO" and "recovered" in r.message for r in caplog.records)
+
+
+def test_clock_set_back_is_noted_once_and_rereads_are_not() -> None:
+    from datetime import timedelta
+
+    from gateway.health import ClockWatch
+
+    watch = ClockWatch(tolerance_s=300)
+    t = datetime(2026, 10, 25, 2, 30, tzinfo=UTC)
+    assert watch.check("S1", 10, t) is None
+    assert watch.check("S1", 11, t + timedelta(seconds=30)) is None
+    assert watch.check("S1", 9, t - timedelta(minutes=5)) is None  # an older cycle re-read
+    note = watch.check("S1", 12, t - timedelta(minutes=29))  # daylight saving: back an hour
+    assert note is not None and "cycle 12" in note and "30 min before cycle 11" in note
+    assert watch.check("S1", 13, t - timedelta(minutes=28)) is None  # the new time goes on

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import asyncio
 import contextlib
+import itertools
 import os
 from collections.abc import AsyncIterator, Callable, Sequence
 from dataclasses import dataclass, field
@@ -108,7 +109,7 @@ async def test_request_response_over_a_real_pty_with_a_late_answer() -> None:
         loop = asyncio.get_running_loop()
         queries: list[bytes] = []
         late: list[asyncio.TimerHandle] = []
-        answers = iter([None, kv_answer(5)] + [kv_answer(5)] * 100)
+        answers = itertools.chain([None], itertools.repeat(kv_answer(5)))
 
         def on_query() -> None:
             data = read_available(pty.master)

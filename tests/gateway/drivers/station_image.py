@@ -49,7 +49,7 @@ def slot(cycle: int, *, verdict: int = 1) -> list[int]:
         *u32(cycle), *u32(T0 + cycle * 30), 1, verdict,
         *_enc(350.0, _DT.FLOAT32), *_enc(40.0 + cycle % 10, _DT.FLOAT32),
         *_enc(0.1, _DT.FLOAT32), *_enc(2.0, _DT.FLOAT32), *_enc(math.nan, _DT.FLOAT32),
-        30, 80, 100, 2241, *_enc("HX210-{:06d}  ".format(cycle)[:16].ljust(16), _DT.STRING),
+        30, 80, 100, 2241, *_enc(f"HX210-{cycle:06d}  "[:16].ljust(16), _DT.STRING),
         *u32(cycle),
     ]  # fmt: skip
     assert len(regs) == SLOT

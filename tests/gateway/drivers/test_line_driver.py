@@ -6,7 +6,6 @@ import asyncio
 import dataclasses
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
-from datetime import UTC, datetime
 from typing import Any
 
 import pytest
@@ -14,9 +13,9 @@ from hypothesis import given
 from hypothesis import strategies as st
 
 from gateway.drivers.base import Item, Pacing, StationTarget
-from gateway.profiles import StationContext, load_profile
 from gateway.drivers.lines import LineLink, LineSplitter, RawLine
 from gateway.drivers.serial import LineHandler, read_answer, run_request_station
+from gateway.profiles import StationContext, load_profile
 from gateway.records import Rejected, StationState, StationStatus, TestResult
 
 pytestmark = pytest.mark.timeout(10)

@@ -1,0 +1,125 @@
+"""Capability, ppm and histogram checks against scipy.stats and numpy."""
+
+from __future__ import annotations
+
+import json
+import math
+
+import numpy as np
+import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
+from scipy import stats
+
+from analytics.capability import (
+    bissell_interval,
+    capability,
+    capability_from_summary,
+    guard_band_share,
+    histogram,
+    ppm_above,
+)
+
+pytestmark = pytest.mark.timeout(60)
+
+
+def test_ppm_matches_published_values_and_scipy() -> None:
+    # REFERENCES.md / NIST e-Handbook 6.1.6: ppm above = 1e6·(1 − Φ(3·Cpu));
+    # Cpu 1.0 → 1349.9 ppm, 1.33 → 33.0 ppm. Φ from scipy.stats.norm.
+    assert ppm_above(1.0) == pytest.approx(1349.9, abs=0.05)
+    assert ppm_above(1.33) == pytest.approx(33.0, abs=0.05)
+    for c in (0.5, 1.0, 1.67, 2.0):
+        # 1 − cdf loses digits far in the tail (cancellation), hence rel=1e-6.
+        assert ppm_above(c) == pytest.approx(1e6 * (1 - stats.norm.cdf(3 * c)), rel=1e-6)
+
+
+def test_ppu_from_summary() -> None:
+    # Ppu = (USL − mean)/(3 s) (NIST e-Handbook 6.1.6).
+    r = capability_from_summary(n=100, mean=1.0, std=0.5, reject_limit=2.5)
+    assert r.ppu.value == pytest.approx(1.0)
+    assert r.ppu.ppm_above == pytest.approx(1e6 * stats.norm.sf(3.0))
+
+
+def test_bissell_interval() -> None:
+    # NIST e-Handbook 6.1.6, approximate CI for Cpk (Bissell 1990):
+    # Ĉ ± z_{α/2}·sqrt(1/(9n) + Ĉ²/(2(n−1))).
+    lo, hi = bissell_interval(1.33, 50, 0.95)
+    half = stats.norm.ppf(0.975) * math.sqrt(1 / (9 * 50) + 1.33**2 / (2 * 49))
+    assert (lo, hi) == pytest.approx((1.33 - half, 1.33 + half))
+
+
+def test_bissell_interval_covers_in_simulation() -> None:
+    # Coverage check by simulation (normal data, true Ppu = 1.0): roughly 95 %.
+    rng = np.random.default_rng(5)
+    hits = 0
+    for _ in range(400):
+        x = rng.normal(0.0, 1.0, 60)
+        c = (3.0 - x.mean()) / (3 * x.std(ddof=1))
+        lo, hi = bissell_interval(c, 60)
+        hits += lo <= 1.0 <= hi
+    assert 0.90 <= hits / 400 <= 0.99
+
+
+def test_normal_data_is_recognised() -> None:
+    rng = np.random.default_rng(1)
+    x = rng.normal(0.0, 1.0, 300)
+    r = capability(x, reject_limit=3.5)
+    assert r.normal_supported is True and r.recommended == "normal"
+    assert r.ppu.value == pytest.approx((3.5 - x.mean()) / (3 * x.std(ddof=1)))
+    # Shapiro–Wilk p-value as scipy computes it.
+    assert r.shapiro_p == pytest.approx(stats.shapiro(x).pvalue)
+    assert r.cpu is not None
+    assert r.cpu.sigma == pytest.approx(np.abs(np.diff(x)).mean() / 1.128)
+    json.dumps(r.to_dict(), allow_nan=False)
+
+
+def test_skewed_data_gets_lognormal_estimate() -> None:
+    rng = np.random.default_rng(2)
+    x = rng.lognormal(0.0, 0.7, 800) - 1.0
+    r = capability(x, reject_limit=8.0)
+    assert r.normal_supported is False
+    assert r.recommended == "lognormal"
+    assert r.non_normal is not None and r.non_normal.ppm_above is not None
+    # The fitted model's tail agrees with the generating lognormal's within a factor of 3.
+    true_ppm = 1e6 * stats.lognorm(0.7, loc=-1.0).sf(8.0)
+    assert true_ppm / 3 < r.non_normal.ppm_above < true_ppm * 3
+    # Percentile method (ISO 22514-2 style): (USL − X50)/(X99.865 − X50) from the fit.
+    nn = r.non_normal
+    assert nn.ppu == pytest.approx((8.0 - nn.median) / (nn.p99865 - nn.median))  # type: ignore[operator]
+
+
+def test_guard_band_share() -> None:
+    x = [0.1, 0.5, 0.95, 0.99, 1.0, 1.2]
+    assert guard_band_share(x, 1.0, 0.1) == pytest.approx(3 / 6)
+
+
+def test_histogram_fd_matches_numpy_width_and_reaches_the_limit() -> None:
+    rng = np.random.default_rng(4)
+    x = rng.normal(0, 1, 500)
+    h = histogram(x, reject_limit=5.0)
+    assert h.edges[-1] == 5.0 and h.edges[0] == pytest.approx(x.min())
+    fd_width = np.diff(np.histogram_bin_edges(x, bins="fd"))[0]  # numpy's Freedman–Diaconis
+    width = h.edges[1] - h.edges[0]
+    assert fd_width * 0.8 <= width <= fd_width * 1.2
+    assert sum(h.counts) + h.under + h.over == x.size
+
+
+@settings(max_examples=40, deadline=None)
+@given(st.lists(st.floats(-1e3, 1e3), min_size=1, max_size=200), st.integers(1, 50))
+def test_histogram_counts_every_reading(values: list[float], bins: int) -> None:
+    h = histogram(values, method="fixed", bins=bins)
+    assert sum(h.counts) + h.under + h.over == len(values)
+    assert len(h.edges) == len(h.counts) + 1
+
+
+def test_fixed_edges_and_counts_round_trip() -> None:
+    from analytics.capability import fixed_edges, histogram_from_counts
+
+    edges = fixed_edges(-0.5, 1.5, 4, reject_limit=2.0)
+    assert edges == pytest.approx([-0.5, 0.125, 0.75, 1.375, 2.0])
+    x = np.array([-1.0, 0.0, 0.5, 1.0, 1.9, 2.5, 3.0])
+    counts, _ = np.histogram(x[(x >= -0.5) & (x <= 2.0)], bins=edges)  # numpy's binning rule
+    rows = [(-math.inf, -0.5, 1), *zip(edges[:-1], edges[1:], counts.tolist(), strict=True),
+            (2.0, math.inf, 2)]  # fmt: skip
+    h = histogram_from_counts(rows, reject_limit=2.0)
+    assert h.edges == edges and h.counts == counts.tolist() and (h.under, h.over) == (1, 2)
