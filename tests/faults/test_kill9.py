@@ -16,6 +16,7 @@ import asyncio
 import signal
 import sqlite3
 from pathlib import Path
+from typing import Any
 
 import pytest
 
@@ -28,7 +29,7 @@ pytestmark = [pytest.mark.integration, pytest.mark.timeout(150)]
 SPEED = 20.0
 
 
-def _key(e: dict) -> tuple:  # type: ignore[type-arg]
+def _key(e: dict[str, Any]) -> tuple[Any, ...]:
     r = e["reported"]
     return (e["kind"], e["station"], r.get("cycle"), r.get("program"), str(r["ended_at"]))
 

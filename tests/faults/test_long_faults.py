@@ -17,6 +17,7 @@ import asyncio
 import dataclasses
 import re
 from pathlib import Path
+from typing import Any
 
 import pytest
 
@@ -41,9 +42,9 @@ def _scaled(speed: float) -> Scenario:
         for s in scenario.stations))  # fmt: skip
 
 
-def _reported_gaps(statuses: list[dict]) -> set[tuple[str, int]]:  # type: ignore[type-arg]
+def _reported_gaps(statuses: list[dict[str, Any]]) -> set[tuple[str, int]]:
     """(station, cycle) of every cycle a "gap: cycles a..b" / "gap: cycle a" status names."""
-    out = set()
+    out: set[tuple[str, int]] = set()
     for row in statuses:
         found = re.search(r"gap: cycles? (\d+)(?:\.\.(\d+))?", row.get("detail") or "")
         if found:

@@ -11,6 +11,7 @@ from __future__ import annotations
 import socket
 import subprocess
 import sys
+from collections.abc import Callable, Iterator
 from pathlib import Path
 
 import pytest
@@ -73,7 +74,9 @@ def _run(cfg: Path) -> subprocess.CompletedProcess[str]:
     )  # fmt: skip
 
 
-def _assert_one_clear_line(run: subprocess.CompletedProcess[str], cfg: Path, words: list[str]):  # type: ignore[no-untyped-def]
+def _assert_one_clear_line(
+    run: subprocess.CompletedProcess[str], cfg: Path, words: list[str]
+) -> None:
     assert run.returncode == 2, (run.returncode, run.stderr)
     lines = run.stderr.strip().splitlines()
     assert len(lines) == 1, run.stderr
@@ -85,7 +88,7 @@ def _assert_one_clear_line(run: subprocess.CompletedProcess[str], cfg: Path, wor
 
 
 @pytest.fixture
-def listener():  # type: ignore[no-untyped-def]
+def listener() -> Iterator[socket.socket]:
     """A station that must never be contacted by a gateway that refuses to start."""
     srv = socket.socket()
     srv.bind(("127.0.0.1", 0))
@@ -124,7 +127,7 @@ PROFILE_CASES = [
 
 @pytest.mark.parametrize(("case", "edit", "words"), PROFILE_CASES,
                          ids=[c[0] for c in PROFILE_CASES])
-def test_profile_mistake(case: str, edit, words: list[str], tmp_path: Path,  # type: ignore[no-untyped-def]
+def test_profile_mistake(case: str, edit: Callable[[str], str], words: list[str], tmp_path: Path,
                          listener: socket.socket) -> None:  # fmt: skip
     profiles = tmp_path / "profiles"
     profiles.mkdir()
