@@ -1,8 +1,8 @@
 """Every simulator fault at once across the demo plant, for hours of simulated time.
 
 The ``demo-faults`` plant (link drops, line noise, cut and doubled lines, a clock offset, Modbus
-exceptions, slow answers, torn register blocks) runs at 150x for 100 s of wall time (about
-4 simulated hours) against the gateway as its own process; wall-clock faults are scaled with
+exceptions, slow answers, torn register blocks) runs at 150x for 70 s of wall time (about
+3 simulated hours) against the gateway as its own process; wall-clock faults are scaled with
 the speed as in tests/e2e. Checks: no task dies (no crash or traceback in the log, every
 station still delivers results in the last stretch of the run); what arrived matches the
 truth, and a result may only be missing where the gateway reported the gap (a Modbus ring
@@ -28,7 +28,7 @@ from tests.support.sim import running_plant
 
 pytestmark = [pytest.mark.e2e, pytest.mark.timeout(240)]
 SPEED = 150.0
-WALL_S = 100.0
+WALL_S = 70.0
 RSS_GROWTH_MB = 12.0
 
 
@@ -99,7 +99,7 @@ async def test_all_faults_for_hours(tmp_path: Path) -> None:
     assert not silent, report.summary()
     assert len(report.missing) <= report.expected // 50, report.summary()
     simulated_h = (WALL_S * SPEED) / 3600
-    assert simulated_h > 4 and report.expected > 1500, (simulated_h, report.summary())
+    assert simulated_h > 2.5 and report.expected > 1000, (simulated_h, report.summary())
     # every station still delivering at the end: no poller or reader died on the way
     stored = {(r["station"], r["cycle"]) for r in journal["results"]}
     late = {e["station"] for e in truth[tail_from:t1]
