@@ -45,6 +45,7 @@ from analytics.drift import (
 from analytics.frames import calibrations_frame, results_frame
 from analytics.gauge import GrrReport, Type1Report, grr_anova, grr_average_range, type1_study
 from analytics.master import MasterSelection, qualify_master
+from analytics.shift_report import ShiftReport, shift_report
 from analytics.shifts import DEFAULT_SHIFTS, ShiftCalendar, ShiftWindow, counts_to_shifts
 from analytics.yields import (
     ParetoReport,
@@ -72,6 +73,7 @@ __all__ = [
     "PartHistory",
     "RetestReport",
     "ShiftCalendar",
+    "ShiftReport",
     "ShiftWindow",
     "StandardStatus",
     "TestTimeAdvice",
@@ -104,6 +106,7 @@ __all__ = [
     "qualify_master",
     "results_frame",
     "retest_analysis",
+    "shift_report",
     "standard_drift",
     "standards_due",
     "type1_study",

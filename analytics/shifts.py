@@ -9,7 +9,7 @@ no shift (``None``).
 
 from __future__ import annotations
 
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from datetime import UTC, date, datetime, time, timedelta
 from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
@@ -104,6 +104,21 @@ class ShiftCalendar:
         object.__setattr__(self, "shifts", tuple(tuple(s) for s in self.shifts))
         object.__setattr__(self, "_parsed", tuple(parsed))
 
+    @classmethod
+    def from_starts(cls, timezone: str, starts: Mapping[str, str]) -> ShiftCalendar:
+        """Shifts given by their local start times only (the plant config's ``[shifts]``):
+        each shift ends where the next one, in time-of-day order, starts."""
+        if not starts:
+            raise ValueError("shift calendar: at least one shift is needed")
+        parsed = sorted(
+            ((_minutes(_parse_hhmm(t, f"shift {n!r} start")), n, t) for n, t in starts.items()),
+            key=lambda x: x[0],
+        )
+        if len({m for m, _, _ in parsed}) != len(parsed):
+            raise ValueError("shift calendar: two shifts start at the same time")
+        ends = [t for _, _, t in parsed[1:]] + [parsed[0][2]]
+        return cls(timezone, tuple((n, t, e) for (_, n, t), e in zip(parsed, ends, strict=True)))
+
     @staticmethod
     def _span_minutes(start: time, end: time) -> list[int]:
         a, b = _minutes(start), _minutes(end)
@@ -185,6 +200,16 @@ class ShiftCalendar:
             shift_date[same] = local_date[same]
             shift_date[before] = previous_date[before]
         return pd.DataFrame({"shift_date": shift_date, "shift": shift}, index=timestamps.index)
+
+    def labels(self, timestamps: pd.Series) -> pd.Series:
+        """Each timestamp's shift as text, "YYYY-MM-DD name", or "(no shift)" (the grouping
+        key of yields and retests by shift)."""
+        assigned = self.assign(timestamps)
+        has = assigned["shift"].notna()
+        out = pd.Series("(no shift)", index=assigned.index, dtype=object)
+        dates = assigned.loc[has, "shift_date"].astype(str)
+        out[has] = dates + " " + assigned.loc[has, "shift"].astype(str)
+        return out
 
     def local_date(self, timestamps: pd.Series) -> pd.Series:
         """Local calendar date of each UTC timestamp (the 'day' grouping)."""

@@ -111,11 +111,7 @@ def _with_groups(df: pd.DataFrame, by: Sequence[str], calendar: ShiftCalendar) -
         if key == "day":
             out["day"] = calendar.local_date(out["ended_at"]).astype(str)
         elif key == "shift":
-            assigned = calendar.assign(out["ended_at"])
-            out["shift"] = [
-                f"{d} {s}" if s is not None else "(no shift)"
-                for d, s in zip(assigned["shift_date"], assigned["shift"], strict=True)
-            ]
+            out["shift"] = calendar.labels(out["ended_at"])
         elif key == "part":
             out["part"] = out["part_id"].where(out["part_id"].notna(), "(no id)")
         else:
@@ -209,15 +205,22 @@ def yield_report(
     overall = _summarise(df, parts, {})
     rows: list[YieldRow] = []
     if by:
-        keys = sorted(
-            {tuple(k) for k in df[list(by)].astype(str).itertuples(index=False, name=None)}
-        )
-        test_keys = df[list(by)].astype(str)
-        part_keys = parts[list(by)].astype(str)
-        for key in keys:
-            t_mask = (test_keys == list(key)).all(axis=1)
-            p_mask = (part_keys == list(key)).all(axis=1)
-            rows.append(_summarise(df[t_mask], parts[p_mask], dict(zip(by, key, strict=True))))
+        # positions per group, found once (a mask per group is quadratic on a week of data)
+        empty = np.array([], dtype=int)
+
+        def positions(frame: pd.DataFrame) -> dict[tuple[str, ...], np.ndarray]:
+            found = frame[list(by)].astype(str).groupby(list(by), sort=False, dropna=False).indices
+            return {(k if isinstance(k, tuple) else (k,)): np.asarray(v) for k, v in found.items()}
+
+        test_at, part_at = positions(df), positions(parts)
+        for key in sorted(test_at):
+            rows.append(
+                _summarise(
+                    df.iloc[test_at.get(key, empty)],
+                    parts.iloc[part_at.get(key, empty)],
+                    dict(zip(by, key, strict=True)),
+                )
+            )
     basis = overall.basis
     note = _note(basis, int((~parts["has_id"]).sum()))
     return YieldReport(

@@ -12,6 +12,10 @@ Layout::
     store = "sqlite:///./leakfleet.db"  # journal URL (the default)
     profile_dirs = ["profiles"]         # extra profile directories, relative to this file
     [shifts]                            # passed through untouched (analytics reads it)
+    [[standards]]                       # leak-standard register, passed through untouched
+                                        #   (analytics reads it: serial, station, nominal,
+                                        #   reference_pressure, certificate_date, due_date or
+                                        #   interval_months, uncertainty_pct)
     [runtime]                           # tuning: batch_size, max_delay, queue_size,
                                         #   max_pending, reconnect_initial, reconnect_max,
                                         #   offline_after, line_gap
@@ -104,6 +108,7 @@ class GatewayConfig:
     profile_dirs: tuple[Path, ...]
     stations: tuple[StationConfig, ...]
     shifts: Mapping[str, Any] = field(default_factory=dict)
+    standards: tuple[Mapping[str, Any], ...] = ()
     runtime: RuntimeConfig = field(default_factory=RuntimeConfig)
     metrics: MetricsConfig = field(default_factory=MetricsConfig)
     sinks: Mapping[str, Mapping[str, Any]] = field(default_factory=dict)
@@ -198,8 +203,8 @@ class _Reader:
         return value
 
 
-_TOP = ("site", "gateway_id", "timezone", "store", "profile_dirs", "shifts", "runtime",
-        "metrics", "sinks", "stations")
+_TOP = ("site", "gateway_id", "timezone", "store", "profile_dirs", "shifts", "standards",
+        "runtime", "metrics", "sinks", "stations")
 _STATION = ("id", "line", "profile", "endpoint", "poll_interval", "timeout", "timezone",
             "programs", "overrides")
 _RUNTIME = ("batch_size", "max_delay", "queue_size", "max_pending", "reconnect_initial",
@@ -255,6 +260,10 @@ def parse_config(
             raise r.fail("profile_dirs", "existing directories", str(d))
 
     shifts = r.table(doc.get("shifts", {}), "shifts")
+    standards_raw = doc.get("standards", [])
+    if not isinstance(standards_raw, list):
+        raise r.fail("standards", "an array of [[standards]] tables", standards_raw)
+    standards = tuple(r.table(t, f"standards[{i}]") for i, t in enumerate(standards_raw))
     runtime = _runtime(r, r.table(doc.get("runtime", {}), "runtime"))
     metrics = _metrics(r, r.table(doc.get("metrics", {}), "metrics"))
     sinks_raw = r.table(doc.get("sinks", {}), "sinks")
@@ -277,6 +286,7 @@ def parse_config(
         profile_dirs=dirs,
         stations=stations,
         shifts=shifts,
+        standards=standards,
         runtime=runtime,
         metrics=metrics,
         sinks=sinks,

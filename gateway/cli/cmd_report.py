@@ -1,4 +1,5 @@
-"""``leakfleet report``: yield, capability, calibration health, gauge studies, test-time advice.
+"""``leakfleet report``: yield, capability, calibration health, gauge studies, test-time advice,
+audit reports (part history, retests, leak standards) and the printable shift report.
 
 The edge between a store (or a CSV file) and ``analytics``: this module reads, the analytics
 functions compute, and the result prints as a table or, with ``--json``, as one JSON document
@@ -26,6 +27,11 @@ ORDER = 40
 SCHEMA = 1
 DEFAULT_STORE = "sqlite:///./leakfleet.db"
 DEFAULT_SHIFTS = "early=06:00-14:00,late=14:00-22:00,night=22:00-06:00"
+STORE_HELP = f"store URL (default: the --config journal, else {DEFAULT_STORE})"
+CONFIG_HELP = (
+    "gateway config (a file, or demo): its journal, time zone, [shifts] and [[standards]] "
+    "are the defaults; the options here override them"
+)
 KINDS = (
     "yield",
     "capability",
@@ -37,6 +43,7 @@ KINDS = (
     "part",
     "retests",
     "standards",
+    "shift",
 )
 
 _RELATIVE = re.compile(r"^\s*(\d+(?:\.\d+)?)\s*([smhdw])\s*$")
@@ -60,9 +67,8 @@ def register(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
     common = argparse.ArgumentParser(add_help=False)
     common.add_argument("--json", action="store_true", help="print one JSON document")
     source = argparse.ArgumentParser(add_help=False)
-    source.add_argument(
-        "--store", default=DEFAULT_STORE, help=f"store URL (default {DEFAULT_STORE})"
-    )
+    source.add_argument("--store", help=STORE_HELP)
+    source.add_argument("--config", metavar="FILE|demo", help=CONFIG_HELP)
     source.add_argument(
         "--since", help="start: ISO 8601 date/time (UTC unless it has an offset) or e.g. 7d, 12h"
     )
@@ -73,13 +79,13 @@ def register(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
     shifts = argparse.ArgumentParser(add_help=False)
     shifts.add_argument(
         "--timezone",
-        default="UTC",
-        help="plant time zone (IANA) for day and shift, e.g. Europe/Berlin",
+        help="plant time zone (IANA) for day and shift, e.g. Europe/Berlin (default: the "
+        "--config timezone, else UTC)",
     )
     shifts.add_argument(
         "--shifts",
-        default=DEFAULT_SHIFTS,
-        help=f"shift calendar NAME=HH:MM-HH:MM,... on the local clock (default {DEFAULT_SHIFTS})",
+        help="shift calendar NAME=HH:MM-HH:MM,... on the local clock (default: the --config "
+        f"[shifts], else {DEFAULT_SHIFTS})",
     )
     csv_input = argparse.ArgumentParser(add_help=False)
     csv_input.add_argument(
@@ -258,17 +264,64 @@ def register(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
         description=(
             "Reads the leak-standard register from --standards FILE.csv (columns serial, "
             "station, nominal_sccm, reference_pressure_pa, certificate_date and due_date or "
-            "interval_months; optional uncertainty_pct) and lists which are due within --within "
+            "interval_months; optional uncertainty_pct) or the [[standards]] of the gateway "
+            "--config, and lists which are due within --within "
             "days or overdue; with a store, flags calibrations run with an overdue standard and "
             "the measured sensitivity's drift per standard."
         ),
     )
-    p.add_argument("--standards", required=True, metavar="FILE.csv", help="leak-standard register")
+    p.add_argument(
+        "--standards", metavar="FILE.csv", help="leak-standard register (default: --config's)"
+    )
     p.add_argument("--within", type=int, default=30, help="days ahead that count as due (30)")
     p.add_argument("--today", help="the date to judge on (default today, plant time zone)")
-    p.add_argument("--timezone", default="UTC", help="plant time zone for dates")
+    p.add_argument(
+        "--timezone", help="plant time zone for dates (default: --config's, else UTC)"
+    )
     p.add_argument("--no-store", action="store_true", help="register only, do not read the store")
     p.set_defaults(func=_handler("standards"))
+
+    p = kinds.add_parser(
+        "shift",
+        parents=[common, shifts],
+        help="one shift per line: yield, rejects, retests, calibration state, alarms, standards",
+        description=(
+            "The report of one shift (--date, --shift on the plant's local clock), one section "
+            "per line: first-pass and final yield, rejects by reason, the share of passes that "
+            "needed a retest, each station's calibration state and the alarms raised, and the "
+            "leak standards due. --html FILE writes it as one self-contained printable page "
+            "(A4 or Letter); --json prints the same figures. Parts count in the shift of their "
+            "first test; a pass that needed a retest counts in the shift where it ran."
+        ),
+    )
+    p.add_argument("--store", help=STORE_HELP)
+    p.add_argument("--config", metavar="FILE|demo", help=CONFIG_HELP)
+    p.add_argument(
+        "--date", required=True, help="production date YYYY-MM-DD (a night shift's start date)"
+    )
+    p.add_argument("--shift", required=True, help="shift name from the calendar, e.g. early")
+    p.add_argument("--line", help="only this line")
+    p.add_argument("--html", metavar="FILE", help="also write the report as one HTML file")
+    p.add_argument(
+        "--paper", choices=("a4", "letter"), default="a4", help="print page size (a4)"
+    )
+    p.add_argument(
+        "--standards", metavar="FILE.csv", help="leak-standard register (default: --config's)"
+    )
+    p.add_argument("--within", type=int, default=30, help="days ahead that count as due (30)")
+    p.add_argument(
+        "--history",
+        type=float,
+        default=7.0,
+        metavar="DAYS",
+        help="days before the shift read for retests, retest alarms and calibration charts (7)",
+    )
+    p.add_argument("--guard-band", help="guard band below the limit, e.g. 0.2sccm (10 %% of limit)")
+    p.add_argument(
+        "--min-ratio", type=float, help="alarm when a calibration's ratio is below this"
+    )
+    p.add_argument("--master-loss-limit", help="master loss limit for the drift projection")
+    p.set_defaults(func=_shift_handler)
 
 
 def _handler(kind: str) -> Callable[[argparse.Namespace], int]:
@@ -457,6 +510,7 @@ def build_report(kind: str, args: argparse.Namespace, store: Any | None = None) 
         "part": _part,
         "retests": _retests,
         "standards": _standards,
+        "shift": _shift,
     }
     opened: list[Any] = []
 
@@ -464,7 +518,7 @@ def build_report(kind: str, args: argparse.Namespace, store: Any | None = None) 
         if store is not None:
             return store
         if not opened:
-            opened.append(_open_store(args.store))
+            opened.append(_open_store(_store_url(args)))
         return opened[0]
 
     try:
@@ -504,6 +558,143 @@ def table(headers: Sequence[str], rows: Iterable[Sequence[Any]]) -> str:
     return "\n".join(line.rstrip() for line in out)
 
 
+def _plant(args: argparse.Namespace) -> Any | None:
+    """The gateway config named by --config (loaded once per command), or None."""
+    ref = getattr(args, "config", None)
+    if not ref:
+        return None
+    cached = getattr(args, "_plant_config", None)
+    if cached is None:
+        from gateway.config import load_config
+
+        cached = load_config(ref)
+        args._plant_config = cached
+    return cached
+
+
+def _store_url(args: argparse.Namespace) -> str:
+    """--store, else the --config journal, else the default journal."""
+    if getattr(args, "store", None):
+        return str(args.store)
+    plant = _plant(args)
+    return str(plant.store) if plant is not None else DEFAULT_STORE
+
+
+def _timezone(args: argparse.Namespace) -> str:
+    if getattr(args, "timezone", None):
+        return str(args.timezone)
+    plant = _plant(args)
+    return str(plant.timezone) if plant is not None else "UTC"
+
+
+def _calendar(args: argparse.Namespace) -> Any:
+    """The shift calendar: --shifts, else the config's [shifts], else the default three."""
+    from analytics import ShiftCalendar
+
+    timezone = _timezone(args)
+    if getattr(args, "shifts", None):
+        return ShiftCalendar(timezone, _parse_shifts(args.shifts))
+    plant = _plant(args)
+    if plant is None or not plant.shifts:
+        return ShiftCalendar(timezone, _parse_shifts(DEFAULT_SHIFTS))
+    values = dict(plant.shifts)
+    for name, value in values.items():
+        if not isinstance(value, str) or not re.fullmatch(
+            r"\s*\d{1,2}:\d{2}\s*(-\s*\d{1,2}:\d{2}\s*)?", value
+        ):
+            raise ValueError(
+                f"{plant.source}: shifts.{name}: expected a local start time \"HH:MM\" or a "
+                f"span \"HH:MM-HH:MM\", got {value!r}"
+            )
+    spans = [("-" in v) for v in values.values()]
+    try:
+        if all(spans):
+            return ShiftCalendar(
+                timezone, _parse_shifts(",".join(f"{n}={v}" for n, v in values.items()))
+            )
+        if any(spans):
+            raise ValueError("give every shift as a start time, or every shift as a span")
+        starts = {n: v.strip().zfill(5) for n, v in values.items()}
+        return ShiftCalendar.from_starts(timezone, starts)
+    except ValueError as exc:
+        raise ValueError(f"{plant.source}: shifts: {exc}") from None
+
+
+def _register(args: argparse.Namespace) -> list[Any]:
+    """The leak-standard register: --standards FILE.csv, else the config's [[standards]]."""
+    if getattr(args, "standards", None):
+        return _read_standards(args.standards)
+    plant = _plant(args)
+    if plant is None:
+        return []
+    return [_config_standard(plant.source, i, t) for i, t in enumerate(plant.standards)]
+
+
+def _config_standard(source: str, i: int, table: Any) -> Any:
+    """One [[standards]] table as a LeakStandard; mistakes name the file and key."""
+    from analytics import LeakStandard
+    from gateway.units import parse_quantity
+
+    serial = table.get("serial")
+    where = f"{source}: standards[{serial if isinstance(serial, str) else i}]"
+    allowed = ("serial", "station", "nominal", "reference_pressure", "certificate_date",
+               "due_date", "interval_months", "uncertainty_pct")  # fmt: skip
+    for key in table:
+        if key not in allowed:
+            raise ValueError(f"{where}.{key}: expected one of {', '.join(allowed)} (unknown key)")
+
+    def text(key: str) -> str:
+        value = table.get(key)
+        if not isinstance(value, str) or not value.strip():
+            raise ValueError(f"{where}.{key}: expected a non-empty string, got {value!r}")
+        return value.strip()
+
+    def quantity(key: str, kind: str, unit: str) -> float:
+        value = table.get(key)
+        if isinstance(value, bool) or not isinstance(value, int | float | str):
+            raise ValueError(f"{where}.{key}: expected a value like \"3 {unit}\", got {value!r}")
+        try:
+            return float(parse_quantity(str(value), kind, default_unit=unit).canonical)  # type: ignore[arg-type]
+        except ValueError as exc:
+            raise ValueError(f"{where}.{key}: {exc}") from None
+
+    def day(key: str) -> date | None:
+        value = table.get(key)
+        if value is None:
+            return None
+        if isinstance(value, date) and not isinstance(value, datetime):
+            return value
+        try:
+            return date.fromisoformat(str(value))
+        except ValueError:
+            raise ValueError(f"{where}.{key}: expected a date YYYY-MM-DD, got {value!r}") from None
+
+    months = table.get("interval_months")
+    if months is not None and (isinstance(months, bool) or not isinstance(months, int)):
+        raise ValueError(f"{where}.interval_months: expected a whole number, got {months!r}")
+    uncertainty = table.get("uncertainty_pct")
+    if uncertainty is not None and (
+        isinstance(uncertainty, bool) or not isinstance(uncertainty, int | float)
+    ):
+        raise ValueError(f"{where}.uncertainty_pct: expected a number, got {uncertainty!r}")
+    certificate = day("certificate_date")
+    if certificate is None:
+        raise ValueError(f"{where}.certificate_date: expected a date YYYY-MM-DD (required)")
+    try:
+        return LeakStandard(
+            serial=text("serial"),
+            station=text("station"),
+            nominal_sccm=quantity("nominal", "leak", "sccm"),
+            reference_pressure_pa=quantity("reference_pressure", "pressure", "Pa"),
+            certificate_date=certificate,
+            due_date=day("due_date"),
+            interval_months=months,
+            uncertainty_pct=None if uncertainty is None else float(uncertainty),
+        )
+    except ValueError as exc:
+        raise ValueError(f"{where}: {exc}") from None
+
+
 def _parse_shifts(text: str) -> list[tuple[str, str, str]]:
     shifts = []
     for item in text.split(","):
@@ -516,11 +707,11 @@ def _parse_shifts(text: str) -> list[tuple[str, str, str]]:
 
 
 def _yield(args: argparse.Namespace, get_store: Callable[[], Any]) -> Report:
-    from analytics import ShiftCalendar, pareto, yield_report
+    from analytics import pareto, yield_report
 
     f = filters_from(args)
     by = tuple(b.strip() for b in args.by.split(",") if b.strip())
-    calendar = ShiftCalendar(args.timezone, _parse_shifts(args.shifts))
+    calendar = _calendar(args)
     results = _store_results(get_store(), f)
     report = yield_report(results, by=by, calendar=calendar)
     par = pareto(
@@ -1073,14 +1264,14 @@ def _part(args: argparse.Namespace, get_store: Callable[[], Any]) -> Report:
 
 
 def _retests(args: argparse.Namespace, get_store: Callable[[], Any]) -> Report:
-    from analytics import ShiftCalendar, retest_analysis
+    from analytics import retest_analysis
 
     f = filters_from(args)
     by = tuple(b.strip() for b in args.by.split(",") if b.strip())
     for key in by:
         if key not in ("station", "program", "line", "shift", "day"):
             raise ValueError(f"--by: cannot group retests by {key!r}")
-    calendar = ShiftCalendar(args.timezone, _parse_shifts(args.shifts))
+    calendar = _calendar(args)
     guard = _quantity(args.guard_band, "leak", "sccm", "--guard-band")
     results = _store_results(get_store(), f)
     r = retest_analysis(
@@ -1186,11 +1377,16 @@ def _standards(args: argparse.Namespace, get_store: Callable[[], Any]) -> Report
 
     from analytics import flag_overdue_calibrations, standard_drift, standards_due
 
-    standards = _read_standards(args.standards)
+    standards = _register(args)
+    if not standards and not args.standards:
+        raise ValueError(
+            "standards: give --standards FILE.csv or a --config with a [[standards]] register"
+        )
+    timezone = _timezone(args)
     today = (
         date.fromisoformat(args.today)
         if args.today
-        else datetime.now(UTC).astimezone(ZoneInfo(args.timezone)).date()
+        else datetime.now(UTC).astimezone(ZoneInfo(timezone)).date()
     )
     status = standards_due(standards, today, args.within)
     text = f"Leak standards on {today.isoformat()} (due within {args.within} days)\n" + table(
@@ -1219,7 +1415,7 @@ def _standards(args: argparse.Namespace, get_store: Callable[[], Any]) -> Report
         overdue_runs: list[dict[str, Any]] = []
         drift: list[dict[str, Any]] = []
         if not cals.empty:
-            flagged = flag_overdue_calibrations(cals, standards, args.timezone)
+            flagged = flag_overdue_calibrations(cals, standards, timezone)
             bad = flagged[flagged["standard_overdue"]]
             overdue_runs = [
                 {
@@ -1248,6 +1444,149 @@ def _standards(args: argparse.Namespace, get_store: Callable[[], Any]) -> Report
                 ],
             )
     return Report("standards", filters, result, text)
+
+
+def _shift_handler(args: argparse.Namespace) -> int:
+    """Build the shift report; write the HTML page when asked, print JSON or text."""
+    from gateway.reports import render_shift_html
+
+    report = build_report("shift", args)
+    document = report.document()
+    if args.html:
+        page = render_shift_html(document, paper=args.paper)
+        try:
+            Path(args.html).write_text(page, encoding="utf-8")
+        except OSError as exc:
+            raise ValueError(f"--html {args.html}: cannot write ({exc.strerror})") from None
+        print(f"wrote {args.html}", file=sys.stderr)
+    if not report.result["has_data"]:
+        print(f"leakfleet report shift: note: {report.result['note']}", file=sys.stderr)
+    print(json.dumps(document, allow_nan=False, indent=2) if args.json else report.text)
+    return 0
+
+
+def _shift_date(text: str, timezone: str) -> date:
+    from zoneinfo import ZoneInfo
+
+    today = datetime.now(UTC).astimezone(ZoneInfo(timezone)).date()
+    word = text.strip().lower()
+    if word in ("today", "yesterday"):
+        return today - timedelta(days=1 if word == "yesterday" else 0)
+    try:
+        return date.fromisoformat(text.strip())
+    except ValueError:
+        raise ValueError(
+            f"--date: expected a date YYYY-MM-DD (or today, yesterday), got {text!r}"
+        ) from None
+
+
+def _shift(args: argparse.Namespace, get_store: Callable[[], Any]) -> Report:
+    import pandas as pd
+
+    from analytics import HealthConfig, shift_report
+
+    calendar = _calendar(args)
+    day = _shift_date(args.date, calendar.timezone)
+    if args.shift not in calendar.names:
+        raise ValueError(
+            f"--shift: unknown shift {args.shift!r}; the calendar has {', '.join(calendar.names)}"
+        )
+    if not (0 <= args.history <= 366):
+        raise ValueError(f"--history: expected 0..366 days, got {args.history:g}")
+    if args.within < 0:
+        raise ValueError(f"--within: expected days ≥ 0, got {args.within}")
+    window = calendar.window(day, args.shift)
+    standards = _register(args)
+    health = HealthConfig(
+        min_ratio=args.min_ratio,
+        master_loss_limit_pa=_quantity(
+            args.master_loss_limit, "pressure", "Pa", "--master-loss-limit"
+        ),
+    )
+    since = window.start - timedelta(days=args.history)
+    store = get_store()
+    results = store.results(since, window.end, line=args.line)
+    cals = store.calibrations(window.end - timedelta(days=args.history), window.end,
+                              line=args.line)  # fmt: skip
+    stations = store.stations() if hasattr(store, "stations") else None
+    plant = _plant(args)
+    if plant is not None:  # stations the plant has, whether or not they have reported yet
+        known = pd.DataFrame(
+            [(st.id, st.line) for st in plant.stations], columns=["station", "line"]
+        )
+        if stations is not None and len(stations):
+            known = known[~known["station"].isin(stations["station"].astype(str))]
+            stations = pd.concat([stations[["station", "line"]], known], ignore_index=True)
+        else:
+            stations = known
+    if stations is not None and args.line is not None:
+        stations = stations[stations["line"].astype("string") == args.line]
+    statuses = None
+    if hasattr(store, "statuses"):
+        names = set(stations["station"].astype(str)) if stations is not None else set()
+        names |= set(results["station"].astype(str)) if len(results) else set()
+        frames = [store.statuses(window.start, window.end)]
+        frames += [
+            store.statuses(None, window.start, station=n, limit=1, newest_first=True)
+            for n in sorted(names)
+        ]
+        frames = [f for f in frames if len(f)]
+        statuses = pd.concat(frames, ignore_index=True) if frames else None
+    r = shift_report(
+        window, calendar, results, cals, statuses, stations, standards,
+        history_since=since, within_days=args.within,
+        guard_band=_quantity(args.guard_band, "leak", "sccm", "--guard-band"),
+        health=health, line=args.line,
+    )  # fmt: skip
+    result = r.to_dict()
+    filters = {
+        "date": day.isoformat(),
+        "shift": args.shift,
+        "line": args.line,
+        "since": window.start.isoformat(),
+        "until": window.end.isoformat(),
+        "config": None if plant is None else plant.source,
+    }
+    return Report("shift", filters, result, _shift_text(result, calendar))
+
+
+def _shift_text(r: dict[str, Any], calendar: Any) -> str:
+    """The shift report as plain text (the table view of the same document)."""
+    start = datetime.fromisoformat(r["start"]).astimezone(calendar.tz)
+    end = datetime.fromisoformat(r["end"]).astimezone(calendar.tz)
+    lines = [
+        f"Shift {r['shift_date']} {r['shift']}: {start:%Y-%m-%d %H:%M} – {end:%Y-%m-%d %H:%M} "
+        f"({r['timezone']}), {r['tests']} tests"
+    ]
+    if not r["has_data"]:
+        lines.append(f"  {r['note']}")
+    for sec in r["lines"]:
+        rt = sec["retests"]
+        lines += [
+            "",
+            f"Line {sec['line']}: {sec['tests']} tests, {sec['parts']} parts; first-pass yield "
+            f"{_pct(sec['first_pass_yield'])}, final yield {_pct(sec['final_yield'])}; "
+            f"{rt['passed_after_retest']} of {rt['passes']} passes needed a retest "
+            f"({_pct(rt['share'])})" + (f"; {sec['note']}" if sec["note"] else ""),
+        ]
+        if sec["rejects"]["rows"]:
+            lines.append(
+                "  rejects: "
+                + ", ".join(f"{x['category']} {x['n']}" for x in sec["rejects"]["rows"][:8])
+            )
+        for s in sec["stations"]:
+            lines.append(
+                f"  {s['station']}: {s['tests']} tests, calibration {s['calibration_state']}"
+                + (f" (last {s['last_calibration_at'][:16]})" if s["last_calibration_at"] else "")
+                + (f", standard {s['standard_serial']}" if s["standard_serial"] else "")
+            )
+        lines += [f"  alarm {a['station']}: {a['message']}" for a in sec["alarms"]]
+        lines += [
+            f"  standard {x['serial']} ({x['station']}) due {x['due_date']}: {x['status']}"
+            for x in sec["standards"]
+            if x["status"] != "ok"
+        ]
+    return "\n".join(lines)
 
 
 def pd_iso(value: Any) -> str:

@@ -50,11 +50,14 @@ from gateway.store.schema import (
     Migration,
     migrate,
 )
+from gateway.store.summaries import fold_results, part_shares, settle_part_hours
 
 __all__ = ["Journal", "Kind", "WriteStats", "open_journal", "quarantine_id"]
 
 Kind = Literal["result", "calibration", "status"]
 KINDS: tuple[Kind, ...] = ("result", "calibration", "status")
+#: page cache of the writer's connection (negative: KiB), see Journal.__init__
+CACHE_SIZE = -32768
 
 
 @dataclass(frozen=True, slots=True)
@@ -80,11 +83,12 @@ def quarantine_id(item: Rejected) -> str:
     return digest.hexdigest()
 
 
-# Row builders: one attribute fetch per column, in column order, nothing else.
+# Row builders: one attribute fetch per column, in column order, nothing else. Enum members
+# are StrEnums, which sqlite3 binds as their text without a ``.value`` lookup.
 def _result_row(r: TestResult) -> tuple[Any, ...]:
     return (
         r.record_id, r.station, r.line, r.cycle, to_us(r.ended_at), to_us(r.received_at),
-        r.program, r.verdict.value, r.test_pressure_pa, r.pressure_loss_pa, r.leak_rate_sccm,
+        r.program, r.verdict, r.test_pressure_pa, r.pressure_loss_pa, r.leak_rate_sccm,
         r.reject_limit_sccm, r.fill_s, r.stabilise_s, r.test_s, r.part_id, r.reason,
         r.lower_limit_sccm, r.temperature_c, r.calibration_ref, r.raw, r.profile,
     )  # fmt: skip
@@ -99,7 +103,7 @@ def _calibration_row(c: CalibrationEvent) -> tuple[Any, ...]:
 
 
 def _status_row(s: StationStatus) -> tuple[Any, ...]:
-    return (s.record_id, s.station, to_us(s.at), s.state.value, s.detail)
+    return (s.record_id, s.station, to_us(s.at), s.state, s.detail)
 
 
 def _quarantine_row(q: Rejected) -> tuple[Any, ...]:
@@ -125,6 +129,7 @@ _INSERT_RESULT = _insert_sql("results", RESULT_COLUMNS)
 _INSERT_CALIBRATION = _insert_sql("calibrations", CALIBRATION_COLUMNS)
 _INSERT_STATUS = _insert_sql("statuses", STATUS_COLUMNS)
 _INSERT_QUARANTINE = _insert_sql("quarantine", QUARANTINE_COLUMNS)
+_MAX_RESULT_SEQ = "SELECT MAX(seq) FROM results"
 
 
 # Record rebuilders for read_after (rows come back in the SELECT column order below).
@@ -214,7 +219,7 @@ class Journal:
             self._conn.execute(f"PRAGMA synchronous={'FULL' if durable else 'NORMAL'}")
             # a larger page cache keeps the unique-key and dashboard index pages of a big
             # journal in memory, which is what insert speed depends on (SQLite default: 2 MB)
-            self._conn.execute("PRAGMA cache_size = -32768")
+            self._conn.execute(f"PRAGMA cache_size = {CACHE_SIZE}")
             self.version = migrate(self._conn, migrations, where=str(self.path))
         except sqlite3.Error as exc:
             self._conn.close()
@@ -256,10 +261,16 @@ class Journal:
             conn = self._conn
             try:
                 conn.execute("BEGIN IMMEDIATE")
-                # rowcount, not total_changes: the summary triggers' own writes must not count
+                # rowcount, not total_changes: the summaries' own writes must not count
                 inserted = quarantined = 0
                 if results:
-                    inserted += conn.executemany(_INSERT_RESULT, results).rowcount
+                    # new rows get seqs above the current maximum: that is how the summary
+                    # fold tells them from the stored ones (and from ignored repeats)
+                    before = conn.execute(_MAX_RESULT_SEQ).fetchone()[0] or 0
+                    new = conn.executemany(_INSERT_RESULT, results).rowcount
+                    if new > 0:
+                        fold_results(conn, before)
+                    inserted += new
                 if calibrations:
                     inserted += conn.executemany(_INSERT_CALIBRATION, calibrations).rowcount
                 if statuses:
@@ -437,8 +448,9 @@ class Journal:
               ON r.ended_at >= p.hour AND r.ended_at < p.hour + {h}
             GROUP BY p.hour, r.station, r.line, r.program, r.verdict"""
         )
-        # parts that lost tests: drop their summary, rebuild it from the tests that remain
-        # (the triggers on parts move their share of part_hours accordingly)
+        # parts that lost tests: drop their summary, rebuild it from the tests that remain,
+        # and move their share of part_hours from the old first-test hour to the new one
+        part_shares(conn, -1, "temp.prune_parts")
         conn.execute("DELETE FROM parts WHERE part_id IN (SELECT part_id FROM prune_parts)")
         conn.execute(
             """INSERT INTO parts
@@ -454,6 +466,8 @@ class Journal:
             FROM t f JOIN t l ON l.part_id = f.part_id AND l.b = 1
             WHERE f.a = 1"""
         )
+        part_shares(conn, +1, "temp.prune_parts")
+        settle_part_hours(conn)
         return n
 
     def close(self) -> None:

@@ -50,11 +50,10 @@ QUARANTINE_COLUMNS: tuple[str, ...] = (
 #: kind → table, as used by read_after / cursors / backlog.
 TABLES: dict[str, str] = {"result": "results", "calibration": "calibrations", "status": "statuses"}
 
-# Summaries kept by triggers, so every writer (the journal, a backfill, a migration) keeps them
-# right and a duplicate that INSERT OR IGNORE skipped never counts. They let the dashboard's
-# yield and summary queries read a few rows per station-hour instead of every result: SQLite
-# aggregates ~1 µs per row, so a month of a busy plant (1 M results) cannot be summed from the
-# raw rows within a second. Hours are UTC, ``hour`` = the hour's start in µs.
+# Hourly summaries (see gateway.store.summaries). Schema v1 kept them with per-row triggers,
+# which v2 drops: the writer folds each batch in once (summaries.fold_results), and a bulk
+# loader that bypasses the journal calls summaries.rebuild_summaries afterwards.
+# Hours are UTC, ``hour`` = the hour's start in µs.
 HOUR_US = 3_600_000_000
 
 
@@ -262,7 +261,21 @@ class Migration:
     description: str = ""
 
 
-MIGRATIONS: tuple[Migration, ...] = (Migration(1, _V1, "initial schema"),)
+# v2: the summaries are folded in once per batch by ``fold_results`` (in the writer's
+# transaction) instead of by per-row triggers, which cost more than half of the insert time.
+# The v1 triggers kept the summaries exact, so dropping them leaves the data correct as it is.
+_V2: tuple[str, ...] = (
+    "DROP TRIGGER results_ai_hours",
+    "DROP TRIGGER results_ai_parts",
+    "DROP TRIGGER parts_ai",
+    "DROP TRIGGER parts_au",
+    "DROP TRIGGER parts_ad",
+)
+
+MIGRATIONS: tuple[Migration, ...] = (
+    Migration(1, _V1, "initial schema"),
+    Migration(2, _V2, "summaries folded in per batch, not by per-row triggers"),
+)
 SCHEMA_VERSION = MIGRATIONS[-1].version
 
 

@@ -152,9 +152,10 @@ def test_prune_only_what_every_sink_passed(journal: Journal) -> None:
 
 def test_migration_step_runs_once(tmp_path: Path) -> None:
     path = tmp_path / "m.db"
-    open_journal(str(path)).close()  # at v1
+    open_journal(str(path)).close()  # at the current version
+    nxt = SCHEMA_VERSION + 1
     v2 = Migration(
-        2,
+        nxt,
         (
             "CREATE TABLE migration_log (step TEXT)",
             "INSERT INTO migration_log VALUES ('v2')",
@@ -163,24 +164,24 @@ def test_migration_step_runs_once(tmp_path: Path) -> None:
     )
     for _ in range(3):
         j = Journal(path, migrations=(*MIGRATIONS, v2))
-        assert j.version == 2
+        assert j.version == nxt
         j.close()
     conn = sqlite3.connect(path)
     assert conn.execute("SELECT COUNT(*) FROM migration_log").fetchone()[0] == 1
-    assert conn.execute("SELECT schema_version FROM meta").fetchone()[0] == 2
+    assert conn.execute("SELECT schema_version FROM meta").fetchone()[0] == nxt
     conn.close()
     with pytest.raises(StoreError, match="newer than this build"):
-        Journal(path)  # a v1 build refuses a v2 journal
+        Journal(path)  # this build refuses a journal from a newer one
 
 
 def test_failed_migration_leaves_old_version(tmp_path: Path) -> None:
     path = tmp_path / "m.db"
     open_journal(str(path)).close()
-    broken = Migration(2, ("CREATE TABLE half (x)", "THIS IS NOT SQL"))
+    broken = Migration(SCHEMA_VERSION + 1, ("CREATE TABLE half (x)", "THIS IS NOT SQL"))
     with pytest.raises(StoreError):
         Journal(path, migrations=(*MIGRATIONS, broken))
     conn = sqlite3.connect(path)
-    assert conn.execute("SELECT schema_version FROM meta").fetchone()[0] == 1
+    assert conn.execute("SELECT schema_version FROM meta").fetchone()[0] == SCHEMA_VERSION
     assert conn.execute("SELECT name FROM sqlite_master WHERE name = 'half'").fetchone() is None
     conn.close()
 

@@ -6,6 +6,7 @@ so only the summary path (result_hours / part_hours plus partial-hour edges) is 
 
 from __future__ import annotations
 
+import sqlite3
 from dataclasses import replace
 from datetime import timedelta
 from pathlib import Path
@@ -15,7 +16,10 @@ import pandas as pd
 import pytest
 
 from gateway.records import TestResult, Verdict
-from gateway.store import SqliteStore, open_journal
+from gateway.store import Journal, SqliteStore, open_journal
+from gateway.store.journal import _INSERT_RESULT, _result_row
+from gateway.store.schema import MIGRATIONS, SCHEMA_VERSION
+from gateway.store.summaries import rebuild_summaries
 from tests.gateway.store._data import T0, result
 
 pytestmark = pytest.mark.timeout(120)
@@ -177,5 +181,133 @@ def test_summaries_match_raw_rows(tmp_path: Path) -> None:
         removed = journal.prune(T0 + timedelta(hours=26, minutes=13), [])
         assert removed > 0
         assert store.results(until=T0 + timedelta(hours=26)).empty
+        _check(store)
+    journal.close()
+
+
+def _summary_tables(path: Path) -> dict[str, list[tuple]]:
+    conn = sqlite3.connect(path)
+    try:
+        return {
+            t: conn.execute(f"SELECT * FROM {t} ORDER BY 1, 2, 3, 4").fetchall()
+            for t in ("result_hours", "parts", "part_hours")
+        }
+    finally:
+        conn.close()
+
+
+def test_batch_with_duplicates_counts_each_test_once(tmp_path: Path) -> None:
+    rows = _plant(3, 300)
+    journal = open_journal(str(tmp_path / "d.db"))
+    journal.write(rows[:100])
+    # one batch: repeats inside itself, repeats of stored rows, and new rows
+    stats = journal.write([*rows[100:200], *rows[150:200], *rows[:100], *rows[100:120]])
+    assert (stats.inserted, stats.duplicates) == (100, 170)
+    # a batch of nothing but repeats changes nothing
+    before = _summary_tables(tmp_path / "d.db")
+    assert journal.write(rows[:200]).inserted == 0
+    assert _summary_tables(tmp_path / "d.db") == before
+    journal.write(rows[200:])
+    with SqliteStore(tmp_path / "d.db") as store:
+        assert len(store.results()) == 300
+        _check(store)
+    journal.close()
+
+
+def test_one_batch_spanning_many_hours_and_days(tmp_path: Path) -> None:
+    # one batch across three days (every hour-group at once), against raw rows
+    rows = _plant(5, 800)
+    journal = open_journal(str(tmp_path / "h.db"))
+    journal.write(rows)
+    with SqliteStore(tmp_path / "h.db") as store:
+        hours = store.verdict_counts(by=[], bucket="hour")
+        assert hours["bucket"].nunique() > 48
+        _check(store)
+    journal.close()
+
+
+def test_retest_arriving_before_an_earlier_test(tmp_path: Path) -> None:
+    journal = open_journal(str(tmp_path / "r.db"))
+    at = T0 + timedelta(hours=10, minutes=5)
+    late = result(1, part_id="R1", verdict="reject", ended_at=at)
+    journal.write([late, result(2, part_id="R2", ended_at=at)])
+    # a later batch brings R1's test from three hours earlier on another station (its clock
+    # is behind): R1's first test, group and hour change; R1's final verdict stays the reject
+    early = result(7, station="L2-S1", line="L2", program="MV-44", part_id="R1",
+                   verdict="pass", ended_at=at - timedelta(hours=3))  # fmt: skip
+    journal.write([early])
+    # within one batch: the retest listed first ends after the first test listed second;
+    # and two tests of R3 end at the same microsecond (seq, i.e. arrival, breaks the tie)
+    journal.write([
+        result(11, part_id="R4", verdict="pass", ended_at=at + timedelta(hours=2)),
+        result(12, station="L1-S2", part_id="R4", verdict="reject", ended_at=at),
+        result(13, part_id="R3", verdict="reject", ended_at=at + timedelta(hours=1)),
+        result(14, station="L1-S2", part_id="R3", verdict="pass", ended_at=at + timedelta(hours=1)),
+        result(15, part_id="R3", verdict="gross", ended_at=at - timedelta(hours=5)),
+    ])  # fmt: skip
+    conn = sqlite3.connect(tmp_path / "r.db")
+    parts = {
+        r[0]: r[1:]
+        for r in conn.execute(
+            "SELECT part_id, tests, station, first_verdict, last_verdict FROM parts"
+        )
+    }
+    conn.close()
+    assert parts == {
+        "R1": (2, "L2-S1", "pass", "reject"),
+        "R2": (1, "L1-S1", "pass", "pass"),
+        "R3": (3, "L1-S1", "gross", "pass"),  # last: the later-arriving of the tied pair
+        "R4": (2, "L1-S2", "reject", "pass"),
+    }
+    with SqliteStore(tmp_path / "r.db") as store:
+        by_hour = store.first_pass_counts(by=["station"], bucket="hour")
+        # R1 moved out of 10:00 at L1-S1 into 07:00 at L2-S1; no empty group is left behind
+        assert (by_hour["parts"] > 0).all()
+        _check(store)
+    journal.close()
+
+
+def test_rebuild_equals_the_batch_fold(tmp_path: Path) -> None:
+    rows = _plant(7, 600)
+    path = tmp_path / "b.db"
+    journal = open_journal(str(path))
+    for k in range(0, len(rows), 50):
+        journal.write(rows[k : k + 50] + rows[max(0, k - 10) : k])
+    journal.close()
+    folded = _summary_tables(path)
+    conn = sqlite3.connect(path, isolation_level=None)
+    conn.execute("BEGIN")
+    rebuild_summaries(conn)
+    conn.execute("COMMIT")
+    conn.close()
+    rebuilt = _summary_tables(path)
+    assert rebuilt["parts"] == folded["parts"]
+    assert rebuilt["part_hours"] == folded["part_hours"]
+    # sums of floats may differ in the last bits with the order of addition
+    assert len(rebuilt["result_hours"]) == len(folded["result_hours"])
+    for a, b in zip(rebuilt["result_hours"], folded["result_hours"], strict=True):
+        assert a[:7] == b[:7] and a[9:] == b[9:]
+        np.testing.assert_allclose(a[7:9], b[7:9], rtol=1e-12)
+
+
+def test_v1_journal_migrates_with_correct_summaries(tmp_path: Path) -> None:
+    rows = _plant(13, 600)
+    path = tmp_path / "v1.db"
+    Journal(path, migrations=MIGRATIONS[:1]).close()  # schema v1, summaries by triggers
+    conn = sqlite3.connect(path, isolation_level=None)
+    conn.execute("BEGIN")  # rows as a v1 build wrote them, repeats ignored
+    conn.executemany(_INSERT_RESULT, [_result_row(r) for r in rows[:400] + rows[300:350]])
+    conn.execute("COMMIT")
+    conn.close()
+    journal = open_journal(str(path))
+    assert journal.version == SCHEMA_VERSION
+    conn = sqlite3.connect(path)
+    assert conn.execute("SELECT name FROM sqlite_master WHERE type = 'trigger'").fetchall() == []
+    conn.close()
+    with SqliteStore(path) as store:
+        _check(store)  # what the v1 triggers kept is still right
+    for k in range(400, len(rows), 100):  # and later batches fold in on top of it
+        journal.write(rows[k : k + 100] + rows[k - 30 : k])
+    with SqliteStore(path) as store:
         _check(store)
     journal.close()
