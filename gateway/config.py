@@ -35,6 +35,7 @@ directory the gateway is started in, like the simulator's ``run/sim``.
 
 from __future__ import annotations
 
+import re
 import tomllib
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
@@ -122,6 +123,15 @@ def resolve_config_path(ref: str | Path) -> Path:
     return Path(text)
 
 
+_USERINFO = re.compile(r"(?<=://)[^/@\s'\"]*@")
+_SECRET_PARAM = re.compile(r"(?i)\b(token|password|passwd|pwd|secret|key)=[^&\s'\"]*")
+
+
+def _redact(text: str) -> str:
+    """A value echoed in an error, without URL credentials (user:password@, token=...)."""
+    return _SECRET_PARAM.sub(r"\1=***", _USERINFO.sub("***@", text))
+
+
 class _Reader:
     """Typed access to a TOML table that names file and key in every complaint."""
 
@@ -129,7 +139,7 @@ class _Reader:
         self.file = file
 
     def fail(self, key: str, expected: str, got: object = ...) -> ConfigError:
-        tail = "" if got is ... else f", got {got!r}"
+        tail = "" if got is ... else f", got {_redact(repr(got))}"
         return ConfigError(f"{self.file}: {key}: expected {expected}{tail}")
 
     def table(self, data: Any, key: str) -> dict[str, Any]:
@@ -388,6 +398,9 @@ def _check_endpoint(r: _Reader, endpoint: str, key: str, profile: Profile) -> No
     from gateway.drivers.lines import split_host_port
 
     scheme = endpoint.partition("://")[0].lower() if "://" in endpoint else ""
+    if scheme and "@" in endpoint.partition("://")[2]:
+        # stations take no credentials; one here would end up in logs and status pages
+        raise r.fail(key, f"{scheme}://host:port without user or password", endpoint)
     if scheme in ("tcp", "socket", "rfc2217"):
         try:
             split_host_port(endpoint.partition("://")[2])

@@ -582,7 +582,22 @@ def run_gateway(config: GatewayConfig) -> int:
         await Runtime(config).run(stop)
 
     started = time.monotonic()
-    asyncio.run(main())
+    metrics = None
+    if config.metrics.enabled:  # [metrics] prometheus_port: /metrics on the configured bind
+        from gateway.metrics import serve
+
+        bind, port = config.metrics.bind, config.metrics.prometheus_port
+        try:
+            metrics = serve(port, bind)
+        except OSError as exc:
+            raise ConfigError(
+                f"{config.source}: metrics.prometheus_port: cannot listen on {bind}:{port} ({exc})"
+            ) from None
+    try:
+        asyncio.run(main())
+    finally:
+        if metrics is not None:
+            metrics.close()
     log.debug("ran %.1f s", time.monotonic() - started)
     return 0
 

@@ -8,6 +8,7 @@ slm) change value between the 0 °C and 20 °C bases.
 
 from __future__ import annotations
 
+import functools
 import math
 import re
 from dataclasses import dataclass
@@ -118,6 +119,7 @@ def reference_temperature_k(reference_c: float) -> float:
     return reference_c + KELVIN_OFFSET
 
 
+@functools.lru_cache(maxsize=512)  # called per value of every parsed line: cache the spelling
 def _key(unit: str) -> str:
     text = unit.strip().replace("·", "*").replace("⋅", "*").replace("³", "3").replace(" ", "*")
     text = re.sub(r"\*+", "*", text)

@@ -47,6 +47,10 @@ def register(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
         "--run-dir", type=Path, help="directory for the pty symlinks (default: the scenario's)"
     )
     parser.set_defaults(func=_run)
+    # `leakfleet sim backfill ...`; plain `leakfleet sim --scenario ...` runs the plant as before
+    from gateway.cli import sim_backfill
+
+    sim_backfill.register(parser.add_subparsers(title="other actions", metavar="{backfill}"))
 
 
 def _run(args: argparse.Namespace) -> int:

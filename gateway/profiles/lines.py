@@ -87,6 +87,9 @@ def _pairs(spec: SerialSpec, lines: Sequence[str], first_line_no: int) -> dict[s
     return raw
 
 
+_CONTROL = re.compile("[\x00-\x08\x0a-\x1f\x7f]")  # control characters except tab
+
+
 class SerialParser:
     """Turns station output into records for one station; never raises for bad input."""
 
@@ -121,9 +124,10 @@ class SerialParser:
             raise FieldError(f"line is {len(item)} characters long, max_line is "
                              f"{self.spec.max_line}")
         text = self._decode(item)
-        bad = next((c for c in text if (ord(c) < 32 and c != "\t") or ord(c) == 127), None)
-        if bad is not None:
-            raise FieldError(f"control character 0x{ord(bad):02x} at position {text.index(bad)}")
+        found = _CONTROL.search(text)  # one C-level scan: this runs for every line
+        if found is not None:
+            bad = found.group()
+            raise FieldError(f"control character 0x{ord(bad):02x} at position {found.start()}")
         return text
 
     def parse(

@@ -314,6 +314,20 @@ class Journal:
         rows = self._query("SELECT seq FROM sqlite_sequence WHERE name = ?", (table,), "reading")
         return int(rows[0][0]) if rows else 0
 
+    def last_cycles(self) -> dict[str, int]:
+        """Per station, the cycle of its newest journalled result (the runtime's resume point).
+
+        Plain SQL on the writer's connection, so the gateway never loads the query side
+        (pandas) just to start.
+        """
+        rows = self._query(
+            "SELECT station, cycle FROM results "
+            "WHERE seq IN (SELECT MAX(seq) FROM results GROUP BY station)",
+            (),
+            "reading resume points",
+        )
+        return {str(station): int(cycle) for station, cycle in rows}
+
     def get_cursor(self, sink: str, kind: Kind) -> int:
         """Last seq ``sink`` confirmed for ``kind`` (0 when it never confirmed one)."""
         _check_kind(kind)

@@ -1,0 +1,126 @@
+"""ingest: lf-delim lines → parse + normalise (the profile) → journal, against plain SQLite.
+
+Ours: each line goes through the built-in ``lf-delim`` profile's parser exactly as the stream
+driver calls it (one line at a time), records are batched and written with ``Journal.write``.
+Baseline: ``sqlite3.executemany`` of the same rows (prepared before the clock starts) into a
+table with the journal's columns and indexes, same pragmas, same batch size, one transaction
+per batch. The journal's summary triggers (hourly counts, per-part first/last test, which make
+the dashboard's yield queries independent of the history's length) are not in the baseline:
+that is part of what the journal costs, so the ratio shows it; ``with_triggers`` reports a
+second baseline with them, to tell our Python overhead from SQLite's work.
+"""
+
+from __future__ import annotations
+
+import random
+import sqlite3
+import tempfile
+import time
+from datetime import UTC, datetime, timedelta
+from pathlib import Path
+from typing import Any
+
+PROFILE = "lf-delim"
+_VERDICTS = ["ACC"] * 96 + ["REJ"] * 3 + ["GRS", "ABT"]
+
+
+def make_lines(n: int, stations: int = 12, seed: int = 8) -> list[tuple[str, str]]:
+    """(station, line) pairs in the lf-delim wire format (sim/README.md), with calibrations."""
+    rng = random.Random(seed)
+    t0 = datetime(2026, 11, 2, 6, 0, 0)
+    out: list[tuple[str, str]] = []
+    for i in range(n):
+        station = f"L1-S{i % stations + 1}"
+        ended = t0 + timedelta(seconds=30 * (i // stations))
+        stamp = ended.strftime("%Y-%m-%d %H:%M:%S")
+        if i % 200 == 199:
+            out.append((station, f"C;{stamp};HX-210;38.6;{237 + rng.random():.1f};3.000;350.0;"
+                                 "6.163;OK"))
+            continue
+        verdict = rng.choice(_VERDICTS)
+        loss, leak = (0.0, 0.0) if verdict in ("GRS", "ABT") else (
+            40 + rng.random() * 10, rng.lognormvariate(-2.5, 0.9))
+        out.append((station, (
+            f"R;{i // stations + 1};{stamp};HX-210;HX210-{i:06d};{verdict};"
+            f"{350 + rng.random() / 10:.2f};{loss:.1f};{leak:.3f};2.000;-1.000;3.0;8.0;10.0;"
+            f"{21 + rng.random():.2f}"
+        )))  # fmt: skip
+    return out
+
+
+def run(records: int, batch: int) -> dict[str, Any]:
+    from gateway.profiles import StationContext, load_profile
+    from gateway.records import CalibrationEvent, Rejected, TestResult
+    from gateway.store import open_journal
+    from gateway.store.journal import _INSERT_RESULT, _result_row
+    from gateway.store.schema import MIGRATIONS
+
+    profile = load_profile(PROFILE)
+    assert profile.serial is not None
+    lines = make_lines(records)
+    stations = sorted({s for s, _ in lines})
+    parsers = {
+        s: profile.serial.parser(StationContext(station=s, line="L1", timezone="Europe/Berlin"))
+        for s in stations
+    }
+    received = datetime(2026, 11, 2, 6, tzinfo=UTC)
+    with tempfile.TemporaryDirectory() as tmp:
+        journal = open_journal(str(Path(tmp) / "ours.db"))
+        t = time.perf_counter()
+        pending: list[Any] = []
+        kept: list[TestResult] = []
+        rejected = 0
+        for no, (station, line) in enumerate(lines, 1):
+            items = parsers[station].parse([line], no, received)
+            for item in items:
+                if isinstance(item, TestResult):
+                    kept.append(item)
+                elif isinstance(item, Rejected):
+                    rejected += 1
+                elif not isinstance(item, CalibrationEvent):
+                    raise AssertionError(f"unexpected {item!r}")
+            pending.extend(items)
+            if len(pending) >= batch:
+                journal.write(pending)
+                pending = []
+        if pending:
+            journal.write(pending)
+        ours = time.perf_counter() - t
+        journal.close()
+        if rejected:
+            raise AssertionError(f"{rejected} generated line(s) were rejected by {PROFILE}")
+
+        rows = [_result_row(r) for r in kept]
+        row_batches = [rows[i : i + batch] for i in range(0, len(rows), batch)]
+
+        def baseline(name: str, with_triggers: bool) -> float:
+            conn = sqlite3.connect(str(Path(tmp) / name), isolation_level=None)
+            conn.execute("PRAGMA journal_mode=WAL")
+            conn.execute("PRAGMA synchronous=NORMAL")
+            for stmt in MIGRATIONS[0].statements:
+                if with_triggers or not stmt.startswith("CREATE TRIGGER"):
+                    conn.execute(stmt)
+            t = time.perf_counter()
+            for b in row_batches:
+                conn.execute("BEGIN")
+                conn.executemany(_INSERT_RESULT, b)
+                conn.execute("COMMIT")
+            elapsed = time.perf_counter() - t
+            conn.close()
+            return elapsed
+
+        plain = baseline("plain.db", with_triggers=False)
+        triggers = baseline("triggers.db", with_triggers=True)
+    ours_rate = len(lines) / ours
+    base_rate = len(rows) / plain
+    return {
+        "records_per_s": round(ours_rate),
+        "baseline_records_per_s": round(base_rate),
+        "ratio": round(ours_rate / base_rate, 3),
+        "target": {"ratio": ">= 0.5", "records_per_s": ">= 20000"},
+        "with_triggers_baseline_records_per_s": round(len(rows) / triggers),
+        "ratio_to_with_triggers": round(ours_rate / (len(rows) / triggers), 3),
+        "inputs": {"lines": len(lines), "results": len(kept), "stations": len(stations),
+                   "batch": batch, "profile": f"{profile.name}@{profile.version}",
+                   "sqlite": sqlite3.sqlite_version, "synchronous": "NORMAL", "wal": True},
+    }  # fmt: skip
