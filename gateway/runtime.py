@@ -582,22 +582,7 @@ def run_gateway(config: GatewayConfig) -> int:
         await Runtime(config).run(stop)
 
     started = time.monotonic()
-    metrics = None
-    if config.metrics.enabled:  # [metrics] prometheus_port: /metrics on the configured bind
-        from gateway.metrics import serve
-
-        bind, port = config.metrics.bind, config.metrics.prometheus_port
-        try:
-            metrics = serve(port, bind)
-        except OSError as exc:
-            raise ConfigError(
-                f"{config.source}: metrics.prometheus_port: cannot listen on {bind}:{port} ({exc})"
-            ) from None
-    try:
-        asyncio.run(main())
-    finally:
-        if metrics is not None:
-            metrics.close()
+    asyncio.run(main())  # Runtime.run serves the metrics endpoint when configured
     log.debug("ran %.1f s", time.monotonic() - started)
     return 0
 
