@@ -18,16 +18,17 @@ if _ROOT not in sys.path:
 
 from dashboard.common import settings, sidebar  # noqa: E402
 
-st.set_page_config(page_title="leakfleet", page_icon="🫧", layout="wide")
+# no page_icon: an icon name would make the browser fetch it from the internet
+st.set_page_config(page_title="leakfleet", layout="wide")
 
 _PAGES = [
-    st.Page("views/fleet.py", title="Fleet live", icon="🏭", default=True),
-    st.Page("views/yields.py", title="Yield", icon="📈"),
-    st.Page("views/readings.py", title="Readings vs limits", icon="📊"),
-    st.Page("views/calibration.py", title="Calibration", icon="🎯"),
-    st.Page("views/gauge.py", title="Gauge study & test time", icon="⏱️"),
-    st.Page("views/quality.py", title="Quality", icon="🔎"),
-    st.Page("views/data_view.py", title="Data", icon="🗂️"),
+    st.Page("views/fleet.py", title="Fleet live", default=True),
+    st.Page("views/yields.py", title="Yield"),
+    st.Page("views/readings.py", title="Readings vs limits"),
+    st.Page("views/calibration.py", title="Calibration"),
+    st.Page("views/gauge.py", title="Gauge study & test time"),
+    st.Page("views/quality.py", title="Quality"),
+    st.Page("views/data_view.py", title="Data"),
 ]
 
 cfg = settings()

@@ -45,7 +45,10 @@ TEST_PARAMETER_NOTE = (
     "requirements. These figures are advice from a model, not a setting."
 )
 _EPOCH = datetime(1970, 1, 1, tzinfo=UTC)
-_ROUND_S = 5  # "now" moves in steps, so cached queries are shared between reruns
+# "now" moves in steps, so reruns and viewers share cached queries: live pages step with their
+# refresh, history pages once a minute
+_ROUND_LIVE_S = 5
+_ROUND_HISTORY_S = 60
 
 
 @dataclass(frozen=True)
@@ -103,26 +106,26 @@ def sidebar(cfg: Settings) -> None:
             "Leak-rate unit", LEAK_UNITS, key="lf_leak_unit",
             format_func=lambda u: Units(leak=u).q_label,
         )  # fmt: skip
-        st.info(SAFETY_NOTE, icon="⚠️")
+        st.info(SAFETY_NOTE, icon=":material/warning:")
 
 
-def _now(cfg: Settings) -> datetime:
+def _now(cfg: Settings, step_s: int = _ROUND_LIVE_S) -> datetime:
     wall = datetime.now(UTC)
     if cfg.clock == "data":
         newest = data.newest_record_time(cfg.store_url)
         if newest is not None and newest > wall:
             wall = newest
     seconds = (wall - _EPOCH).total_seconds()
-    return _EPOCH + timedelta(seconds=int(seconds // _ROUND_S + 1) * _ROUND_S)
+    return _EPOCH + timedelta(seconds=int(seconds // step_s + 1) * step_s)
 
 
-def page(title: str, *, need_data: bool = True) -> Page:
+def page(title: str, *, need_data: bool = True, live: bool = False) -> Page:
     """Title, guards and context for a page (see module docstring)."""
     cfg = settings()
     st.header(title)
     try:
         stations = data.stations(cfg.store_url)
-        now = _now(cfg)
+        now = _now(cfg, _ROUND_LIVE_S if live else _ROUND_HISTORY_S)
     except data.StoreUnavailable as exc:
         st.error(f"The store cannot be read: {exc}")
         st.caption(

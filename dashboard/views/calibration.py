@@ -48,12 +48,11 @@ alarms = pd.DataFrame([a.to_dict() for a in sh.alarms])
 if not alarms.empty:
     alarms["at"] = pd.to_datetime(alarms["at"], utc=True)
 
-m1, m2, m3, m4 = st.columns(4)
+m1, m2, m3 = st.columns(3)
 m1.metric("Calibrations", sh.n)
 m2.metric("Failed", sum(not x for x in sh.passed))
 m3.metric("Alarms", len(sh.alarms))
-m4.metric("Drift", sh.projection.status)
-st.caption(f"Drift projection: {sh.projection.note}")
+st.markdown(f"**Drift of the master loss:** {sh.projection.status} — {sh.projection.note}")
 if sh.projection.reaches_limit_at is not None:
     st.warning(f"Projected to reach the limit on {p.local(sh.projection.reaches_limit_at)}")
 

@@ -13,11 +13,12 @@ from dashboard import charts, data
 from dashboard.common import Page, page, refreshed
 from dashboard.display import fmt
 
-_STATE_ICON = {
-    "online": "🟢", "testing": "🟢", "idle": "⚪", "calibrating": "🔵",
-    "offline": "⚫", "fault": "🔴",
+# badge colours (Streamlit markdown): no emoji, so line PCs without emoji fonts show them too
+_STATE_COLOUR = {
+    "online": "green", "testing": "green", "idle": "gray", "calibrating": "blue",
+    "offline": "gray", "fault": "red",
 }  # fmt: skip
-_VERDICT_ICON = {"pass": "✅", "reject": "❌", "gross": "⛔", "aborted": "⏹"}
+_VERDICT_COLOUR = {"pass": "green", "reject": "orange", "gross": "red", "aborted": "gray"}
 
 
 def _age(now: datetime, at: Any) -> str:
@@ -72,17 +73,19 @@ def tiles(p: Page) -> None:
             state = str(status.loc[station, "state"]) if station in status.index else "unknown"
             last_cal = cals.loc[station] if station in cals.index else None
             with cols[i % 3].container(border=True):
-                st.markdown(f"**{station}** {_STATE_ICON.get(state, '❔')} {state}")
+                colour = _STATE_COLOUR.get(state, "gray")
+                st.markdown(f"**{station}** :{colour}-badge[{state}]")
                 if station in res.index:
                     r = res.loc[station]
-                    icon = _VERDICT_ICON.get(str(r["verdict"]), "")
+                    verdict = str(r["verdict"])
                     st.metric(
                         f"Last result · {r['program']}",
                         f"{fmt(p.units.q(r['leak_rate_sccm']))} {p.units.q_label}",
-                        f"{icon} {r['verdict']}",
-                        delta_color="off",
                     )
-                    st.caption(f"cycle {r['cycle']} · {_age(p.now, r['ended_at'])}")
+                    st.markdown(
+                        f":{_VERDICT_COLOUR.get(verdict, 'gray')}-badge[{verdict}] "
+                        f"cycle {r['cycle']} · {_age(p.now, r['ended_at'])}"
+                    )
                 else:
                     st.metric("Last result", "–")
                 a, b = st.columns(2)
@@ -100,7 +103,7 @@ def tiles(p: Page) -> None:
                 st.caption(f"Last calibration: {_age(p.now, cal_at)}")
                 alarms = _alarms(p, station, state, last_cal)
                 if alarms:
-                    st.warning(" · ".join(alarms), icon="🚨")
+                    st.warning(" · ".join(alarms), icon=":material/notifications_active:")
                 else:
                     st.caption("No active alarms")
 
@@ -139,7 +142,7 @@ def detail(p: Page) -> None:
     st.dataframe(table, hide_index=True, width="stretch", key="fleet_latest_table")
 
 
-p = page("Fleet, live")
+p = page("Fleet, live", live=True)
 
 
 @st.fragment(run_every="5s")

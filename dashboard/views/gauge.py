@@ -24,7 +24,7 @@ _SAMPLE = "part,operator,value\n" + "".join(
 )  # fmt: skip
 
 p = page("Gauge study & test time")
-st.warning(TEST_PARAMETER_NOTE, icon="⚠️")
+st.warning(TEST_PARAMETER_NOTE, icon=":material/warning:")
 u = p.units
 source = st.radio("Data", ["Master-part runs from the store", "Upload a CSV"], horizontal=True,
                   key="gauge_source")  # fmt: skip

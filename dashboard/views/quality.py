@@ -5,8 +5,8 @@ from __future__ import annotations
 import pandas as pd
 import streamlit as st
 
-from analytics import part_history, retest_analysis, standard_drift, standards_due
-from dashboard import data
+from analytics import part_history, standard_drift, standards_due
+from dashboard import data, derived
 from dashboard.common import page, pick, time_range
 from dashboard.display import fmt
 
@@ -15,33 +15,41 @@ _RETEST_ROWS = 200_000  # retest analysis follows parts across tests: bounded ro
 p = page("Quality")
 u = p.units
 
-st.subheader("Part history")
-part = st.text_input("Part id", key="q_part", placeholder="e.g. HX210-100042").strip()
-if part:
-    tests = data.results(p.url, part_id=part)
-    if tests.empty:
-        st.info(f"No tests of part {part!r} in the store.")
-    else:
-        cals = pd.concat(
-            [data.calibrations(p.url, None, tests["ended_at"].max() + pd.Timedelta(seconds=1),
-                               station=s) for s in tests["station"].unique()],
-            ignore_index=True,
-        )  # fmt: skip
-        history = part_history(tests, cals, part)
-        a, b, c = st.columns(3)
-        a.metric("Tests", len(history.tests))
-        b.metric("Final verdict", history.final_verdict or "–")
-        c.metric(
-            "Rejects before the first pass",
-            "–" if history.rejects_before_pass is None else history.rejects_before_pass,
-        )
-        table = pd.DataFrame([t.to_dict() for t in history.tests])
-        for col in ("ended_at", "calibration_at"):
-            table[col] = pd.to_datetime(table[col], utc=True).dt.tz_convert(p.settings.timezone)
-        st.dataframe(u.frame(table), hide_index=True, width="stretch",
-                     key="q_part_table")  # fmt: skip
-        st.caption(f"{history.note}; calibration in force = the station's latest calibration of "
-                   "the same program before the test")  # fmt: skip
+
+@st.fragment
+def part_search() -> None:
+    """Searching reruns only this section, not the retest analysis below."""
+    st.subheader("Part history")
+    part = st.text_input("Part id", key="q_part", placeholder="e.g. HX210-100042").strip()
+    if part:
+        tests = data.results(p.url, part_id=part)
+        if tests.empty:
+            st.info(f"No tests of part {part!r} in the store.")
+        else:
+            cals = pd.concat(
+                [data.calibrations(p.url, None, tests["ended_at"].max() + pd.Timedelta(seconds=1),
+                                   station=s) for s in tests["station"].unique()],
+                ignore_index=True,
+            )  # fmt: skip
+            history = part_history(tests, cals, part)
+            a, b, c = st.columns(3)
+            a.metric("Tests", len(history.tests))
+            b.metric("Final verdict", history.final_verdict or "–")
+            c.metric(
+                "Rejects before the first pass",
+                "–" if history.rejects_before_pass is None else history.rejects_before_pass,
+            )
+            table = pd.DataFrame([t.to_dict() for t in history.tests])
+            for col in ("ended_at", "calibration_at"):
+                table[col] = pd.to_datetime(table[col], utc=True).dt.tz_convert(p.settings.timezone)
+            st.dataframe(u.frame(table), hide_index=True, width="stretch",
+                         key="q_part_table")  # fmt: skip
+            st.caption(f"{history.note}; calibration in force = the station's latest calibration "
+                       "of "
+                       "the same program before the test")  # fmt: skip
+
+
+part_search()
 
 st.subheader("Retest until pass")
 c1, c2 = st.columns(2)
@@ -57,8 +65,9 @@ elif total > _RETEST_ROWS:
     st.info(f"{total:,} tests in this range: narrow it to at most {_RETEST_ROWS:,} to follow "
             "parts across their retests.")  # fmt: skip
 else:
-    rows = data.results(p.url, since, until, station=station)
-    report = retest_analysis(rows, by=("station", "program"), calendar=p.calendar)
+    report = derived.retest_report(
+        p.url, since, until, station, p.settings.timezone, p.settings.shifts
+    )
     a, b, c, d = st.columns(4)
     a.metric("Parts", f"{report.parts:,}")
     b.metric("Passed after a retest", report.passed_after_retest)
@@ -67,7 +76,7 @@ else:
              else f"{report.share_of_passes_after_retest:.2%}")  # fmt: skip
     d.metric("Passed after ≥ 2 rejects", len(report.passed_after_two_or_more_rejects))
     for alarm in report.alarms:
-        st.warning(alarm.message, icon="🚨")
+        st.warning(alarm.message, icon=":material/notifications_active:")
     if report.by_group:
         st.dataframe(
             pd.DataFrame(report.by_group),

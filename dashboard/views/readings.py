@@ -90,7 +90,9 @@ for i, station in enumerate(chosen):
         ppm = report.ppu.ppm_above
         if report.recommended != "normal" and report.non_normal is not None:
             ppm = report.non_normal.ppm_above
-        m3.metric("ppm above limit", fmt(ppm), help=f"model: {report.recommended}")
+        m3.metric("ppm above limit", "–" if ppm is None else f"{ppm:,.0f}",
+                  help=f"expected parts per million above the reject limit; model: "
+                  f"{report.recommended}")  # fmt: skip
         m4, m5, m6 = st.columns(3)
         m4.metric("n", f"{report.n:,}")
         m5.metric("mean", fmt(u.q(report.mean)))

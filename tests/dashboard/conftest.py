@@ -53,11 +53,9 @@ AppFactory = Callable[..., AppTest]
 @pytest.fixture()
 def app(monkeypatch: pytest.MonkeyPatch) -> Iterator[AppFactory]:
     """``app(journal, page=None)`` → an AppTest that has run the page once."""
-    import streamlit as st
 
     def make(journal: Path | str, page: str | None = None, config: str = "demo") -> AppTest:
-        st.cache_data.clear()
-        st.cache_resource.clear()
+        # caches stay: every journal has its own URL, and the cache keys start with it
         url = journal if isinstance(journal, str) else f"sqlite:///{journal}"
         monkeypatch.setenv("LEAKFLEET_STORE", url)
         monkeypatch.setenv("LEAKFLEET_CONFIG", config)
