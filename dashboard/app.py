@@ -16,6 +16,7 @@ _ROOT = str(Path(__file__).resolve().parents[1])
 if _ROOT not in sys.path:
     sys.path.insert(0, _ROOT)
 
+from dashboard.auth import gate  # noqa: E402
 from dashboard.common import settings, sidebar  # noqa: E402
 
 # no page_icon: an icon name would make the browser fetch it from the internet
@@ -31,6 +32,7 @@ _PAGES = [
     st.Page("views/data_view.py", title="Data"),
 ]
 
+gate()
 cfg = settings()
 nav = st.navigation(_PAGES)
 sidebar(cfg)

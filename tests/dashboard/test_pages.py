@@ -208,3 +208,24 @@ def test_station_with_only_a_state_change(app: AppFactory, status_only_journal: 
     for page in PAGES:
         at = app(status_only_journal, page)
         assert not at.exception, page
+
+
+def test_password_login_when_configured(app: AppFactory, demo_journal: Path) -> None:
+    import hashlib
+
+    from streamlit.testing.v1 import AppTest
+
+    from tests.dashboard.conftest import APP
+
+    at = AppTest.from_file(APP, default_timeout=60)
+    at.secrets["leakfleet"] = {"password_sha256": hashlib.sha256(b"s3cret").hexdigest()}
+    app(demo_journal)  # sets the environment for the store
+    at.run()
+    assert not at.metric and [h.value for h in at.header] == ["leakfleet"]
+    at.text_input(key="lf_password").input("wrong")
+    at.button[0].click().run()
+    assert [e.value for e in at.error] == ["Wrong password."]
+    at.text_input(key="lf_password").input("s3cret")
+    at.button[0].click().run()
+    assert not at.exception
+    assert [m.label for m in at.metric].count("Cycles, last hour") == 6
