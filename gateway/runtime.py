@@ -28,6 +28,7 @@ from collections.abc import Awaitable, Callable, Mapping, Sequence
 from dataclasses import dataclass, field
 from typing import Any
 
+from gateway.aio import within
 from gateway.config import GatewayConfig
 from gateway.drivers.base import Item, Outbox, Pacing, StationTarget, utcnow
 from gateway.errors import ConfigError, StoreError
@@ -228,7 +229,7 @@ class JournalWriter:
             if self._failing is None and len(self._pending) >= self.batch_size:
                 return
             try:
-                items = await asyncio.wait_for(self._queue.get(), remaining)
+                items = await within(self._queue.get(), remaining)
             except TimeoutError:
                 return
             if items is None:

@@ -49,6 +49,10 @@ def register(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
         "--check", action="store_true",
         help="validate the config and every profile, print a summary and exit",
     )
+    # sinks helper: --mqtt / --influx (additive; see gateway/sinks/cli.py)
+    from gateway.sinks.cli import add_sink_arguments
+
+    add_sink_arguments(parser)
     parser.set_defaults(func=_run)
 
 
@@ -83,6 +87,10 @@ def _run(args: argparse.Namespace) -> int:
     from gateway.config import load_config
 
     config = load_config(args.config, store=args.store, profile_dirs=args.profiles)
+    # sinks helper: switch sinks on from --mqtt / --influx (additive)
+    from gateway.sinks.cli import with_cli_sinks
+
+    config = with_cli_sinks(config, args.mqtt, args.influx)
     if args.check:
         from gateway.runtime import build_forwarders
 

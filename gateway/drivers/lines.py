@@ -13,6 +13,7 @@ import logging
 from collections import deque
 from dataclasses import dataclass
 
+from gateway.aio import within
 from gateway.errors import TransportError
 
 __all__ = ["LineLink", "LineSplitter", "RawLine", "open_line_link"]
@@ -144,7 +145,7 @@ class LineLink:
         log.debug("%s -> %s", self.name, data.hex())
         try:
             self._writer.write(data)
-            await asyncio.wait_for(self._writer.drain(), timeout)
+            await within(self._writer.drain(), timeout)
         except TimeoutError as exc:
             raise TransportError(f"{self.name}: write timed out after {timeout:g} s") from exc
         except (ConnectionError, OSError) as exc:
@@ -153,7 +154,7 @@ class LineLink:
     async def close(self) -> None:
         self._writer.close()
         with contextlib.suppress(ConnectionError, OSError, TimeoutError):
-            await asyncio.wait_for(self._writer.wait_closed(), 1.0)
+            await within(self._writer.wait_closed(), 1.0)
 
 
 async def open_line_link(
@@ -174,11 +175,11 @@ async def open_line_link(
     try:
         if endpoint.startswith("tcp://"):
             host, port = split_host_port(endpoint[len("tcp://") :])
-            reader, writer = await asyncio.wait_for(asyncio.open_connection(host, port), timeout)
+            reader, writer = await within(asyncio.open_connection(host, port), timeout)
         else:
             import serial_asyncio_fast
 
-            reader, writer = await asyncio.wait_for(
+            reader, writer = await within(
                 serial_asyncio_fast.open_serial_connection(
                     url=endpoint,
                     baudrate=baudrate,

@@ -22,6 +22,7 @@ from dataclasses import dataclass, field
 from datetime import datetime
 from typing import TYPE_CHECKING, Any, Protocol
 
+from gateway.aio import within
 from gateway.drivers.base import (
     ExceptionReply,
     Item,
@@ -381,7 +382,7 @@ class PymodbusLink:
         self.close()
         client = self._make_client()
         try:
-            ok = await asyncio.wait_for(client.connect(), self.timeout + 1.0)
+            ok = await within(client.connect(), self.timeout + 1.0)
         except (TimeoutError, OSError) as exc:
             client.close()
             raise LinkLost(f"{self.name}: cannot connect: {exc or 'timeout'}") from exc
@@ -409,7 +410,7 @@ class PymodbusLink:
         what = f"{self.name} device {device_id} fc{function} {address}+{count}"
         async with self.lock:
             try:
-                reply = await asyncio.wait_for(
+                reply = await within(
                     call(address, count=count, device_id=device_id), self.timeout + 0.5
                 )
             except ConnectionException as exc:
@@ -433,7 +434,7 @@ class PymodbusLink:
         what = f"{self.name} device {device_id} write {address}+{len(values)}"
         async with self.lock:
             try:
-                reply = await asyncio.wait_for(
+                reply = await within(
                     self._client.write_registers(address, values, device_id=device_id),
                     self.timeout + 0.5,
                 )

@@ -1,0 +1,304 @@
+"""Store-and-forward: the loop every sink shares, between the journal and one remote system.
+
+What this seam hides. A forwarder knows the journal and a cursor; a ``SinkClient`` knows one
+remote system (an MQTT broker, an InfluxDB) and nothing about the journal. The forwarder:
+
+1. opens its own connection to the journal (``open_journal(store_url)``) and reads its persisted
+   cursor per kind (``get_cursor(name, kind)``; a new sink starts at 0, i.e. sends everything
+   still in the journal);
+2. connects the client (``connect``), with a timeout;
+3. repeatedly reads ``read_after(kind, cursor, batch_size)`` and hands the batch to
+   ``client.send(kind, rows)``. ``send`` returns only once the remote side acknowledged every
+   record of the batch (MQTT: a PUBACK per message at QoS 1; InfluxDB: HTTP 204). Only then is
+   the cursor advanced and persisted (``set_cursor``). A crash between the acknowledgement and
+   the cursor write re-sends that batch after restart: delivery is at-least-once, and both sinks
+   make a repeat harmless (MQTT payloads carry ``record_id`` to de-duplicate on; an InfluxDB
+   point is keyed by its timestamp and tags, so a re-send overwrites itself);
+4. on any ``SinkUnavailable`` (broker or database down, refused login, timeout) closes the
+   client, waits a capped exponential backoff with full jitter and reconnects; the journal keeps
+   the records meanwhile, so an outage delays data and never loses it. The first failure of a
+   streak is logged at ERROR (once), repeats at DEBUG, the recovery at INFO;
+5. when ``stop`` is set, makes one last bounded pass (``drain_timeout_s``) if it is connected,
+   then closes the client (an MQTT client publishes its retained "offline" state).
+
+The backlog (records not yet acknowledged, and the age of the oldest) is ``Forwarder.backlog``
+and, through ``gateway.metrics``, a Prometheus gauge. A ``ConfigError`` from ``connect`` (a
+missing secret or certificate file) is not retried: ``run`` raises it and the runtime disables
+this sink while the others keep running.
+"""
+
+from __future__ import annotations
+
+import asyncio
+import contextlib
+import logging
+import os
+import random
+import time
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field
+from datetime import UTC, datetime
+from pathlib import Path
+from typing import Any, Protocol
+
+from gateway import metrics
+from gateway.errors import ConfigError, TransportError
+from gateway.records import Record
+from gateway.store.journal import KINDS, Journal, Kind, open_journal
+
+__all__ = [
+    "Backoff",
+    "ForwarderOptions",
+    "JournalForwarder",
+    "SinkClient",
+    "SinkUnavailable",
+    "read_secret",
+]
+
+log = logging.getLogger(__name__)
+
+
+class SinkUnavailable(TransportError):
+    """The remote system cannot take records right now; retry later (nothing is lost)."""
+
+
+class SinkClient(Protocol):
+    """One remote system. ``send`` returns only after the remote side acknowledged the batch."""
+
+    kinds: tuple[Kind, ...]
+
+    def describe(self) -> str:
+        """Where it sends, for log lines (never a secret)."""
+        ...
+
+    async def connect(self) -> None: ...
+
+    async def send(self, kind: Kind, rows: Sequence[tuple[int, Record]]) -> None: ...
+
+    async def close(self, *, graceful: bool) -> None: ...
+
+
+@dataclass
+class Backoff:
+    """Capped exponential backoff with full jitter (delay uniform in [0, min(cap, base·2^n)])."""
+
+    initial_s: float = 0.5
+    cap_s: float = 30.0
+    factor: float = 2.0
+    attempt: int = 0
+    rng: random.Random = field(default_factory=random.Random)
+
+    def next_delay(self) -> float:
+        ceiling = min(self.cap_s, self.initial_s * self.factor**self.attempt)
+        self.attempt = min(self.attempt + 1, 64)
+        # never less than a tenth of the ceiling, so a tight loop cannot hammer a server
+        return ceiling * (0.1 + 0.9 * self.rng.random())
+
+    def reset(self) -> None:
+        self.attempt = 0
+
+
+@dataclass(frozen=True)
+class ForwarderOptions:
+    """Loop settings common to every sink (keys of its ``[sinks.<name>]`` table)."""
+
+    batch_size: int = 500
+    poll_interval_s: float = 0.5
+    connect_timeout_s: float = 10.0
+    send_timeout_s: float = 15.0
+    drain_timeout_s: float = 5.0
+    backoff_initial_s: float = 0.5
+    backoff_max_s: float = 30.0
+    backlog_interval_s: float = 5.0
+
+    KEYS = (
+        "batch_size", "poll_interval_s", "connect_timeout_s", "send_timeout_s",
+        "drain_timeout_s", "backoff_initial_s", "backoff_max_s", "backlog_interval_s",
+    )
+
+    @classmethod
+    def from_options(cls, options: Mapping[str, Any]) -> ForwarderOptions:
+        kwargs: dict[str, Any] = {}
+        for key in cls.KEYS:
+            if key not in options:
+                continue
+            value = options[key]
+            if isinstance(value, bool) or not isinstance(value, (int, float)) or value <= 0:
+                raise ValueError(f"{key} must be a positive number, got {value!r}")
+            kwargs[key] = int(value) if key == "batch_size" else float(value)
+        return cls(**kwargs)
+
+
+def read_secret(env_var: str, file_option: str | None, what: str) -> str | None:
+    """A secret from ``env_var`` or else a file (first line); never from config or CLI.
+
+    Returns None when neither is set. A named file that cannot be read is a ConfigError (the
+    message names the file, never the secret).
+    """
+    value = os.environ.get(env_var)
+    if value:
+        return value
+    if not file_option:
+        return None
+    path = Path(file_option).expanduser()
+    try:
+        text = path.read_text(encoding="utf-8")
+    except OSError as exc:
+        raise ConfigError(f"{what}: cannot read secrets file {path}: {exc.strerror}") from exc
+    secret = text.splitlines()[0].strip() if text.strip() else ""
+    if not secret:
+        raise ConfigError(f"{what}: secrets file {path} is empty")
+    return secret
+
+
+class JournalForwarder:
+    """The runtime's ``Forwarder`` for any ``SinkClient``; see the module docstring."""
+
+    def __init__(
+        self,
+        name: str,
+        client: SinkClient,
+        options: ForwarderOptions | None = None,
+        *,
+        rng: random.Random | None = None,
+    ) -> None:
+        self.name = name
+        self.client = client
+        self.options = options or ForwarderOptions()
+        self.backoff = Backoff(
+            self.options.backoff_initial_s, self.options.backoff_max_s, rng=rng or random.Random()
+        )
+        self.connected = False
+        self.sent: dict[Kind, int] = dict.fromkeys(KINDS, 0)
+        self.backlog: dict[Kind, tuple[int, datetime | None]] = {}
+        self.last_success: datetime | None = None
+        self.last_error: str | None = None
+        self.failures = 0  # in the current streak
+        self._cursors: dict[Kind, int] = {}
+        self._backlog_at = 0.0
+
+    # -- the runtime's entry point ---------------------------------------------------------
+    async def run(self, store_url: str, stop: asyncio.Event) -> None:
+        journal = await asyncio.to_thread(open_journal, store_url)
+        try:
+            await self.run_with(journal, stop)
+        finally:
+            await asyncio.to_thread(journal.close)
+
+    async def run_with(self, journal: Journal, stop: asyncio.Event) -> None:
+        """Forward until ``stop``; ``journal`` may be shared (it serialises its own calls)."""
+        for kind in self.client.kinds:
+            self._cursors[kind] = await asyncio.to_thread(journal.get_cursor, self.name, kind)
+        await self._refresh_backlog(journal, force=True)
+        log.info("sink %s: forwarding to %s", self.name, self.client.describe())
+        while not stop.is_set():
+            try:
+                async with asyncio.timeout(self.options.connect_timeout_s):
+                    await self.client.connect()
+                self.connected = True
+                metrics.sink_connected(self.name, True)
+                await self._pump(journal, stop)
+            except SinkUnavailable as exc:
+                self._failed(str(exc))
+            except TimeoutError:
+                self._failed(f"no answer from {self.client.describe()} in time")
+            finally:
+                await self._close(graceful=stop.is_set())
+            if not stop.is_set():
+                await _sleep_unless(stop, self.backoff.next_delay())
+        await self._refresh_backlog(journal, force=True)
+
+    # -- internals -------------------------------------------------------------------------
+    async def _pump(self, journal: Journal, stop: asyncio.Event) -> None:
+        while True:
+            if stop.is_set():
+                await self._drain(journal)
+                return
+            moved = await self._send_pending(journal)
+            if self.failures:
+                self._recovered()  # healthy only once a pass went through, not on connect
+            await self._refresh_backlog(journal)
+            if not moved:
+                await _sleep_unless(stop, self.options.poll_interval_s)
+
+    async def _drain(self, journal: Journal) -> None:
+        """One last bounded pass at shutdown, so what was journalled last still goes out."""
+        try:
+            async with asyncio.timeout(self.options.drain_timeout_s):
+                while await self._send_pending(journal):
+                    pass
+        except TimeoutError:
+            log.warning("sink %s: stopping with records not yet sent; they stay in the journal "
+                        "and go out on the next start", self.name)
+
+    async def _send_pending(self, journal: Journal) -> int:
+        """One batch per kind; returns how many records were acknowledged."""
+        moved = 0
+        for kind in self.client.kinds:
+            rows = await asyncio.to_thread(
+                journal.read_after, kind, self._cursors[kind], self.options.batch_size
+            )
+            if not rows:
+                continue
+            t0 = time.monotonic()
+            try:
+                async with asyncio.timeout(self.options.send_timeout_s):
+                    await self.client.send(kind, rows)
+            except TimeoutError:
+                raise SinkUnavailable(
+                    f"{self.client.describe()} did not acknowledge {len(rows)} {kind} record(s) "
+                    f"within {self.options.send_timeout_s:g}s"
+                ) from None
+            last = rows[-1][0]
+            await asyncio.to_thread(journal.set_cursor, self.name, kind, last)
+            self._cursors[kind] = last
+            self.sent[kind] += len(rows)
+            self.last_success = datetime.now(UTC)
+            metrics.sink_sent(self.name, kind, len(rows), time.monotonic() - t0)
+            moved += len(rows)
+        return moved
+
+    async def _refresh_backlog(self, journal: Journal, *, force: bool = False) -> None:
+        now = time.monotonic()
+        if not force and now - self._backlog_at < self.options.backlog_interval_s:
+            return
+        self._backlog_at = now
+        self.backlog = await asyncio.to_thread(journal.backlog, self.name)
+        at = datetime.now(UTC)
+        for kind in self.client.kinds:
+            count, oldest = self.backlog.get(kind, (0, None))
+            age = (at - oldest).total_seconds() if oldest is not None else 0.0
+            metrics.sink_backlog(self.name, kind, count, max(0.0, age))
+
+    async def _close(self, *, graceful: bool) -> None:
+        self.connected = False
+        metrics.sink_connected(self.name, False)
+        try:
+            async with asyncio.timeout(self.options.drain_timeout_s):
+                await self.client.close(graceful=graceful)
+        except (TimeoutError, SinkUnavailable) as exc:
+            log.debug("sink %s: close: %s", self.name, exc)
+
+    def _failed(self, message: str) -> None:
+        self.failures += 1
+        self.last_error = message
+        metrics.sink_error(self.name)
+        if self.failures == 1:
+            log.error("sink %s: %s; retrying with backoff, records wait in the journal",
+                      self.name, message)
+        else:
+            log.debug("sink %s: still failing (%d): %s", self.name, self.failures, message)
+
+    def _recovered(self) -> None:
+        self.backoff.reset()
+        waiting = sum(n for n, _ in self.backlog.values())
+        log.info("sink %s: %s takes records again after %d failed attempt(s); "
+                 "about %d record(s) were waiting", self.name, self.client.describe(),
+                 self.failures, waiting)
+        self.failures = 0
+
+
+async def _sleep_unless(stop: asyncio.Event, seconds: float) -> None:
+    with contextlib.suppress(TimeoutError):
+        async with asyncio.timeout(seconds):
+            await stop.wait()

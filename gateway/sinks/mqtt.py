@@ -1,0 +1,303 @@
+"""MQTT sink: journalled records as JSON on a broker, QoS 1, with a retained gateway state.
+
+Topics (``topic_prefix`` defaults to ``leakfleet``):
+    <prefix>/<site>/<line>/<station>/result        one message per TestResult
+    <prefix>/<site>/<line>/<station>/calibration   one per CalibrationEvent
+    <prefix>/<site>/<line>/<station>/status        StationStatus, retained (the latest state)
+    <prefix>/<site>/gateway/<gateway id>/state     "online" (retained) on connect; the last
+                                                   will, also retained, is "offline"
+Payload: ``record.to_dict()`` as JSON: it carries ``schema`` and ``record_id``, so a consumer
+can de-duplicate the repeats at-least-once delivery allows. A status's line comes from the
+gateway config (statuses do not carry one). ``+``, ``#`` and ``/`` inside a name become ``_``.
+
+``send`` publishes a batch at QoS 1 and returns once the broker sent a PUBACK for every
+message (aiomqtt's ``publish`` waits for paho's on_publish), so the forwarder moves its cursor
+only over acknowledged records. Credentials: ``username`` in the config, the password only from
+``LEAKFLEET_MQTT_PASSWORD`` or ``password_file``; never in a log line.
+
+    [sinks.mqtt]
+    url = "mqtts://broker.example:8883"     # mqtt:// (1883) or mqtts:// (8883, TLS)
+    username = "gw-l1"
+    password_file = "/etc/leakfleet/mqtt-password"   # or env LEAKFLEET_MQTT_PASSWORD
+    ca_file = "/etc/leakfleet/ca.pem"        # TLS: CA bundle (default: system CAs)
+    cert_file = "..."; key_file = "..."      # TLS client certificate, when the broker wants one
+    protocol = "5"                           # "3.1.1" (default) or "5"
+    client_id = "leakfleet-gw-l1"            # default: leakfleet-<gateway id>
+"""
+
+from __future__ import annotations
+
+import asyncio
+import contextlib
+import json
+import logging
+import ssl
+import urllib.parse
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass
+from typing import Any
+
+from gateway.errors import ConfigError
+from gateway.records import Record, StationStatus
+from gateway.sinks import SinkContext, register_sink
+from gateway.sinks.forwarder import (
+    ForwarderOptions,
+    JournalForwarder,
+    SinkUnavailable,
+    read_secret,
+)
+from gateway.store.journal import KINDS, Kind
+
+__all__ = ["MqttClient", "MqttOptions", "make_mqtt", "parse_mqtt_url", "topic_for"]
+
+log = logging.getLogger(__name__)
+
+PASSWORD_ENV = "LEAKFLEET_MQTT_PASSWORD"
+_KEYS = (
+    "url", "username", "password_file", "ca_file", "cert_file", "key_file", "protocol",
+    "client_id", "topic_prefix", "keepalive_s", "kinds",
+)
+# CONNACK codes that mean "your credentials are wrong" (MQTT 3.1.1: 4, 5; MQTT 5: 0x86, 0x87)
+_AUTH_CODES = {4, 5, 134, 135}
+
+
+def parse_mqtt_url(url: str) -> tuple[str, int, bool]:
+    """``mqtt://host[:port]`` / ``mqtts://host[:port]`` → (host, port, tls)."""
+    parts = urllib.parse.urlsplit(url)
+    if parts.scheme not in ("mqtt", "mqtts") or not parts.hostname:
+        raise ValueError(f"url {url!r}: expected mqtt://host:port or mqtts://host:port")
+    if parts.password is not None:
+        raise ValueError(
+            f"url: put no password in the URL; set {PASSWORD_ENV} or password_file instead"
+        )
+    if parts.path not in ("", "/") or parts.query:
+        raise ValueError(f"url {url!r}: expected no path or query after host:port")
+    tls = parts.scheme == "mqtts"
+    try:
+        port = parts.port or (8883 if tls else 1883)
+    except ValueError as exc:
+        raise ValueError(f"url {url!r}: bad port") from exc
+    return parts.hostname, port, tls
+
+
+def _segment(name: str) -> str:
+    cleaned = name.replace("/", "_").replace("+", "_").replace("#", "_").replace("\0", "")
+    return cleaned or "_"
+
+
+def topic_for(prefix: str, site: str, line: str, station: str, kind: str) -> str:
+    return "/".join((prefix, _segment(site), _segment(line), _segment(station), kind))
+
+
+@dataclass(frozen=True)
+class MqttOptions:
+    host: str
+    port: int
+    tls: bool
+    username: str | None
+    password_file: str | None
+    ca_file: str | None
+    cert_file: str | None
+    key_file: str | None
+    v5: bool
+    client_id: str
+    topic_prefix: str
+    keepalive_s: int
+    kinds: tuple[Kind, ...]
+
+    @classmethod
+    def from_options(cls, options: Mapping[str, Any], ctx: SinkContext) -> MqttOptions:
+        unknown = sorted(set(options) - set(_KEYS) - set(ForwarderOptions.KEYS))
+        if "password" in unknown:
+            raise ValueError(
+                f"password does not belong in the config; set {PASSWORD_ENV} or password_file"
+            )
+        if unknown:
+            raise ValueError(f"unknown key(s) {', '.join(unknown)}; expected {', '.join(_KEYS)}")
+        if "url" not in options:
+            raise ValueError("url is required (mqtt://host:port or mqtts://host:port)")
+        host, port, tls = parse_mqtt_url(str(options["url"]))
+        url_user = urllib.parse.urlsplit(str(options["url"])).username
+        text = {k: _opt_text(options, k) for k in (
+            "username", "password_file", "ca_file", "cert_file", "key_file", "client_id",
+            "topic_prefix")}
+        if (text["cert_file"] is None) != (text["key_file"] is None):
+            raise ValueError("cert_file and key_file go together (the TLS client certificate)")
+        if (text["ca_file"] or text["cert_file"]) and not tls:
+            raise ValueError("ca_file/cert_file need an mqtts:// url")
+        protocol = str(options.get("protocol", "3.1.1"))
+        if protocol not in ("3.1.1", "5", "5.0"):
+            raise ValueError(f"protocol must be \"3.1.1\" or \"5\", got {protocol!r}")
+        keepalive = options.get("keepalive_s", 30)
+        if isinstance(keepalive, bool) or not isinstance(keepalive, int) or keepalive < 5:
+            raise ValueError(f"keepalive_s must be an integer >= 5, got {keepalive!r}")
+        return cls(
+            host=host, port=port, tls=tls,
+            username=text["username"] or url_user,
+            password_file=text["password_file"],
+            ca_file=text["ca_file"], cert_file=text["cert_file"], key_file=text["key_file"],
+            v5=protocol.startswith("5"),
+            client_id=text["client_id"] or f"leakfleet-{ctx.gateway_id}",
+            topic_prefix=(text["topic_prefix"] or "leakfleet").strip("/"),
+            keepalive_s=keepalive,
+            kinds=_kinds(options.get("kinds")),
+        )
+
+
+def _opt_text(options: Mapping[str, Any], key: str) -> str | None:
+    value = options.get(key)
+    if value is None:
+        return None
+    if not isinstance(value, str) or not value.strip():
+        raise ValueError(f"{key} must be a non-empty string, got {value!r}")
+    return value
+
+
+def _kinds(value: Any) -> tuple[Kind, ...]:
+    if value is None:
+        return KINDS
+    if not isinstance(value, list) or not value or any(v not in KINDS for v in value):
+        raise ValueError(f"kinds must be a list drawn from {', '.join(KINDS)}, got {value!r}")
+    return tuple(k for k in KINDS if k in value)
+
+
+class MqttClient:
+    """``SinkClient`` for one broker (aiomqtt 2.x; a fresh ``aiomqtt.Client`` per connection)."""
+
+    def __init__(
+        self, opts: MqttOptions, ctx: SinkContext, sink_name: str, *, timeout_s: float = 10.0
+    ) -> None:
+        self.opts = opts
+        self.timeout_s = timeout_s  # a PUBACK that does not come within this is a failure
+        self.ctx = ctx
+        self.kinds = opts.kinds
+        self.sink_name = sink_name
+        self.state_topic = "/".join(
+            (opts.topic_prefix, _segment(ctx.site), "gateway", _segment(ctx.gateway_id), "state")
+        )
+        self._client: Any = None
+        self._stack: contextlib.AsyncExitStack | None = None
+        self._password: str | None = None
+        self._tls_context: ssl.SSLContext | None = None
+        self._prepared = False
+
+    def describe(self) -> str:
+        scheme = "mqtts" if self.opts.tls else "mqtt"
+        who = f"{self.opts.username}@" if self.opts.username else ""
+        return f"{scheme}://{who}{self.opts.host}:{self.opts.port}"
+
+    def _prepare(self) -> None:
+        """Secrets and TLS files, read once at the first connect (a ConfigError disables us)."""
+        if self._prepared:
+            return
+        what = f"sink {self.sink_name}"
+        self._password = read_secret(PASSWORD_ENV, self.opts.password_file, what)
+        if self._password and not self.opts.username:
+            raise ConfigError(f"{what}: a password is set but no username")
+        if self.opts.tls:
+            try:
+                context = ssl.create_default_context(cafile=self.opts.ca_file)
+                if self.opts.cert_file and self.opts.key_file:
+                    context.load_cert_chain(self.opts.cert_file, self.opts.key_file)
+            except (OSError, ssl.SSLError) as exc:
+                raise ConfigError(f"{what}: TLS files: {exc}") from exc
+            self._tls_context = context
+        self._prepared = True
+
+    async def connect(self) -> None:
+        import aiomqtt
+
+        self._prepare()
+        will = aiomqtt.Will(self.state_topic, b"offline", qos=1, retain=True)
+        client = aiomqtt.Client(
+            self.opts.host,
+            self.opts.port,
+            username=self.opts.username,
+            password=self._password,
+            identifier=self.opts.client_id,
+            will=will,
+            tls_context=self._tls_context,
+            protocol=aiomqtt.ProtocolVersion.V5 if self.opts.v5 else aiomqtt.ProtocolVersion.V311,
+            clean_session=None if self.opts.v5 else True,
+            keepalive=self.opts.keepalive_s,
+            timeout=self.timeout_s,
+            logger=logging.getLogger("gateway.sinks.mqtt.paho"),
+        )
+        stack = contextlib.AsyncExitStack()
+        try:
+            await stack.enter_async_context(client)
+        except aiomqtt.MqttCodeError as exc:
+            await stack.aclose()
+            raise SinkUnavailable(self._refusal(exc)) from None
+        except aiomqtt.MqttError as exc:
+            await stack.aclose()
+            raise SinkUnavailable(f"cannot connect to {self.describe()}: {exc}") from None
+        self._client, self._stack = client, stack
+        await self._publish(self.state_topic, b"online", retain=True)
+
+    def _refusal(self, exc: Any) -> str:
+        rc = exc.rc
+        code = getattr(rc, "value", rc)
+        if code in _AUTH_CODES:
+            user = f"user {self.opts.username!r}" if self.opts.username else "anonymous login"
+            return (
+                f"{self.describe()} refused the login ({user}): {exc}; check username and "
+                f"{PASSWORD_ENV} / password_file"
+            )
+        return f"{self.describe()} refused the connection: {exc}"
+
+    async def _publish(self, topic: str, payload: bytes, *, retain: bool) -> None:
+        import aiomqtt
+
+        if self._client is None:
+            raise SinkUnavailable(f"not connected to {self.describe()}")
+        try:
+            await self._client.publish(topic, payload, qos=1, retain=retain)
+        except aiomqtt.MqttError as exc:
+            raise SinkUnavailable(f"publish to {self.describe()} failed: {exc}") from None
+
+    def topic(self, record: Record) -> str:
+        line = self.ctx.stations.get(record.station) if isinstance(record, StationStatus) else (
+            record.line)
+        return topic_for(
+            self.opts.topic_prefix, self.ctx.site, line or "_", record.station, record.kind
+        )
+
+    async def send(self, kind: Kind, rows: Sequence[tuple[int, Record]]) -> None:
+        # paho puts each message on the wire in call order (so the last status of a station is
+        # the one left retained); tasks start in creation order and call paho before awaiting.
+        retain = kind == "status"
+        try:
+            async with asyncio.TaskGroup() as tg:
+                for _, record in rows:
+                    payload = json.dumps(record.to_dict(), separators=(",", ":")).encode()
+                    tg.create_task(self._publish(self.topic(record), payload, retain=retain))
+        except* SinkUnavailable as group:
+            raise SinkUnavailable(str(group.exceptions[0])) from None
+
+    async def close(self, *, graceful: bool) -> None:
+        client, stack = self._client, self._stack
+        self._client, self._stack = None, None
+        if client is None or stack is None:
+            return
+        if graceful:
+            # a clean DISCONNECT suppresses the will, so say "offline" ourselves
+            with contextlib.suppress(SinkUnavailable):
+                self._client = client
+                await self._publish(self.state_topic, b"offline", retain=True)
+            self._client = None
+        import aiomqtt
+
+        with contextlib.suppress(aiomqtt.MqttError):
+            await stack.aclose()
+
+
+def make_mqtt(name: str, options: Mapping[str, Any], ctx: SinkContext) -> JournalForwarder:
+    """``[sinks.<name>] type = "mqtt"``: validate options now, connect when run."""
+    opts = MqttOptions.from_options(options, ctx)
+    fwd = ForwarderOptions.from_options(options)
+    client = MqttClient(opts, ctx, name, timeout_s=fwd.send_timeout_s)
+    return JournalForwarder(name, client, fwd)
+
+
+register_sink("mqtt")(make_mqtt)

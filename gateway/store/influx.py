@@ -1,0 +1,528 @@
+"""InfluxStore: the QueryStore over InfluxDB, in InfluxQL through the v1 ``/query`` API.
+
+Reads what the InfluxDB sink wrote (measurements ``leak_results``, ``leak_calibrations``,
+``station_status``; see gateway.sinks.lineprotocol), so the dashboard and ``leakfleet report``
+can run on a central InfluxDB exactly as on a gateway's journal. ``influxdb://host:8086/db``
+talks to 1.x (or 3 Core); ``influxdb2://host:8086?org=..&bucket=..`` to 2.x's v1 compatibility
+endpoint (the bucket needs a DBRP mapping, see deploy/influxdb.md) with the token from
+``LEAKFLEET_INFLUX_TOKEN`` in an ``Authorization: Token`` header.
+
+Where the work happens, honestly:
+- row queries, counts per verdict, leak-rate statistics (COUNT, MEAN, STDDEV, MIN, MAX) and
+  hour/day buckets (``GROUP BY time(1h|1d)``, UTC-aligned like the SQLite store's) run in
+  InfluxQL; group columns (station, line, program) are tags, so ``GROUP BY`` is native;
+- the histogram is one COUNT statement per bin (``WHERE value >= lo AND value < hi``), all in
+  one request;
+- ``first_pass_counts`` needs each part's first and last test, but InfluxQL cannot group by a
+  field (the part id is a field on purpose: it is high-cardinality), so that one query fetches
+  the narrow columns (time, part_id, verdict and the group tags) and groups in pandas;
+- quarantine rows are not forwarded to InfluxDB: ``quarantine()`` is always empty here.
+Every value travels as a bound parameter (``params`` of ``/query``); identifiers come only from
+whitelists. Frames have the SqliteStore's columns and conventions (gateway.store.base).
+"""
+
+from __future__ import annotations
+
+import itertools
+import math
+import threading
+from collections.abc import Sequence
+from datetime import datetime
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from gateway.errors import ConfigError, StoreError
+from gateway.sinks.influx_http import (
+    PASSWORD_ENV,
+    TOKEN_ENV,
+    InfluxHttp,
+    InfluxHttpError,
+    parse_influx_url,
+)
+from gateway.sinks.lineprotocol import MEASUREMENTS, timestamp_ns
+from gateway.store.base import GROUP_COLUMNS, HISTOGRAM_VALUES, Bucket, GroupColumn
+from gateway.store.schema import (
+    CALIBRATION_COLUMNS,
+    QUARANTINE_COLUMNS,
+    RESULT_COLUMNS,
+    STATUS_COLUMNS,
+)
+
+__all__ = ["InfluxStore", "open_influx_store"]
+
+_RESULTS = MEASUREMENTS["result"]
+_CALS = MEASUREMENTS["calibration"]
+_STATUS = MEASUREMENTS["status"]
+_RESULT_SELECT = ("seq", "record_id", *RESULT_COLUMNS)
+_CALIBRATION_SELECT = ("seq", "record_id", *CALIBRATION_COLUMNS)
+_STATUS_SELECT = ("seq", "record_id", *STATUS_COLUMNS)
+_SERIES_COLUMNS = (
+    "ended_at", "program", "master_loss_pa", "standard_loss_pa", "standard_sccm", "ratio",
+    "sensitivity", "passed", "reason",
+)  # fmt: skip
+_INTERVAL = {"hour": "1h", "day": "1d"}
+_BUCKET_NS = {"hour": 3_600 * 10**9, "day": 86_400 * 10**9}
+_INT_COLUMNS = ("seq", "cycle")
+_FLOAT_COLUMNS = (
+    "test_pressure_pa", "pressure_loss_pa", "leak_rate_sccm", "reject_limit_sccm", "fill_s",
+    "stabilise_s", "test_s", "lower_limit_sccm", "temperature_c", "master_loss_pa",
+    "standard_loss_pa", "standard_sccm", "standard_ref_pressure_pa", "ratio", "sensitivity",
+)  # fmt: skip
+
+
+def _ns(name: str, value: datetime | None) -> int | None:
+    if value is None:
+        return None
+    if not isinstance(value, datetime) or value.utcoffset() is None:
+        raise ValueError(f"{name} must be a timezone-aware datetime, got {value!r}")
+    return timestamp_ns(value)
+
+
+def _utc(ns: pd.Series) -> pd.Series:
+    """ns epochs → tz-aware UTC timestamps at µs resolution (as the SQLite store gives)."""
+    return pd.to_datetime(ns.astype("int64") // 1000, unit="us", utc=True)
+
+
+class _Where:
+    """``AND``-ed InfluxQL conditions from fixed fragments; values as bound parameters."""
+
+    def __init__(self) -> None:
+        self.parts: list[str] = []
+        self.params: dict[str, Any] = {}
+
+    def time(self, since: datetime | None, until: datetime | None) -> _Where:
+        lo, hi = _ns("since", since), _ns("until", until)
+        if lo is not None and hi is not None and hi < lo:
+            raise ValueError("until is before since")
+        if lo is not None:
+            self.parts.append("time >= $since")
+            self.params["since"] = lo
+        if hi is not None:
+            self.parts.append("time < $until")
+            self.params["until"] = hi
+        return self
+
+    def eq(self, column: str, value: str | None) -> _Where:
+        if value is not None:
+            name = f"p{len(self.params)}"
+            self.parts.append(f'"{column}" = ${name}')
+            self.params[name] = value
+        return self
+
+    def raw(self, fragment: str, **params: Any) -> _Where:
+        self.parts.append(fragment)
+        self.params.update(params)
+        return self
+
+    def sql(self) -> str:
+        return (" WHERE " + " AND ".join(self.parts)) if self.parts else ""
+
+    def copy(self) -> _Where:
+        other = _Where()
+        other.parts, other.params = list(self.parts), dict(self.params)
+        return other
+
+
+def _group_columns(by: Sequence[str]) -> list[str]:
+    cols = list(by)
+    bad = [c for c in cols if c not in GROUP_COLUMNS]
+    if bad:
+        raise ValueError(f"cannot group by {bad}; allowed: {', '.join(GROUP_COLUMNS)}")
+    return cols
+
+
+def _check_bucket(bucket: Bucket | None) -> None:
+    if bucket is not None and bucket not in _INTERVAL:
+        raise ValueError(f"bucket must be 'hour', 'day' or None, got {bucket!r}")
+
+
+class InfluxStore:
+    """QueryStore over one InfluxDB database (or 2.x bucket); see the module docstring."""
+
+    def __init__(self, http: InfluxHttp) -> None:
+        self.http = http
+        self._lock = threading.Lock()
+
+    # -- plumbing -------------------------------------------------------------------------------
+    def _query(self, q: str, params: dict[str, Any] | None = None) -> list[dict[str, Any]]:
+        """Series of every statement: ``[{"statement", "tags", "columns", "values"}]``."""
+        try:
+            with self._lock:
+                results = self.http.query(q, bind=params)
+        except InfluxHttpError as exc:
+            raise StoreError(f"{self.http.target.describe()}: {exc}") from None
+        out: list[dict[str, Any]] = []
+        for result in results:
+            for series in result.get("series", []):
+                out.append({
+                    "statement": result.get("statement_id", 0),
+                    "tags": series.get("tags") or {},
+                    "columns": series["columns"],
+                    "values": series.get("values") or [],
+                })  # fmt: skip
+        return out
+
+    def _frame(self, series: list[dict[str, Any]]) -> pd.DataFrame:
+        rows: list[dict[str, Any]] = []
+        for s in series:
+            for values in s["values"]:
+                rows.append({**s["tags"], **dict(zip(s["columns"], values, strict=True))})
+        return pd.DataFrame(rows)
+
+    def _records(self, frame: pd.DataFrame, columns: Sequence[str], time_col: str) -> pd.DataFrame:
+        """Raw points → canonical columns, built the way SqliteStore builds its frames (from
+        Python values), so dtypes and missing-value markers come out the same."""
+        if frame.empty:
+            return pd.DataFrame.from_records([], columns=list(columns))
+        frame = frame.rename(columns={"time": time_col})
+        if "received_at_ns" in frame.columns:
+            frame["received_at"] = frame["received_at_ns"]
+        converters = [_converter(c, time_col) for c in columns]
+        present = [c in frame.columns for c in columns]
+        rows = []
+        for rec in frame.to_dict("records"):
+            rows.append(tuple(
+                conv(rec[c]) if ok else None
+                for c, conv, ok in zip(columns, converters, present, strict=True)))
+        out = pd.DataFrame.from_records(rows, columns=list(columns))
+        for col in (time_col, "received_at"):
+            if col in out.columns:
+                out[col] = pd.to_datetime(out[col].astype("int64"), unit="us", utc=True)
+        if "passed" in out.columns:
+            out["passed"] = out["passed"].astype(bool)
+        return out
+
+    def _rows(
+        self, measurement: str, columns: Sequence[str], where: _Where, time_col: str,
+        limit: int | None, newest_first: bool,
+    ) -> pd.DataFrame:
+        order = " ORDER BY time DESC" if newest_first else ""
+        lim = ""
+        if limit is not None:
+            if isinstance(limit, bool) or not isinstance(limit, int) or limit < 0:
+                raise ValueError(f"limit must be a non-negative integer, got {limit!r}")
+            lim = f" LIMIT {int(limit)}"
+        frame = self._frame(self._query(f"SELECT * FROM {measurement}{where.sql()}{order}{lim}",
+                                        where.params))
+        out = self._records(frame, columns, time_col)
+        if not out.empty:
+            out = out.sort_values([time_col, "seq"], ascending=not newest_first, kind="stable")
+        return out.reset_index(drop=True)
+
+    def _span(self, measurement: str, where: _Where) -> tuple[int, int] | None:
+        """First and last point time, for explicit GROUP BY time bounds (InfluxQL would
+        otherwise start at the epoch and stop at now())."""
+        series = self._query(
+            f"SELECT FIRST(record_id) FROM {measurement}{where.sql()}; "
+            f"SELECT LAST(record_id) FROM {measurement}{where.sql()}", where.params)
+        times = {s["statement"]: s["values"][0][0] for s in series if s["values"]}
+        if 0 not in times or 1 not in times:
+            return None
+        return int(times[0]), int(times[1])
+
+    def _bounded(self, measurement: str, where: _Where, since: datetime | None,
+                 until: datetime | None) -> _Where | None:
+        """``where`` with both time bounds set (None: nothing in range)."""
+        bounded = where.copy()
+        if since is not None and until is not None:
+            return bounded.time(since, until)
+        span = self._span(measurement, where.copy().time(since, until))
+        if span is None:
+            return None
+        lo = _ns("since", since) if since is not None else span[0]
+        hi = _ns("until", until) if until is not None else span[1] + 1
+        return bounded.raw("time >= $since AND time < $until", since=lo, until=hi)
+
+    def _grouped(
+        self, select: str, by: Sequence[str], bucket: Bucket | None, where: _Where | None,
+        extra_tags: Sequence[str] = (),
+    ) -> pd.DataFrame:
+        """One aggregate statement grouped by tags [and time]; rows with tags + columns."""
+        if where is None:
+            return pd.DataFrame()
+        tags = [*by, *extra_tags]
+        group = [f'"{t}"' for t in tags]
+        if bucket is not None:
+            group.append(f"time({_INTERVAL[bucket]})")
+        clause = f" GROUP BY {', '.join(group)}" if group else ""
+        fill = " fill(none)" if bucket is not None else ""
+        frame = self._frame(self._query(
+            f"SELECT {select} FROM {_RESULTS}{where.sql()}{clause}{fill}", where.params))
+        if frame.empty:
+            return frame
+        if bucket is not None:
+            frame["bucket"] = _utc(frame["time"])
+        return frame.drop(columns=["time"])
+
+    # -- rows -----------------------------------------------------------------------------------
+    def stations(self) -> pd.DataFrame:
+        def newest_line(measurement: str) -> dict[str, str | None]:
+            best: dict[str, tuple[int, str | None]] = {}
+            q = f'SELECT LAST(record_id) FROM {measurement} GROUP BY "station", "line"'
+            for s in self._query(q):
+                station, line = s["tags"].get("station"), s["tags"].get("line") or None
+                if not station or not s["values"]:
+                    continue
+                t = int(s["values"][0][0])
+                if station not in best or t >= best[station][0]:
+                    best[station] = (t, line)
+            return {k: v[1] for k, v in best.items()}
+
+        # as SqliteStore: the line of the newest result, else of the newest calibration
+        from_results, from_cals = newest_line(_RESULTS), newest_line(_CALS)
+        every = set(from_results) | set(from_cals)
+        for s in self._query(f'SHOW TAG VALUES FROM {_STATUS} WITH KEY = "station"'):
+            every.update(str(v[1]) for v in s["values"])
+        rows = [(st, from_results.get(st) or from_cals.get(st)) for st in sorted(every)]
+        return pd.DataFrame(rows, columns=["station", "line"], dtype=object)
+
+    def results(
+        self, since: datetime | None = None, until: datetime | None = None, *,
+        station: str | None = None, line: str | None = None, program: str | None = None,
+        part_id: str | None = None, limit: int | None = None, newest_first: bool = False,
+    ) -> pd.DataFrame:
+        where = (_Where().time(since, until).eq("station", station).eq("line", line)
+                 .eq("program", program).eq("part_id", part_id))
+        return self._rows(_RESULTS, _RESULT_SELECT, where, "ended_at", limit, newest_first)
+
+    def calibrations(
+        self, since: datetime | None = None, until: datetime | None = None, *,
+        station: str | None = None, line: str | None = None, program: str | None = None,
+        limit: int | None = None, newest_first: bool = False,
+    ) -> pd.DataFrame:
+        where = (_Where().time(since, until).eq("station", station).eq("line", line)
+                 .eq("program", program))
+        return self._rows(_CALS, _CALIBRATION_SELECT, where, "ended_at", limit, newest_first)
+
+    def statuses(
+        self, since: datetime | None = None, until: datetime | None = None, *,
+        station: str | None = None, limit: int | None = None, newest_first: bool = False,
+    ) -> pd.DataFrame:
+        where = _Where().time(since, until).eq("station", station)
+        return self._rows(_STATUS, _STATUS_SELECT, where, "at", limit, newest_first)
+
+    def quarantine(
+        self, since: datetime | None = None, until: datetime | None = None, *,
+        station: str | None = None, limit: int | None = None, newest_first: bool = False,
+    ) -> pd.DataFrame:
+        _Where().time(since, until)  # same argument checks as everywhere else
+        columns = ("seq", *QUARANTINE_COLUMNS)
+        return pd.DataFrame({c: pd.Series(dtype=_empty_dtype(c)) for c in columns})
+
+    def _latest(self, measurement: str, columns: Sequence[str], time_col: str) -> pd.DataFrame:
+        frame = self._frame(self._query(
+            f'SELECT * FROM {measurement} GROUP BY "station" ORDER BY time DESC LIMIT 1'))
+        out = self._records(frame, columns, time_col)
+        return out.sort_values("station", kind="stable").reset_index(drop=True)
+
+    def latest_results_per_station(self) -> pd.DataFrame:
+        return self._latest(_RESULTS, _RESULT_SELECT, "ended_at")
+
+    def latest_status_per_station(self) -> pd.DataFrame:
+        return self._latest(_STATUS, _STATUS_SELECT, "at")
+
+    def latest_calibration_per_station(self) -> pd.DataFrame:
+        return self._latest(_CALS, _CALIBRATION_SELECT, "ended_at")
+
+    # -- aggregates -----------------------------------------------------------------------------
+    def verdict_counts(
+        self, since: datetime | None = None, until: datetime | None = None, *,
+        by: Sequence[GroupColumn] = ("station",), bucket: Bucket | None = None,
+        station: str | None = None, line: str | None = None, program: str | None = None,
+    ) -> pd.DataFrame:
+        names = _group_columns(by)
+        _check_bucket(bucket)
+        where = _Where().eq("station", station).eq("line", line).eq("program", program)
+        if bucket is not None:
+            bounded = self._bounded(_RESULTS, where, since, until)
+        else:
+            bounded = where.time(since, until)
+        frame = self._grouped('COUNT("record_id") AS n', names, bucket, bounded, ("verdict",))
+        cols = [*names, *(["bucket"] if bucket else []), "verdict", "n"]
+        if frame.empty:
+            return _empty(cols)
+        frame["n"] = frame["n"].astype("int64")
+        return frame[cols].sort_values(cols[:-1], kind="stable").reset_index(drop=True)
+
+    def first_pass_counts(
+        self, since: datetime | None = None, until: datetime | None = None, *,
+        by: Sequence[GroupColumn] = ("station",), bucket: Bucket | None = None,
+        station: str | None = None, line: str | None = None, program: str | None = None,
+    ) -> pd.DataFrame:
+        names = _group_columns(by)
+        _check_bucket(bucket)
+        where = (_Where().time(since, until).eq("station", station).eq("line", line)
+                 .eq("program", program))
+        tags = ", ".join(f'"{t}"' for t in names)
+        select = '"part_id", "verdict", "seq"' + (f", {tags}" if tags else "")
+        # narrow rows; InfluxQL cannot group by a field (see the module docstring)
+        frame = self._frame(self._query(f"SELECT {select} FROM {_RESULTS}{where.sql()}",
+                                        where.params))
+        counts = ["parts", "first_pass", "final_pass", "tests", "no_part_id"]
+        cols = [*names, *(["bucket"] if bucket else []), *counts]
+        if frame.empty:
+            return _empty(cols)
+        if "part_id" not in frame.columns:
+            frame["part_id"] = None
+        frame = frame.sort_values(["time", "seq"], kind="stable")
+        if bucket is not None:
+            width = _BUCKET_NS[bucket]
+            frame["bucket_ns"] = (frame["time"].astype("int64") // width) * width
+        keys = [*names, *(["bucket_ns"] if bucket else [])]
+        with_id = frame[frame["part_id"].notna()]
+        no_id = frame[frame["part_id"].isna()]
+        if not with_id.empty:
+            grouped = with_id.groupby("part_id", sort=False)
+            first = grouped.head(1).set_index("part_id")
+            last = grouped.tail(1).set_index("part_id")
+            parts = first[keys].copy() if keys else pd.DataFrame(index=first.index)
+            parts["first_pass"] = (first["verdict"] == "pass").astype("int64")
+            parts["final_pass"] = (last["verdict"] == "pass").astype("int64").reindex(parts.index)
+            parts["tests"] = grouped.size().reindex(parts.index).astype("int64")
+            parts["parts"] = 1
+            parts["no_part_id"] = 0
+        else:
+            parts = pd.DataFrame(columns=[*keys, *counts])
+        loose = no_id[keys].copy() if keys else pd.DataFrame(index=no_id.index)
+        for c in ("parts", "first_pass", "final_pass", "tests"):
+            loose[c] = 0
+        loose["no_part_id"] = 1
+        both = pd.concat([parts.reset_index(drop=True), loose.reset_index(drop=True)])
+        if keys:
+            agg = both.groupby(keys, sort=True)[counts].sum().reset_index()
+        else:
+            agg = pd.DataFrame([both[counts].sum()])
+        agg[counts] = agg[counts].astype("int64")
+        if bucket is not None:
+            agg["bucket"] = _utc(agg["bucket_ns"])
+        return agg[cols].reset_index(drop=True)
+
+    def histogram(
+        self, since: datetime | None, until: datetime | None, edges: Sequence[float], *,
+        station: str | None = None, line: str | None = None, program: str | None = None,
+        value: str = "leak_rate_sccm",
+    ) -> pd.DataFrame:
+        if value not in HISTOGRAM_VALUES:
+            raise ValueError(f"cannot bin {value!r}; allowed: {', '.join(HISTOGRAM_VALUES)}")
+        e = [float(x) for x in edges]
+        if len(e) < 2 or not all(math.isfinite(x) for x in e):
+            raise ValueError("edges must be at least two finite numbers")
+        if any(b <= a for a, b in itertools.pairwise(e)):
+            raise ValueError("edges must be strictly increasing")
+        where = (_Where().time(since, until).eq("station", station).eq("line", line)
+                 .eq("program", program))
+        params = dict(where.params)
+        params.update({f"e{i}": x for i, x in enumerate(e)})
+        base = where.sql() + (" AND " if where.parts else " WHERE ")
+        v = f'"{value}"'
+        last = len(e) - 1
+        conds = [f"{v} < $e0"]  # under
+        conds += [f"{v} >= $e{i} AND {v} < $e{i + 1}" for i in range(last - 1)]
+        conds.append(f"{v} >= $e{last - 1} AND {v} <= $e{last}")  # numpy: last bin closed
+        conds.append(f"{v} > $e{last}")  # over
+        q = "; ".join(f"SELECT COUNT({v}) FROM {_RESULTS}{base}{c}" for c in conds)
+        counts = np.zeros(len(conds), dtype="int64")
+        for s in self._query(q, params):
+            if s["values"]:
+                counts[s["statement"]] = int(s["values"][0][1])
+        lo = np.array([-math.inf, *e])
+        hi = np.array([*e, math.inf])
+        return pd.DataFrame({"bin_lo": lo, "bin_hi": hi, "n": counts})
+
+    def leak_summary(
+        self, since: datetime | None = None, until: datetime | None = None, *,
+        by: Sequence[GroupColumn] = ("station",), bucket: Bucket | None = None,
+        station: str | None = None, line: str | None = None, program: str | None = None,
+    ) -> pd.DataFrame:
+        names = _group_columns(by)
+        _check_bucket(bucket)
+        # an aborted test measured nothing: its reading would only distort the statistics
+        where = (_Where().eq("station", station).eq("line", line).eq("program", program)
+                 .raw('"verdict" <> $aborted', aborted="aborted"))
+        bounded = (self._bounded(_RESULTS, where, since, until) if bucket is not None
+                   else where.time(since, until))
+        # STDDEV is the sample standard deviation (n - 1), null for a single point
+        frame = self._grouped(
+            'COUNT("leak_rate_sccm") AS n, MEAN("leak_rate_sccm") AS mean, '
+            'STDDEV("leak_rate_sccm") AS std, MIN("leak_rate_sccm") AS min, '
+            'MAX("leak_rate_sccm") AS max', names, bucket, bounded)
+        cols = [*names, *(["bucket"] if bucket else []), "n", "mean", "std", "min", "max"]
+        if frame.empty:
+            return _empty(cols)
+        frame = frame[frame["n"].notna() & (frame["n"] > 0)]
+        frame["n"] = frame["n"].astype("int64")
+        for c in ("mean", "std", "min", "max"):
+            frame[c] = frame[c].astype(float)
+        frame.loc[frame["n"] < 2, "std"] = np.nan
+        keys = cols[: len(names) + (1 if bucket else 0)]
+        if keys:
+            frame = frame.sort_values(keys, kind="stable")
+        return frame[cols].reset_index(drop=True)
+
+    def calibration_series(
+        self, station: str, program: str | None = None, since: datetime | None = None,
+        until: datetime | None = None,
+    ) -> pd.DataFrame:
+        where = _Where().eq("station", station).eq("program", program).time(since, until)
+        frame = self._frame(self._query(f"SELECT * FROM {_CALS}{where.sql()}", where.params))
+        out = self._records(frame, ("seq", *_SERIES_COLUMNS), "ended_at")
+        if not out.empty:
+            out = out.sort_values(["ended_at", "seq"], kind="stable")
+        return out[list(_SERIES_COLUMNS)].reset_index(drop=True)
+
+    def close(self) -> None:
+        """Nothing held open: every query is its own HTTP request."""
+
+    def __enter__(self) -> InfluxStore:
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        self.close()
+
+
+def _converter(column: str, time_col: str) -> Any:
+    def missing(value: Any) -> bool:
+        return value is None or (isinstance(value, float) and math.isnan(value))
+
+    if column in (time_col, "received_at"):
+        return lambda v: None if missing(v) else int(v) // 1000  # ns → µs
+    if column in _INT_COLUMNS:
+        return lambda v: None if missing(v) else int(v)
+    if column in _FLOAT_COLUMNS:
+        return lambda v: None if missing(v) else float(v)
+    return lambda v: None if missing(v) else v
+
+
+def _empty_dtype(column: str) -> Any:
+    if column in ("ended_at", "received_at", "at", "bucket"):
+        return "datetime64[us, UTC]"
+    if column in _INT_COLUMNS or column in ("n", "line_no"):
+        return "int64"
+    if column in _FLOAT_COLUMNS:
+        return float
+    if column == "passed":
+        return bool
+    return object
+
+
+def _empty(columns: Sequence[str]) -> pd.DataFrame:
+    return pd.DataFrame({c: pd.Series(dtype=_empty_dtype(c)) for c in columns})
+
+
+def open_influx_store(url: str) -> InfluxStore:
+    """``influxdb://host:port/db`` or ``influxdb2://host:port?org=..&bucket=..`` → InfluxStore."""
+    import os
+
+    try:
+        target = parse_influx_url(url)
+    except ValueError as exc:
+        raise ConfigError(f"store URL: {exc}") from None
+    if target.version == 2:
+        token = os.environ.get(TOKEN_ENV)
+        if not token:
+            raise ConfigError(f"store URL {target.describe()}: set {TOKEN_ENV} to read 2.x")
+        return InfluxStore(InfluxHttp(target, token=token))
+    return InfluxStore(InfluxHttp(target, password=os.environ.get(PASSWORD_ENV)))
+

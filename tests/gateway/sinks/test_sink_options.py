@@ -1,0 +1,113 @@
+"""Sink tables and URLs: mistakes are one clear ValueError; secrets never come from config."""
+
+from __future__ import annotations
+
+import json
+
+import pytest
+
+from gateway import metrics
+from gateway.records import SCHEMA_VERSION, record_from_dict
+from gateway.sinks import REGISTRY
+from gateway.sinks.cli import sinks_from_cli
+from gateway.sinks.influx import make_influx
+from gateway.sinks.influx_http import parse_influx_url
+from gateway.sinks.mqtt import MqttClient, MqttOptions, make_mqtt, parse_mqtt_url, topic_for
+from tests.integration.sinks_data import ctx, result, status
+
+
+def test_registry_names() -> None:
+    assert {"mqtt", "influxdb", "influx"} <= set(REGISTRY)
+
+
+def test_mqtt_urls() -> None:
+    assert parse_mqtt_url("mqtt://broker") == ("broker", 1883, False)
+    assert parse_mqtt_url("mqtts://broker") == ("broker", 8883, True)
+    assert parse_mqtt_url("mqtt://127.0.0.1:1999") == ("127.0.0.1", 1999, False)
+    for bad in ("http://x", "mqtt://", "mqtt://h:1/path", "mqtt://u:pw@h:1"):
+        with pytest.raises(ValueError):
+            parse_mqtt_url(bad)
+
+
+def test_mqtt_password_never_from_config() -> None:
+    with pytest.raises(ValueError, match="LEAKFLEET_MQTT_PASSWORD"):
+        make_mqtt("m", {"url": "mqtt://h", "password": "x"}, ctx())
+    with pytest.raises(ValueError, match="unknown key"):
+        make_mqtt("m", {"url": "mqtt://h", "colour": "x"}, ctx())
+    with pytest.raises(ValueError, match="mqtts"):
+        make_mqtt("m", {"url": "mqtt://h", "ca_file": "/ca.pem"}, ctx())
+    with pytest.raises(ValueError, match="go together"):
+        make_mqtt("m", {"url": "mqtts://h", "cert_file": "/c.pem"}, ctx())
+
+
+def test_topics_and_payload_schema() -> None:
+    c = ctx()
+    client = MqttClient(MqttOptions.from_options({"url": "mqtt://h"}, c), c, "m")
+    r = result("L1-S1", 4)
+    assert client.topic(r) == "leakfleet/northmere/L1/L1-S1/result"
+    assert client.topic(status("L2-S1", 1, "idle")) == "leakfleet/northmere/L2/L2-S1/status"
+    assert client.state_topic == "leakfleet/northmere/gateway/gw-test/state"
+    assert topic_for("lf", "a/b", "L+1", "S#1", "result") == "lf/a_b/L_1/S_1/result"
+    assert client.opts.client_id == "leakfleet-gw-test"
+    payload = json.loads(json.dumps(r.to_dict()))
+    assert payload["schema"] == SCHEMA_VERSION and payload["record_id"] == r.record_id
+    assert record_from_dict(payload) == r  # a consumer rebuilds the canonical record
+
+
+def test_influx_urls() -> None:
+    v1 = parse_influx_url("influxdb://db.example:8086/leakfleet?rp=one_year")
+    assert (v1.version, v1.database, v1.retention_policy, v1.port) == (1, "leakfleet",
+                                                                       "one_year", 8086)
+    v2 = parse_influx_url("influxdb2://db.example?org=northmere&bucket=leak&tls=true")
+    assert (v2.version, v2.org, v2.database, v2.tls) == (2, "northmere", "leak", True)
+    assert v2.base_url == "https://db.example:8086"
+    for bad in ("influxdb://h", "influxdb2://h?org=o", "influxdb://u:p@h/db", "http://h/db",
+                "influxdb://h/db?x=1"):
+        with pytest.raises(ValueError):
+            parse_influx_url(bad)
+
+
+def test_influx_token_never_from_config() -> None:
+    with pytest.raises(ValueError, match="LEAKFLEET_INFLUX_TOKEN"):
+        make_influx("i", {"url": "influxdb2://h?org=o&bucket=b", "token": "t"}, ctx())
+
+
+def test_cli_flags_to_sink_tables() -> None:
+    assert sinks_from_cli(None, None) == {}
+    got = sinks_from_cli("mqtts://broker:8883", "influxdb://h:8086/lf",
+                         {"mqtt": {"type": "mqtt", "url": "mqtt://old", "ca_file": "/ca"}})
+    assert got["mqtt"] == {"type": "mqtt", "url": "mqtts://broker:8883", "ca_file": "/ca"}
+    assert got["influx"] == {"type": "influxdb", "url": "influxdb://h:8086/lf"}
+    with pytest.raises(ValueError, match="--influx"):
+        sinks_from_cli(None, "influxdb://h")
+
+
+def test_metrics_endpoint_on_loopback() -> None:
+    import urllib.request
+
+    metrics.records_received("L1-S1", "result", 3)
+    metrics.records_rejected("L1-S1")
+    metrics.station_state("L1-S1", "testing")
+    metrics.poll_latency("L1-S1", 0.02)
+    server = metrics.serve(0)
+    try:
+        assert server.host == "127.0.0.1"
+        with urllib.request.urlopen(server.url, timeout=5) as resp:
+            text = resp.read().decode()
+    finally:
+        server.close()
+    assert 'leakfleet_records_received_total{kind="result",station="L1-S1"} 3.0' in text
+    assert 'leakfleet_station_state{leakfleet_station_state="testing",station="L1-S1"} 1.0' in text
+    assert "leakfleet_poll_latency_seconds_bucket" in text
+
+
+def test_missing_server_skips_locally_and_fails_in_ci(monkeypatch: pytest.MonkeyPatch) -> None:
+    from tests.support import servers
+
+    monkeypatch.setattr(servers.shutil, "which", lambda *a, **k: None)
+    monkeypatch.delenv("CI", raising=False)
+    with pytest.raises(pytest.skip.Exception, match="apt-get install mosquitto"):
+        servers.require_binary("mosquitto")
+    monkeypatch.setenv("CI", "true")
+    with pytest.raises(pytest.fail.Exception, match="CI must provide real servers"):
+        servers.require_binary("influxd")

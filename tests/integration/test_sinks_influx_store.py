@@ -1,0 +1,135 @@
+"""InfluxStore (InfluxQL on a real InfluxDB) answers as SqliteStore does on the same records:
+the records go journal → InfluxDB sink → InfluxDB, and both stores are asked the same things."""
+
+from __future__ import annotations
+
+from collections.abc import Callable, Iterator
+from datetime import timedelta
+
+import pandas as pd
+import pytest
+
+from gateway.records import Record
+from gateway.sinks.influx import make_influx
+from gateway.store import open_journal, open_store
+from gateway.store.base import QueryStore
+from tests.integration.sinks_data import T0, ctx, forwarding, result, shift, until
+from tests.support.servers import InfluxServer
+
+pytestmark = [pytest.mark.integration, pytest.mark.timeout(90)]
+
+
+def plant() -> list[Record]:
+    records = shift(1, 150)
+    # re-tests of parts already tested (first fail, then pass), aborted tests, awkward text
+    records += [
+        result("L1-S1", 400, part_id="HX-210-000001", verdict="pass", leak_rate_sccm=0.3),
+        result("L1-S1", 401, part_id="HX-210-000002", verdict="reject", leak_rate_sccm=2.2),
+        result("L1-S2", 402, part_id="HX-210-000003", verdict="pass", leak_rate_sccm=0.4),
+        result("L2-S1", 403, verdict="aborted", leak_rate_sccm=0.0, reason='operator "stop"'),
+        result("L2-S1", 404, raw='a,b=c d\\e "f" =x', reason="tab\there"),
+    ]
+    return records
+
+
+@pytest.fixture(scope="module")
+def stores(influxdb: InfluxServer, tmp_path_factory: pytest.TempPathFactory
+           ) -> Iterator[tuple[QueryStore, QueryStore]]:
+    import asyncio
+
+    path = tmp_path_factory.mktemp("store") / "journal.db"
+    journal = open_journal(str(path))
+    journal.write(plant())
+    influxdb.create_database("compare")
+    fwd = make_influx("influx", {"url": influxdb.url("compare"), "batch_size": 200}, ctx())
+
+    async def forward() -> None:
+        async with forwarding(fwd, journal):
+            await until(lambda: sum(n for n, _ in journal.backlog("influx").values()) == 0, 30,
+                        "everything in InfluxDB")
+
+    asyncio.run(forward())
+    journal.close()
+    sqlite = open_store(f"sqlite:///{path}")
+    influx = open_store(influxdb.url("compare"))
+    yield sqlite, influx
+    sqlite.close()
+    influx.close()
+    influxdb.drop_database("compare")
+
+
+H = timedelta(hours=1)
+QUERIES: dict[str, Callable[[QueryStore], pd.DataFrame]] = {
+    "stations": lambda s: s.stations(),
+    "results": lambda s: s.results(),
+    "results station+range": lambda s: s.results(T0 + H, T0 + 2 * H, station="L1-S2"),
+    "results part": lambda s: s.results(part_id="HX-210-000001"),
+    "results newest 7": lambda s: s.results(line="L1", limit=7, newest_first=True),
+    "calibrations": lambda s: s.calibrations(),
+    "calibrations program": lambda s: s.calibrations(program="MV-44"),
+    "statuses": lambda s: s.statuses(station="L1-S1"),
+    "latest results": lambda s: s.latest_results_per_station(),
+    "latest status": lambda s: s.latest_status_per_station(),
+    "latest calibration": lambda s: s.latest_calibration_per_station(),
+    "verdicts by station": lambda s: s.verdict_counts(),
+    "verdicts by line, program, hour": lambda s: s.verdict_counts(
+        by=("line", "program"), bucket="hour"),
+    "verdicts by day, range": lambda s: s.verdict_counts(
+        T0 + timedelta(minutes=17), T0 + 3 * H, by=(), bucket="day"),
+    "first pass by station": lambda s: s.first_pass_counts(),
+    "first pass by line, hour": lambda s: s.first_pass_counts(by=("line",), bucket="hour"),
+    "first pass at one station": lambda s: s.first_pass_counts(station="L1-S1", by=()),
+    "histogram": lambda s: s.histogram(None, None, [0.0, 0.5, 1.0, 1.5, 2.0, 2.25]),
+    "histogram pressure loss": lambda s: s.histogram(
+        T0, T0 + 2 * H, [0.0, 10.0, 20.0, 40.0], station="L1-S1", value="pressure_loss_pa"),
+    "leak summary": lambda s: s.leak_summary(),
+    "leak summary by line, hour": lambda s: s.leak_summary(by=("line",), bucket="hour"),
+    "calibration series": lambda s: s.calibration_series("L1-S2"),
+    "quarantine (not forwarded)": lambda s: s.quarantine().iloc[0:0],
+    "nothing in range": lambda s: s.verdict_counts(T0 - 10 * H, T0 - 9 * H),
+}
+
+
+# SqliteStore's first-pass counts come from an all-time parts summary: a re-test at another
+# station (or outside the range) still counts there, although the QueryStore contract says
+# "filters choose which tests count". InfluxStore follows the contract; reported to the store.
+_CONTRACT_GAP = pytest.mark.xfail(
+    strict=True, reason="SqliteStore counts tests outside the station filter (parts summary)")
+
+
+@pytest.mark.parametrize("name", [
+    pytest.param(n, marks=_CONTRACT_GAP) if n == "first pass at one station" else n
+    for n in QUERIES
+])
+def test_same_answer(stores: tuple[QueryStore, QueryStore], name: str) -> None:
+    sqlite, influx = stores
+    want = QUERIES[name](sqlite)
+    got = QUERIES[name](influx)
+    assert len(want) > 0 or name in ("nothing in range", "quarantine (not forwarded)")
+    pd.testing.assert_frame_equal(got, want, check_dtype=False, check_exact=False, rtol=1e-9)
+
+
+def test_awkward_text_survives(stores: tuple[QueryStore, QueryStore]) -> None:
+    _, influx = stores
+    rows = influx.results(station="L2-S1", newest_first=True, limit=2)
+    raw = rows.loc[rows["cycle"] == 404, "raw"].item()
+    assert raw == 'a,b=c d\\e "f" =x'  # commas, equals, spaces, quotes, backslash
+    assert rows.loc[rows["cycle"] == 404, "reason"].item() == "tab\there"
+
+
+
+def test_first_pass_follows_the_contract(stores: tuple[QueryStore, QueryStore]) -> None:
+    """Parts as tested at one station: counted from that station's rows only (by hand)."""
+    sqlite, influx = stores
+    rows = sqlite.results(station="L1-S1")
+    with_id = rows[rows["part_id"].notna()].sort_values(["ended_at", "seq"])
+    by_part = with_id.groupby("part_id")
+    want = {
+        "parts": by_part.ngroups,
+        "first_pass": int((by_part["verdict"].first() == "pass").sum()),
+        "final_pass": int((by_part["verdict"].last() == "pass").sum()),
+        "tests": len(with_id),
+        "no_part_id": int(rows["part_id"].isna().sum()),
+    }
+    got = influx.first_pass_counts(station="L1-S1", by=()).iloc[0].to_dict()
+    assert {k: int(v) for k, v in got.items()} == want
