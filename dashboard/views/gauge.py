@@ -114,7 +114,7 @@ if source.startswith("Master"):
     sens = float(np.median(cals["sensitivity"].to_numpy(float)))
     tolerance = reject - lower if lower is not None else reject
     st.caption(
-        f"{len(losses)} master-part tests at {test_s:g} s; sensitivity {fmt(sens)} sccm/Pa; "
+        f"{len(losses)} master-part test(s) at {test_s:g} s; sensitivity {fmt(sens)} sccm/Pa; "
         f"tolerance {fmt(u.q(tolerance))} {u.q_label}"
     )
     st.subheader("Type 1 study of the master part")

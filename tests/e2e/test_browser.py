@@ -105,7 +105,7 @@ def test_every_page_renders_in_chromium(demo: tuple[str, subprocess.Popen[str]],
                     "() => !document.querySelector(\"[data-testid='stStatusWidget']\")",
                     timeout=30_000,
                 )
-                page.wait_for_timeout(300)
+                page.wait_for_timeout(1000)  # charts and widgets finish drawing
                 name = title.split()[0].lower()
                 page.screenshot(path=str(shots / f"{name}.png"), full_page=True)
                 assert page.locator("[data-testid='stException']").count() == 0, name
