@@ -13,7 +13,7 @@ services:
 	@bash scripts/test-services.sh
 
 demo: $(VENV)/.installed
-	$(VENV)/bin/leakfleet sim --scenario demo --speed 60
+	$(VENV)/bin/leakfleet demo
 
 lint: $(VENV)/.installed
 	$(VENV)/bin/ruff check .

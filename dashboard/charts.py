@@ -1,0 +1,242 @@
+"""Every chart of the dashboard (altair). Inputs are small, already aggregated frames in display
+units; each function returns a chart the page hands to ``st.altair_chart``."""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+
+import altair as alt
+import pandas as pd
+
+from analytics import ControlChart, Histogram, ParetoReport
+
+__all__ = [
+    "advice_curve",
+    "control_chart",
+    "histogram",
+    "history",
+    "pareto",
+    "series",
+    "verdict_trend",
+    "yield_trend",
+]
+
+#: what ``alt.layer(...).properties(...)`` is typed as
+Layered = alt.LayerChart | alt.FacetChart
+
+_VERDICT_COLOURS = alt.Scale(
+    domain=["pass", "reject", "gross", "aborted"],
+    range=["#4c9a5f", "#d9822b", "#b23a48", "#8d8d8d"],
+)
+
+
+def yield_trend(df: pd.DataFrame, x: str, y: str, colour: str | None, title: str) -> alt.Chart:
+    """Yield (0..1) over time or periods, one line per group."""
+    chart = (
+        alt.Chart(df)
+        .mark_line(point=True)
+        .encode(
+            x=alt.X(f"{x}:O", title=None),
+            y=alt.Y(f"{y}:Q", title=title, axis=alt.Axis(format="%"), scale=alt.Scale(zero=False)),
+            tooltip=[alt.Tooltip(c) for c in df.columns],
+        )
+    )
+    if colour:
+        chart = chart.encode(color=alt.Color(f"{colour}:N"))
+    return chart.properties(height=260)
+
+
+def verdict_trend(df: pd.DataFrame, x: str) -> alt.Chart:
+    """Stacked test counts per verdict over time."""
+    return (
+        alt.Chart(df)
+        .mark_bar()
+        .encode(
+            x=alt.X(f"{x}:O", title=None),
+            y=alt.Y("n:Q", title="tests"),
+            color=alt.Color("verdict:N", scale=_VERDICT_COLOURS),
+            tooltip=[x, "verdict", "n"],
+        )
+        .properties(height=220)
+    )
+
+
+def pareto(report: ParetoReport, title: str) -> Layered:
+    """Bars by falling count with the cumulative share as a line."""
+    df = pd.DataFrame([r.to_dict() for r in report.rows])
+    order = list(df["category"])
+    bars = (
+        alt.Chart(df)
+        .mark_bar(color="#d9822b")
+        .encode(
+            x=alt.X("category:N", sort=order, title=title),
+            y=alt.Y("n:Q", title="count"),
+            tooltip=["category", "n", alt.Tooltip("share:Q", format=".1%")],
+        )
+    )
+    line = (
+        alt.Chart(df)
+        .mark_line(point=True, color="#333")
+        .encode(
+            x=alt.X("category:N", sort=order),
+            y=alt.Y("cumulative_share:Q", title="cumulative", axis=alt.Axis(format="%")),
+        )
+    )
+    return alt.layer(bars, line).resolve_scale(y="independent").properties(height=260)
+
+
+def histogram(
+    hist: Histogram, factor: float, unit: str, guard_band: float | None, title: str = ""
+) -> Layered:
+    """Bars of a histogram with the reject limit, lower limit and guard band drawn."""
+    edges = [e * factor for e in hist.edges]
+    bins = pd.DataFrame(
+        {"lo": edges[:-1], "hi": edges[1:], "n": hist.counts}
+    ) if edges else pd.DataFrame({"lo": [], "hi": [], "n": []})  # fmt: skip
+    layers: list[alt.Chart] = [
+        alt.Chart(bins)
+        .mark_bar(color="#5b7fa6")
+        .encode(
+            x=alt.X("lo:Q", title=f"leak rate [{unit}]", bin="binned"),
+            x2="hi:Q",
+            y=alt.Y("n:Q", title="tests"),
+            tooltip=[alt.Tooltip("lo:Q", format=".3g"), alt.Tooltip("hi:Q", format=".3g"), "n"],
+        )
+    ]
+    marks = []
+    if hist.reject_limit is not None:
+        marks.append({"x": hist.reject_limit * factor, "what": "reject limit"})
+    if hist.lower_limit is not None:
+        marks.append({"x": hist.lower_limit * factor, "what": "lower limit"})
+    if hist.reject_limit is not None and guard_band:
+        band = pd.DataFrame(
+            [{"a": (hist.reject_limit - guard_band) * factor, "b": hist.reject_limit * factor}]
+        )
+        layers.insert(
+            0, alt.Chart(band).mark_rect(color="#f2c14e", opacity=0.3).encode(x="a:Q", x2="b:Q")
+        )
+        marks.append({"x": (hist.reject_limit - guard_band) * factor, "what": "guard band"})
+    if marks:
+        layers.append(
+            alt.Chart(pd.DataFrame(marks))
+            .mark_rule(strokeWidth=2)
+            .encode(
+                x="x:Q",
+                color=alt.Color(
+                    "what:N",
+                    scale=alt.Scale(
+                        domain=["reject limit", "lower limit", "guard band"],
+                        range=["#b23a48", "#6a4c93", "#c9a227"],
+                    ),
+                    title=None,
+                ),
+                tooltip=["what", alt.Tooltip("x:Q", format=".3g")],
+            )
+        )
+    return alt.layer(*layers).properties(height=240, title=title)
+
+
+def series(df: pd.DataFrame, y: str, title: str, alarms: pd.DataFrame | None = None) -> alt.Chart:
+    """One calibration quantity over time; failed calibrations as red points, alarms as rules."""
+    base = alt.Chart(df).encode(x=alt.X("ended_at:T", title=None))
+    line = base.mark_line(color="#5b7fa6").encode(
+        y=alt.Y(f"{y}:Q", title=title, scale=alt.Scale(zero=False))
+    )
+    points = base.mark_point(filled=True, size=40).encode(
+        y=f"{y}:Q",
+        color=alt.Color(
+            "outcome:N",
+            scale=alt.Scale(domain=["passed", "failed"], range=["#5b7fa6", "#b23a48"]),
+            title=None,
+        ),
+        tooltip=["ended_at:T", alt.Tooltip(f"{y}:Q", format=".4g"), "outcome", "reason"],
+    )
+    chart = line + points
+    if alarms is not None and not alarms.empty:
+        chart = chart + alt.Chart(alarms).mark_rule(color="#b23a48", strokeDash=[4, 3]).encode(
+            x="at:T", tooltip=["kind", "message"]
+        )
+    return chart.properties(height=200)
+
+
+def control_chart(chart: ControlChart, times: Sequence[object], title: str, factor: float
+                  ) -> Layered:  # fmt: skip
+    """EWMA (statistic with time-varying limits) or CUSUM (SH, SL against ±h·σ)."""
+    rows = []
+    for p in chart.points:
+        t = times[p.index] if p.index < len(times) else None
+        if chart.kind == "ewma":
+            rows.append({"at": t, "value": p.value * factor, "statistic": p.statistic * factor,
+                         "lower": p.lower * factor, "upper": p.upper * factor,
+                         "signal": p.signal})  # fmt: skip
+        else:
+            rows.append({"at": t, "statistic": p.statistic * factor,
+                         "low": -(p.statistic_low or 0.0) * factor,
+                         "lower": -p.upper * factor, "upper": p.upper * factor,
+                         "signal": p.signal})  # fmt: skip
+    df = pd.DataFrame(rows)
+    base = alt.Chart(df).encode(x=alt.X("at:T", title=None))
+    layers = [
+        base.mark_line(color="#999", strokeDash=[4, 3]).encode(y=alt.Y("upper:Q", title=title)),
+        base.mark_line(color="#999", strokeDash=[4, 3]).encode(y="lower:Q"),
+        base.mark_line(color="#5b7fa6", point=True).encode(y="statistic:Q"),
+        base.transform_filter("datum.signal")
+        .mark_point(color="#b23a48", size=90, filled=True)
+        .encode(y="statistic:Q", tooltip=["at:T", alt.Tooltip("statistic:Q", format=".4g")]),
+    ]
+    if chart.kind == "cusum":
+        layers.insert(3, base.mark_line(color="#6a4c93", point=True).encode(y="low:Q"))
+    return alt.layer(*layers).properties(height=200)
+
+
+def history(df: pd.DataFrame, y: str, title: str) -> alt.Chart:
+    """Readings over time coloured by verdict (a station's latest tests)."""
+    return (
+        alt.Chart(df)
+        .mark_circle(size=28)
+        .encode(
+            x=alt.X("ended_at:T", title=None),
+            y=alt.Y(f"{y}:Q", title=title, scale=alt.Scale(zero=False)),
+            color=alt.Color("verdict:N", scale=_VERDICT_COLOURS),
+            tooltip=[
+                "ended_at:T",
+                "cycle",
+                "program",
+                "verdict",
+                alt.Tooltip(f"{y}:Q", format=".4g"),
+            ],
+        )
+        .properties(height=220)
+    )
+
+
+def band(df: pd.DataFrame, title: str) -> Layered:
+    """Hourly mean with min–max band (the long view, from the store's summaries)."""
+    base = alt.Chart(df).encode(x=alt.X("bucket:T", title=None))
+    return alt.layer(
+        base.mark_area(opacity=0.25, color="#5b7fa6").encode(
+            y=alt.Y("min:Q", title=title), y2="max:Q"
+        ),
+        base.mark_line(color="#5b7fa6").encode(
+            y="mean:Q", tooltip=["bucket:T", "n", "mean", "min", "max"]
+        ),
+    ).properties(height=220)
+
+
+def advice_curve(df: pd.DataFrame, target: float, current_s: float) -> Layered:
+    """%GRR against test time with the target and the current test time."""
+    line = (
+        alt.Chart(df)
+        .mark_line(point=True)
+        .encode(
+            x=alt.X("test_s:Q", title="test time [s]"),
+            y=alt.Y("pct_grr:Q", title="%GRR of tolerance"),
+            tooltip=[alt.Tooltip("test_s:Q", format=".2f"), alt.Tooltip("pct_grr:Q", format=".1f")],
+        )
+    )
+    rules = pd.DataFrame([{"y": target, "what": f"target {target:g} %"}])
+    target_rule = alt.Chart(rules).mark_rule(color="#4c9a5f", strokeDash=[5, 3]).encode(y="y:Q")
+    now_rule = (
+        alt.Chart(pd.DataFrame([{"x": current_s}])).mark_rule(color="#b23a48").encode(x="x:Q")
+    )
+    return alt.layer(line, target_rule, now_rule).properties(height=260)

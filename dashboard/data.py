@@ -1,0 +1,260 @@
+"""The dashboard's only door to the store: one cached client per URL, cached parameterised queries.
+
+Every function takes the store URL first, so caches are per store; results are cached for a few
+seconds (live pages) or a minute (history), which is what keeps many viewers from multiplying
+the load on the journal. All aggregation happens in the store (``QueryStore``); this module
+only folds already-aggregated rows (hours into local days or shifts). A store that cannot be
+opened or read raises ``StoreUnavailable`` with one readable line; nothing connects at import.
+"""
+
+from __future__ import annotations
+
+import sqlite3
+from collections.abc import Sequence
+from datetime import datetime, timedelta
+from typing import TYPE_CHECKING, Any
+
+import pandas as pd
+import streamlit as st
+
+from gateway.errors import LeakfleetError
+
+if TYPE_CHECKING:
+    from gateway.store.base import QueryStore
+
+__all__ = [
+    "LIVE_TTL",
+    "StoreUnavailable",
+    "calibration_series",
+    "calibrations",
+    "first_pass_counts",
+    "histogram",
+    "latest",
+    "leak_summary",
+    "newest_record_time",
+    "quarantine",
+    "results",
+    "stations",
+    "statuses",
+    "verdict_counts",
+]
+
+LIVE_TTL = 4  # s: a little under the live page's refresh
+HISTORY_TTL = 60
+
+
+class StoreUnavailable(Exception):
+    """The store cannot be opened or queried; the message is one line for the page."""
+
+
+@st.cache_resource(show_spinner=False)
+def _client(url: str) -> QueryStore:
+    from gateway.store import open_store
+
+    return open_store(url)
+
+
+def _store(url: str) -> QueryStore:
+    try:
+        return _client(url)
+    except (LeakfleetError, sqlite3.Error, OSError) as exc:
+        raise StoreUnavailable(str(exc)) from exc
+
+
+def _call(url: str, method: str, *args: Any, **kwargs: Any) -> pd.DataFrame:
+    store = _store(url)
+    try:
+        frame: pd.DataFrame = getattr(store, method)(*args, **kwargs)
+    except (LeakfleetError, sqlite3.Error, OSError) as exc:
+        raise StoreUnavailable(str(exc)) from exc
+    return frame
+
+
+@st.cache_data(ttl=LIVE_TTL, show_spinner=False)
+def stations(url: str) -> pd.DataFrame:
+    """Every station with its line ("–" when unknown), sorted by line then station."""
+    df = _call(url, "stations")
+    df["line"] = df["line"].fillna("–").astype(str)
+    return df.sort_values(["line", "station"]).reset_index(drop=True)
+
+
+@st.cache_data(ttl=LIVE_TTL, show_spinner=False)
+def latest(url: str, kind: str) -> pd.DataFrame:
+    """Each station's newest result / status / calibration (kind: result, status, calibration)."""
+    method = {
+        "result": "latest_results_per_station",
+        "status": "latest_status_per_station",
+        "calibration": "latest_calibration_per_station",
+    }[kind]
+    return _call(url, method)
+
+
+@st.cache_data(ttl=LIVE_TTL, show_spinner=False)
+def newest_record_time(url: str) -> datetime | None:
+    """The newest result's end time over all stations (for the "data" clock)."""
+    df = latest(url, "result")
+    if df.empty:
+        return None
+    return pd.Timestamp(df["ended_at"].max()).to_pydatetime()
+
+
+@st.cache_data(ttl=LIVE_TTL, show_spinner=False)
+def results(
+    url: str,
+    since: datetime | None = None,
+    until: datetime | None = None,
+    station: str | None = None,
+    line: str | None = None,
+    program: str | None = None,
+    part_id: str | None = None,
+    limit: int | None = None,
+    newest_first: bool = False,
+) -> pd.DataFrame:
+    return _call(
+        url, "results", since, until, station=station, line=line, program=program,
+        part_id=part_id, limit=limit, newest_first=newest_first,
+    )  # fmt: skip
+
+
+@st.cache_data(ttl=HISTORY_TTL, show_spinner=False)
+def calibrations(
+    url: str,
+    since: datetime | None = None,
+    until: datetime | None = None,
+    station: str | None = None,
+    line: str | None = None,
+    program: str | None = None,
+    limit: int | None = None,
+    newest_first: bool = False,
+) -> pd.DataFrame:
+    return _call(
+        url, "calibrations", since, until, station=station, line=line, program=program,
+        limit=limit, newest_first=newest_first,
+    )  # fmt: skip
+
+
+@st.cache_data(ttl=LIVE_TTL, show_spinner=False)
+def statuses(
+    url: str,
+    since: datetime | None = None,
+    until: datetime | None = None,
+    station: str | None = None,
+    limit: int | None = None,
+    newest_first: bool = False,
+) -> pd.DataFrame:
+    return _call(
+        url, "statuses", since, until, station=station, limit=limit, newest_first=newest_first
+    )
+
+
+@st.cache_data(ttl=HISTORY_TTL, show_spinner=False)
+def quarantine(
+    url: str,
+    since: datetime | None = None,
+    until: datetime | None = None,
+    station: str | None = None,
+    limit: int | None = None,
+) -> pd.DataFrame:
+    return _call(url, "quarantine", since, until, station=station, limit=limit, newest_first=True)
+
+
+@st.cache_data(ttl=LIVE_TTL, show_spinner=False)
+def verdict_counts(
+    url: str,
+    since: datetime | None,
+    until: datetime | None,
+    by: Sequence[str] = ("station",),
+    bucket: str | None = None,
+    station: str | None = None,
+    line: str | None = None,
+    program: str | None = None,
+) -> pd.DataFrame:
+    return _call(
+        url, "verdict_counts", since, until, by=tuple(by), bucket=bucket, station=station,
+        line=line, program=program,
+    )  # fmt: skip
+
+
+@st.cache_data(ttl=LIVE_TTL, show_spinner=False)
+def first_pass_counts(
+    url: str,
+    since: datetime | None,
+    until: datetime | None,
+    by: Sequence[str] = ("station",),
+    bucket: str | None = None,
+    station: str | None = None,
+    line: str | None = None,
+    program: str | None = None,
+) -> pd.DataFrame:
+    return _call(
+        url, "first_pass_counts", since, until, by=tuple(by), bucket=bucket, station=station,
+        line=line, program=program,
+    )  # fmt: skip
+
+
+@st.cache_data(ttl=HISTORY_TTL, show_spinner=False)
+def leak_summary(
+    url: str,
+    since: datetime | None,
+    until: datetime | None,
+    by: Sequence[str] = ("station",),
+    bucket: str | None = None,
+    station: str | None = None,
+    line: str | None = None,
+    program: str | None = None,
+) -> pd.DataFrame:
+    return _call(
+        url, "leak_summary", since, until, by=tuple(by), bucket=bucket, station=station,
+        line=line, program=program,
+    )  # fmt: skip
+
+
+@st.cache_data(ttl=HISTORY_TTL, show_spinner=False)
+def histogram(
+    url: str,
+    since: datetime | None,
+    until: datetime | None,
+    edges: tuple[float, ...],
+    station: str | None = None,
+    program: str | None = None,
+) -> pd.DataFrame:
+    return _call(url, "histogram", since, until, list(edges), station=station, program=program)
+
+
+@st.cache_data(ttl=HISTORY_TTL, show_spinner=False)
+def calibration_series(
+    url: str,
+    station: str,
+    program: str | None = None,
+    since: datetime | None = None,
+    until: datetime | None = None,
+) -> pd.DataFrame:
+    df = _call(url, "calibration_series", station, program, since, until)
+    return df.assign(station=station)
+
+
+def to_local_days(counts: pd.DataFrame, timezone: str, count_cols: Sequence[str]) -> pd.DataFrame:
+    """Hourly UTC buckets → the plant's local calendar days (sums of the count columns)."""
+    if counts.empty:
+        return counts.rename(columns={"bucket": "day"})
+    keys = [c for c in counts.columns if c not in ("bucket", *count_cols)]
+    day = pd.to_datetime(counts["bucket"], utc=True).dt.tz_convert(timezone).dt.date.astype(str)
+    return (
+        counts.drop(columns="bucket").assign(day=day)
+        .groupby(["day", *keys], dropna=False)[list(count_cols)].sum().reset_index()
+    )  # fmt: skip
+
+
+def window(now: datetime, hours: float) -> tuple[datetime, datetime]:
+    """[now − hours, now + a second): half-open, so a result stamped ``now`` is inside."""
+    return now - timedelta(hours=hours), now + timedelta(seconds=1)
+
+
+@st.cache_data(ttl=HISTORY_TTL, show_spinner=False)
+def programs(url: str) -> pd.DataFrame:
+    """Station/program pairs that have results, with their test counts (from the summaries)."""
+    df = verdict_counts(url, None, None, by=("station", "program"))
+    if df.empty:
+        return pd.DataFrame(columns=["station", "program", "n"])
+    out: pd.DataFrame = df.groupby(["station", "program"], as_index=False)[["n"]].sum()
+    return out

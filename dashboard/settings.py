@@ -1,0 +1,166 @@
+"""Dashboard settings from the environment and the plant config: store, time zone, shifts.
+
+``leakfleet dashboard`` passes its options to the Streamlit process as environment variables
+(``LEAKFLEET_STORE``, ``LEAKFLEET_CONFIG``, ``LEAKFLEET_CLOCK``), so the app, the CLI and tests
+all configure it the same way. The config is the gateway's TOML file (or ``demo``); the
+dashboard reads only ``site``, ``timezone``, ``[shifts]`` (name = local start time) and, when
+present, ``[[standards]]`` (the leak-standard register). Pure: no Streamlit, no store.
+"""
+
+from __future__ import annotations
+
+import tomllib
+from collections.abc import Mapping
+from dataclasses import dataclass, field
+from datetime import date, datetime, time
+from importlib import resources
+from pathlib import Path
+from typing import Any, Literal
+
+from analytics import DEFAULT_SHIFTS, LeakStandard, ShiftCalendar
+from gateway.errors import ConfigError
+
+__all__ = ["DEFAULT_STORE_URL", "Settings", "load_settings", "shifts_from_starts"]
+
+DEFAULT_STORE_URL = "sqlite:///./leakfleet.db"
+Clock = Literal["wall", "data"]
+
+
+@dataclass(frozen=True)
+class Settings:
+    """Everything a page needs besides the data."""
+
+    store_url: str = DEFAULT_STORE_URL
+    site: str = ""
+    timezone: str = "UTC"
+    shifts: tuple[tuple[str, str, str], ...] = DEFAULT_SHIFTS
+    standards: tuple[LeakStandard, ...] = ()
+    clock: Clock = "wall"  # "data": "now" is the newest record when station clocks run ahead
+    config_source: str | None = None
+    notes: tuple[str, ...] = field(default_factory=tuple)
+
+    @property
+    def calendar(self) -> ShiftCalendar:
+        return ShiftCalendar(self.timezone, self.shifts)
+
+
+def shifts_from_starts(starts: Mapping[str, Any], file: str) -> tuple[tuple[str, str, str], ...]:
+    """``{"early": "06:00", "late": "14:00", ...}`` → (name, start, end) with each shift
+    ending where the next one starts (the last wraps to the first)."""
+    parsed: list[tuple[time, str, str]] = []
+    for name, value in starts.items():
+        text = value.strftime("%H:%M") if isinstance(value, time) else value
+        try:
+            parsed.append((time.fromisoformat(str(text)), str(name), str(text)))
+        except ValueError:
+            raise ConfigError(
+                f"{file}: shifts.{name}: expected a local time HH:MM, got {value!r}"
+            ) from None
+    if not parsed:
+        return DEFAULT_SHIFTS
+    parsed.sort()
+    out = []
+    for i, (_, name, text) in enumerate(parsed):
+        out.append((name, text, parsed[(i + 1) % len(parsed)][2]))
+    if len(out) == 1:
+        raise ConfigError(f"{file}: shifts: expected at least two shift start times")
+    return tuple(out)
+
+
+def _date(value: Any, file: str, key: str) -> date:
+    if isinstance(value, datetime):
+        return value.date()
+    if isinstance(value, date):
+        return value
+    try:
+        return date.fromisoformat(str(value))
+    except ValueError:
+        raise ConfigError(f"{file}: {key}: expected a date YYYY-MM-DD, got {value!r}") from None
+
+
+def _standards(raw: Any, file: str) -> tuple[LeakStandard, ...]:
+    if raw is None:
+        return ()
+    if not isinstance(raw, list):
+        raise ConfigError(f"{file}: standards: expected [[standards]] tables")
+    from gateway.units import parse_quantity
+
+    out = []
+    for i, t in enumerate(raw):
+        key = f"standards[{i}]"
+        if not isinstance(t, dict):
+            raise ConfigError(f"{file}: {key}: expected a table")
+        try:
+            nominal = parse_quantity(str(t["nominal"]), "leak", default_unit="sccm").canonical
+            ref = parse_quantity(
+                str(t.get("reference_pressure", "0 Pa")), "pressure", default_unit="Pa"
+            ).canonical
+            out.append(
+                LeakStandard(
+                    serial=str(t["serial"]),
+                    station=str(t["station"]),
+                    nominal_sccm=nominal,
+                    reference_pressure_pa=ref,
+                    certificate_date=_date(t["certificate_date"], file, f"{key}.certificate_date"),
+                    due_date=_date(t["due_date"], file, f"{key}.due_date")
+                    if "due_date" in t
+                    else None,
+                    interval_months=int(t["interval_months"]) if "interval_months" in t else None,
+                    uncertainty_pct=float(t["uncertainty_pct"]) if "uncertainty_pct" in t else None,
+                )
+            )
+        except KeyError as exc:
+            raise ConfigError(f"{file}: {key}.{exc.args[0]}: a value (required)") from None
+        except (ValueError, TypeError) as exc:
+            raise ConfigError(f"{file}: {key}: {exc}") from None
+    return tuple(out)
+
+
+def _read_config(ref: str) -> tuple[str, dict[str, Any]]:
+    if ref == "demo":
+        try:
+            text = resources.files("gateway.configs").joinpath("demo.toml").read_text("utf-8")
+        except (ModuleNotFoundError, FileNotFoundError):
+            raise ConfigError("demo: the shipped demo config is not part of this build") from None
+        return "demo", tomllib.loads(text)
+    path = Path(ref)
+    try:
+        return str(path), tomllib.loads(path.read_text(encoding="utf-8"))
+    except FileNotFoundError:
+        raise ConfigError(f"{path}: no such config file") from None
+    except OSError as exc:
+        raise ConfigError(f"{path}: cannot read: {exc.strerror or exc}") from None
+    except (UnicodeDecodeError, tomllib.TOMLDecodeError) as exc:
+        raise ConfigError(f"{path}: not valid TOML: {exc}") from None
+
+
+def load_settings(env: Mapping[str, str]) -> Settings:
+    """Settings from ``LEAKFLEET_*`` variables; ConfigError (one line) on any mistake."""
+    clock = env.get("LEAKFLEET_CLOCK", "wall").strip() or "wall"
+    if clock not in ("wall", "data"):
+        raise ConfigError(f"LEAKFLEET_CLOCK: expected 'wall' or 'data', got {clock!r}")
+    config_ref = env.get("LEAKFLEET_CONFIG", "").strip()
+    doc: dict[str, Any] = {}
+    source = None
+    if config_ref:
+        source, doc = _read_config(config_ref)
+    file = source or "config"
+    store = env.get("LEAKFLEET_STORE", "").strip() or str(doc.get("store") or DEFAULT_STORE_URL)
+    timezone = str(doc.get("timezone", "UTC"))
+    shifts_raw = doc.get("shifts", {})
+    if not isinstance(shifts_raw, dict):
+        raise ConfigError(f'{file}: shifts: expected a table of name = "HH:MM"')
+    shifts = shifts_from_starts(shifts_raw, file) if shifts_raw else DEFAULT_SHIFTS
+    try:
+        ShiftCalendar(timezone, shifts)
+    except ValueError as exc:
+        raise ConfigError(f"{file}: timezone/shifts: {exc}") from None
+    return Settings(
+        store_url=store,
+        site=str(doc.get("site", "")),
+        timezone=timezone,
+        shifts=shifts,
+        standards=_standards(doc.get("standards"), file),
+        clock=clock,  # type: ignore[arg-type]
+        config_source=source,
+    )

@@ -1,0 +1,1 @@
+"""One module per dashboard page (widgets and layout only); app.py lists them."""

@@ -1,0 +1,115 @@
+"""``leakfleet dashboard``: serve the Streamlit dashboard over a store."""
+
+from __future__ import annotations
+
+import argparse
+import os
+import subprocess
+import sys
+from collections.abc import Mapping, Sequence
+from pathlib import Path
+
+ORDER = 40
+
+_APP = Path(__file__).resolve().parents[2] / "dashboard" / "app.py"
+_SCHEMES = ("sqlite", "influxdb", "influxdb2")
+
+
+def register(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
+    parser = sub.add_parser(
+        "dashboard",
+        help="serve the dashboard (fleet live, yield, limits, calibration, gauge, quality, data)",
+        description=(
+            "Serve the web dashboard over a store: the gateway's SQLite journal (read-only) or "
+            "InfluxDB. Listens on 127.0.0.1 unless told otherwise; before exposing it beyond "
+            "the line PC, set up a login (dashboard/README.md). Runs until Ctrl-C."
+        ),
+        epilog="example: leakfleet dashboard --store sqlite:///./leakfleet.db --config demo",
+    )
+    parser.add_argument(
+        "--store", required=True, metavar="URL",
+        help="sqlite:///path/file.db (or a bare path), influxdb://host:8086/db, "
+             "influxdb2://host:8086?org=..&bucket=..",
+    )  # fmt: skip
+    parser.add_argument("--port", type=int, default=8501, help="TCP port (default 8501)")
+    parser.add_argument(
+        "--address", default="127.0.0.1",
+        help="address to listen on (default 127.0.0.1, this machine only)",
+    )  # fmt: skip
+    parser.add_argument(
+        "--config", metavar="FILE|demo",
+        help="gateway/plant TOML config for site name, time zone, shifts and leak standards",
+    )  # fmt: skip
+    parser.set_defaults(func=_run)
+
+
+def check_store_url(url: str) -> None:
+    """Reject a URL no store understands (ValueError → exit 2) without connecting."""
+    if not url.strip():
+        raise ValueError("--store: expected a store URL such as sqlite:///./leakfleet.db")
+    if "://" in url and url.partition("://")[0].lower() not in _SCHEMES:
+        raise ValueError(
+            f"--store {url!r}: unknown scheme; expected sqlite:///path/file.db, "
+            "influxdb://host:port/database or influxdb2://host:port?org=..&bucket=.."
+        )
+
+
+def streamlit_command(
+    store: str,
+    *,
+    port: int,
+    address: str = "127.0.0.1",
+    config: str | None = None,
+    clock: str = "wall",
+    environ: Mapping[str, str] | None = None,
+) -> tuple[list[str], dict[str, str]]:
+    """argv and environment that run the dashboard headless (also used by ``leakfleet demo``)."""
+    if not 0 < port < 65536:
+        raise ValueError(f"--port: expected 1..65535, got {port}")
+    check_store_url(store)
+    env = dict(os.environ if environ is None else environ)
+    env.update({"LEAKFLEET_STORE": store, "LEAKFLEET_CLOCK": clock})
+    if config:
+        env["LEAKFLEET_CONFIG"] = config
+    else:
+        env.pop("LEAKFLEET_CONFIG", None)
+    root = str(_APP.parents[1])
+    env["PYTHONPATH"] = os.pathsep.join(p for p in (root, env.get("PYTHONPATH", "")) if p)
+    argv = [
+        sys.executable, "-m", "streamlit", "run", str(_APP),
+        "--server.headless", "true",
+        "--server.port", str(port),
+        "--server.address", address,
+        "--server.fileWatcherType", "none",
+        "--server.runOnSave", "false",
+        "--browser.gatherUsageStats", "false",
+        "--global.developmentMode", "false",
+        "--client.toolbarMode", "minimal",
+    ]  # fmt: skip
+    return argv, env
+
+
+def _run(args: argparse.Namespace) -> int:
+    from dashboard.settings import load_settings
+
+    argv, env = streamlit_command(
+        args.store, port=args.port, address=args.address, config=args.config
+    )
+    load_settings(env)  # a config mistake is one line now, not an error page later
+    print(f"dashboard: http://{args.address}:{args.port}  (store {args.store}; Ctrl-C stops)",
+          flush=True)  # fmt: skip
+    return run_until_interrupted(argv, env)
+
+
+def run_until_interrupted(argv: Sequence[str], env: Mapping[str, str]) -> int:
+    proc = subprocess.Popen(list(argv), env=dict(env))
+    try:
+        return proc.wait()
+    except KeyboardInterrupt:
+        proc.terminate()
+        try:
+            proc.wait(timeout=10)
+        except subprocess.TimeoutExpired:
+            proc.kill()
+            proc.wait()
+        return 0

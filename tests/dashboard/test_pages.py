@@ -1,0 +1,231 @@
+"""Every page against a journal the simulator filled: renders without an exception, shows its
+figures, reacts to its filters; and the messages for an empty, a lone and an unreachable store."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import pytest
+
+from tests.dashboard.conftest import AppFactory
+
+pytestmark = pytest.mark.timeout(120)
+
+PAGES = [
+    "views/fleet.py",
+    "views/yields.py",
+    "views/readings.py",
+    "views/calibration.py",
+    "views/gauge.py",
+    "views/quality.py",
+    "views/data_view.py",
+]
+
+
+def _metrics(at) -> dict[str, str]:  # type: ignore[no-untyped-def]
+    return {m.label: m.value for m in at.metric}
+
+
+def _table(at, *columns: str):  # type: ignore[no-untyped-def]
+    """The first table on the page that has all ``columns``."""
+    for df in at.dataframe:
+        if set(columns) <= set(df.value.columns):
+            return df.value
+    raise AssertionError(
+        f"no table with {columns}: {[list(d.value.columns) for d in at.dataframe]}"
+    )
+
+
+@pytest.mark.parametrize("page", PAGES)
+def test_page_renders_without_error(app: AppFactory, demo_journal: Path, page: str) -> None:
+    at = app(demo_journal, page)
+    assert not at.exception, [e.message for e in at.exception]
+    assert not at.error, [e.value for e in at.error]
+    # the safety note is on every page (sidebar)
+    assert any("pressure ratings" in i.value for i in at.sidebar.info)
+
+
+def test_fleet_tiles_per_station(app: AppFactory, demo_journal: Path) -> None:
+    at = app(demo_journal, "views/fleet.py")
+    labels = [m.label for m in at.metric]
+    assert labels.count("Cycles, last hour") == 6  # one tile per demo station
+    assert labels.count("Yield today") == 6
+    names = " ".join(m.value for m in at.markdown)
+    for station in ("L1-S1", "L1-S2", "L1-S3", "L2-S1", "L2-S2", "L2-S3"):
+        assert f"**{station}**" in names
+    assert [s.value for s in at.subheader][:2] == ["Line L1", "Line L2"]
+    cycles = [int(m.value) for m in at.metric if m.label == "Cycles, last hour"]
+    assert all(n > 20 for n in cycles)  # a demo station tests every ~25-40 s
+    # station detail: picking another station shows its own latest results
+    table = _table(at, "cycle", "program")
+    assert set(table["program"]) <= {"HX-210", "HX-230"}
+    at.selectbox(key="fleet_station").set_value("L2-S1").run()
+    assert set(_table(at, "cycle", "program")["program"]) == {"MV-44"}
+
+
+def test_yield_grouping_changes_the_table(app: AppFactory, demo_journal: Path) -> None:
+    at = app(demo_journal, "views/yields.py")
+    m = _metrics(at)
+    assert int(m["Tests"].replace(",", "")) > 1000
+    assert m["First-pass yield"].endswith("%")
+    assert len(_table(at, "Station")) == 6  # by station
+    at.selectbox(key="yield_group").set_value("Program").run()
+    assert not at.exception
+    assert set(_table(at, "Program")["Program"]) == {"HX-210", "HX-230", "MV-44"}
+    at.selectbox(key="yield_group").set_value("Shift").run()
+    assert not at.exception
+    assert len(_table(at, "Shift")) >= 1
+    at.selectbox(key="yield_group").set_value("Station").run()
+    at.selectbox(key="yield_line").set_value("L2").run()
+    assert set(_table(at, "Station")["Station"]) == {"L2-S1", "L2-S2", "L2-S3"}
+
+
+def test_readings_side_by_side_and_capability(app: AppFactory, demo_journal: Path) -> None:
+    at = app(demo_journal, "views/readings.py")
+    assert [m.label for m in at.metric].count("Ppu") == 2  # HX-210 runs on L1-S1 and L1-S2
+    assert any(c.value.startswith("Normality:") for c in at.caption)
+    at.selectbox(key="read_program").set_value("MV-44").run()
+    assert not at.exception
+    assert [m.label for m in at.metric].count("Ppu") == 3
+    at.multiselect(key="read_stations_MV-44").set_value(["L2-S2"]).run()
+    assert [m.label for m in at.metric].count("Ppu") == 1
+
+
+def test_calibration_page_charts_and_station_filter(app: AppFactory, demo_journal: Path) -> None:
+    at = app(demo_journal, "views/calibration.py")
+    first = int(_metrics(at)["Calibrations"])
+    assert first >= 2
+    at.selectbox(key="cal_station").set_value("L2-S2").run()
+    assert not at.exception
+    assert int(_metrics(at)["Calibrations"]) >= 5
+    assert any(m.value.startswith("**Drift of the master loss:**") for m in at.markdown)
+
+
+def test_gauge_page_from_store_and_upload(app: AppFactory, demo_journal: Path) -> None:
+    at = app(demo_journal, "views/gauge.py")
+    assert any("qualified person" in w.value for w in at.warning)
+    at.selectbox(key="gauge_station").set_value("L2-S2").run()
+    m = _metrics(at)
+    assert "Cg" in m and "%GRR now" in m
+    assert m["Shortest test time for target"].endswith(" s")
+
+
+def test_quality_part_history_search(app: AppFactory, demo_journal: Path) -> None:
+    at = app(demo_journal, "views/quality.py")
+    assert "Parts" in _metrics(at)
+    assert len(_table(at, "passes", "share")) >= 1
+    from gateway.store import open_store
+
+    store = open_store(str(demo_journal))
+    pid = str(store.results(station="L1-S3", limit=1)["part_id"].iloc[0])
+    store.close()
+    at.text_input(key="q_part").input(pid).run()
+    assert not at.exception
+    history = _table(at, "calibration_at")
+    assert set(history["station"]) == {"L1-S3"}
+    assert _metrics(at)["Tests"] == str(len(history))
+    at.text_input(key="q_part").input("NO-SUCH-PART").run()
+    assert any("No tests of part" in i.value for i in at.info)
+
+
+def test_data_filters_and_quarantine(app: AppFactory, demo_journal: Path) -> None:
+    at = app(demo_journal, "views/data_view.py")
+    table = _table(at, "station", "record_id")
+    assert len(table) == 1000 and table["station"].nunique() == 6
+    at.selectbox(key="data_station").set_value("L1-S3").run()
+    assert set(_table(at, "station", "record_id")["station"]) == {"L1-S3"}
+    at.selectbox(key="data_kind").set_value("calibrations").run()
+    cal = _table(at, "ratio")
+    assert len(cal) >= 1 and "ratio" in cal.columns
+    quarantine = _table(at, "raw", "reason", "line_no")
+    assert list(quarantine["reason"]) == ["no field separator"]
+
+
+def test_units_switch_changes_shown_values(app: AppFactory, demo_journal: Path) -> None:
+    at = app(demo_journal, "views/data_view.py")
+    sccm = _table(at, "leak_rate [sccm]")["leak_rate [sccm]"]
+    at.sidebar.selectbox(key="lf_leak_unit").set_value("mbar*L/s").run()
+    mbarl = _table(at, "leak_rate [mbar·L/s]")["leak_rate [mbar·L/s]"]
+    # 1 sccm = 101325 Pa · 1e-6 m³ / 60 s = 1.68875e-3 Pa·m³/s = 1.68875e-2 mbar·L/s
+    # (definition of the standard cm³ per minute at 101.325 kPa, 0 °C reference)
+    ratio = (mbarl / sccm).dropna()
+    assert ratio.between(0.0168874, 0.0168876).all()
+
+
+# -- messages instead of tracebacks ------------------------------------------------------------
+
+
+@pytest.mark.parametrize("page", PAGES)
+def test_empty_store_says_so(app: AppFactory, empty_journal: Path, page: str) -> None:
+    at = app(empty_journal, page)
+    assert not at.exception
+    assert any("no records yet" in i.value for i in at.info)
+
+
+@pytest.mark.parametrize("page", ["views/fleet.py", "views/yields.py", "views/data_view.py"])
+def test_unreachable_store_says_so(app: AppFactory, tmp_path: Path, page: str) -> None:
+    at = app(tmp_path / "missing" / "journal.db", page)
+    assert not at.exception
+    assert any("cannot be read" in e.value and "no such file" in e.value for e in at.error)
+
+
+def test_not_a_journal_says_so(app: AppFactory, tmp_path: Path) -> None:
+    bogus = tmp_path / "notes.db"
+    bogus.write_text("this is not a database\n" * 100)
+    at = app(bogus, "views/fleet.py")
+    assert not at.exception
+    assert any("cannot be read" in e.value for e in at.error)
+
+
+def test_bad_config_is_one_line(app: AppFactory, demo_journal: Path, tmp_path: Path) -> None:
+    cfg = tmp_path / "plant.toml"
+    cfg.write_text('site = "X"\n[shifts]\nearly = "6 o\'clock"\nlate = "14:00"\n')
+    at = app(demo_journal, "views/fleet.py", config=str(cfg))
+    assert not at.exception
+    assert [e.value for e in at.error] == [
+        f'Configuration problem: {cfg}: shifts.early: expected a local time HH:MM, got "6 o\'clock"'
+    ]
+
+
+def test_lone_station_that_never_calibrated(app: AppFactory, lone_journal: Path) -> None:
+    at = app(lone_journal, "views/fleet.py")
+    assert not at.exception
+    assert [m.label for m in at.metric].count("Cycles, last hour") == 1
+    assert any(c.value == "Last calibration: never" for c in at.caption)
+    at.switch_page("views/calibration.py").run()
+    assert not at.exception
+    assert any("never calibrated" in i.value for i in at.info)
+    at.switch_page("views/gauge.py").run()
+    assert not at.exception
+    assert any("no passed calibrations" in i.value for i in at.info)
+    for page in ("views/yields.py", "views/readings.py", "views/quality.py"):
+        at.switch_page(page).run()
+        assert not at.exception, page
+        assert not at.error, page
+
+
+def test_station_with_only_a_state_change(app: AppFactory, status_only_journal: Path) -> None:
+    for page in PAGES:
+        at = app(status_only_journal, page)
+        assert not at.exception, page
+
+
+def test_password_login_when_configured(app: AppFactory, demo_journal: Path) -> None:
+    import hashlib
+
+    from streamlit.testing.v1 import AppTest
+
+    from tests.dashboard.conftest import APP
+
+    at = AppTest.from_file(APP, default_timeout=60)
+    at.secrets["leakfleet"] = {"password_sha256": hashlib.sha256(b"s3cret").hexdigest()}
+    app(demo_journal)  # sets the environment for the store
+    at.run()
+    assert not at.metric and [h.value for h in at.header] == ["leakfleet"]
+    at.text_input(key="lf_password").input("wrong")
+    at.button[0].click().run()
+    assert [e.value for e in at.error] == ["Wrong password."]
+    at.text_input(key="lf_password").input("s3cret")
+    at.button[0].click().run()
+    assert not at.exception
+    assert [m.label for m in at.metric].count("Cycles, last hour") == 6

@@ -1,0 +1,122 @@
+"""A real browser on a running ``leakfleet demo``: every page renders, with no error box.
+
+Debian's Chromium (``/usr/bin/chromium``, installed by scripts/test-services.sh; never a browser
+download) driven by Playwright. The demo runs as a user would start it, on free ports with its
+run directory in the test's temp dir, and is stopped with SIGINT (Ctrl-C) at the end, which
+must stop the plant, the gateway and the dashboard cleanly. Screenshots land in the temp dir.
+"""
+
+from __future__ import annotations
+
+import os
+import signal
+import socket
+import subprocess
+import sys
+import time
+from collections.abc import Iterator
+from pathlib import Path
+
+import pytest
+
+CHROMIUM = Path("/usr/bin/chromium")
+REPO = Path(__file__).resolve().parents[2]
+ARGS = [
+    "--headless", "--no-sandbox", "--disable-gpu", "--disable-background-networking",
+    "--disable-component-update", "--disable-sync", "--no-first-run",
+]  # fmt: skip
+PAGES = [  # (navigation entry, a text the page shows once it has data)
+    ("Fleet live", "Cycles, last hour"),
+    ("Yield", "First-pass yield"),
+    ("Readings vs limits", "Ppu"),
+    ("Calibration", "Calibrations"),
+    ("Gauge study & test time", "qualified person"),
+    ("Quality", "Part history"),
+    ("Data", "Download CSV"),
+]
+
+pytestmark = [
+    pytest.mark.e2e,
+    pytest.mark.timeout(150),
+    pytest.mark.skipif(not CHROMIUM.exists(), reason="Debian chromium is not installed"),
+]
+
+
+def _free_port() -> int:
+    with socket.socket() as s:
+        s.bind(("127.0.0.1", 0))
+        return int(s.getsockname()[1])
+
+
+@pytest.fixture()
+def demo(tmp_path: Path) -> Iterator[tuple[str, subprocess.Popen[str]]]:
+    port = _free_port()
+    log = (tmp_path / "demo.out").open("w")
+    proc = subprocess.Popen(
+        [sys.executable, "-m", "gateway", "demo", "--port", str(port), "--speed", "120",
+         "--free-ports", "--run-dir", str(tmp_path / "run"), "--seconds", "120"],
+        cwd=REPO, stdout=log, stderr=subprocess.STDOUT, text=True,
+        env={**os.environ, "PYTHONUNBUFFERED": "1"},
+    )  # fmt: skip
+    url = f"http://127.0.0.1:{port}/"
+    try:
+        deadline = time.monotonic() + 60
+        while "dashboard: http" not in (tmp_path / "demo.out").read_text():
+            assert proc.poll() is None, (tmp_path / "demo.out").read_text()
+            assert time.monotonic() < deadline, "the demo did not print its URL"
+            time.sleep(0.2)
+        yield url, proc
+    finally:
+        if proc.poll() is None:
+            proc.send_signal(signal.SIGINT)
+            try:
+                proc.wait(timeout=30)
+            except subprocess.TimeoutExpired:
+                proc.kill()
+                proc.wait()
+        log.close()
+
+
+def test_every_page_renders_in_chromium(demo: tuple[str, subprocess.Popen[str]],
+                                        tmp_path: Path) -> None:  # fmt: skip
+    from playwright.sync_api import sync_playwright
+
+    url, proc = demo
+    shots = tmp_path / "screenshots"
+    shots.mkdir()
+    with sync_playwright() as pw:
+        browser = pw.chromium.launch(executable_path=str(CHROMIUM), args=ARGS)
+        try:
+            page = browser.new_page(viewport={"width": 1400, "height": 1000})
+            requests: list[str] = []
+            page.on("request", lambda r: requests.append(r.url))
+            page.goto(url, wait_until="domcontentloaded")
+            page.wait_for_selector("[data-testid='stApp']", timeout=30_000)
+            for title, marker in PAGES:
+                # through the sidebar, as a user does (one session, no reloads)
+                page.locator("[data-testid='stSidebarNav'] a", has_text=title).first.click()
+                # the plant needs a few simulated minutes before every page has something
+                deadline = time.monotonic() + 40
+                while page.get_by_text(marker).count() == 0 and time.monotonic() < deadline:
+                    page.wait_for_timeout(500)
+                    if page.get_by_text("The store holds no records yet").count():
+                        page.reload()  # the empty-store message waits for a rerun
+                page.wait_for_function(
+                    "() => !document.querySelector(\"[data-testid='stStatusWidget']\")",
+                    timeout=30_000,
+                )
+                page.wait_for_timeout(1000)  # charts and widgets finish drawing
+                name = title.split()[0].lower()
+                page.screenshot(path=str(shots / f"{name}.png"), full_page=True)
+                assert page.locator("[data-testid='stException']").count() == 0, name
+                assert page.get_by_text(marker).count() > 0, f"{name}: {marker!r} not shown"
+                assert page.get_by_text("pressure ratings").count() > 0, name  # safety note
+        finally:
+            browser.close()
+    # nothing but this machine was asked for anything
+    assert all(r.startswith(("http://127.0.0.1", "ws://127.0.0.1", "data:", "blob:"))
+               for r in requests), [r for r in requests if "127.0.0.1" not in r][:5]  # fmt: skip
+    proc.send_signal(signal.SIGINT)
+    assert proc.wait(timeout=30) == 0
+    out = (tmp_path / "demo.out").read_text()
+    assert "stopped:" in out and "Traceback" not in out, out
