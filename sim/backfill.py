@@ -29,6 +29,7 @@ from typing import Any
 import numpy as np
 
 from gateway.calibration import expected_loss_pa
+from gateway.store.summaries import fold_results, rebuild_summaries
 from sim.scenario import Population, Program, Scenario, Station, load_scenario
 
 __all__ = ["BackfillStats", "backfill", "journal_path"]
@@ -218,53 +219,6 @@ class _StationStream:
         )  # fmt: skip
 
 
-def _rebuild_summaries(conn: sqlite3.Connection) -> None:
-    """The hour and part summaries the journal's insert triggers keep, built in one pass.
-
-    Same arithmetic as the triggers (gateway/store/schema.py); a test compares the two.
-    """
-    from gateway.store.schema import HOUR_US as h
-    from gateway.store.schema import MIGRATIONS
-
-    conn.execute("DELETE FROM result_hours")
-    conn.execute("DELETE FROM parts")
-    conn.execute("DELETE FROM part_hours")
-    conn.execute(
-        f"""INSERT INTO result_hours
-        SELECT (ended_at / {h}) * {h} AS hour, station, line, program, verdict, COUNT(*),
-               SUM(part_id IS NULL), SUM(leak_rate_sccm), SUM(leak_rate_sccm * leak_rate_sccm),
-               MIN(leak_rate_sccm), MAX(leak_rate_sccm)
-        FROM results GROUP BY hour, station, line, program, verdict"""
-    )
-    # one row per part id: its first and last test and how many (the parts_ai trigger's
-    # per-row upsert into part_hours is replaced by one GROUP BY)
-    parts_ai = next(
-        st for st in MIGRATIONS[0].statements if st.startswith("CREATE TRIGGER parts_ai")
-    )
-    conn.execute("DROP TRIGGER parts_ai")
-    conn.execute(
-        """INSERT INTO parts
-        SELECT part_id, n, ended_at, seq, station, line, program, verdict,
-               last_ended_at, last_seq, last_verdict
-        FROM (SELECT part_id, ended_at, seq, station, line, program, verdict,
-                     ROW_NUMBER() OVER w AS a, COUNT(*) OVER whole AS n,
-                     LAST_VALUE(ended_at) OVER whole AS last_ended_at,
-                     LAST_VALUE(seq) OVER whole AS last_seq,
-                     LAST_VALUE(verdict) OVER whole AS last_verdict
-              FROM results WHERE part_id IS NOT NULL
-              WINDOW w AS (PARTITION BY part_id ORDER BY ended_at, seq),
-                     whole AS (w ROWS BETWEEN UNBOUNDED PRECEDING AND UNBOUNDED FOLLOWING))
-        WHERE a = 1"""
-    )
-    conn.execute(
-        f"""INSERT INTO part_hours
-        SELECT (first_ended_at / {h}) * {h} AS hour, station, line, program, COUNT(*),
-               SUM(first_verdict = 'pass'), SUM(last_verdict = 'pass'), SUM(tests)
-        FROM parts GROUP BY hour, station, line, program"""
-    )
-    conn.execute(parts_ai)
-
-
 def _insert_sql(table: str, columns: tuple[str, ...]) -> str:
     cols = ("record_id", *columns)
     marks = ", ".join("?" * len(cols))
@@ -317,12 +271,9 @@ def backfill(
     conn.execute("PRAGMA cache_size=-262144")
     statements = MIGRATIONS[0].statements
     indexes = [s for s in statements if s.startswith("CREATE INDEX ix_results")]
-    # on an empty journal the per-row summary triggers are replaced by one rebuild at the end
-    # (4x faster); into a journal that has rows, they stay on
+    # the journal keeps its summaries per batch; a bulk load folds them in once at the end
     empty = conn.execute("SELECT 1 FROM results LIMIT 1").fetchone() is None
-    triggers = (
-        [s for s in statements if s.startswith("CREATE TRIGGER results_ai_")] if empty else []
-    )
+    before_seq = conn.execute("SELECT COALESCE(MAX(seq), 0) FROM results").fetchone()[0]
     insert_r = _insert_sql("results", RESULT_COLUMNS)
     insert_c = _insert_sql("calibrations", CALIBRATION_COLUMNS)
     done = n_cal = 0
@@ -330,8 +281,6 @@ def backfill(
     try:
         for stmt in indexes:  # rebuilt after the load: much faster than maintaining them
             conn.execute(f"DROP INDEX IF EXISTS {stmt.split()[2]}")
-        for stmt in triggers:
-            conn.execute(f"DROP TRIGGER IF EXISTS {stmt.split()[2]}")
         while done < results:
             rows: list[tuple[Any, ...]] = []
             cal_rows: list[tuple[Any, ...]] = []
@@ -357,10 +306,10 @@ def backfill(
         conn.execute("BEGIN")
         for stmt in indexes:
             conn.execute(stmt.replace("CREATE INDEX", "CREATE INDEX IF NOT EXISTS", 1))
-        if triggers:
-            _rebuild_summaries(conn)
-            for stmt in triggers:
-                conn.execute(stmt.replace("CREATE TRIGGER", "CREATE TRIGGER IF NOT EXISTS", 1))
+        if empty:
+            rebuild_summaries(conn)
+        else:
+            fold_results(conn, before_seq)
         conn.execute("COMMIT")
         conn.execute("ANALYZE")
         conn.execute("PRAGMA wal_checkpoint(TRUNCATE)")

@@ -27,7 +27,14 @@ def test_demo_config_gives_zone_site_and_shifts() -> None:
     )
     assert s.shifts == (("early", "06:00", "14:00"), ("late", "14:00", "22:00"),
                         ("night", "22:00", "06:00"))  # fmt: skip
-    assert s.standards == () and s.clock == "wall"
+    assert s.clock == "wall"
+    # the demo register: one standard per station, 350 kPa for L1 and 20 psi for L2
+    # (1 psi = 6894.757293168 Pa, NIST SP 811 appendix B)
+    assert len(s.standards) == 6
+    first = s.standards[0]
+    assert (first.serial, first.station, first.nominal_sccm) == ("LS-3021", "L1-S1", 3.0)
+    assert first.reference_pressure_pa == pytest.approx(350_000.0)
+    assert s.standards[-1].reference_pressure_pa == pytest.approx(20 * 6894.757293168)
 
 
 def test_store_falls_back_to_the_config_then_the_default(tmp_path: Path) -> None:

@@ -1,8 +1,8 @@
 """sim.backfill: a plant history written straight into the journal schema.
 
-The bulk path skips the journal's per-row summary triggers and rebuilds the summaries at the
-end, so the check that matters is that the result is the journal a gateway would have built:
-canonical record ids, and summaries equal to what the triggers produce for the same rows.
+The bulk path inserts raw rows and builds the summaries once at the end, so the check that
+matters is that the result is the journal a gateway would have built: canonical record ids, and
+summaries equal to what the journal's own batch-by-batch upkeep gives for the same records.
 """
 
 from __future__ import annotations
@@ -16,7 +16,6 @@ from pathlib import Path
 import pytest
 
 from gateway.store import open_journal
-from gateway.store.schema import RESULT_COLUMNS
 from sim.backfill import backfill
 
 REPO = Path(__file__).resolve().parents[2]
@@ -45,23 +44,30 @@ def test_record_ids_are_canonical(history: Path) -> None:
         journal.close()
 
 
-def test_summaries_equal_what_the_triggers_keep(history: Path, tmp_path: Path) -> None:
-    other = tmp_path / "triggers.db"
-    open_journal(str(other)).close()
-    cols = ("seq", "record_id", *RESULT_COLUMNS)
+def test_summaries_equal_what_the_journal_keeps(history: Path, tmp_path: Path) -> None:
+    # The bulk load's one-pass rebuild against the journal's own batch-by-batch upkeep of the
+    # same records (read back from the backfilled journal, written through Journal.write).
+    src_journal = open_journal(str(history))
+    other = open_journal(str(tmp_path / "batched.db"))
+    try:
+        after = 0
+        while batch := src_journal.read_after("result", after, 500):
+            other.write([rec for _, rec in batch])
+            after = batch[-1][0]
+    finally:
+        src_journal.close()
+        other.close()
     src = sqlite3.connect(history)
-    rows = src.execute(f"SELECT {', '.join(cols)} FROM results ORDER BY seq").fetchall()
-    dst = sqlite3.connect(other)
-    with dst:  # row by row through the journal's own triggers
-        dst.executemany(
-            f"INSERT INTO results ({', '.join(cols)}) VALUES ({', '.join('?' * len(cols))})", rows
-        )
+    dst = sqlite3.connect(tmp_path / "batched.db")
     for table in ("result_hours", "parts", "part_hours"):
         a = src.execute(f"SELECT * FROM {table} ORDER BY 1, 2, 3, 4").fetchall()
         b = dst.execute(f"SELECT * FROM {table} ORDER BY 1, 2, 3, 4").fetchall()
         assert a and len(a) == len(b), table
         for x, y in zip(a, b, strict=True):
-            assert x == pytest.approx(y) if all(isinstance(v, float) for v in x) else x == y
+            if table == "parts":  # seq columns differ between the two journals
+                x, y = x[:3] + x[4:9] + x[10:], y[:3] + y[4:9] + y[10:]
+            for u, v in zip(x, y, strict=True):  # sums may differ in the last bits by order
+                assert u == pytest.approx(v) if isinstance(u, float) else u == v, (table, x, y)
 
 
 def test_history_looks_like_a_plant(history: Path) -> None:
