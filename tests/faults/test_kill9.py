@@ -34,6 +34,16 @@ def _key(e: dict[str, Any]) -> tuple[Any, ...]:
     return (e["kind"], e["station"], r.get("cycle"), r.get("program"), str(r["ended_at"]))
 
 
+async def _grown(entries: list[Any], n: int, timeout: float = 60.0) -> None:
+    """At least 3 s more and until the truth log holds ``n`` entries: a loaded machine runs the
+    simulator slower, and the test needs enough records on each side of the kill."""
+    await asyncio.sleep(3.0)
+    loop = asyncio.get_running_loop()
+    deadline = loop.time() + timeout
+    while len(entries) < n and loop.time() < deadline:
+        await asyncio.sleep(0.1)
+
+
 async def test_kill_9_mid_batch_then_restart(tmp_path: Path) -> None:
     db = tmp_path / "journal.db"
     async with running_plant(scenario_from_text(BASE), tmp_path, speed=SPEED) as plant:
@@ -45,7 +55,7 @@ async def test_kill_9_mid_batch_then_restart(tmp_path: Path) -> None:
             await gw.start()
             await gw.wait_for_text("-> online", len(names))
             t_online = len(plant.truth.entries)
-            await asyncio.sleep(3.0)
+            await _grown(plant.truth.entries, t_online + 12)
             t_pre = len(plant.truth.entries)  # lines from here on may be in the killed batch
             await asyncio.sleep(0.35)
             assert gw.proc is not None
@@ -57,7 +67,7 @@ async def test_kill_9_mid_batch_then_restart(tmp_path: Path) -> None:
             await gw2.start()
             await gw2.wait_for_text("-> online", len(names))
             t_back = len(plant.truth.entries)
-            await asyncio.sleep(3.0)
+            await _grown(plant.truth.entries, t_back + 12)
             t_end = len(plant.truth.entries)
             await asyncio.sleep(1.0)
             assert await gw2.stop() == 0, gw2.text()[-2000:]

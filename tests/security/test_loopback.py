@@ -9,7 +9,12 @@ from __future__ import annotations
 import asyncio
 import importlib.util
 import os
+import signal
 import socket
+import subprocess
+import sys
+import time
+import urllib.request
 from pathlib import Path
 
 import pytest
@@ -17,6 +22,7 @@ import pytest
 from tests.faults.gw import Gateway
 
 pytestmark = [pytest.mark.integration, pytest.mark.timeout(60)]
+REPO = Path(__file__).resolve().parents[2]
 LOOPBACK = {"127.0.0.1", "::1", "::ffff:127.0.0.1"}
 
 
@@ -75,7 +81,45 @@ async def test_gateway_listens_on_loopback_only(tmp_path: Path) -> None:
         assert (("127.0.0.1", port) in sockets), sockets  # the metrics endpoint is up, on loopback
 
 
-def test_dashboard_listens_on_loopback_only() -> None:
-    if importlib.util.find_spec("dashboard") is None:
-        pytest.skip("the dashboard has not landed on this branch")
-    pytest.skip("to be written against `leakfleet dashboard` once it lands")
+def _tree(pid: int) -> list[int]:
+    """``pid`` and its descendants (``leakfleet dashboard`` runs Streamlit as a child)."""
+    out, todo = [], [pid]
+    while todo:
+        p = todo.pop()
+        out.append(p)
+        for task in os.listdir(f"/proc/{p}/task"):
+            with open(f"/proc/{p}/task/{task}/children") as fh:
+                todo += [int(c) for c in fh.read().split()]
+    return out
+
+
+def test_dashboard_listens_on_loopback_only(tmp_path: Path) -> None:
+    from gateway.store import open_journal
+
+    db = tmp_path / "j.db"
+    open_journal(f"sqlite:///{db}").close()
+    port = _free_port()
+    proc = subprocess.Popen(
+        [sys.executable, "-m", "gateway", "dashboard", "--store", f"sqlite:///{db}",
+         "--port", str(port)],
+        cwd=REPO, stdout=subprocess.PIPE, stderr=subprocess.STDOUT, text=True,
+        env={**os.environ, "PYTHONPATH": str(REPO)},
+    )  # fmt: skip
+    try:
+        deadline = time.monotonic() + 45
+        while True:
+            try:
+                with urllib.request.urlopen(f"http://127.0.0.1:{port}/_stcore/health",
+                                            timeout=2) as r:  # fmt: skip
+                    assert r.read() == b"ok"
+                    break
+            except OSError:
+                assert proc.poll() is None, proc.stdout.read() if proc.stdout else ""
+                assert time.monotonic() < deadline, "dashboard did not answer"
+                time.sleep(0.3)
+        sockets = [s for pid in _tree(proc.pid) for s in _listening(pid)]
+    finally:
+        proc.send_signal(signal.SIGINT)
+        proc.communicate(timeout=20)
+    assert ("127.0.0.1", port) in sockets, sockets
+    assert all(addr in LOOPBACK for addr, _ in sockets), sockets
