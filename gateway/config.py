@@ -82,7 +82,9 @@ class StationConfig:
 @dataclass(frozen=True)
 class RuntimeConfig:
     batch_size: int = 500
-    max_delay_s: float = 0.1
+    # extra wait for company before a commit; 0 = group commit: write whatever is pending as
+    # soon as the writer is free (batches still grow under load, while the last write runs)
+    max_delay_s: float = 0.0
     queue_size: int = 2000
     max_pending: int = 100_000
     pacing: Pacing = field(default_factory=Pacing)
@@ -315,7 +317,7 @@ def _runtime(r: _Reader, t: dict[str, Any]) -> RuntimeConfig:
         offline_after=r.integer(t, "offline_after", p, 3, 1, 1000),
         line_gap_s=r.duration(t, "line_gap", p, 0.25) or 0.25,
     )
-    max_delay = r.duration(t, "max_delay", p, 0.1) or 0.1
+    max_delay = r.duration(t, "max_delay", p, 0.0) or 0.0
     if max_delay > 0.2:
         raise r.fail(p + "max_delay", "at most 0.2 s (results are committed within 250 ms)",
                      t.get("max_delay"))

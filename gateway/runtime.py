@@ -4,8 +4,8 @@ Task layout (all owned by one ``asyncio.TaskGroup``)::
 
     bus tasks (one per serial line / TCP endpoint)  ──put──>  JournalWriter  ──>  Journal.write
       └ serial stream | request/response | Modbus poll         (bounded queue,      (one thread)
-                                                               batches ≤ 250 ms)
-    forwarders (sinks), each reading the journal from its own cursor
+                                                               group commit)
+    forwarders (sinks), each reading the journal from its own cursor, woken by each commit
 
 Back-pressure: the writer holds what it could not store yet (journal full or read-only) in a
 bounded buffer and retries with backoff. While it is failing, ``accepting`` is false and Modbus
@@ -35,13 +35,13 @@ from dataclasses import dataclass, field
 from typing import Any
 
 from gateway import metrics
-from gateway.aio import within
+from gateway.aio import Pulse, within
 from gateway.config import GatewayConfig
 from gateway.drivers.base import Item, Outbox, Pacing, StationTarget, utcnow
 from gateway.errors import ConfigError, StoreError
 from gateway.health import Backoff, ClockWatch
 from gateway.records import CalibrationEvent, Rejected, StationState, StationStatus, TestResult
-from gateway.sinks import REGISTRY, Forwarder, SinkContext, SinkFactory
+from gateway.sinks import REGISTRY, Forwarder, SinkContext, SinkFactory, Wakeable
 
 __all__ = [
     "Forwarder",
@@ -105,9 +105,11 @@ JournalFactory = Callable[[], Any]
 class JournalWriter:
     """The single writer: batches items into ``Journal.write`` calls on one dedicated thread.
 
-    A batch is committed when it is full or ``max_delay_s`` after its oldest item arrived (the
-    default keeps a result's commit well inside 250 ms). Nothing is dropped on a store error:
-    items stay in ``pending`` (bounded by ``max_pending``) and the batch is retried.
+    Group commit: a batch is written as soon as the writer thread is free, with whatever arrived
+    meanwhile (up to ``batch_size``), so a lone result is committed at once and batches grow by
+    themselves under load; ``max_delay_s`` > 0 makes a batch wait that long for company.
+    Nothing is dropped on a store error: items stay in ``pending`` (bounded by
+    ``max_pending``) and the batch is retried.
     """
 
     def __init__(
@@ -115,7 +117,7 @@ class JournalWriter:
         open_journal: JournalFactory,
         *,
         batch_size: int = 500,
-        max_delay_s: float = 0.1,
+        max_delay_s: float = 0.0,
         queue_size: int = 2000,
         max_pending: int = 100_000,
         retry_initial_s: float = 0.5,
@@ -133,6 +135,7 @@ class JournalWriter:
         self._retry = Backoff(retry_initial_s, retry_max_s)
         self._failing: str | None = None
         self._closing = False
+        self.committed = Pulse()  # fired after every commit: forwarders wake instead of polling
         self.stats: dict[str, int] = {"inserted": 0, "duplicates": 0, "quarantined": 0,
                                       "failed_writes": 0}
 
@@ -264,6 +267,7 @@ class JournalWriter:
             return False
         for _ in range(n):
             self._pending.popleft()
+        self.committed.fire()
         self._oldest = loop.time() if self._pending else None
         self._retry.reset()
         if self._failing is not None:
@@ -430,14 +434,14 @@ class _FlaggingOutbox:
 
 
 def _bus_runner(
-    stations: list[StationTarget], outbox: Outbox, pacing: Pacing
+    stations: list[StationTarget], outbox: Outbox, pacing: Pacing, phase: float = 0.0
 ) -> Callable[[], Awaitable[None]]:
     from gateway.drivers.modbus import run_modbus_bus
     from gateway.drivers.serial import run_request_station, run_stream_station
 
     first = stations[0]
     if first.profile.transport == "modbus":
-        return lambda: run_modbus_bus(stations, outbox, pacing)
+        return lambda: run_modbus_bus(stations, outbox, pacing, phase=phase)
     assert first.profile.serial is not None
     if first.profile.serial.mode == "stream":
         return lambda: run_stream_station(first, outbox, pacing)
@@ -513,14 +517,19 @@ class Runtime:
             writer_task = tg.create_task(writer.run(), name="journal writer")
             sink_stop = asyncio.Event()
             for fwd in self.forwarders:
+                if isinstance(fwd, Wakeable):
+                    fwd.wake = writer.committed
                 tg.create_task(self._forward(fwd, sink_stop), name=f"sink {fwd.name}")
             outbox = _FlaggingOutbox(writer, {t.station: t.health for t in self.targets})
+            buses = _buses(self.targets)
+            # polled buses start spread over their interval, not all in the same instant
             bus_tasks = [
                 tg.create_task(
-                    _supervise(ep, group, _bus_runner(group, outbox, pacing), outbox, pacing),
+                    _supervise(ep, group, _bus_runner(group, outbox, pacing, i / len(buses)),
+                               outbox, pacing),
                     name=f"bus {ep}",
                 )
-                for ep, group in _buses(self.targets).items()
+                for i, (ep, group) in enumerate(buses.items())
             ]
             await stop.wait()
             log.info("stopping: %d item(s) waiting for the journal", writer.pending)

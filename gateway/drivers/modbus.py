@@ -449,8 +449,15 @@ async def run_modbus_bus(
     outbox: Outbox,
     pacing: Pacing,
     link: Any = None,
+    *,
+    phase: float = 0.0,
 ) -> None:
-    """Poll every station on one bus (a TCP endpoint or a serial line) in turn, for ever."""
+    """Poll every station on one bus (a TCP endpoint or a serial line) in turn, for ever.
+
+    ``phase`` (0..1) delays the first poll by that fraction of the poll interval: a gateway
+    with many buses spreads them over the interval, so no instant carries every request
+    (which would queue results behind each other in the gateway and on shared networks).
+    """
     first = targets[0]
     spec = first.profile.modbus
     if spec is None:
@@ -481,7 +488,8 @@ async def run_modbus_bus(
             device_id=t.options.get("device_id"),
         )
     loop = asyncio.get_running_loop()
-    due = {t.station: loop.time() for t in targets}
+    start = loop.time() + (phase % 1.0) * min(t.poll_interval_s for t in targets)
+    due = {t.station: start for t in targets}
     backoff = pacing.backoff()
     try:
         while True:

@@ -18,9 +18,11 @@ from __future__ import annotations
 import asyncio
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass
-from typing import Any, Protocol
+from typing import Any, Protocol, runtime_checkable
 
-__all__ = ["REGISTRY", "Forwarder", "SinkContext", "SinkFactory", "register_sink"]
+from gateway.aio import Pulse
+
+__all__ = ["REGISTRY", "Forwarder", "SinkContext", "SinkFactory", "Wakeable", "register_sink"]
 
 
 @dataclass(frozen=True)
@@ -39,6 +41,13 @@ class Forwarder(Protocol):
     name: str
 
     async def run(self, store_url: str, stop: asyncio.Event) -> None: ...
+
+
+@runtime_checkable
+class Wakeable(Protocol):
+    """A forwarder the runtime can wake after each journal commit (else it polls)."""
+
+    wake: Pulse | None
 
 
 SinkFactory = Callable[[str, Mapping[str, Any], SinkContext], Forwarder]

@@ -42,6 +42,7 @@ from pathlib import Path
 from typing import Any, Protocol
 
 from gateway import metrics
+from gateway.aio import Pulse
 from gateway.errors import ConfigError, TransportError
 from gateway.records import Record
 from gateway.store.journal import KINDS, Journal, Kind, open_journal
@@ -176,6 +177,9 @@ class JournalForwarder:
         self.failures = 0  # in the current streak
         self._cursors: dict[Kind, int] = {}
         self._backlog_at = 0.0
+        # the journal writer's commit signal, set by the runtime: with it a record goes out as
+        # soon as it is committed; without it (a journal written by another process) we poll
+        self.wake: Pulse | None = None
 
     # -- the runtime's entry point ---------------------------------------------------------
     async def run(self, store_url: str, stop: asyncio.Event) -> None:
@@ -215,11 +219,16 @@ class JournalForwarder:
             if stop.is_set():
                 await self._drain(journal)
                 return
+            token = self.wake.token() if self.wake is not None else None
             moved = await self._send_pending(journal)
             if self.failures:
                 self._recovered()  # healthy only once a pass went through, not on connect
             await self._refresh_backlog(journal)
-            if not moved:
+            if moved:
+                continue
+            if token is not None:
+                await Pulse.wait(token, self.options.poll_interval_s, stop)
+            else:
                 await _sleep_unless(stop, self.options.poll_interval_s)
 
     async def _drain(self, journal: Journal) -> None:

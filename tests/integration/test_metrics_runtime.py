@@ -266,11 +266,15 @@ async def test_sink_backlog_and_errors_while_the_broker_is_unreachable(tmp_path:
         async with running(cfg) as runtime:
             assert runtime.metrics_server is not None
             url = runtime.metrics_server.url
-            await until(lambda: journal_counts(db).get((mb, "result")) == 3)
+            # results and the calibration may be committed apart (group commit): wait for both
+            await until(lambda: journal_counts(db).get((mb, "result")) == 3
+                        and journal_counts(db).get((mb, "calibration")) == 1)
 
             def backlog_is_journal() -> bool:
                 s = scrape(url)
-                return value(s, "leakfleet_sink_backlog_records", sink=sink, kind="result") == 3
+                return (value(s, "leakfleet_sink_backlog_records", sink=sink, kind="result") == 3
+                        and value(s, "leakfleet_sink_backlog_records", sink=sink,
+                                  kind="calibration") == 1)
             await until(backlog_is_journal)  # nothing sent: the whole journal waits
             samples = scrape(url)
         assert value(samples, "leakfleet_sink_errors_total", sink=sink) >= 1

@@ -134,3 +134,36 @@ def test_read_secret_env_first_then_file(tmp_path: Path, monkeypatch: pytest.Mon
     with pytest.raises(ConfigError, match="cannot read secrets file") as e:
         read_secret("LF_TEST_SECRET", str(tmp_path / "missing"), "sink x")
     assert "from-file" not in str(e.value)
+
+
+async def test_a_commit_wakes_the_forwarder_that_would_otherwise_sleep(tmp_path: Path) -> None:
+    """With the writer's commit pulse the forwarder sends at once; its poll interval here is an
+    hour, so reaching the sink at all proves the wake-up (no clock is read)."""
+    from gateway.aio import Pulse
+
+    j = open_journal(str(tmp_path / "j.db"))
+    client = Scripted()
+    fwd = JournalForwarder("w", client, ForwarderOptions(poll_interval_s=3600.0))
+    fwd.wake = Pulse()
+    records = shift(1, 3)
+    async with forwarding(fwd, j):
+        await until(lambda: fwd.connected, 10, "connected")
+        await asyncio.sleep(0.05)  # let it reach its (hour-long) wait
+        for rec in records:
+            j.write([rec])
+            fwd.wake.fire()
+            await until(lambda rec=rec: rec.record_id in client.acked, 10, "woken by the commit")
+    assert client.acked == [r.record_id for r in records]
+    j.close()
+
+
+async def test_pulse_fired_between_look_and_wait_is_not_missed() -> None:
+    from gateway.aio import Pulse
+
+    pulse = Pulse()
+    token = pulse.token()  # taken before looking for work
+    pulse.fire()  # the commit lands while we look
+    await asyncio.wait_for(Pulse.wait(token, 3600.0), 10)  # returns at once, not in an hour
+    stop = asyncio.Event()
+    stop.set()
+    await asyncio.wait_for(Pulse.wait(pulse.token(), 3600.0, stop), 10)
