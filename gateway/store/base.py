@@ -149,13 +149,17 @@ class QueryStore(Protocol):
         line: str | None = None,
         program: str | None = None,
     ) -> pd.DataFrame:
-        """Parts (results with a part_id) judged by their tests inside the range.
+        """Parts (results with a part_id), each judged by all of its tests.
 
-        A part belongs to the group (and bucket) of its first test in the range; filters
-        choose which tests count (``station="X"``: parts as tested at X). Columns:
-        ``*by``, [``bucket``], ``parts``, ``first_pass`` (first test passed), ``final_pass``
-        (last test passed), ``tests`` (all tests of those parts), ``no_part_id`` (results in
-        the group that carry no part id and so cannot count as parts).
+        A part's first test ever decides it (first-pass yield, common practice) and places
+        it: the part belongs to the group and bucket of that test, and the range and filters
+        pick parts by it (``station="X"``: the parts first tested at X; a retest at X of a
+        part first tested elsewhere, or earlier, is not a first pass at X). So the groups
+        add up: the ``by=("station",)`` row for X equals ``station="X"``. Columns: ``*by``,
+        [``bucket``], ``parts``, ``first_pass`` (first test passed), ``final_pass`` (the
+        part's last test passed, wherever and whenever it ran), ``tests`` (all tests of those
+        parts), ``no_part_id`` (results in range and filters that carry no part id and so
+        cannot count as parts, by their own group).
         """
         ...
 

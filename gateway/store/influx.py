@@ -15,7 +15,9 @@ Where the work happens, honestly:
   one request;
 - ``first_pass_counts`` needs each part's first and last test, but InfluxQL cannot group by a
   field (the part id is a field on purpose: it is high-cardinality), so that one query fetches
-  the narrow columns (time, part_id, verdict and the group tags) and groups in pandas;
+  the narrow columns (time, part_id, verdict and the group tags) in range, then the whole
+  history of the parts found there (a part is judged by all its tests, see QueryStore), and
+  groups in pandas;
 - quarantine rows are not forwarded to InfluxDB: ``quarantine()`` is always empty here.
 Every value travels as a bound parameter (``params`` of ``/query``); identifiers come only from
 whitelists. Frames have the SqliteStore's columns and conventions (gateway.store.base).
@@ -64,6 +66,8 @@ _SERIES_COLUMNS = (
 )  # fmt: skip
 _INTERVAL = {"hour": "1h", "day": "1d"}
 _BUCKET_NS = {"hour": 3_600 * 10**9, "day": 86_400 * 10**9}
+# part ids per statement when fetching parts' histories (bound parameters, ORed)
+_IDS_PER_STATEMENT = 200
 _INT_COLUMNS = ("seq", "cycle")
 _FLOAT_COLUMNS = (
     "test_pressure_pa", "pressure_loss_pa", "leak_rate_sccm", "reject_limit_sccm", "fill_s",
@@ -353,12 +357,13 @@ class InfluxStore:
     ) -> pd.DataFrame:
         names = _group_columns(by)
         _check_bucket(bucket)
-        where = (_Where().time(since, until).eq("station", station).eq("line", line)
-                 .eq("program", program))
-        tags = ", ".join(f'"{t}"' for t in names)
-        select = '"part_id", "verdict", "seq"' + (f", {tags}" if tags else "")
+        tag_filters = {"station": station, "line": line, "program": program}
+        where = _Where().time(since, until)
+        for column, value in tag_filters.items():
+            where.eq(column, value)
+        narrow = '"record_id", "part_id", "verdict", "seq", "station", "line", "program"'
         # narrow rows; InfluxQL cannot group by a field (see the module docstring)
-        frame = self._frame(self._query(f"SELECT {select} FROM {_RESULTS}{where.sql()}",
+        frame = self._frame(self._query(f"SELECT {narrow} FROM {_RESULTS}{where.sql()}",
                                         where.params))
         counts = ["parts", "first_pass", "final_pass", "tests", "no_part_id"]
         cols = [*names, *(["bucket"] if bucket else []), *counts]
@@ -366,38 +371,61 @@ class InfluxStore:
             return _empty(cols)
         if "part_id" not in frame.columns:
             frame["part_id"] = None
-        frame = frame.sort_values(["time", "seq"], kind="stable")
+        no_id = frame[frame["part_id"].isna()]
+        with_id = frame[frame["part_id"].notna()]
+        if not with_id.empty and (where.parts or since is not None or until is not None):
+            # a part is judged by all of its tests, wherever and whenever they ran: fetch the
+            # whole history of the parts seen in range (the range and filters pick parts by
+            # their first test below, as the SQLite store's parts summary does)
+            with_id = self._part_history(sorted(set(with_id["part_id"])), narrow)
+        parts = _judge_parts(with_id)
+        keep = pd.Series(True, index=parts.index)
+        lo, hi = _ns("since", since), _ns("until", until)
+        if lo is not None:
+            keep &= parts["time"] >= lo
+        if hi is not None:
+            keep &= parts["time"] < hi
+        for column, value in tag_filters.items():
+            if value is not None:
+                keep &= parts[column] == value
+        parts = parts[keep]
+        loose = no_id.assign(parts=0, first_pass=0, final_pass=0, tests=0, no_part_id=1)
+        both = pd.concat([parts, loose[[*parts.columns]]], ignore_index=True)
+        if both.empty:
+            return _empty(cols)
+        keys = list(names)
         if bucket is not None:
             width = _BUCKET_NS[bucket]
-            frame["bucket_ns"] = (frame["time"].astype("int64") // width) * width
-        keys = [*names, *(["bucket_ns"] if bucket else [])]
-        with_id = frame[frame["part_id"].notna()]
-        no_id = frame[frame["part_id"].isna()]
-        if not with_id.empty:
-            grouped = with_id.groupby("part_id", sort=False)
-            first = grouped.head(1).set_index("part_id")
-            last = grouped.tail(1).set_index("part_id")
-            parts = first[keys].copy() if keys else pd.DataFrame(index=first.index)
-            parts["first_pass"] = (first["verdict"] == "pass").astype("int64")
-            parts["final_pass"] = (last["verdict"] == "pass").astype("int64").reindex(parts.index)
-            parts["tests"] = grouped.size().reindex(parts.index).astype("int64")
-            parts["parts"] = 1
-            parts["no_part_id"] = 0
-        else:
-            parts = pd.DataFrame(columns=[*keys, *counts])
-        loose = no_id[keys].copy() if keys else pd.DataFrame(index=no_id.index)
-        for c in ("parts", "first_pass", "final_pass", "tests"):
-            loose[c] = 0
-        loose["no_part_id"] = 1
-        both = pd.concat([parts.reset_index(drop=True), loose.reset_index(drop=True)])
+            both["bucket_ns"] = (both["time"].astype("int64") // width) * width
+            keys.append("bucket_ns")
         if keys:
             agg = both.groupby(keys, sort=True)[counts].sum().reset_index()
         else:
             agg = pd.DataFrame([both[counts].sum()])
         agg[counts] = agg[counts].astype("int64")
+        agg = agg[(agg["parts"] > 0) | (agg["no_part_id"] > 0)]
+        if agg.empty:
+            return _empty(cols)
         if bucket is not None:
             agg["bucket"] = _utc(agg["bucket_ns"])
         return agg[cols].reset_index(drop=True)
+
+    def _part_history(self, part_ids: Sequence[str], select: str) -> pd.DataFrame:
+        """Every stored test of ``part_ids`` (all stations, all time), narrow columns.
+
+        The part id is a field, so each statement scans the measurement on the server; the
+        ids go in as bound parameters, a few hundred per statement, all in one request.
+        """
+        statements: list[str] = []
+        params: dict[str, Any] = {}
+        for start in range(0, len(part_ids), _IDS_PER_STATEMENT):
+            chunk = part_ids[start : start + _IDS_PER_STATEMENT]
+            names = [f"id{start + i}" for i in range(len(chunk))]
+            params.update(zip(names, chunk, strict=True))
+            match = " OR ".join(f'"part_id" = ${n}' for n in names)
+            statements.append(f"SELECT {select} FROM {_RESULTS} WHERE ({match})")
+        frame = self._frame(self._query("; ".join(statements), params))
+        return frame.drop_duplicates("record_id")
 
     def histogram(
         self, since: datetime | None, until: datetime | None, edges: Sequence[float], *,
@@ -480,6 +508,28 @@ class InfluxStore:
 
     def __exit__(self, *exc: object) -> None:
         self.close()
+
+
+def _judge_parts(tests: pd.DataFrame) -> pd.DataFrame:
+    """One row per part: its first test's time, station, line and program, and the counts.
+
+    First and last by (time, seq), as the SQLite parts summary orders them.
+    """
+    columns = ["time", "station", "line", "program", "parts", "first_pass", "final_pass",
+               "tests", "no_part_id"]
+    if tests.empty:
+        return pd.DataFrame(columns=columns)
+    ordered = tests.sort_values(["time", "seq"], kind="stable")
+    grouped = ordered.groupby("part_id", sort=False)
+    first = grouped.head(1).set_index("part_id")
+    last = grouped.tail(1).set_index("part_id")
+    parts = first[["time", "station", "line", "program"]].copy()
+    parts["parts"] = 1
+    parts["first_pass"] = (first["verdict"] == "pass").astype("int64")
+    parts["final_pass"] = (last["verdict"] == "pass").astype("int64").reindex(parts.index)
+    parts["tests"] = grouped.size().reindex(parts.index).astype("int64")
+    parts["no_part_id"] = 0
+    return parts.reset_index(drop=True)[columns]
 
 
 def _converter(column: str, time_col: str) -> Any:
