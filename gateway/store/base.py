@@ -34,17 +34,22 @@ __all__ = [
     "ACCEPTED_URLS",
     "GROUP_COLUMNS",
     "HISTOGRAM_VALUES",
+    "VERDICT_GROUP_COLUMNS",
     "Bucket",
     "GroupColumn",
     "QueryStore",
+    "VerdictGroupColumn",
     "open_store",
     "register_store",
 ]
 
 Bucket = Literal["hour", "day"]
 GroupColumn = Literal["station", "line", "program"]
+#: verdict_counts may also group by the reject reason the station reported ("" when none)
+VerdictGroupColumn = Literal["station", "line", "program", "reason"]
 #: the only column names a caller may group by
 GROUP_COLUMNS: tuple[str, ...] = ("station", "line", "program")
+VERDICT_GROUP_COLUMNS: tuple[str, ...] = (*GROUP_COLUMNS, "reason")
 #: the only result columns a histogram may bin
 HISTOGRAM_VALUES: tuple[str, ...] = ("leak_rate_sccm", "pressure_loss_pa", "test_pressure_pa")
 
@@ -129,13 +134,17 @@ class QueryStore(Protocol):
         since: datetime | None = None,
         until: datetime | None = None,
         *,
-        by: Sequence[GroupColumn] = ("station",),
+        by: Sequence[VerdictGroupColumn] = ("station",),
         bucket: Bucket | None = None,
         station: str | None = None,
         line: str | None = None,
         program: str | None = None,
     ) -> pd.DataFrame:
-        """Tests per group and verdict: ``*by``, [``bucket``], ``verdict``, ``n``."""
+        """Tests per group and verdict: ``*by``, [``bucket``], ``verdict``, ``n``.
+
+        ``by`` may include ``reason`` (the reject reason as the station reported it, ``""``
+        when it gave none), so a Pareto of rejects by reason needs no result rows.
+        """
         ...
 
     def first_pass_counts(

@@ -8,6 +8,8 @@ endpoint (the bucket needs a DBRP mapping, see deploy/influxdb.md) with the toke
 ``LEAKFLEET_INFLUX_TOKEN`` in an ``Authorization: Token`` header.
 
 Where the work happens, honestly:
+- counts by reject reason: the reason is a free-text field, so the counts per tag group come
+  from InfluxQL and only the tests that carry a reason are fetched (narrow) and split in pandas;
 - row queries, counts per verdict, leak-rate statistics (COUNT, MEAN, STDDEV, MIN, MAX) and
   hour/day buckets (``GROUP BY time(1h|1d)``, UTC-aligned like the SQLite store's) run in
   InfluxQL; group columns (station, line, program) are tags, so ``GROUP BY`` is native;
@@ -44,7 +46,14 @@ from gateway.sinks.influx_http import (
     parse_influx_url,
 )
 from gateway.sinks.lineprotocol import MEASUREMENTS, timestamp_ns
-from gateway.store.base import GROUP_COLUMNS, HISTOGRAM_VALUES, Bucket, GroupColumn
+from gateway.store.base import (
+    GROUP_COLUMNS,
+    HISTOGRAM_VALUES,
+    VERDICT_GROUP_COLUMNS,
+    Bucket,
+    GroupColumn,
+    VerdictGroupColumn,
+)
 from gateway.store.schema import (
     CALIBRATION_COLUMNS,
     QUARANTINE_COLUMNS,
@@ -129,11 +138,11 @@ class _Where:
         return other
 
 
-def _group_columns(by: Sequence[str]) -> list[str]:
+def _group_columns(by: Sequence[str], allowed: Sequence[str] = GROUP_COLUMNS) -> list[str]:
     cols = list(by)
-    bad = [c for c in cols if c not in GROUP_COLUMNS]
+    bad = [c for c in cols if c not in allowed]
     if bad:
-        raise ValueError(f"cannot group by {bad}; allowed: {', '.join(GROUP_COLUMNS)}")
+        raise ValueError(f"cannot group by {bad}; allowed: {', '.join(allowed)}")
     return cols
 
 
@@ -333,22 +342,48 @@ class InfluxStore:
     # -- aggregates -----------------------------------------------------------------------------
     def verdict_counts(
         self, since: datetime | None = None, until: datetime | None = None, *,
-        by: Sequence[GroupColumn] = ("station",), bucket: Bucket | None = None,
+        by: Sequence[VerdictGroupColumn] = ("station",), bucket: Bucket | None = None,
         station: str | None = None, line: str | None = None, program: str | None = None,
     ) -> pd.DataFrame:
-        names = _group_columns(by)
+        names = _group_columns(by, VERDICT_GROUP_COLUMNS)
         _check_bucket(bucket)
+        tags = [c for c in names if c != "reason"]
         where = _Where().eq("station", station).eq("line", line).eq("program", program)
         if bucket is not None:
             bounded = self._bounded(_RESULTS, where, since, until)
         else:
             bounded = where.time(since, until)
-        frame = self._grouped('COUNT("record_id") AS n', names, bucket, bounded, ("verdict",))
+        frame = self._grouped('COUNT("record_id") AS n', tags, bucket, bounded, ("verdict",))
         cols = [*names, *(["bucket"] if bucket else []), "verdict", "n"]
         if frame.empty:
             return _empty(cols)
         frame["n"] = frame["n"].astype("int64")
+        if "reason" in names and bounded is not None:
+            frame = self._split_by_reason(frame, tags, bucket, bounded)
         return frame[cols].sort_values(cols[:-1], kind="stable").reset_index(drop=True)
+
+    def _split_by_reason(
+        self, totals: pd.DataFrame, tags: Sequence[str], bucket: Bucket | None, where: _Where
+    ) -> pd.DataFrame:
+        """Counts per tag group and verdict split by reason. The reason is a field (free
+        text), which InfluxQL cannot group by: only the tests that carry one are fetched
+        (narrow columns; mostly rejects), the rest of each count is reason ""."""
+        keys = [*tags, *(["bucket"] if bucket else []), "verdict"]
+        select = ", ".join(f'"{c}"' for c in ("reason", *tags, "verdict"))
+        given = where.copy().raw('"reason" <> $no_reason', no_reason="")
+        rows = self._frame(self._query(f"SELECT {select} FROM {_RESULTS}{given.sql()}",
+                                       given.params))  # fmt: skip
+        if rows.empty:
+            return totals.assign(reason="")
+        if bucket is not None:
+            width = _BUCKET_NS[bucket]
+            rows["bucket"] = _utc((rows["time"].astype("int64") // width) * width)
+        named = rows.groupby([*keys, "reason"]).size().rename("n").reset_index()
+        per_key = named.groupby(keys)["n"].sum().rename("named").reset_index()
+        blank = totals.merge(per_key, on=keys, how="left")
+        blank["n"] = blank["n"] - blank["named"].fillna(0).astype("int64")
+        blank = blank[blank["n"] > 0].drop(columns=["named"]).assign(reason="")
+        return pd.concat([blank, named], ignore_index=True)
 
     def first_pass_counts(
         self, since: datetime | None = None, until: datetime | None = None, *,

@@ -3,13 +3,14 @@ the records go journal → InfluxDB sink → InfluxDB, and both stores are asked
 
 from __future__ import annotations
 
+import dataclasses
 from collections.abc import Callable, Iterator
 from datetime import timedelta
 
 import pandas as pd
 import pytest
 
-from gateway.records import Record
+from gateway.records import Record, TestResult
 from gateway.sinks.influx import make_influx
 from gateway.store import open_journal, open_store
 from gateway.store.base import QueryStore
@@ -29,7 +30,14 @@ def plant() -> list[Record]:
         result("L2-S1", 403, verdict="aborted", leak_rate_sccm=0.0, reason='operator "stop"'),
         result("L2-S1", 404, raw='a,b=c d\\e "f" =x', reason="tab\there"),
     ]
-    return records
+    # reject reasons as stations report them (a few rejects give none)
+    reasons = ("leak above limit", "pressure loss high", "")
+    return [
+        dataclasses.replace(r, reason=reasons[r.cycle % 3])
+        if isinstance(r, TestResult) and r.verdict in ("reject", "gross") and not r.reason
+        else r
+        for r in records
+    ]
 
 
 @pytest.fixture(scope="module")
@@ -76,6 +84,11 @@ QUERIES: dict[str, Callable[[QueryStore], pd.DataFrame]] = {
         by=("line", "program"), bucket="hour"),
     "verdicts by day, range": lambda s: s.verdict_counts(
         T0 + timedelta(minutes=17), T0 + 3 * H, by=(), bucket="day"),
+    "verdicts by reason": lambda s: s.verdict_counts(by=("reason",)),
+    "verdicts by station, reason, hour, range": lambda s: s.verdict_counts(
+        T0 + timedelta(minutes=17), T0 + 5 * H, by=("station", "reason"), bucket="hour",
+        line="L1"),
+    "verdicts by reason, day": lambda s: s.verdict_counts(by=("program", "reason"), bucket="day"),
     "first pass by station": lambda s: s.first_pass_counts(),
     "first pass by line, hour": lambda s: s.first_pass_counts(by=("line",), bucket="hour"),
     "first pass at one station": lambda s: s.first_pass_counts(station="L1-S1", by=()),
