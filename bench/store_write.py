@@ -16,7 +16,7 @@ from collections.abc import Sequence
 from datetime import UTC, datetime, timedelta
 from pathlib import Path
 
-from gateway.records import TestResult
+from gateway.records import TestResult, Verdict
 from gateway.store import open_journal
 from gateway.store.journal import _INSERT_RESULT, CACHE_SIZE, _result_row
 from gateway.store.schema import MIGRATIONS, Migration, migrate
@@ -35,7 +35,7 @@ def make_results(n: int) -> list[TestResult]:
                 ended_at=ended,
                 received_at=ended + timedelta(milliseconds=80),
                 program="HX-210" if i % 3 else "MV-44",
-                verdict="pass" if i % 17 else "reject",
+                verdict=Verdict.PASS if i % 17 else Verdict.REJECT,
                 test_pressure_pa=300_000.0 + i % 50,
                 pressure_loss_pa=10 + (i % 100) / 10,
                 leak_rate_sccm=(i % 200) / 100,

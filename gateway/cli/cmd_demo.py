@@ -4,6 +4,10 @@ One event loop runs the simulator's stations and the gateway (the shipped demo c
 at wherever the stations actually listen); the dashboard is a Streamlit child process over the
 same journal. Ctrl-C (or SIGTERM, or ``--seconds``) stops all three: the dashboard first, then
 the gateway (which stores everything it holds), then the stations.
+
+``--mqtt`` / ``--influx`` forward the demo's records exactly as ``leakfleet gateway`` would, so
+a broker or database can be tried out against live-looking data; credentials come from the
+environment only (see gateway/sinks/cli.py).
 """
 
 from __future__ import annotations
@@ -38,7 +42,10 @@ def register(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
             "--speed times faster than the clock, and the dashboard counts 'now' from the "
             "newest record, so the pages fill within a minute."
         ),
-        epilog="examples: leakfleet demo   |   leakfleet demo --no-dashboard --seconds 30",
+        epilog=(
+            "examples: leakfleet demo   |   leakfleet demo --no-dashboard --seconds 30   |   "
+            "LEAKFLEET_MQTT_PASSWORD=... leakfleet demo --mqtt mqtt://demo@127.0.0.1:1883"
+        ),
     )
     parser.add_argument("--port", type=int, default=8501, help="dashboard port (default 8501)")
     parser.add_argument(
@@ -65,12 +72,16 @@ def register(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
         "--log-level", choices=("debug", "info", "warning", "error"), default="warning",
         help="gateway log level on stderr (default warning)",
     )  # fmt: skip
+    from gateway.sinks.cli import add_sink_arguments
+
+    add_sink_arguments(parser)
     parser.set_defaults(func=_run)
 
 
 def _run(args: argparse.Namespace) -> int:
     from gateway.cli.cmd_dashboard import check_store_url
     from gateway.errors import ConfigError
+    from gateway.sinks.cli import sinks_from_cli
 
     if args.speed <= 0:
         raise ConfigError(f"--speed must be > 0, got {args.speed}")
@@ -78,6 +89,7 @@ def _run(args: argparse.Namespace) -> int:
         raise ConfigError(f"--seconds must be > 0, got {args.seconds}")
     if not 0 < args.port < 65536:
         raise ConfigError(f"--port: expected 1..65535, got {args.port}")
+    sinks_from_cli(args.mqtt, args.influx)  # a bad URL stops here, before any station starts
     run_dir: Path = args.run_dir
     run_dir.mkdir(parents=True, exist_ok=True)
     if args.store:
@@ -107,9 +119,13 @@ def _check_port_free(port: int) -> None:
             raise ConfigError(f"--port {port}: already in use; pick another with --port") from None
 
 
-def demo_config(plant: Any, store: str) -> GatewayConfig:
-    """The shipped demo gateway config, with each station's endpoint where it really is."""
+def demo_config(
+    plant: Any, store: str, mqtt_url: str | None = None, influx_url: str | None = None
+) -> GatewayConfig:
+    """The shipped demo gateway config, with each station's endpoint where it really is and
+    the sinks the command line asked for."""
     from gateway.config import load_config
+    from gateway.sinks.cli import with_cli_sinks
 
     config = load_config("demo", store=store)
     stations = []
@@ -117,7 +133,8 @@ def demo_config(plant: Any, store: str) -> GatewayConfig:
         ep = plant.endpoints[st.id]
         endpoint = f"tcp://{ep.host}:{ep.port}" if ep.transport == "tcp" else str(ep.path)
         stations.append(dataclasses.replace(st, endpoint=endpoint))
-    return dataclasses.replace(config, stations=tuple(stations))
+    config = dataclasses.replace(config, stations=tuple(stations))
+    return with_cli_sinks(config, mqtt_url, influx_url)
 
 
 async def _wait_http(
@@ -177,11 +194,17 @@ async def _demo(args: argparse.Namespace, store: str, run_dir: Path) -> int:
     failed = False
     try:
         async with Plant(scenario, speed=args.speed, keep_truth=False) as plant:
-            runtime = Runtime(demo_config(plant, store))
+            config = demo_config(plant, store, args.mqtt, args.influx)
+            from gateway.runtime import build_forwarders
+
+            build_forwarders(config)  # each sink checks its own table before anything runs
+            runtime = Runtime(config)
             async with asyncio.TaskGroup() as tg:
                 gateway = tg.create_task(runtime.run(stop), name="gateway")
                 print(f"demo: {scenario.site}, {len(plant.endpoints)} stations at "
                       f"{args.speed:g}x, journal {store}", flush=True)  # fmt: skip
+                for name in config.sinks:
+                    print(f"  forwarding to sink {name}", flush=True)
                 if not args.no_dashboard:
                     argv, env = streamlit_command(
                         store, port=args.port, config="demo", clock="data"

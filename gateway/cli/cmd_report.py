@@ -72,7 +72,12 @@ def register(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
     source.add_argument(
         "--since", help="start: ISO 8601 date/time (UTC unless it has an offset) or e.g. 7d, 12h"
     )
-    source.add_argument("--until", help="end (exclusive), same forms; default now")
+    source.add_argument(
+        "--until",
+        help="end (exclusive), same forms; default: now, or just after the newest result or "
+        "calibration in the store when that is later (a simulator running at --speed stamps "
+        "records ahead of the clock)",
+    )
     source.add_argument("--station", help="only this station")
     source.add_argument("--line", help="only this line")
     source.add_argument("--program", help="only this test program")
@@ -374,14 +379,40 @@ def parse_time(text: str, now: datetime, what: str) -> datetime:
     return value if value.tzinfo else value.replace(tzinfo=UTC)
 
 
-def filters_from(args: argparse.Namespace, now: datetime | None = None) -> Filters:
+def newest_record_time(store: Any) -> datetime | None:
+    """End time of the newest result or calibration in ``store`` (None: it holds neither)."""
+    import pandas as pd
+
+    newest: list[datetime] = []
+    for frame in (store.latest_results_per_station(), store.latest_calibration_per_station()):
+        if not frame.empty:
+            newest.append(pd.Timestamp(frame["ended_at"].max()).to_pydatetime())
+    return max(newest, default=None)
+
+
+def filters_from(
+    args: argparse.Namespace,
+    now: datetime | None = None,
+    get_store: Callable[[], Any] | None = None,
+) -> Filters:
+    """The report's range and filters. Without ``--until`` the end is ``now``, moved to just
+    after the newest record in the store when that is later: station clocks that run ahead
+    (the simulator at ``--speed``, a clock set wrong) would otherwise hide their newest
+    results, as the dashboard's data clock also avoids."""
     now = now or datetime.now(UTC)
-    until = parse_time(args.until, now, "--until") if getattr(args, "until", None) else now
+    # both texts first: a typo is reported before any store is opened
     since = (
         parse_time(args.since, now, "--since")
         if getattr(args, "since", None)
         else datetime(1970, 1, 1, tzinfo=UTC)
     )
+    if getattr(args, "until", None):
+        until = parse_time(args.until, now, "--until")
+    else:
+        until = now
+        newest = newest_record_time(get_store()) if get_store is not None else None
+        if newest is not None and newest >= until:
+            until = newest + timedelta(microseconds=1)
     if since >= until:
         raise ValueError(
             f"--since ({since.isoformat()}) must be before --until ({until.isoformat()})"
@@ -709,7 +740,7 @@ def _parse_shifts(text: str) -> list[tuple[str, str, str]]:
 def _yield(args: argparse.Namespace, get_store: Callable[[], Any]) -> Report:
     from analytics import pareto, yield_report
 
-    f = filters_from(args)
+    f = filters_from(args, get_store=get_store)
     by = tuple(b.strip() for b in args.by.split(",") if b.strip())
     calendar = _calendar(args)
     results = _store_results(get_store(), f)
@@ -765,7 +796,7 @@ def _yield(args: argparse.Namespace, get_store: Callable[[], Any]) -> Report:
 def _capability(args: argparse.Namespace, get_store: Callable[[], Any]) -> Report:
     from analytics import capability, histogram
 
-    f = filters_from(args)
+    f = filters_from(args, get_store=get_store)
     guard = _quantity(args.guard_band, "leak", "sccm", "--guard-band")
     results = _store_results(get_store(), f)
     results = results[results["verdict"].astype(str) != "aborted"]
@@ -847,7 +878,7 @@ def _capability(args: argparse.Namespace, get_store: Callable[[], Any]) -> Repor
 def _calibration(args: argparse.Namespace, get_store: Callable[[], Any]) -> Report:
     from analytics import HealthConfig, calibration_health
 
-    f = filters_from(args)
+    f = filters_from(args, get_store=get_store)
     cfg = HealthConfig(
         min_ratio=args.min_ratio,
         master_loss_limit_pa=_quantity(
@@ -959,7 +990,7 @@ def _grr(args: argparse.Namespace, get_store: Callable[[], Any]) -> Report:
         data = read_tidy_csv(args.input, {"part": str, "operator": str, "value": float})
         source, filters = f"file {args.input}", None
     else:
-        f = filters_from(args)
+        f = filters_from(args, get_store=get_store)
         results = _store_results(get_store(), f)
         data, source = _balanced_from_store(results)
         filters = f.to_dict()
@@ -1024,7 +1055,7 @@ def _type1(args: argparse.Namespace, get_store: Callable[[], Any]) -> Report:
     else:
         if not args.part:
             raise ValueError("type1 from the store needs --part (the reference part's id)")
-        f = filters_from(args)
+        f = filters_from(args, get_store=get_store)
         results = _store_results(get_store(), f, part_id=args.part)
         results = results[results["verdict"].astype(str) != "aborted"]
         if results.empty:
@@ -1074,7 +1105,7 @@ def _advise(args: argparse.Namespace, get_store: Callable[[], Any]) -> Report:
     else:
         # Calibrations are days apart: the moving range keeps slow drift out of the noise.
         sigma_method = "moving-range"
-        f = filters_from(args)
+        f = filters_from(args, get_store=get_store)
         store = get_store()
         cals = _store_calibrations(store, f)
         cals = cals[cals["passed"].astype(bool)] if not cals.empty else cals
@@ -1178,7 +1209,7 @@ def _master(args: argparse.Namespace, get_store: Callable[[], Any]) -> Report:
             raise ValueError(
                 "master from the store needs --parts P1,P2,... (the candidates' part ids)"
             )
-        f = filters_from(args)
+        f = filters_from(args, get_store=get_store)
         ids = [p.strip() for p in args.parts.split(",") if p.strip()]
         frames = [_store_results(get_store(), f, part_id=p) for p in ids]
         results = pd.concat(frames, ignore_index=True) if frames else pd.DataFrame()
@@ -1218,7 +1249,7 @@ def _master(args: argparse.Namespace, get_store: Callable[[], Any]) -> Report:
 def _part(args: argparse.Namespace, get_store: Callable[[], Any]) -> Report:
     from analytics import part_history
 
-    f = filters_from(args)
+    f = filters_from(args, get_store=get_store)
     store = get_store()
     results = _store_results(store, f, part_id=args.part_id)
     cals = _store_calibrations(store, Filters(f.since, f.until)) if not results.empty else None
@@ -1266,7 +1297,7 @@ def _part(args: argparse.Namespace, get_store: Callable[[], Any]) -> Report:
 def _retests(args: argparse.Namespace, get_store: Callable[[], Any]) -> Report:
     from analytics import retest_analysis
 
-    f = filters_from(args)
+    f = filters_from(args, get_store=get_store)
     by = tuple(b.strip() for b in args.by.split(",") if b.strip())
     for key in by:
         if key not in ("station", "program", "line", "shift", "day"):
@@ -1409,7 +1440,7 @@ def _standards(args: argparse.Namespace, get_store: Callable[[], Any]) -> Report
     }
     filters = None
     if not args.no_store:
-        f = filters_from(args)
+        f = filters_from(args, get_store=get_store)
         filters = f.to_dict()
         cals = _store_calibrations(get_store(), f)
         overdue_runs: list[dict[str, Any]] = []

@@ -68,12 +68,12 @@ def parse_influx_url(url: str) -> InfluxTarget:
     """Validate an ``influxdb://`` / ``influxdb2://`` URL (ValueError says what is expected)."""
     parts = urllib.parse.urlsplit(url)
     expected = "influxdb://host:port/database or influxdb2://host:port?org=..&bucket=.."
-    if parts.scheme not in ("influxdb", "influxdb2") or not parts.hostname:
-        raise ValueError(f"{url!r}: expected {expected}")
-    if parts.password is not None:
+    if parts.password is not None:  # first, so no later message echoes the secret
         raise ValueError(
             f"put no secret in the URL; set {TOKEN_ENV} (2.x) or {PASSWORD_ENV} (1.x) instead"
         )
+    if parts.scheme not in ("influxdb", "influxdb2") or not parts.hostname:
+        raise ValueError(f"{url!r}: expected {expected}")
     query = dict(urllib.parse.parse_qsl(parts.query, keep_blank_values=True))
     tls = query.pop("tls", "false").lower() in ("1", "true", "yes")
     try:

@@ -64,12 +64,12 @@ _AUTH_CODES = {4, 5, 134, 135}
 def parse_mqtt_url(url: str) -> tuple[str, int, bool]:
     """``mqtt://host[:port]`` / ``mqtts://host[:port]`` → (host, port, tls)."""
     parts = urllib.parse.urlsplit(url)
-    if parts.scheme not in ("mqtt", "mqtts") or not parts.hostname:
-        raise ValueError(f"url {url!r}: expected mqtt://host:port or mqtts://host:port")
-    if parts.password is not None:
+    if parts.password is not None:  # first, so no later message echoes the secret
         raise ValueError(
             f"url: put no password in the URL; set {PASSWORD_ENV} or password_file instead"
         )
+    if parts.scheme not in ("mqtt", "mqtts") or not parts.hostname:
+        raise ValueError(f"url {url!r}: expected mqtt://host:port or mqtts://host:port")
     if parts.path not in ("", "/") or parts.query:
         raise ValueError(f"url {url!r}: expected no path or query after host:port")
     tls = parts.scheme == "mqtts"

@@ -34,17 +34,22 @@ __all__ = [
     "ACCEPTED_URLS",
     "GROUP_COLUMNS",
     "HISTOGRAM_VALUES",
+    "VERDICT_GROUP_COLUMNS",
     "Bucket",
     "GroupColumn",
     "QueryStore",
+    "VerdictGroupColumn",
     "open_store",
     "register_store",
 ]
 
 Bucket = Literal["hour", "day"]
 GroupColumn = Literal["station", "line", "program"]
+#: verdict_counts may also group by the reject reason the station reported ("" when none)
+VerdictGroupColumn = Literal["station", "line", "program", "reason"]
 #: the only column names a caller may group by
 GROUP_COLUMNS: tuple[str, ...] = ("station", "line", "program")
+VERDICT_GROUP_COLUMNS: tuple[str, ...] = (*GROUP_COLUMNS, "reason")
 #: the only result columns a histogram may bin
 HISTOGRAM_VALUES: tuple[str, ...] = ("leak_rate_sccm", "pressure_loss_pa", "test_pressure_pa")
 
@@ -129,13 +134,17 @@ class QueryStore(Protocol):
         since: datetime | None = None,
         until: datetime | None = None,
         *,
-        by: Sequence[GroupColumn] = ("station",),
+        by: Sequence[VerdictGroupColumn] = ("station",),
         bucket: Bucket | None = None,
         station: str | None = None,
         line: str | None = None,
         program: str | None = None,
     ) -> pd.DataFrame:
-        """Tests per group and verdict: ``*by``, [``bucket``], ``verdict``, ``n``."""
+        """Tests per group and verdict: ``*by``, [``bucket``], ``verdict``, ``n``.
+
+        ``by`` may include ``reason`` (the reject reason as the station reported it, ``""``
+        when it gave none), so a Pareto of rejects by reason needs no result rows.
+        """
         ...
 
     def first_pass_counts(
@@ -149,13 +158,17 @@ class QueryStore(Protocol):
         line: str | None = None,
         program: str | None = None,
     ) -> pd.DataFrame:
-        """Parts (results with a part_id) judged by their tests inside the range.
+        """Parts (results with a part_id), each judged by all of its tests.
 
-        A part belongs to the group (and bucket) of its first test in the range; filters
-        choose which tests count (``station="X"``: parts as tested at X). Columns:
-        ``*by``, [``bucket``], ``parts``, ``first_pass`` (first test passed), ``final_pass``
-        (last test passed), ``tests`` (all tests of those parts), ``no_part_id`` (results in
-        the group that carry no part id and so cannot count as parts).
+        A part's first test ever decides it (first-pass yield, common practice) and places
+        it: the part belongs to the group and bucket of that test, and the range and filters
+        pick parts by it (``station="X"``: the parts first tested at X; a retest at X of a
+        part first tested elsewhere, or earlier, is not a first pass at X). So the groups
+        add up: the ``by=("station",)`` row for X equals ``station="X"``. Columns: ``*by``,
+        [``bucket``], ``parts``, ``first_pass`` (first test passed), ``final_pass`` (the
+        part's last test passed, wherever and whenever it ran), ``tests`` (all tests of those
+        parts), ``no_part_id`` (results in range and filters that carry no part id and so
+        cannot count as parts, by their own group).
         """
         ...
 

@@ -8,6 +8,8 @@ endpoint (the bucket needs a DBRP mapping, see deploy/influxdb.md) with the toke
 ``LEAKFLEET_INFLUX_TOKEN`` in an ``Authorization: Token`` header.
 
 Where the work happens, honestly:
+- counts by reject reason: the reason is a free-text field, so the counts per tag group come
+  from InfluxQL and only the tests that carry a reason are fetched (narrow) and split in pandas;
 - row queries, counts per verdict, leak-rate statistics (COUNT, MEAN, STDDEV, MIN, MAX) and
   hour/day buckets (``GROUP BY time(1h|1d)``, UTC-aligned like the SQLite store's) run in
   InfluxQL; group columns (station, line, program) are tags, so ``GROUP BY`` is native;
@@ -15,7 +17,9 @@ Where the work happens, honestly:
   one request;
 - ``first_pass_counts`` needs each part's first and last test, but InfluxQL cannot group by a
   field (the part id is a field on purpose: it is high-cardinality), so that one query fetches
-  the narrow columns (time, part_id, verdict and the group tags) and groups in pandas;
+  the narrow columns (time, part_id, verdict and the group tags) in range, then the whole
+  history of the parts found there (a part is judged by all its tests, see QueryStore), and
+  groups in pandas;
 - quarantine rows are not forwarded to InfluxDB: ``quarantine()`` is always empty here.
 Every value travels as a bound parameter (``params`` of ``/query``); identifiers come only from
 whitelists. Frames have the SqliteStore's columns and conventions (gateway.store.base).
@@ -42,7 +46,14 @@ from gateway.sinks.influx_http import (
     parse_influx_url,
 )
 from gateway.sinks.lineprotocol import MEASUREMENTS, timestamp_ns
-from gateway.store.base import GROUP_COLUMNS, HISTOGRAM_VALUES, Bucket, GroupColumn
+from gateway.store.base import (
+    GROUP_COLUMNS,
+    HISTOGRAM_VALUES,
+    VERDICT_GROUP_COLUMNS,
+    Bucket,
+    GroupColumn,
+    VerdictGroupColumn,
+)
 from gateway.store.schema import (
     CALIBRATION_COLUMNS,
     QUARANTINE_COLUMNS,
@@ -64,6 +75,8 @@ _SERIES_COLUMNS = (
 )  # fmt: skip
 _INTERVAL = {"hour": "1h", "day": "1d"}
 _BUCKET_NS = {"hour": 3_600 * 10**9, "day": 86_400 * 10**9}
+# part ids per statement when fetching parts' histories (bound parameters, ORed)
+_IDS_PER_STATEMENT = 200
 _INT_COLUMNS = ("seq", "cycle")
 _FLOAT_COLUMNS = (
     "test_pressure_pa", "pressure_loss_pa", "leak_rate_sccm", "reject_limit_sccm", "fill_s",
@@ -125,11 +138,11 @@ class _Where:
         return other
 
 
-def _group_columns(by: Sequence[str]) -> list[str]:
+def _group_columns(by: Sequence[str], allowed: Sequence[str] = GROUP_COLUMNS) -> list[str]:
     cols = list(by)
-    bad = [c for c in cols if c not in GROUP_COLUMNS]
+    bad = [c for c in cols if c not in allowed]
     if bad:
-        raise ValueError(f"cannot group by {bad}; allowed: {', '.join(GROUP_COLUMNS)}")
+        raise ValueError(f"cannot group by {bad}; allowed: {', '.join(allowed)}")
     return cols
 
 
@@ -329,22 +342,48 @@ class InfluxStore:
     # -- aggregates -----------------------------------------------------------------------------
     def verdict_counts(
         self, since: datetime | None = None, until: datetime | None = None, *,
-        by: Sequence[GroupColumn] = ("station",), bucket: Bucket | None = None,
+        by: Sequence[VerdictGroupColumn] = ("station",), bucket: Bucket | None = None,
         station: str | None = None, line: str | None = None, program: str | None = None,
     ) -> pd.DataFrame:
-        names = _group_columns(by)
+        names = _group_columns(by, VERDICT_GROUP_COLUMNS)
         _check_bucket(bucket)
+        tags = [c for c in names if c != "reason"]
         where = _Where().eq("station", station).eq("line", line).eq("program", program)
         if bucket is not None:
             bounded = self._bounded(_RESULTS, where, since, until)
         else:
             bounded = where.time(since, until)
-        frame = self._grouped('COUNT("record_id") AS n', names, bucket, bounded, ("verdict",))
+        frame = self._grouped('COUNT("record_id") AS n', tags, bucket, bounded, ("verdict",))
         cols = [*names, *(["bucket"] if bucket else []), "verdict", "n"]
         if frame.empty:
             return _empty(cols)
         frame["n"] = frame["n"].astype("int64")
+        if "reason" in names and bounded is not None:
+            frame = self._split_by_reason(frame, tags, bucket, bounded)
         return frame[cols].sort_values(cols[:-1], kind="stable").reset_index(drop=True)
+
+    def _split_by_reason(
+        self, totals: pd.DataFrame, tags: Sequence[str], bucket: Bucket | None, where: _Where
+    ) -> pd.DataFrame:
+        """Counts per tag group and verdict split by reason. The reason is a field (free
+        text), which InfluxQL cannot group by: only the tests that carry one are fetched
+        (narrow columns; mostly rejects), the rest of each count is reason ""."""
+        keys = [*tags, *(["bucket"] if bucket else []), "verdict"]
+        select = ", ".join(f'"{c}"' for c in ("reason", *tags, "verdict"))
+        given = where.copy().raw('"reason" <> $no_reason', no_reason="")
+        rows = self._frame(self._query(f"SELECT {select} FROM {_RESULTS}{given.sql()}",
+                                       given.params))  # fmt: skip
+        if rows.empty:
+            return totals.assign(reason="")
+        if bucket is not None:
+            width = _BUCKET_NS[bucket]
+            rows["bucket"] = _utc((rows["time"].astype("int64") // width) * width)
+        named = rows.groupby([*keys, "reason"]).size().rename("n").reset_index()
+        per_key = named.groupby(keys)["n"].sum().rename("named").reset_index()
+        blank = totals.merge(per_key, on=keys, how="left")
+        blank["n"] = blank["n"] - blank["named"].fillna(0).astype("int64")
+        blank = blank[blank["n"] > 0].drop(columns=["named"]).assign(reason="")
+        return pd.concat([blank, named], ignore_index=True)
 
     def first_pass_counts(
         self, since: datetime | None = None, until: datetime | None = None, *,
@@ -353,12 +392,13 @@ class InfluxStore:
     ) -> pd.DataFrame:
         names = _group_columns(by)
         _check_bucket(bucket)
-        where = (_Where().time(since, until).eq("station", station).eq("line", line)
-                 .eq("program", program))
-        tags = ", ".join(f'"{t}"' for t in names)
-        select = '"part_id", "verdict", "seq"' + (f", {tags}" if tags else "")
+        tag_filters = {"station": station, "line": line, "program": program}
+        where = _Where().time(since, until)
+        for column, value in tag_filters.items():
+            where.eq(column, value)
+        narrow = '"record_id", "part_id", "verdict", "seq", "station", "line", "program"'
         # narrow rows; InfluxQL cannot group by a field (see the module docstring)
-        frame = self._frame(self._query(f"SELECT {select} FROM {_RESULTS}{where.sql()}",
+        frame = self._frame(self._query(f"SELECT {narrow} FROM {_RESULTS}{where.sql()}",
                                         where.params))
         counts = ["parts", "first_pass", "final_pass", "tests", "no_part_id"]
         cols = [*names, *(["bucket"] if bucket else []), *counts]
@@ -366,38 +406,61 @@ class InfluxStore:
             return _empty(cols)
         if "part_id" not in frame.columns:
             frame["part_id"] = None
-        frame = frame.sort_values(["time", "seq"], kind="stable")
+        no_id = frame[frame["part_id"].isna()]
+        with_id = frame[frame["part_id"].notna()]
+        if not with_id.empty and (where.parts or since is not None or until is not None):
+            # a part is judged by all of its tests, wherever and whenever they ran: fetch the
+            # whole history of the parts seen in range (the range and filters pick parts by
+            # their first test below, as the SQLite store's parts summary does)
+            with_id = self._part_history(sorted(set(with_id["part_id"])), narrow)
+        parts = _judge_parts(with_id)
+        keep = pd.Series(True, index=parts.index)
+        lo, hi = _ns("since", since), _ns("until", until)
+        if lo is not None:
+            keep &= parts["time"] >= lo
+        if hi is not None:
+            keep &= parts["time"] < hi
+        for column, value in tag_filters.items():
+            if value is not None:
+                keep &= parts[column] == value
+        parts = parts[keep]
+        loose = no_id.assign(parts=0, first_pass=0, final_pass=0, tests=0, no_part_id=1)
+        both = pd.concat([parts, loose[[*parts.columns]]], ignore_index=True)
+        if both.empty:
+            return _empty(cols)
+        keys = list(names)
         if bucket is not None:
             width = _BUCKET_NS[bucket]
-            frame["bucket_ns"] = (frame["time"].astype("int64") // width) * width
-        keys = [*names, *(["bucket_ns"] if bucket else [])]
-        with_id = frame[frame["part_id"].notna()]
-        no_id = frame[frame["part_id"].isna()]
-        if not with_id.empty:
-            grouped = with_id.groupby("part_id", sort=False)
-            first = grouped.head(1).set_index("part_id")
-            last = grouped.tail(1).set_index("part_id")
-            parts = first[keys].copy() if keys else pd.DataFrame(index=first.index)
-            parts["first_pass"] = (first["verdict"] == "pass").astype("int64")
-            parts["final_pass"] = (last["verdict"] == "pass").astype("int64").reindex(parts.index)
-            parts["tests"] = grouped.size().reindex(parts.index).astype("int64")
-            parts["parts"] = 1
-            parts["no_part_id"] = 0
-        else:
-            parts = pd.DataFrame(columns=[*keys, *counts])
-        loose = no_id[keys].copy() if keys else pd.DataFrame(index=no_id.index)
-        for c in ("parts", "first_pass", "final_pass", "tests"):
-            loose[c] = 0
-        loose["no_part_id"] = 1
-        both = pd.concat([parts.reset_index(drop=True), loose.reset_index(drop=True)])
+            both["bucket_ns"] = (both["time"].astype("int64") // width) * width
+            keys.append("bucket_ns")
         if keys:
             agg = both.groupby(keys, sort=True)[counts].sum().reset_index()
         else:
             agg = pd.DataFrame([both[counts].sum()])
         agg[counts] = agg[counts].astype("int64")
+        agg = agg[(agg["parts"] > 0) | (agg["no_part_id"] > 0)]
+        if agg.empty:
+            return _empty(cols)
         if bucket is not None:
             agg["bucket"] = _utc(agg["bucket_ns"])
         return agg[cols].reset_index(drop=True)
+
+    def _part_history(self, part_ids: Sequence[str], select: str) -> pd.DataFrame:
+        """Every stored test of ``part_ids`` (all stations, all time), narrow columns.
+
+        The part id is a field, so each statement scans the measurement on the server; the
+        ids go in as bound parameters, a few hundred per statement, all in one request.
+        """
+        statements: list[str] = []
+        params: dict[str, Any] = {}
+        for start in range(0, len(part_ids), _IDS_PER_STATEMENT):
+            chunk = part_ids[start : start + _IDS_PER_STATEMENT]
+            names = [f"id{start + i}" for i in range(len(chunk))]
+            params.update(zip(names, chunk, strict=True))
+            match = " OR ".join(f'"part_id" = ${n}' for n in names)
+            statements.append(f"SELECT {select} FROM {_RESULTS} WHERE ({match})")
+        frame = self._frame(self._query("; ".join(statements), params))
+        return frame.drop_duplicates("record_id")
 
     def histogram(
         self, since: datetime | None, until: datetime | None, edges: Sequence[float], *,
@@ -480,6 +543,28 @@ class InfluxStore:
 
     def __exit__(self, *exc: object) -> None:
         self.close()
+
+
+def _judge_parts(tests: pd.DataFrame) -> pd.DataFrame:
+    """One row per part: its first test's time, station, line and program, and the counts.
+
+    First and last by (time, seq), as the SQLite parts summary orders them.
+    """
+    columns = ["time", "station", "line", "program", "parts", "first_pass", "final_pass",
+               "tests", "no_part_id"]
+    if tests.empty:
+        return pd.DataFrame(columns=columns)
+    ordered = tests.sort_values(["time", "seq"], kind="stable")
+    grouped = ordered.groupby("part_id", sort=False)
+    first = grouped.head(1).set_index("part_id")
+    last = grouped.tail(1).set_index("part_id")
+    parts = first[["time", "station", "line", "program"]].copy()
+    parts["parts"] = 1
+    parts["first_pass"] = (first["verdict"] == "pass").astype("int64")
+    parts["final_pass"] = (last["verdict"] == "pass").astype("int64").reindex(parts.index)
+    parts["tests"] = grouped.size().reindex(parts.index).astype("int64")
+    parts["no_part_id"] = 0
+    return parts.reset_index(drop=True)[columns]
 
 
 def _converter(column: str, time_col: str) -> Any:

@@ -419,7 +419,7 @@ class Journal:
         return deleted
 
     def _prune_results(self, cond: str, params: dict[str, Any]) -> int:
-        """Delete results matching ``cond`` and keep result_hours / parts true to the rest."""
+        """Delete results matching ``cond`` and keep the summaries true to the rest."""
         conn = self._conn
         h = HOUR_US
         conn.execute("CREATE TEMP TABLE IF NOT EXISTS prune_hours (hour INTEGER PRIMARY KEY)")
@@ -447,6 +447,14 @@ class Journal:
             FROM prune_hours p JOIN results r
               ON r.ended_at >= p.hour AND r.ended_at < p.hour + {h}
             GROUP BY p.hour, r.station, r.line, r.program, r.verdict"""
+        )
+        conn.execute("DELETE FROM reason_hours WHERE hour IN (SELECT hour FROM prune_hours)")
+        conn.execute(
+            f"""INSERT INTO reason_hours
+            SELECT p.hour, r.station, r.line, r.program, r.verdict, r.reason, COUNT(*)
+            FROM prune_hours p JOIN results r
+              ON r.ended_at >= p.hour AND r.ended_at < p.hour + {h}
+            GROUP BY p.hour, r.station, r.line, r.program, r.verdict, r.reason"""
         )
         # parts that lost tests: drop their summary, rebuild it from the tests that remain,
         # and move their share of part_hours from the old first-test hour to the new one

@@ -272,9 +272,28 @@ _V2: tuple[str, ...] = (
     "DROP TRIGGER parts_ad",
 )
 
+# v3: tests per station-hour, verdict and reject reason, so a Pareto by reason reads summaries
+# instead of every reject. Backfilled from the stored results in the migration's transaction.
+_V3: tuple[str, ...] = (
+    """CREATE TABLE reason_hours (
+        hour INTEGER NOT NULL,
+        station TEXT NOT NULL,
+        line TEXT NOT NULL,
+        program TEXT NOT NULL,
+        verdict TEXT NOT NULL,
+        reason TEXT NOT NULL,
+        n INTEGER NOT NULL,
+        PRIMARY KEY (hour, station, line, program, verdict, reason)
+    ) WITHOUT ROWID""",
+    f"""INSERT INTO reason_hours
+    SELECT (ended_at / {HOUR_US}) * {HOUR_US}, station, line, program, verdict, reason, COUNT(*)
+    FROM results GROUP BY 1, 2, 3, 4, 5, 6""",
+)
+
 MIGRATIONS: tuple[Migration, ...] = (
     Migration(1, _V1, "initial schema"),
     Migration(2, _V2, "summaries folded in per batch, not by per-row triggers"),
+    Migration(3, _V3, "tests per hour by reject reason"),
 )
 SCHEMA_VERSION = MIGRATIONS[-1].version
 

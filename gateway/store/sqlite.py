@@ -22,7 +22,14 @@ import pandas as pd
 
 from gateway.errors import StoreError
 from gateway.store._sqlite import sqlite_path, store_error, to_us
-from gateway.store.base import GROUP_COLUMNS, HISTOGRAM_VALUES, Bucket, GroupColumn
+from gateway.store.base import (
+    GROUP_COLUMNS,
+    HISTOGRAM_VALUES,
+    VERDICT_GROUP_COLUMNS,
+    Bucket,
+    GroupColumn,
+    VerdictGroupColumn,
+)
 from gateway.store.schema import (
     CALIBRATION_COLUMNS,
     QUARANTINE_COLUMNS,
@@ -84,13 +91,13 @@ class _Where:
         return (" WHERE " + " AND ".join(self.parts)) if self.parts else ""
 
 
-def _group_columns(by: Sequence[str]) -> list[str]:
+def _group_columns(by: Sequence[str], allowed: Sequence[str] = GROUP_COLUMNS) -> list[str]:
     if isinstance(by, str):
         by = (by,)
     cols = list(dict.fromkeys(by))
-    bad = [c for c in cols if c not in GROUP_COLUMNS]
+    bad = [c for c in cols if c not in allowed]
     if bad:
-        raise ValueError(f"cannot group by {bad}; allowed: {', '.join(GROUP_COLUMNS)}")
+        raise ValueError(f"cannot group by {bad}; allowed: {', '.join(allowed)}")
     return cols
 
 
@@ -103,8 +110,10 @@ def _bucket_expr(bucket: Bucket | None, column: str = "ended_at") -> str | None:
     return f"({column} / {width}) * {width}"
 
 
-def _names(by: Sequence[str], bucket: Bucket | None) -> list[str]:
-    names = _group_columns(by)
+def _names(
+    by: Sequence[str], bucket: Bucket | None, allowed: Sequence[str] = GROUP_COLUMNS
+) -> list[str]:
+    names = _group_columns(by, allowed)
     if bucket is not None:
         _bucket_expr(bucket)  # validates
         names.append("bucket")
@@ -435,18 +444,20 @@ class SqliteStore:
         since: datetime | None = None,
         until: datetime | None = None,
         *,
-        by: Sequence[GroupColumn] = ("station",),
+        by: Sequence[VerdictGroupColumn] = ("station",),
         bucket: Bucket | None = None,
         station: str | None = None,
         line: str | None = None,
         program: str | None = None,
     ) -> pd.DataFrame:
-        names = _names(by, bucket)
+        names = _names(by, bucket, VERDICT_GROUP_COLUMNS)
         filters = _Where().eq("station", station).eq("line", line).eq("program", program)
+        # by reason: the reason_hours summary (the same counts, split by reason)
+        hours = "reason_hours" if "reason" in names else "result_hours"
         rows = self._aggregate(
             names, bucket,
             [("results", "ended_at", "COUNT(*) AS n", ""),
-             ("result_hours", "hour", "SUM(n) AS n", "")],
+             (hours, "hour", "SUM(n) AS n", "")],
             "SUM(n)", filters, since, until, extra_keys=("verdict",),
         )  # fmt: skip
         frame = self._frame(rows, [*names, "verdict", "n"])

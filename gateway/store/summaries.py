@@ -1,6 +1,7 @@
 """Hourly summaries of the results, folded in once per written batch.
 
-``result_hours`` (tests per station-hour and verdict, with leak-rate sums), ``parts`` (each
+``result_hours`` (tests per station-hour and verdict, with leak-rate sums), ``reason_hours``
+(tests per station-hour, verdict and reject reason), ``parts`` (each
 part's first and last test) and ``part_hours`` (parts per hour of their first test) let the
 dashboard's yield and summary queries read a few rows per station-hour instead of every result:
 SQLite aggregates ~1 µs per row, so a month of a busy plant cannot be summed from the raw rows
@@ -20,7 +21,13 @@ import sqlite3
 
 from gateway.store.schema import HOUR_US
 
-__all__ = ["fold_results", "part_shares", "rebuild_summaries", "settle_part_hours"]
+__all__ = [
+    "SUMMARY_TABLES",
+    "fold_results",
+    "part_shares",
+    "rebuild_summaries",
+    "settle_part_hours",
+]
 
 _H = HOUR_US
 
@@ -37,6 +44,14 @@ _FOLD_HOURS = f"""INSERT INTO result_hours
         leak_sumsq = leak_sumsq + excluded.leak_sumsq,
         leak_min = MIN(leak_min, excluded.leak_min),
         leak_max = MAX(leak_max, excluded.leak_max)"""
+
+_FOLD_REASONS = f"""INSERT INTO reason_hours
+    SELECT (ended_at / {_H}) * {_H}, station, line, program, verdict, reason, COUNT(*)
+    FROM results NOT INDEXED WHERE seq > ? GROUP BY 1, 2, 3, 4, 5, 6
+    ON CONFLICT DO UPDATE SET n = n + excluded.n"""
+
+#: every summary table, in the order rebuild_summaries empties them
+SUMMARY_TABLES = ("result_hours", "reason_hours", "parts", "part_hours")
 
 _TEMP = (
     """CREATE TEMP TABLE IF NOT EXISTS fold_parts (
@@ -133,6 +148,7 @@ def fold_results(conn: sqlite3.Connection, after_seq: int) -> None:
     insert, so exactly the newly stored rows count.
     """
     conn.execute(_FOLD_HOURS, (after_seq,))
+    conn.execute(_FOLD_REASONS, (after_seq,))
     _ensure_temp(conn)
     conn.execute("DELETE FROM temp.fold_parts")
     if conn.execute(_BATCH_PARTS, (after_seq,)).rowcount <= 0:
@@ -146,6 +162,6 @@ def fold_results(conn: sqlite3.Connection, after_seq: int) -> None:
 
 def rebuild_summaries(conn: sqlite3.Connection) -> None:
     """Recompute every summary from the stored results (after a raw bulk load, or a repair)."""
-    for table in ("result_hours", "parts", "part_hours"):
+    for table in SUMMARY_TABLES:
         conn.execute(f"DELETE FROM {table}")
     fold_results(conn, 0)

@@ -38,6 +38,18 @@ class FakeStore:
         return self._filter(self._calibrations, since, until, station=station, line=line,
                             program=program)  # fmt: skip
 
+    @staticmethod
+    def _latest(df: pd.DataFrame) -> pd.DataFrame:
+        if df.empty:
+            return df
+        return df.sort_values("ended_at").groupby("station").tail(1).reset_index(drop=True)
+
+    def latest_results_per_station(self) -> pd.DataFrame:
+        return self._latest(self._results)
+
+    def latest_calibration_per_station(self) -> pd.DataFrame:
+        return self._latest(self._calibrations)
+
     def close(self) -> None:
         self.closed = True
 

@@ -19,13 +19,15 @@ from gateway.records import TestResult, Verdict
 from gateway.store import Journal, SqliteStore, open_journal
 from gateway.store.journal import _INSERT_RESULT, _result_row
 from gateway.store.schema import MIGRATIONS, SCHEMA_VERSION
-from gateway.store.summaries import rebuild_summaries
+from gateway.store.summaries import SUMMARY_TABLES, rebuild_summaries
 from tests.gateway.store._data import T0, result
 
 pytestmark = pytest.mark.timeout(120)
 STATIONS = [("L1-S1", "L1"), ("L1-S2", "L1"), ("L2-S1", "L2")]
 PROGRAMS = ["HX-210", "HX-230", "MV-44"]
 VERDICTS = ["pass", "pass", "pass", "reject", "gross", "aborted"]
+REASONS = {"reject": ["leak above limit", "pressure loss high"], "gross": ["no fill pressure"],
+           "aborted": ["operator stop", ""]}  # fmt: skip
 
 
 def _plant(seed: int, n: int) -> list[TestResult]:
@@ -42,9 +44,10 @@ def _plant(seed: int, n: int) -> list[TestResult]:
                 line=line,
                 program=PROGRAMS[int(rng.integers(3))],
                 ended_at=ended,
-                verdict=VERDICTS[int(rng.integers(len(VERDICTS)))],
+                verdict=(verdict := VERDICTS[int(rng.integers(len(VERDICTS)))]),
                 leak_rate_sccm=float(np.round(rng.gamma(2.0, 0.3), 4)),
                 part_id=part,
+                reason=str(rng.choice(REASONS[verdict])) if verdict in REASONS else "",
             )
         )
     return out
@@ -122,6 +125,11 @@ def _check(store: SqliteStore) -> None:
             got = store.verdict_counts(since, until, by=by, bucket=bucket)  # type: ignore[arg-type]
             want = _ref_counts(raw, since, until, by, bucket)
             pd.testing.assert_frame_equal(got, want, check_dtype=False)
+            # the same split by reject reason (the reason_hours summary)
+            by_reason = [*by, "reason"]
+            got = store.verdict_counts(since, until, by=by_reason, bucket=bucket)  # type: ignore[arg-type]
+            want = _ref_counts(raw, since, until, by_reason, bucket)
+            pd.testing.assert_frame_equal(got, want, check_dtype=False)
 
             got_fp = store.first_pass_counts(since, until, by=by, bucket=bucket)  # type: ignore[arg-type]
             want_fp = _ref_first_pass(raw, since, until, by, bucket)
@@ -190,7 +198,7 @@ def _summary_tables(path: Path) -> dict[str, list[tuple]]:
     try:
         return {
             t: conn.execute(f"SELECT * FROM {t} ORDER BY 1, 2, 3, 4").fetchall()
-            for t in ("result_hours", "parts", "part_hours")
+            for t in SUMMARY_TABLES
         }
     finally:
         conn.close()
@@ -282,6 +290,7 @@ def test_rebuild_equals_the_batch_fold(tmp_path: Path) -> None:
     conn.close()
     rebuilt = _summary_tables(path)
     assert rebuilt["parts"] == folded["parts"]
+    assert rebuilt["reason_hours"] == folded["reason_hours"]
     assert rebuilt["part_hours"] == folded["part_hours"]
     # sums of floats may differ in the last bits with the order of addition
     assert len(rebuilt["result_hours"]) == len(folded["result_hours"])
