@@ -6,7 +6,6 @@ import signal
 import socket
 import subprocess
 import sys
-import time
 import urllib.request
 from pathlib import Path
 
@@ -15,6 +14,7 @@ import pytest
 from gateway.cli import main
 from gateway.cli.cmd_dashboard import streamlit_command
 from gateway.store import open_store
+from tests.support.http import wait_healthy
 
 REPO = Path(__file__).resolve().parents[2]
 pytestmark = pytest.mark.timeout(90)
@@ -76,18 +76,7 @@ def test_dashboard_serves_and_stops_on_ctrl_c(demo_journal: Path, tmp_path: Path
         cwd=REPO, stdout=subprocess.PIPE, stderr=subprocess.STDOUT, text=True,
     )  # fmt: skip
     try:
-        deadline = time.monotonic() + 45
-        while True:
-            try:
-                with urllib.request.urlopen(
-                    f"http://127.0.0.1:{port}/_stcore/health", timeout=2
-                ) as r:
-                    assert r.read() == b"ok"
-                    break
-            except OSError:
-                assert proc.poll() is None, proc.stdout.read() if proc.stdout else ""
-                assert time.monotonic() < deadline, "dashboard did not answer"
-                time.sleep(0.3)
+        wait_healthy(port, proc)
         with urllib.request.urlopen(f"http://127.0.0.1:{port}/", timeout=5) as r:
             assert b"<html" in r.read().lower()
     finally:

@@ -13,13 +13,12 @@ import signal
 import socket
 import subprocess
 import sys
-import time
-import urllib.request
 from pathlib import Path
 
 import pytest
 
 from tests.faults.gw import Gateway
+from tests.support.http import wait_healthy
 
 pytestmark = [pytest.mark.integration, pytest.mark.timeout(60)]
 REPO = Path(__file__).resolve().parents[2]
@@ -106,17 +105,7 @@ def test_dashboard_listens_on_loopback_only(tmp_path: Path) -> None:
         env={**os.environ, "PYTHONPATH": str(REPO)},
     )  # fmt: skip
     try:
-        deadline = time.monotonic() + 45
-        while True:
-            try:
-                with urllib.request.urlopen(f"http://127.0.0.1:{port}/_stcore/health",
-                                            timeout=2) as r:  # fmt: skip
-                    assert r.read() == b"ok"
-                    break
-            except OSError:
-                assert proc.poll() is None, proc.stdout.read() if proc.stdout else ""
-                assert time.monotonic() < deadline, "dashboard did not answer"
-                time.sleep(0.3)
+        wait_healthy(port, proc)
         sockets = [s for pid in _tree(proc.pid) for s in _listening(pid)]
     finally:
         proc.send_signal(signal.SIGINT)
