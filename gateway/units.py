@@ -11,6 +11,7 @@ from __future__ import annotations
 import functools
 import math
 import re
+from collections.abc import Callable
 from dataclasses import dataclass
 from typing import Literal
 
@@ -32,8 +33,10 @@ __all__ = [
     "parse_quantity",
     "pressure_to_pa",
     "reference_temperature_k",
+    "same_value",
     "sccm_to",
     "to_canonical",
+    "to_canonical_fn",
 ]
 
 Kind = Literal["pressure", "leak", "volume", "time", "temperature"]
@@ -150,6 +153,31 @@ def to_canonical(value: float, unit: str, kind: Kind, *, reference_c: float = 0.
     if kind == "leak" and name in _STANDARD_VOLUME_UNITS:
         out *= T_STD_K / reference_temperature_k(reference_c)
     return out
+
+
+def same_value(value: float) -> float:
+    """The conversion of a value already in its canonical unit."""
+    return value
+
+
+def to_canonical_fn(
+    unit: str, kind: Kind, *, reference_c: float = 0.0
+) -> Callable[[float], float]:
+    """``to_canonical`` with ``unit`` resolved once, for a parser converting many values of it.
+
+    Same arithmetic in the same order, so the results are identical bit for bit; a factor of
+    exactly 1 (Pa, sccm at 0 °C, s, °C) is the identity. Raises UnitError now, not per value.
+    """
+    name = normalise_unit(unit, kind)
+    if kind == "temperature":
+        return (lambda v: v - KELVIN_OFFSET) if name == "K" else same_value
+    factor = _FACTORS[kind][name]
+    basis = 1.0
+    if kind == "leak" and name in _STANDARD_VOLUME_UNITS:
+        basis = T_STD_K / reference_temperature_k(reference_c)
+    if basis != 1.0:
+        return lambda v: v * factor * basis
+    return same_value if factor == 1.0 else (lambda v: v * factor)
 
 
 def from_canonical(value: float, unit: str, kind: Kind, *, reference_c: float = 0.0) -> float:

@@ -8,13 +8,23 @@ kind (result or calibration) a line is; the kind's field mapping then makes the 
 
 from __future__ import annotations
 
+import dataclasses
+import operator
 import re
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from datetime import datetime
 from typing import Any
 
-from gateway.profiles.model import LineKind, Parsed, SerialSpec, StationContext
-from gateway.profiles.normalise import FieldError, build_record, convert_text, reject
+from gateway.profiles.model import FieldSpec, LineKind, Parsed, SerialSpec, StationContext
+from gateway.profiles.normalise import (
+    FieldError,
+    TextConverter,
+    clip_raw,
+    compile_text_field,
+    make_record,
+    reject,
+)
+from gateway.records import TestResult, Verdict
 
 __all__ = ["SerialParser", "split_fields"]
 
@@ -90,6 +100,90 @@ def _pairs(spec: SerialSpec, lines: Sequence[str], first_line_no: int) -> dict[s
 _CONTROL = re.compile("[\x00-\x08\x0a-\x1f\x7f]")  # control characters except tab
 
 
+# TestResult fields the parser fills from the station context and the line itself
+_CONTEXT_FIELDS = ("station", "line", "received_at", "raw", "profile")
+
+
+def _result_picker(fields: Sequence[FieldSpec]) -> Callable[[tuple[Any, ...]], Any] | None:
+    """Where each TestResult argument sits in (context values, None, "", converted values...),
+    or None when a positional call could differ from make_record's keyword one: a required
+    field not mapped, or a mapped field whose "no value" (None) is not its default."""
+    at = {f.canonical: 7 + i for i, f in enumerate(fields)}
+    empty_ok = {f.canonical: f.empty_none for f in fields}
+    order: list[int] = []
+    for i, dfield in enumerate(dataclasses.fields(TestResult)):
+        if dfield.name in _CONTEXT_FIELDS:
+            order.append(_CONTEXT_FIELDS.index(dfield.name))
+            continue
+        default = dfield.default
+        if dfield.name in at:
+            if empty_ok[dfield.name] and default is not None:
+                return None
+            order.append(at[dfield.name])
+        elif default is dataclasses.MISSING:
+            return None
+        else:
+            order.append(5 if default is None else 6)
+            if default not in (None, ""):
+                return None
+        if i == 6 and dfield.name != "verdict":
+            return None
+    return operator.itemgetter(*order)
+
+
+class _Plan:
+    """One line kind with its per-line work done once: compiled field converters and, for a
+    delimited kind, where each field and the discriminator sit among the columns."""
+
+    __slots__ = ("converters", "delimited", "kind", "names", "ncols", "needs_raw", "pick",
+                 "sources", "when_at", "when_values")
+
+    def __init__(self, kind: LineKind, ctx: StationContext, reference_c: float) -> None:
+        self.kind = kind
+        self.delimited = kind.dialect == "delimited"
+        self.ncols = len(kind.columns)
+        at = {name: i for i, name in enumerate(kind.columns)}
+        self.when_at = None if kind.when is None else at.get(kind.when.field, -1)
+        self.when_values = () if kind.when is None else kind.when.values
+        converters: list[tuple[int, TextConverter]] = []
+        needs_raw = False
+        for fspec in kind.fields:
+            convert, wants_raw = compile_text_field(fspec, ctx, reference_c)
+            needs_raw = needs_raw or wants_raw
+            assert fspec.source is not None
+            converters.append((at.get(fspec.source, -1), convert))
+        self.converters = tuple(converters)
+        self.names = tuple(f.canonical for f in kind.fields)
+        self.sources = tuple(f.source or "" for f in kind.fields)
+        self.needs_raw = needs_raw
+        self.pick = _result_picker(kind.fields) if kind.record == "result" else None
+
+    def values_of(self, parts: list[str]) -> list[Any]:
+        """Each field's canonical value (None: no value) from a delimited line's columns."""
+        raw = dict(zip(self.kind.columns, parts, strict=True)) if self.needs_raw else {}
+        return [convert(parts[at] if at >= 0 else None, raw) for at, convert in self.converters]
+
+    def values_from(self, raw: dict[str, str]) -> list[Any]:
+        """Each field's canonical value (None: no value) from named raw fields."""
+        return [convert(raw.get(source), raw)
+                for source, (_, convert) in zip(self.sources, self.converters, strict=True)]
+
+    def record(self, values: list[Any], ctx: StationContext, label: str, raw: str,
+               received_at: datetime, line_no: int | None) -> Parsed:
+        """make_record of these values; a result by position when that is the same call."""
+        if self.pick is not None:
+            args = self.pick((ctx.station, ctx.line, received_at, clip_raw(raw), label, None, "",
+                              *values))
+            if type(args[6]) is Verdict:
+                try:
+                    return TestResult(*args)
+                except (ValueError, TypeError) as exc:
+                    return reject(ctx, label, raw, f"result not valid: {exc}", received_at,
+                                  line_no)
+        present = {k: v for k, v in zip(self.names, values, strict=True) if v is not None}
+        return make_record(self.kind.record, present, ctx, label, raw, received_at, line_no)
+
+
 class SerialParser:
     """Turns station output into records for one station; never raises for bad input."""
 
@@ -97,6 +191,9 @@ class SerialParser:
         self.spec = spec
         self.ctx = ctx
         self.label = spec.profile_label
+        self._plans = tuple(_Plan(k, ctx, spec.leak_reference_c) for k in spec.dialect.kinds)
+        self._empty = frozenset(r.empty for r in spec.requests if r.empty is not None)
+        self._block = spec.dialect.kind == "keyvalue" and spec.dialect.pair_separator is None
 
     def _decode(self, item: str | bytes) -> str:
         if isinstance(item, str):
@@ -141,10 +238,12 @@ class SerialParser:
         Bytes are decoded with the profile's encoding; a line that is not valid text is rejected
         with its bytes as hex. An answer that is just the profile's "empty" marker gives [].
         """
+        if type(lines) is list and len(lines) == 1 and not self._block:
+            return self._parse_line(lines[0], first_line_no, received_at)  # a stream line
         lines = list(lines)
         if not lines:
             return []
-        if self.spec.dialect.kind == "keyvalue" and self.spec.dialect.pair_separator is None:
+        if self._block:
             return self._parse_block(lines, first_line_no, received_at)
         out: list[Parsed] = []
         for i, item in enumerate(lines):
@@ -152,25 +251,46 @@ class SerialParser:
         return out
 
     def _is_empty_marker(self, text: str) -> bool:
-        return any(r.empty is not None and text.strip() == r.empty for r in self.spec.requests)
+        return bool(self._empty) and text.strip() in self._empty
 
     def _parse_line(self, item: str | bytes, line_no: int, received_at: datetime) -> list[Parsed]:
-        raw = self._raw_of(item)
+        raw = item if type(item) is str else self._raw_of(item)
         try:
             text = self._precheck(item)
-            if self._is_empty_marker(text):
+            if self._empty and self._is_empty_marker(text):
                 return []
             if not text.strip():
                 raise FieldError("empty line")
             if self.spec.dialect.kind == "keyvalue":
                 pairs = _pairs(self.spec, [text], line_no)
                 return [self._from_raw(pairs, raw, line_no, received_at)]
-            for kind in self.spec.dialect.kinds:
-                try:
-                    fields = split_fields(self.spec, kind, text)
-                except _NoMatch:
-                    continue
-                return [self._make(kind, fields, raw, line_no, received_at)]
+            parts: list[str] | None = None
+            for plan in self._plans:
+                kind = plan.kind
+                if not plan.delimited:
+                    try:
+                        fields = split_fields(self.spec, kind, text)
+                    except _NoMatch:
+                        continue
+                    values = plan.values_from(fields)
+                else:  # split_fields' delimited branch, by column position
+                    if parts is None:
+                        dialect = self.spec.dialect
+                        parts = text.split(dialect.separator)
+                        if dialect.strip:
+                            parts = [p.strip() for p in parts]
+                    if plan.when_at is not None:
+                        at = plan.when_at
+                        found = parts[at] if 0 <= at < len(parts) else None
+                        if found not in plan.when_values:
+                            continue
+                    if len(parts) != plan.ncols:
+                        raise FieldError(
+                            f"{kind.record} line has {len(parts)} fields separated by "
+                            f"{self.spec.dialect.separator!r}, expected {plan.ncols}"
+                        )
+                    values = plan.values_of(parts)
+                return [plan.record(values, self.ctx, self.label, raw, received_at, line_no)]
             raise FieldError(self._no_kind_reason())
         except FieldError as exc:
             return [reject(self.ctx, self.label, raw, str(exc), received_at, line_no)]
@@ -194,9 +314,11 @@ class SerialParser:
 
     def _from_raw(self, pairs: dict[str, str], raw: str, line_no: int,
                   received_at: datetime) -> Parsed:
-        for kind in self.spec.dialect.kinds:
+        for plan in self._plans:
+            kind = plan.kind
             if kind.when is None or kind.when.holds(pairs):
-                return self._make(kind, pairs, raw, line_no, received_at)
+                return plan.record(plan.values_from(pairs), self.ctx, self.label, raw,
+                                   received_at, line_no)
         raise FieldError(self._no_kind_reason())
 
     def _no_kind_reason(self) -> str:
@@ -207,12 +329,3 @@ class SerialParser:
             elif kind.pattern is not None:
                 wants.append(f"the {kind.record} pattern")
         return "matches no line kind; expected " + " or ".join(wants)
-
-    def _make(self, kind: LineKind, fields: dict[str, str], raw: str, line_no: int,
-              received_at: datetime) -> Parsed:
-        values: dict[str, Any] = {}
-        for fspec in kind.fields:
-            values[fspec.canonical] = convert_text(
-                fspec, fields, self.ctx, self.spec.leak_reference_c
-            )
-        return build_record(kind.record, values, self.ctx, self.label, raw, received_at, line_no)

@@ -8,7 +8,7 @@ from __future__ import annotations
 
 import math
 import re
-from collections.abc import Mapping, Sequence
+from collections.abc import Callable, Mapping, Sequence
 from datetime import UTC, datetime, tzinfo
 from typing import TYPE_CHECKING, Any
 from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
@@ -18,18 +18,19 @@ from gateway.errors import DecodeError, UnitError
 from gateway.profiles.model import FieldSpec, Parsed, StationContext
 from gateway.profiles.registers import decode_registers, registers_hex
 from gateway.records import CalibrationEvent, Rejected, TestResult, Verdict
-from gateway.units import to_canonical
+from gateway.units import same_value, to_canonical, to_canonical_fn
 
 if TYPE_CHECKING:
     from gateway.profiles.model import BlockSpec, ModbusSpec, RingSpec
 
-__all__ = ["FieldError", "build_record", "convert_register", "convert_text", "decode_block",
-           "reject"]
+__all__ = ["FieldError", "TextConverter", "build_record", "compile_text_field",
+           "convert_register", "convert_text", "decode_block", "make_record", "reject"]
 
 _NUMBER = re.compile(r"^[+-]?(?:\d+(?:\.\d*)?|\.\d+)(?:[eE][+-]?\d{1,3})?$")
 _INT = re.compile(r"^[+-]?\d{1,18}$")
 _DEFAULT_UNITS = {"time": "s", "temperature": "C"}
 _QUANTITY_KINDS = {"pressure", "leak", "time", "temperature"}
+_VERDICTS = frozenset(v.value for v in Verdict)
 _RAW_LIMIT = 4096  # longest raw text kept in a Rejected; the rest is summarised
 
 
@@ -184,6 +185,203 @@ def convert_text(
     return _quantity(spec, number_f, unit, reference_c)
 
 
+#: a compiled ``convert_text`` for one field: (the field's raw text or None, all raw fields)
+TextConverter = Callable[[str | None, Mapping[str, str]], Any]
+
+# strptime directives the fixed-width fast path reads: (datetime argument, digits)
+_FIXED_DIRECTIVES = {"Y": (0, 4), "m": (1, 2), "d": (2, 2), "H": (3, 2), "M": (4, 2), "S": (5, 2)}
+
+
+#: year, month, day, hour, minute, second
+_TimeFields = tuple[int, int, int, int, int, int]
+
+
+def _fixed_time_reader(fmt: str) -> Callable[[str], _TimeFields | None] | None:
+    """A reader of ``fmt``'s zero-padded ASCII form (strptime is ~6 µs a call), or None.
+
+    Only for patterns of %Y %m %d (required) and %H %M %S, each once, between literal
+    characters that are neither digits nor whitespace other than a single space. Text in
+    exactly that form splits only one way for strptime too (no field can be longer), so both
+    read the same numbers; anything else (one-digit fields, other spaces, Unicode digits)
+    returns None and goes to strptime, which decides as before.
+    """
+    pattern: list[str] = []
+    order: list[int] = []
+    i = 0
+    while i < len(fmt):
+        ch = fmt[i]
+        if ch == "%":
+            spec = _FIXED_DIRECTIVES.get(fmt[i + 1 : i + 2])
+            if spec is None or spec[0] in order:
+                return None
+            order.append(spec[0])
+            pattern.append(f"([0-9]{{{spec[1]}}})")
+            i += 2
+            continue
+        if ch.isdigit() or (ch.isspace() and ch != " ") or not ch.isascii():
+            return None
+        pattern.append(re.escape(ch))
+        i += 1
+    if not {0, 1, 2} <= set(order):
+        return None
+    match = re.compile("".join(pattern)).fullmatch
+    slots = tuple(order)
+    if slots == (0, 1, 2, 3, 4, 5):  # all six, already in datetime's argument order
+
+        def read_in_order(text: str) -> _TimeFields | None:
+            m = match(text)
+            if m is None:
+                return None
+            year, month, day, hour, minute, second = map(int, m.groups())
+            return year, month, day, hour, minute, second
+
+        return read_in_order
+
+    def read(text: str) -> _TimeFields | None:
+        m = match(text)
+        if m is None:
+            return None
+        args = [0, 0, 0, 0, 0, 0]
+        for slot, digits in zip(slots, m.groups(), strict=True):
+            args[slot] = int(digits)
+        year, month, day, hour, minute, second = args
+        return year, month, day, hour, minute, second
+
+    return read
+
+
+def _compile_timestamp(spec: FieldSpec, ctx: StationContext) -> Callable[[str], datetime] | None:
+    fmt = spec.time_format or "iso"
+    if fmt in ("iso", "unix"):
+        return None  # fromisoformat is already fast; unix goes the generic way
+    reader = _fixed_time_reader(fmt)
+    if reader is None:
+        return None
+    try:
+        zone = _zone(spec, ctx)
+    except FieldError:
+        return None  # the generic path rejects every line with the zone's error, as before
+
+    def convert(text: str) -> datetime:
+        args = reader(text)
+        if args is None:
+            return _timestamp(spec, text, ctx)
+        year, month, day, hour, minute, second = args
+        try:
+            return datetime(year, month, day, hour, minute, second, tzinfo=zone)
+        except ValueError:
+            raise _fail(spec, f"{_show(text)} is not a timestamp in format {fmt!r}") from None
+
+    return convert
+
+
+def compile_text_field(
+    spec: FieldSpec, ctx: StationContext, reference_c: float = 0.0
+) -> tuple[TextConverter, bool]:
+    """``convert_text`` for one field with its per-field work done once, and whether it
+    reads other raw fields than its own (then the caller must pass them all).
+
+    The compiled converter gives the same value (for a verdict, the ``Verdict`` member of the
+    code's text, which ``make_record`` would make anyway) or the same FieldError as
+    ``convert_text`` for every input: the same checks in the same order, with the unit
+    factor, zone and code table resolved here; what it does not specialise it hands to
+    ``convert_text``.
+    """
+    assert spec.source is not None
+    empty_none = spec.empty_none
+    kind = spec.kind
+
+    def generic(text: str | None, raw: Mapping[str, str]) -> Any:
+        return convert_text(spec, raw, ctx, reference_c)
+
+    def blank(text: str | None) -> None:
+        if empty_none:
+            return None
+        raise _fail(spec, "missing" if text is None else "empty")
+
+    if kind == "text" or (kind == "program" and not spec.program_lookup):
+
+        def as_text(text: str | None, raw: Mapping[str, str]) -> Any:
+            return text if text else blank(text)
+
+        return as_text, False
+    if kind == "int":
+        int_match = _INT.match
+
+        def as_int(text: str | None, raw: Mapping[str, str]) -> Any:
+            if not text:
+                return blank(text)
+            if not int_match(text):
+                raise _fail(spec, f"{_show(text)} is not an integer")
+            number = int(text)
+            if number < 0:
+                raise _fail(spec, f"{number} is negative")
+            return number
+
+        return as_int, False
+    if kind in ("verdict", "bool"):
+        codes: dict[str, Any] = dict(spec.codes or {})
+        if kind == "verdict":  # the member build_record would make of the code's text
+            codes = {k: Verdict(v) if v in _VERDICTS else v for k, v in codes.items()}
+
+        def as_code(text: str | None, raw: Mapping[str, str]) -> Any:
+            if not text:
+                return blank(text)
+            try:
+                return codes[text]
+            except KeyError:
+                return _coded(spec, text)  # raises the unknown-code error
+
+        return as_code, False
+    if kind == "timestamp":
+        stamp = _compile_timestamp(spec, ctx)
+        if stamp is None:
+            return generic, True
+
+        def as_time(text: str | None, raw: Mapping[str, str]) -> Any:
+            return stamp(text) if text else blank(text)
+
+        return as_time, False
+    if kind in _QUANTITY_KINDS and spec.unit_from is None:
+        unit = spec.unit or _DEFAULT_UNITS.get(kind)
+        if unit is None:
+            return generic, True  # every value fails with "no unit", as before
+        try:
+            to_unit = to_canonical_fn(unit, kind, reference_c=reference_c)  # type: ignore[arg-type]
+        except UnitError:
+            return generic, True  # every value fails with the unit's error, as before
+        number_match = _NUMBER.match
+        isfinite = math.isfinite
+        plain = spec.scale == 1.0 and spec.offset == 0.0
+        if plain and to_unit is same_value:
+
+            def as_canonical(text: str | None, raw: Mapping[str, str]) -> Any:
+                if not text:
+                    return blank(text)
+                if not number_match(text):
+                    raise _fail(spec, f"{_show(text)} is not a number")
+                number = float(text)
+                if not isfinite(number):
+                    raise _fail(spec, f"{number!r} is not a finite number")
+                return number
+
+            return as_canonical, False
+
+        def as_quantity(text: str | None, raw: Mapping[str, str]) -> Any:
+            if not text:
+                return blank(text)
+            if not number_match(text):
+                raise _fail(spec, f"{_show(text)} is not a number")
+            number = float(text)
+            out = to_unit(number if plain else _scaled(spec, number))
+            if not isfinite(out):
+                raise _fail(spec, f"{number!r} is not a finite number")
+            return out
+
+        return as_quantity, False
+    return generic, True
+
+
 def convert_register(
     spec: FieldSpec,
     block: Sequence[int],
@@ -287,6 +485,20 @@ def build_record(
     line_no: int | None,
 ) -> Parsed:
     """A TestResult/CalibrationEvent from canonical values, or Rejected if they don't fit."""
+    present: dict[str, Any] = {k: v for k, v in values.items() if v is not None}
+    return make_record(record, present, ctx, label, raw, received_at, line_no)
+
+
+def make_record(
+    record: str,
+    present: dict[str, Any],
+    ctx: StationContext,
+    label: str,
+    raw: str,
+    received_at: datetime,
+    line_no: int | None,
+) -> Parsed:
+    """``build_record`` for values without the ``None`` ones (fields left at their default)."""
     common: dict[str, Any] = {
         "station": ctx.station,
         "line": ctx.line,
@@ -294,10 +506,11 @@ def build_record(
         "raw": clip_raw(raw),
         "profile": label,
     }
-    present: dict[str, Any] = {k: v for k, v in values.items() if v is not None}
     try:
         if record == "result":
-            present["verdict"] = Verdict(present["verdict"])
+            verdict = present["verdict"]
+            if type(verdict) is not Verdict:
+                present["verdict"] = Verdict(verdict)
             return TestResult(**common, **present)
         if isinstance(present.get("standard_sccm"), float) and present["standard_sccm"] <= 0:
             raise ValueError(f"standard_sccm must be > 0, got {present['standard_sccm']:g}")

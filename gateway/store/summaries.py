@@ -95,6 +95,14 @@ _ADD_PART_HOURS = """ON CONFLICT DO UPDATE SET
         parts = parts + excluded.parts, first_pass = first_pass + excluded.first_pass,
         final_pass = final_pass + excluded.final_pass, tests = tests + excluded.tests"""
 
+# part_shares(+1) for a batch whose parts are all new: their stored summaries are then exactly
+# the batch's rows, so the shares come from those without looking each part up again.
+_NEW_PART_SHARES = f"""INSERT INTO part_hours
+    SELECT (first_ended_at / {_H}) * {_H} AS h, station AS s, line AS l, program AS g,
+           COUNT(*), SUM(first_verdict = 'pass'), SUM(last_verdict = 'pass'), SUM(tests)
+    FROM temp.fold_parts WHERE true GROUP BY h, s, l, g
+    {_ADD_PART_HOURS}"""
+
 _SETTLE = (
     f"""INSERT INTO part_hours
     SELECT hour, station, line, program, SUM(parts), SUM(first_pass), SUM(final_pass),
@@ -155,9 +163,11 @@ def fold_results(conn: sqlite3.Connection, after_seq: int) -> None:
         return  # no part ids in the batch
     moved = part_shares(conn, -1, "temp.fold_parts")  # parts seen before (retests)
     conn.execute(_UPSERT_PARTS)
+    if not moved:
+        conn.execute(_NEW_PART_SHARES)
+        return
     part_shares(conn, +1, "temp.fold_parts")
-    if moved:
-        settle_part_hours(conn)
+    settle_part_hours(conn)
 
 
 def rebuild_summaries(conn: sqlite3.Connection) -> None:
