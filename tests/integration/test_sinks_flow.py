@@ -21,7 +21,7 @@ async def test_journal_to_mqtt_subscriber(mosquitto: MosquittoServer, journal: J
     journal.write(records)
     fwd = make_mqtt("mqtt", {"url": mosquitto.url, "batch_size": 25}, ctx())
     async with (
-        MqttLog(mosquitto, "leakfleet/#", client_id="flow-sub") as sub,
+        MqttLog(mosquitto, "leakfleet/northmere/#", client_id="flow-sub") as sub,
         forwarding(fwd, journal),
     ):
         await until(lambda: len(sub.records()) >= len(records), 20, "every record on MQTT")
