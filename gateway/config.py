@@ -18,7 +18,8 @@ Layout::
                                         #   interval_months, uncertainty_pct)
     [runtime]                           # tuning: batch_size, max_delay, queue_size,
                                         #   max_pending, reconnect_initial, reconnect_max,
-                                        #   offline_after, line_gap
+                                        #   offline_after, line_gap; retention = "400 d"
+                                        #   prunes what every sink has (default: keep all)
     [metrics]                           # prometheus_port (0 = off, the default), bind (127.0.0.1)
     [sinks.<name>]                      # one table per sink, handed to the sink registry as-is
     [[stations]]
@@ -88,6 +89,8 @@ class RuntimeConfig:
     queue_size: int = 2000
     max_pending: int = 100_000
     pacing: Pacing = field(default_factory=Pacing)
+    # journal rows older than this go, once every enabled sink has them (None = keep all)
+    retention_s: float | None = None
 
 
 @dataclass(frozen=True)
@@ -210,7 +213,7 @@ _TOP = ("site", "gateway_id", "timezone", "store", "profile_dirs", "shifts", "st
 _STATION = ("id", "line", "profile", "endpoint", "poll_interval", "timeout", "timezone",
             "programs", "overrides")
 _RUNTIME = ("batch_size", "max_delay", "queue_size", "max_pending", "reconnect_initial",
-            "reconnect_max", "offline_after", "line_gap")
+            "reconnect_max", "offline_after", "line_gap", "retention")
 
 
 def load_config(
@@ -303,6 +306,20 @@ def _check_store(r: _Reader, url: str, key: str) -> None:
         raise r.fail(key, "sqlite:///relative/path.db or sqlite:////absolute/path.db", url)
 
 
+def _retention(r: _Reader, t: dict[str, Any], p: str) -> float | None:
+    """``retention = "400 d"`` (days; pruning runs hourly, so at least one day)."""
+    if "retention" not in t:
+        return None
+    value = t["retention"]
+    expect = "a number of days of at least 1, such as '400 d' or '90 days'"
+    m = re.fullmatch(r"\s*(\d+(?:\.\d+)?)\s*(?:d|days?)\s*", value) if isinstance(
+        value, str) else None
+    days = float(m.group(1)) if m else 0.0
+    if not 1 <= days <= 36_600:
+        raise r.fail(p + "retention", expect, value)
+    return days * 86400.0
+
+
 def _runtime(r: _Reader, t: dict[str, Any]) -> RuntimeConfig:
     p = "runtime."
     r.known(t, p, _RUNTIME)
@@ -322,6 +339,7 @@ def _runtime(r: _Reader, t: dict[str, Any]) -> RuntimeConfig:
         raise r.fail(p + "max_delay", "at most 0.2 s (results are committed within 250 ms)",
                      t.get("max_delay"))
     return RuntimeConfig(
+        retention_s=_retention(r, t, p),
         batch_size=r.integer(t, "batch_size", p, 500, 1, 100_000),
         max_delay_s=max_delay,
         queue_size=r.integer(t, "queue_size", p, 2000, 1, 1_000_000),

@@ -16,6 +16,7 @@ pytestmark = pytest.mark.timeout(30)
 
 REPO = Path(__file__).resolve().parents[2]
 
+TZ = 'timezone = "Europe/Berlin"'
 GOOD = """
 site = "Northmere Works"
 gateway_id = "gw-test"
@@ -74,6 +75,10 @@ def test_good_config_with_defaults(tmp_path: Path) -> None:
     assert rtu.poll_interval_s == 0.25 and rtu.timeout_s == 1.0 and rtu.timeout_explicit
     assert rtu.programs == {1: "MV-44"} and rtu.overrides == {"device_id": 7}
     assert config.metrics.prometheus_port == 0 and config.metrics.bind == "127.0.0.1"
+    assert config.runtime.retention_s is None and config.runtime.max_delay_s == 0.0
+    kept = load_config(write(tmp_path, GOOD.replace(
+        TZ, TZ + '\n[runtime]\nretention = "400 days"')))
+    assert kept.runtime.retention_s == 400 * 86400
     assert load_config(write(tmp_path, GOOD), store="sqlite:///x.db").store == "sqlite:///x.db"
 
 
@@ -105,6 +110,12 @@ def test_good_config_with_defaults(tmp_path: Path) -> None:
          "expected an endpoint of its own"),
         (('gateway_id = "gw-test"', 'gateway_id = "gw-test"\nstore = "influxdb://h:8086/db"'),
          "store: expected a journal URL sqlite:///"),
+        ((TZ, TZ + '\n[runtime]\nretention = "2 weeks"'),
+         "runtime.retention: expected a number of days of at least 1"),
+        ((TZ, TZ + '\n[runtime]\nretention = "0.5 d"'),
+         "runtime.retention: expected a number of days of at least 1"),
+        ((TZ, TZ + '\n[runtime]\nretention = 30'),
+         "runtime.retention: expected a number of days"),
     ],
 )
 def test_mistakes_name_file_key_and_expectation(
