@@ -32,6 +32,7 @@ import time
 from collections import deque
 from collections.abc import Awaitable, Callable, Mapping, Sequence
 from dataclasses import dataclass, field
+from datetime import timedelta
 from typing import Any
 
 from gateway import metrics
@@ -41,7 +42,7 @@ from gateway.drivers.base import Item, Outbox, Pacing, StationTarget, utcnow
 from gateway.errors import ConfigError, StoreError
 from gateway.health import Backoff, ClockWatch
 from gateway.records import CalibrationEvent, Rejected, StationState, StationStatus, TestResult
-from gateway.sinks import REGISTRY, Forwarder, SinkContext, SinkFactory, Wakeable
+from gateway.sinks import REGISTRY, Attachable, Forwarder, SinkContext, SinkFactory
 
 __all__ = [
     "Forwarder",
@@ -163,6 +164,15 @@ class JournalWriter:
         """Run ``fn(journal, *args)`` on the writer's thread (resume points, tests)."""
         loop = asyncio.get_running_loop()
         return await loop.run_in_executor(self._executor, fn, self._journal, *args)
+
+    async def save_cursor(self, sink: str, kind: str, seq: int) -> bool:
+        """A sink's cursor, written between batches on the writer's own connection: one
+        writer, so neither waits on the other's lock (SQLite's busy back-off sleeps up to
+        tens of milliseconds, which a live sink would show as latency)."""
+        if self._journal is None:  # closed (the sinks' last drain at shutdown): not here
+            return False
+        await self.call(lambda j: j.set_cursor(sink, kind, seq))
+        return True
 
     async def close(self) -> None:
         """Ask ``run`` to store everything queued and return."""
@@ -516,9 +526,17 @@ class Runtime:
         async with asyncio.TaskGroup() as tg:
             writer_task = tg.create_task(writer.run(), name="journal writer")
             sink_stop = asyncio.Event()
+            if cfg.runtime.retention_s is not None:
+                prune_task = tg.create_task(
+                    _prune_forever(writer, cfg.runtime.retention_s,
+                                   [f.name for f in self.forwarders]),
+                    name="journal retention",
+                )  # fmt: skip
+            else:
+                prune_task = None
             for fwd in self.forwarders:
-                if isinstance(fwd, Wakeable):
-                    fwd.wake = writer.committed
+                if isinstance(fwd, Attachable):
+                    fwd.attach(writer.committed, writer.save_cursor)
                 tg.create_task(self._forward(fwd, sink_stop), name=f"sink {fwd.name}")
             outbox = _FlaggingOutbox(writer, {t.station: t.health for t in self.targets})
             buses = _buses(self.targets)
@@ -540,6 +558,8 @@ class Runtime:
                               detail="gateway stopped")
                 for t in self.targets
             ])
+            if prune_task is not None:
+                prune_task.cancel()
             await writer.close()
             await writer_task
             sink_stop.set()
@@ -550,6 +570,25 @@ class Runtime:
             await fwd.run(self.config.store, stop)
         except Exception:  # a sink that fails to run is disabled, the gateway keeps going
             log.exception("sink %s failed and is disabled", fwd.name)
+
+
+PRUNE_INTERVAL_S = 3600.0
+
+
+async def _prune_forever(writer: JournalWriter, retention_s: float, sinks: list[str]) -> None:
+    """Hourly: drop journal rows older than the retention that every enabled sink confirmed
+    (on the writer's thread, between batches). A failure is logged and tried again later."""
+    while True:
+        cutoff = utcnow() - timedelta(seconds=retention_s)
+        try:
+            n = await writer.call(lambda j, c=cutoff: j.prune(c, sinks))
+        except StoreError as exc:
+            log.warning("journal retention: pruning failed, will retry: %s", exc)
+        else:
+            if n:
+                log.info("journal retention: removed %d row(s) older than %s", n,
+                         cutoff.isoformat(timespec="seconds"))  # fmt: skip
+        await asyncio.sleep(PRUNE_INTERVAL_S)
 
 
 def _serve_metrics(config: GatewayConfig) -> metrics.MetricsServer | None:

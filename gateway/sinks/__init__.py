@@ -16,13 +16,16 @@ whose ``run`` fails later is logged and disabled while everything else keeps goi
 from __future__ import annotations
 
 import asyncio
-from collections.abc import Callable, Mapping
+from collections.abc import Awaitable, Callable, Mapping
 from dataclasses import dataclass
 from typing import Any, Protocol, runtime_checkable
 
 from gateway.aio import Pulse
 
-__all__ = ["REGISTRY", "Forwarder", "SinkContext", "SinkFactory", "Wakeable", "register_sink"]
+__all__ = [
+    "REGISTRY", "Attachable", "CursorSaver", "Forwarder", "SinkContext", "SinkFactory",
+    "register_sink",
+]
 
 
 @dataclass(frozen=True)
@@ -43,11 +46,17 @@ class Forwarder(Protocol):
     async def run(self, store_url: str, stop: asyncio.Event) -> None: ...
 
 
-@runtime_checkable
-class Wakeable(Protocol):
-    """A forwarder the runtime can wake after each journal commit (else it polls)."""
+# (sink, kind, seq) -> True once persisted, False if the writer is gone (save it yourself)
+CursorSaver = Callable[[str, str, int], Awaitable[bool]]
 
-    wake: Pulse | None
+
+@runtime_checkable
+class Attachable(Protocol):
+    """A forwarder that runs beside the runtime's journal writer: it is woken by each commit
+    (else it polls) and persists its cursor on the writer's connection (else on its own, where
+    its write would contend with the writer's commits for SQLite's lock)."""
+
+    def attach(self, committed: Pulse, save_cursor: CursorSaver) -> None: ...
 
 
 SinkFactory = Callable[[str, Mapping[str, Any], SinkContext], Forwarder]

@@ -45,6 +45,7 @@ from gateway import metrics
 from gateway.aio import Pulse
 from gateway.errors import ConfigError, TransportError
 from gateway.records import Record
+from gateway.sinks import CursorSaver
 from gateway.store.journal import KINDS, Journal, Kind, open_journal
 
 __all__ = [
@@ -180,8 +181,12 @@ class JournalForwarder:
         # the journal writer's commit signal, set by the runtime: with it a record goes out as
         # soon as it is committed; without it (a journal written by another process) we poll
         self.wake: Pulse | None = None
+        self._save_cursor: CursorSaver | None = None
 
     # -- the runtime's entry point ---------------------------------------------------------
+    def attach(self, committed: Pulse, save_cursor: CursorSaver) -> None:
+        self.wake, self._save_cursor = committed, save_cursor
+
     async def run(self, store_url: str, stop: asyncio.Event) -> None:
         journal = await asyncio.to_thread(open_journal, store_url)
         try:
@@ -260,7 +265,8 @@ class JournalForwarder:
                     f"within {self.options.send_timeout_s:g}s"
                 ) from None
             last = rows[-1][0]
-            await asyncio.to_thread(journal.set_cursor, self.name, kind, last)
+            if self._save_cursor is None or not await self._save_cursor(self.name, kind, last):
+                await asyncio.to_thread(journal.set_cursor, self.name, kind, last)
             self._cursors[kind] = last
             self.sent[kind] += len(rows)
             self.last_success = datetime.now(UTC)

@@ -75,7 +75,7 @@ async def test_demo_forwards_results_to_mosquitto(broker: MosquittoServer, tmp_p
                           for t, p, _ in m), timeout=15)  # fmt: skip
     stdout, stderr = stdout_b.decode(), stderr_b.decode()
     assert proc.returncode == 0, stderr[-2000:]
-    assert "Traceback" not in stderr
+    assert "Traceback" not in stderr, stderr[stderr.find("Traceback") - 300 :][:3000]
     assert "forwarding to sink mqtt" in stdout
     assert SECRET not in stdout and SECRET not in stderr
 
