@@ -289,7 +289,10 @@ def backfill(
                 rows += r
                 cal_rows += c
             rows.sort(key=lambda r: r[5])  # journal order: as received
-            rows = rows[: results - done]
+            if len(rows) > results - done:  # the last chunk: cut it, and its calibrations
+                rows = rows[: results - done]
+                cutoff = rows[-1][5]
+                cal_rows = [c for c in cal_rows if c[3] <= cutoff]
             conn.execute("BEGIN")
             conn.executemany(insert_r, rows)
             conn.executemany(insert_c, cal_rows)

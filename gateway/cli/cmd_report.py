@@ -362,6 +362,14 @@ class Filters:
         }
 
 
+def _span(f: Filters) -> str:
+    """The range for a heading; the default start (everything stored) is said in words."""
+    end = f"{f.until:%Y-%m-%d %H:%M} UTC"
+    if f.since == datetime(1970, 1, 1, tzinfo=UTC):
+        return f"everything stored until {end}"
+    return f"{f.since:%Y-%m-%d %H:%M} .. {end}"
+
+
 def parse_time(text: str, now: datetime, what: str) -> datetime:
     """ISO 8601 date or date-time (naive = UTC), or a span before ``now`` such as 7d / 12h."""
     m = _RELATIVE.match(text)
@@ -752,7 +760,7 @@ def _yield(args: argparse.Namespace, get_store: Callable[[], Any]) -> Report:
     )
     o = report.overall
     lines = [
-        f"Yield {f.since:%Y-%m-%d %H:%M} .. {f.until:%Y-%m-%d %H:%M} UTC: {o.tests} tests "
+        f"Yield {_span(f)}: {o.tests} tests "
         f"({o.aborted} aborted), {o.parts} parts",
         f"  first-pass yield {_pct(o.first_pass_yield)}   final yield {_pct(o.final_yield)}   "
         f"retest rate {_pct(o.retest_rate)}   test-level yield {_pct(o.test_yield)}",

@@ -112,3 +112,15 @@ def test_cli_backfill_and_its_mistakes(tmp_path: Path) -> None:
     )  # fmt: skip
     assert bad.returncode == 2
     assert len(bad.stderr.strip().splitlines()) == 1 and "sqlite" in bad.stderr
+
+
+def test_no_calibration_after_the_history_ends(tmp_path: Path) -> None:
+    """A small history is cut from a larger generated chunk: its calibrations are cut with it."""
+    db = tmp_path / "small.db"
+    backfill(f"sqlite:///{db}", 3000)
+    with sqlite3.connect(db) as conn:
+        last_result = conn.execute("SELECT MAX(received_at) FROM results").fetchone()[0]
+        later = conn.execute("SELECT COUNT(*) FROM calibrations WHERE ended_at > ?",
+                             (last_result,)).fetchone()[0]  # fmt: skip
+        cals = conn.execute("SELECT COUNT(*) FROM calibrations").fetchone()[0]
+    assert later == 0 and cals > 0
