@@ -548,10 +548,12 @@ class InfluxStore:
 def _judge_parts(tests: pd.DataFrame) -> pd.DataFrame:
     """One row per part: its first test's time, station, line and program, and the counts.
 
-    First and last by (time, seq), as the SQLite parts summary orders them.
+    First and last by (time, seq), as the SQLite parts summary orders them; aborted tests
+    measured nothing and are left out, as there.
     """
     columns = ["time", "station", "line", "program", "parts", "first_pass", "final_pass",
                "tests", "no_part_id"]
+    tests = tests[tests["verdict"] != "aborted"] if not tests.empty else tests
     if tests.empty:
         return pd.DataFrame(columns=columns)
     ordered = tests.sort_values(["time", "seq"], kind="stable")

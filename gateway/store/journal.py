@@ -468,7 +468,8 @@ class Journal:
                        ROW_NUMBER() OVER (PARTITION BY part_id
                                           ORDER BY ended_at DESC, seq DESC) AS b,
                        COUNT(*) OVER (PARTITION BY part_id) AS n
-                FROM results WHERE part_id IN (SELECT part_id FROM prune_parts))
+                FROM results WHERE part_id IN (SELECT part_id FROM prune_parts)
+                  AND verdict <> 'aborted')
             SELECT f.part_id, f.n, f.ended_at, f.seq, f.station, f.line, f.program, f.verdict,
                    l.ended_at, l.seq, l.verdict
             FROM t f JOIN t l ON l.part_id = f.part_id AND l.b = 1

@@ -290,10 +290,33 @@ _V3: tuple[str, ...] = (
     FROM results GROUP BY 1, 2, 3, 4, 5, 6""",
 )
 
+# v4: an aborted test measured nothing, so it neither decides a part's first pass nor counts
+# among its tests; the part summaries are rebuilt from the measured tests.
+_V4: tuple[str, ...] = (
+    "DELETE FROM parts",
+    """INSERT INTO parts
+    WITH t AS (
+        SELECT part_id, ended_at, seq, station, line, program, verdict,
+               ROW_NUMBER() OVER (PARTITION BY part_id ORDER BY ended_at, seq) AS a,
+               ROW_NUMBER() OVER (PARTITION BY part_id ORDER BY ended_at DESC, seq DESC) AS b,
+               COUNT(*) OVER (PARTITION BY part_id) AS n
+        FROM results WHERE part_id IS NOT NULL AND verdict <> 'aborted')
+    SELECT f.part_id, f.n, f.ended_at, f.seq, f.station, f.line, f.program, f.verdict,
+           l.ended_at, l.seq, l.verdict
+    FROM t f JOIN t l ON l.part_id = f.part_id AND l.b = 1
+    WHERE f.a = 1""",
+    "DELETE FROM part_hours",
+    f"""INSERT INTO part_hours
+    SELECT (first_ended_at / {HOUR_US}) * {HOUR_US}, station, line, program, COUNT(*),
+           SUM(first_verdict = 'pass'), SUM(last_verdict = 'pass'), SUM(tests)
+    FROM parts GROUP BY 1, 2, 3, 4""",
+)
+
 MIGRATIONS: tuple[Migration, ...] = (
     Migration(1, _V1, "initial schema"),
     Migration(2, _V2, "summaries folded in per batch, not by per-row triggers"),
     Migration(3, _V3, "tests per hour by reject reason"),
+    Migration(4, _V4, "aborted tests leave the part summaries"),
 )
 SCHEMA_VERSION = MIGRATIONS[-1].version
 

@@ -85,7 +85,8 @@ _MERGE_PART = """ON CONFLICT DO UPDATE SET
 # per row is ~15x cheaper than window functions over the batch (measured, SQLite 3.40).
 _BATCH_PARTS = f"""INSERT INTO temp.fold_parts
     SELECT part_id, 1, ended_at, seq, station, line, program, verdict, ended_at, seq, verdict
-    FROM results NOT INDEXED WHERE seq > ? AND part_id IS NOT NULL ORDER BY seq
+    FROM results NOT INDEXED WHERE seq > ? AND part_id IS NOT NULL AND verdict <> 'aborted'
+    ORDER BY seq
     {_MERGE_PART}"""
 
 # ...then each batch part into its stored summary, one upsert per part.

@@ -76,7 +76,9 @@ def _keys(frame: pd.DataFrame, col: str, by: list[str], bucket) -> list[str]:
 
 
 def _ref_first_pass(raw: pd.DataFrame, since, until, by: list[str], bucket) -> pd.DataFrame:
-    tests = raw[raw["part_id"].notna()].sort_values(["ended_at", "seq"])
+    # an aborted test measured nothing: it neither decides a part nor counts among its tests
+    tests = raw[raw["part_id"].notna() & (raw["verdict"] != "aborted")].sort_values(
+        ["ended_at", "seq"])
     g = tests.groupby("part_id")
     parts = g.first()[["station", "line", "program", "verdict", "ended_at"]]
     parts["final"] = g["verdict"].last()
@@ -320,3 +322,29 @@ def test_v1_journal_migrates_with_correct_summaries(tmp_path: Path) -> None:
     with SqliteStore(path) as store:
         _check(store)
     journal.close()
+
+
+def test_an_aborted_first_test_does_not_decide_the_part(tmp_path: Path) -> None:
+    """An operator abort measured nothing, so the part's first *measured* test decides its
+    first pass (common practice; analytics/yields.py computes it the same way), and a part
+    that was only ever aborted has no decision at all."""
+    from analytics.yields import yield_report
+
+    at = T0 + timedelta(hours=10)
+    rows = [
+        result(1, part_id="A1", verdict="aborted", ended_at=at),
+        result(2, part_id="A1", verdict="pass", ended_at=at + timedelta(minutes=2)),
+        result(3, part_id="A2", verdict="aborted", ended_at=at + timedelta(minutes=4)),
+        result(4, part_id="A3", verdict="reject", ended_at=at + timedelta(minutes=6)),
+        result(5, part_id="A3", verdict="pass", ended_at=at + timedelta(minutes=8)),
+    ]
+    journal = open_journal(str(tmp_path / "a.db"))
+    journal.write(rows[:1])
+    journal.write(rows[1:])  # the abort and the pass arrive in different batches
+    journal.close()
+    with SqliteStore(tmp_path / "a.db") as store:
+        got = store.first_pass_counts()
+    assert got[["parts", "first_pass", "final_pass", "tests"]].iloc[0].tolist() == [2, 1, 2, 3]
+    frame = pd.DataFrame([r.to_dict() for r in rows])
+    report = yield_report(frame)
+    assert (report.overall.parts, report.overall.first_pass_yield) == (2, 0.5)
