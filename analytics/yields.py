@@ -359,10 +359,22 @@ def pareto(
 
 
 def pareto_from_counts(
-    counts: pd.DataFrame, column: str = "verdict", count_col: str = "n"
+    counts: pd.DataFrame,
+    column: str = "verdict",
+    count_col: str = "n",
+    verdicts: Sequence[str] | None = None,
 ) -> ParetoReport:
-    """Pareto from pre-aggregated counts (e.g. verdict_counts without groups)."""
+    """Pareto from pre-aggregated counts (a store's ``verdict_counts``), the same as ``pareto``
+    over the rows they count: ``verdicts`` keeps those verdicts only, and a blank reason is
+    shown as "(no reason given)"."""
     _require(counts, [column, count_col])
-    series = counts.groupby(counts[column].astype(str))[count_col].sum()
-    rows = _pareto_rows(series)
+    df = counts
+    if verdicts is not None:
+        _require(df, ["verdict"])
+        df = df[df["verdict"].astype(str).str.lower().isin([v.lower() for v in verdicts])]
+    values = df[column].fillna("").astype(str).str.strip()
+    if column == "reason":
+        values = values.replace("", "(no reason given)")
+    series = df[count_col].groupby(values).sum()
+    rows = _pareto_rows(series[series > 0])
     return ParetoReport(column=column, total=sum(r.n for r in rows), rows=rows)

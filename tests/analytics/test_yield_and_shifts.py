@@ -233,3 +233,18 @@ def test_to_dict_turns_missing_values_into_null() -> None:
     assert json.loads(json.dumps(jsonable({"a": pd.NA, "b": pd.NaT, "c": float("nan")}))) == {
         "a": None, "b": None, "c": None
     }  # fmt: skip
+
+
+def test_pareto_from_store_counts_equals_pareto_of_rows() -> None:
+    """The dashboard's Pareto of reasons from the store's counts is the one the rows give."""
+    rows = pd.DataFrame({
+        "verdict": ["reject", "reject", "gross", "pass", "reject", "aborted", "reject"],
+        "reason": ["above reject limit", "above reject limit", "test pressure not reached",
+                   "", None, "cycle stopped by operator", " above reject limit "],
+    })  # fmt: skip
+    counts = rows.assign(reason=rows["reason"].fillna("")).groupby(
+        ["reason", "verdict"], as_index=False).size().rename(columns={"size": "n"})
+    want = pareto(rows, column="reason")
+    got = pareto_from_counts(counts, column="reason", verdicts=("reject", "gross"))
+    assert got == want
+    assert [(r.category, r.n) for r in got.rows][:1] == [("above reject limit", 3)]
