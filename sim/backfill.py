@@ -41,7 +41,7 @@ _VENT_S = 2.0
 _CHUNK = 20_000  # results per station per chunk
 _SEAL_LIFE = 4000  # cycles between seal replacements
 _DEFAULT_POP = Population()
-_PROFILE = {"lf-delim": "lf-delim@1.0", "lf-kv": "lf-kv@1.0", "lf-mbtcp": "lf-mbtcp@1.0",
+_PROFILE = {"lf-delim": "lf-delim@1.0", "lf-kv": "lf-kv@1.1", "lf-mbtcp": "lf-mbtcp@1.0",
             "lf-mbrtu": "lf-mbrtu@1.0"}
 
 

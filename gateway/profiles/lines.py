@@ -135,8 +135,8 @@ class _Plan:
     """One line kind with its per-line work done once: compiled field converters and, for a
     delimited kind, where each field and the discriminator sit among the columns."""
 
-    __slots__ = ("converters", "delimited", "kind", "names", "ncols", "needs_raw", "pick",
-                 "sources", "when_at", "when_values")
+    __slots__ = ("converters", "delimited", "kind", "known_keys", "names", "ncols", "needs_raw",
+                 "pick", "sources", "when_at", "when_values")
 
     def __init__(self, kind: LineKind, ctx: StationContext, reference_c: float) -> None:
         self.kind = kind
@@ -155,6 +155,11 @@ class _Plan:
         self.converters = tuple(converters)
         self.names = tuple(f.canonical for f in kind.fields)
         self.sources = tuple(f.source or "" for f in kind.fields)
+        self.known_keys = frozenset(
+            {f.source for f in kind.fields if f.source}
+            | {f.unit_from for f in kind.fields if f.unit_from}
+            | ({kind.when.field} if kind.when is not None else set())
+        )
         self.needs_raw = needs_raw
         self.pick = _result_picker(kind.fields) if kind.record == "result" else None
 
@@ -317,6 +322,14 @@ class SerialParser:
         for plan in self._plans:
             kind = plan.kind
             if kind.when is None or kind.when.holds(pairs):
+                if self.spec.dialect.unknown_keys == "reject":
+                    extra = sorted(k for k in pairs if k not in plan.known_keys)
+                    if extra:
+                        shown = ", ".join(repr(k[:20]) for k in extra[:3])
+                        raise FieldError(
+                            f"{kind.record} answer has key(s) no field maps: {shown} "
+                            "(unknown_keys = \"reject\")"
+                        )
                 return plan.record(plan.values_from(pairs), self.ctx, self.label, raw,
                                    received_at, line_no)
         raise FieldError(self._no_kind_reason())

@@ -465,7 +465,7 @@ def _serial(r: _Reader, doc: dict[str, Any], label: str, ref_c: float) -> Serial
             empty=r.string(req, "empty", where, None),
         ))
     d = r.sub(doc, "dialect", "")
-    r.table(d, "dialect", ("kind", "separator", "pair_separator", "strip"))
+    r.table(d, "dialect", ("kind", "separator", "pair_separator", "strip", "unknown_keys"))
     kind = r.string(d, "kind", "dialect", choices=("delimited", "keyvalue", "fixed", "regex"))
     default_sep = "=" if kind == "keyvalue" else ";"
     separator = r.string(d, "separator", "dialect", default_sep, nonempty=True)
@@ -476,6 +476,9 @@ def _serial(r: _Reader, doc: dict[str, Any], label: str, ref_c: float) -> Serial
         r.fail("dialect.pair_separator", "a pair separator for key=value lines in stream mode "
                "(answer blocks need mode = \"request\")")
     strip = r.boolean(d, "strip", "dialect", True)
+    unknown = r.string(d, "unknown_keys", "dialect", "ignore", choices=("ignore", "reject"))
+    if "unknown_keys" in d and kind != "keyvalue":
+        r.fail("dialect.unknown_keys", "only with kind = \"keyvalue\"", d["unknown_keys"])
     kinds = []
     for record in ("result", "calibration"):
         if record in doc:
@@ -494,7 +497,8 @@ def _serial(r: _Reader, doc: dict[str, Any], label: str, ref_c: float) -> Serial
                       terminator=terminator.encode("latin-1"), max_line=max_line,
                       requests=requests,
                       dialect=Dialect(kind=kind, kinds=tuple(kinds), separator=separator,
-                                      pair_separator=pair_sep, strip=strip),
+                                      pair_separator=pair_sep, strip=strip,
+                                      unknown_keys=unknown),
                       profile_label=label, leak_reference_c=ref_c, request_gap_s=gap)
 
 

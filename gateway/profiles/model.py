@@ -159,6 +159,9 @@ class Dialect:
     separator: str = ";"
     pair_separator: str | None = None  # keyvalue: pairs on one line instead of one per line
     strip: bool = True
+    # keyvalue: "reject" quarantines an answer with a key no field maps (line noise that
+    # happens to contain the separator); "ignore" (default) drops such keys
+    unknown_keys: Literal["ignore", "reject"] = "ignore"
 
 
 @dataclass(frozen=True, slots=True)

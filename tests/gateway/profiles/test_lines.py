@@ -113,6 +113,18 @@ def test_keyvalue_empty_answer_and_unknown(ctx: StationContext) -> None:
     assert isinstance(rej, Rejected) and "line 15" in rej.reason and "key=value" in rej.reason
 
 
+def test_keyvalue_noise_with_the_separator_is_not_taken_for_data(ctx: StationContext) -> None:
+    """lf-kv rejects an answer carrying a key no field maps (unknown_keys = "reject"): line
+    noise that happens to contain "=" would otherwise ride along inside a stored record."""
+    parser = load_profile("lf-kv").serial.parser(ctx)  # type: ignore[union-attr]
+    noisy = ["'}_hp\\xc9'=4\\xf6-", *KV_RES]
+    rej = _one(parser.parse(noisy, 20, RECEIVED))
+    assert isinstance(rej, Rejected) and "no field maps" in rej.reason, rej
+    assert rej.raw == "\n".join(noisy)  # the whole answer is kept for the audit
+    assert isinstance(_one(parser.parse(KV_RES, 40, RECEIVED)), TestResult)
+    assert isinstance(_one(parser.parse(KV_CAL, 60, RECEIVED)), CalibrationEvent)
+
+
 def test_keyvalue_pairs_on_one_line() -> None:
     import tomllib
 

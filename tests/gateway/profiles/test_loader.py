@@ -32,7 +32,8 @@ def test_builtins_load() -> None:
     assert builtin_profiles() == ["lf-delim", "lf-kv", "lf-mbrtu", "lf-mbtcp", "lf-print"]
     for name in builtin_profiles():
         p = load_profile(name)
-        assert p.label == f"{name}@1.0"
+        # lf-kv 1.1: answers with keys no field maps are rejected (unknown_keys = "reject")
+        assert p.label == f"{name}@{'1.1' if name == 'lf-kv' else '1.0'}"
 
 
 def test_by_name_search_dirs_first(tmp_path: Path) -> None:
@@ -90,6 +91,11 @@ def test_missing_file(tmp_path: Path) -> None:
         # field not in the column list
         ("lf-delim", 'from = "loss"', 'from = "lost"', "result.fields.pressure_loss_pa.from",
          "one of the raw fields tag, cycle"),
+        # unknown_keys: a choice, and only for key=value answers
+        ("lf-kv", 'unknown_keys = "reject"', 'unknown_keys = "drop"', "dialect.unknown_keys",
+         "'ignore', 'reject'"),
+        ("lf-delim", '[dialect]\n', '[dialect]\nunknown_keys = "reject"\n',
+         "dialect.unknown_keys", 'only with kind = "keyvalue"'),
         # bad verdict target
         ("lf-delim", 'GRS = "gross"', 'GRS = "grossly"', "result.fields.verdict.codes.GRS",
          "one of pass, reject, gross, aborted"),
