@@ -584,6 +584,9 @@ async def _prune_forever(writer: JournalWriter, retention_s: float, sinks: list[
             n = await writer.call(lambda j, c=cutoff: j.prune(c, sinks))
         except StoreError as exc:
             log.warning("journal retention: pruning failed, will retry: %s", exc)
+        except Exception:  # a bug here must not stop collection: like a sink, it is disabled
+            log.exception("journal retention failed and is disabled; the journal keeps all")
+            return
         else:
             if n:
                 log.info("journal retention: removed %d row(s) older than %s", n,
