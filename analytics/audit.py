@@ -445,6 +445,8 @@ def standard_drift(calibrations: pd.DataFrame, standard: LeakStandard) -> DriftP
     certificate: a standard whose flow drifts shows as a drifting sensitivity."""
     df = calibrations[(calibrations["station"].astype(str) == standard.station)]
     df = df[pd.to_datetime(df["ended_at"], utc=True).dt.date >= standard.certificate_date]
-    df = df[df["passed"].astype(bool)]
+    # calibrations the station did not fail (absent: not judged), with a sensitivity
+    df = df[df["passed"].astype("boolean").fillna(True).astype(bool)]
+    df = df[pd.to_numeric(df["sensitivity"], errors="coerce").notna()]
     values = df["sensitivity"].to_numpy(dtype=float)
     return project_drift(df["ended_at"], values, None)

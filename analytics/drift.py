@@ -264,9 +264,9 @@ class SeriesHealth(ResultMixin):
     times: list[datetime]
     master_loss_pa: list[float]
     standard_loss_pa: list[float]
-    ratio: list[float]
-    sensitivity: list[float]
-    passed: list[bool]
+    ratio: list[float | None]  # None: undefined (master loss <= 0) or not sent
+    sensitivity: list[float | None]
+    passed: list[bool | None]  # None: the station did not judge the calibration
     charts: dict[str, dict[str, ControlChart]]  # series → {"ewma": …, "cusum": …}
     projection: DriftProjection
     alarms: list[Alarm]
@@ -282,17 +282,24 @@ class CalibrationHealth(ResultMixin):
 _CHARTED = ("master_loss_pa", "sensitivity")
 
 
+def _optional_floats(column: pd.Series) -> list[float | None]:
+    return [None if pd.isna(v) else float(v) for v in column]
+
+
 def _series_health(station: str, program: str, g: pd.DataFrame, cfg: HealthConfig) -> SeriesHealth:
     g = g.sort_values("ended_at", kind="mergesort")
     times = [ts.to_pydatetime() for ts in pd.to_datetime(g["ended_at"], utc=True)]
-    passed = [bool(p) for p in g["passed"]]
+    passed = [None if pd.isna(p) else bool(p) for p in g["passed"]]
     alarms: list[Alarm] = []
     charts: dict[str, dict[str, ControlChart]] = {}
     notes: list[str] = []
-    # Charts track the calibrations the station accepted; failed runs raise their own alarm.
-    good = g[g["passed"].astype(bool)]
+    # Charts track the calibrations the station did not fail (a station that does not judge
+    # its calibrations leaves passed absent); failed runs raise their own alarm.
+    good = g[g["passed"].astype("boolean").fillna(True).astype(bool)]
     for name in _CHARTED:
-        values = good[name].to_numpy(dtype=float)
+        column = pd.to_numeric(good[name], errors="coerce").to_numpy(dtype=float)
+        kept = ~np.isnan(column)  # an absent value (no sensitivity without a span) is no point
+        values = column[kept]
         if name in cfg.targets:
             target, sigma = cfg.targets[name]
             source = "configured"
@@ -309,7 +316,11 @@ def _series_health(station: str, program: str, g: pd.DataFrame, cfg: HealthConfi
                 notes.append(f"{name}: baseline does not vary, no charts")
                 continue
         notes.append(f"{name}: target {target:.4g}, sigma {sigma:.3g} ({source})")
-        good_times = [ts.to_pydatetime() for ts in pd.to_datetime(good["ended_at"], utc=True)]
+        good_times = [
+            ts.to_pydatetime()
+            for ts, k in zip(pd.to_datetime(good["ended_at"], utc=True), kept, strict=True)
+            if k
+        ]
         ewma = ewma_chart(values, target, sigma, lam=cfg.ewma_lambda, L=cfg.ewma_L)
         cusum = cusum_chart(values, target, sigma, k=cfg.cusum_k, h=cfg.cusum_h)
         charts[name] = {"ewma": ewma, "cusum": cusum}
@@ -328,14 +339,14 @@ def _series_health(station: str, program: str, g: pd.DataFrame, cfg: HealthConfi
                     )
                 )
     reasons = g["reason"].fillna("").astype(str).tolist() if "reason" in g else [""] * len(g)
-    ratios = g["ratio"].to_numpy(dtype=float)
+    ratios = pd.to_numeric(g["ratio"], errors="coerce").to_numpy(dtype=float)
     for ts, ok, reason, ratio in zip(times, passed, reasons, ratios, strict=True):
-        if not ok:
+        if ok is False:
             why = f": {reason}" if reason else ""
             alarms.append(
                 Alarm(station, program, ts, "failed", "passed", f"calibration failed{why}")
             )
-        if cfg.min_ratio is not None and ratio < cfg.min_ratio:
+        if cfg.min_ratio is not None and not np.isnan(ratio) and ratio < cfg.min_ratio:
             message = f"ratio {ratio:.3g} below minimum {cfg.min_ratio:g}"
             alarms.append(Alarm(station, program, ts, "ratio", "ratio", message))
     projection = project_drift(
@@ -362,8 +373,8 @@ def _series_health(station: str, program: str, g: pd.DataFrame, cfg: HealthConfi
         times=times,
         master_loss_pa=[float(v) for v in g["master_loss_pa"]],
         standard_loss_pa=[float(v) for v in g["standard_loss_pa"]],
-        ratio=[float(v) for v in g["ratio"]],
-        sensitivity=[float(v) for v in g["sensitivity"]],
+        ratio=_optional_floats(g["ratio"]),
+        sensitivity=_optional_floats(g["sensitivity"]),
         passed=passed,
         charts=charts,
         projection=projection,

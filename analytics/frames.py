@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import json
 from collections.abc import Iterable
 
 import pandas as pd
@@ -32,6 +33,9 @@ _RESULT_COLUMNS = [
     "calibration_ref",
     "raw",
     "profile",
+    "part_family",
+    "time_source",
+    "supplied",
 ]
 _CALIBRATION_COLUMNS = [
     "station",
@@ -49,13 +53,24 @@ _CALIBRATION_COLUMNS = [
     "reason",
     "raw",
     "profile",
+    "time_source",
+    "supplied",
 ]
 
 
 def _frame(rows: list[dict[str, object]], columns: list[str]) -> pd.DataFrame:
+    for row in rows:  # the stores' form: JSON text of the values not sent, None when none
+        pairs = row.get("supplied")
+        row["supplied"] = (
+            json.dumps(dict(pairs), separators=(",", ":"))  # type: ignore[call-overload]
+            if pairs
+            else None
+        )
     df = pd.DataFrame.from_records(rows, columns=columns)
     for col in ("ended_at", "received_at"):
         df[col] = pd.to_datetime(df[col], utc=True)
+    if "passed" in df.columns:  # nullable, as the stores give it
+        df["passed"] = df["passed"].astype("boolean")
     return df
 
 

@@ -16,7 +16,10 @@ from enum import StrEnum
 from typing import Any, ClassVar, Self
 
 __all__ = [
+    "ORIGINS",
+    "READABLE_SCHEMAS",
     "SCHEMA_VERSION",
+    "TIME_SOURCES",
     "CalibrationEvent",
     "Record",
     "Rejected",
@@ -25,10 +28,16 @@ __all__ = [
     "TestResult",
     "Verdict",
     "record_from_dict",
+    "supplied_pairs",
 ]
 
-SCHEMA_VERSION = 1
+SCHEMA_VERSION = 2
+#: record schemas ``from_dict`` reads: 1 (every measured field present) and 2 (optional fields,
+#: ``time_source``, ``supplied``, ``part_family``)
+READABLE_SCHEMAS = (1, 2)
 _INF = math.inf
+TIME_SOURCES = ("station", "gateway")
+ORIGINS = ("config", "profile")
 
 
 class Verdict(StrEnum):
@@ -101,6 +110,36 @@ def _parse_time(value: Any) -> datetime | None:
     raise ValueError(f"expected an ISO 8601 timestamp, got {value!r}")
 
 
+def _check_provenance(time_source: object, supplied: object, names: frozenset[str]) -> None:
+    if time_source not in TIME_SOURCES:
+        raise ValueError(f"time_source must be one of {', '.join(TIME_SOURCES)}, "
+                         f"got {time_source!r}")
+    if type(supplied) is not tuple:
+        raise ValueError(f"supplied must be a tuple of (field, origin) pairs, got {supplied!r}")
+    last = ""
+    for pair in supplied:
+        if type(pair) is not tuple or len(pair) != 2:
+            raise ValueError(f"supplied must hold (field, origin) pairs, got {pair!r}")
+        name, origin = pair
+        if name not in names:
+            raise ValueError(f"supplied names an unknown field {name!r}")
+        if origin not in ORIGINS:
+            raise ValueError(f"supplied origin of {name} must be one of {', '.join(ORIGINS)}, "
+                             f"got {origin!r}")
+        if name <= last:
+            raise ValueError("supplied must be sorted by field name, each field once")
+        last = name
+
+
+def supplied_pairs(value: Any) -> tuple[tuple[str, str], ...]:
+    """``supplied`` from its JSON form (a mapping field → origin), a list of pairs, or None."""
+    if value is None:
+        return ()
+    if isinstance(value, dict):
+        return tuple(sorted((str(k), str(v)) for k, v in value.items()))
+    return tuple(sorted((str(k), str(v)) for k, v in value))
+
+
 def _stable_id(*parts: object) -> str:
     digest = hashlib.blake2b("|".join(str(p) for p in parts).encode(), digest_size=12)
     return digest.hexdigest()
@@ -120,6 +159,8 @@ class _RecordMixin:
                 value = _iso(value)
             elif isinstance(value, StrEnum):
                 value = value.value
+            elif f.name == "supplied":
+                value = dict(value)
             out[f.name] = value
         out["record_id"] = self.record_id  # type: ignore[attr-defined]
         return out
@@ -127,9 +168,10 @@ class _RecordMixin:
     @classmethod
     def from_dict(cls, data: dict[str, Any]) -> Self:
         schema = data.get("schema", SCHEMA_VERSION)
-        if schema != SCHEMA_VERSION:
+        if schema not in READABLE_SCHEMAS:
             raise ValueError(
-                f"unsupported record schema {schema!r} (this build reads {SCHEMA_VERSION})"
+                f"unsupported record schema {schema!r} (this build reads "
+                f"{', '.join(map(str, READABLE_SCHEMAS))})"
             )
         kind = data.get("kind", cls.kind)
         if kind != cls.kind:
@@ -139,12 +181,28 @@ class _RecordMixin:
         for name in cls._time_fields:
             if name in kwargs:
                 kwargs[name] = _parse_time(kwargs[name])
+        if "supplied" in kwargs:
+            kwargs["supplied"] = supplied_pairs(kwargs["supplied"])
         return cls(**kwargs)
+
+    def origin(self, name: str) -> str:
+        """Where a field's value came from: "station", "config" or "profile"."""
+        for field_name, origin in getattr(self, "supplied", ()):
+            if field_name == name:
+                return str(origin)
+        return "station"
 
 
 @dataclass(frozen=True, slots=True)
 class TestResult(_RecordMixin):
-    """One test cycle's outcome as the station judged it."""
+    """One test cycle's outcome as the station judged it.
+
+    A record cannot be without its station, cycle, time and verdict; every measured or
+    configured value may be absent (None, never a made-up zero): many stations send no limits
+    or times, and a gross leak often has no measured rate. ``supplied`` names the values that
+    did not come from the station (the plant's config or a profile constant), ``time_source``
+    says whether ``ended_at`` is the station's clock or the gateway's receive time.
+    """
 
     __test__: ClassVar[bool] = False  # keep pytest from collecting this class
     kind: ClassVar[str] = "result"
@@ -157,13 +215,13 @@ class TestResult(_RecordMixin):
     received_at: datetime
     program: str
     verdict: Verdict
-    test_pressure_pa: float
-    pressure_loss_pa: float
-    leak_rate_sccm: float
-    reject_limit_sccm: float
-    fill_s: float
-    stabilise_s: float
-    test_s: float
+    test_pressure_pa: float | None = None
+    pressure_loss_pa: float | None = None
+    leak_rate_sccm: float | None = None
+    reject_limit_sccm: float | None = None
+    fill_s: float | None = None
+    stabilise_s: float | None = None
+    test_s: float | None = None
     part_id: str | None = None
     reason: str = ""
     lower_limit_sccm: float | None = None
@@ -171,6 +229,9 @@ class TestResult(_RecordMixin):
     calibration_ref: str | None = None
     raw: str = ""
     profile: str = ""
+    part_family: str | None = None
+    time_source: str = "station"
+    supplied: tuple[tuple[str, str], ...] = ()
 
     def __post_init__(self) -> None:
         # Every parsed line builds one of these, so the usual all-valid record is vouched for
@@ -178,6 +239,8 @@ class TestResult(_RecordMixin):
         # vouch for, valid or not, goes through _validate, which owns the rules and the errors.
         e, r, temp, inf = self.ended_at, self.received_at, self.temperature_c, _INF
         lo, hi = self.lower_limit_sccm, self.reject_limit_sccm
+        tp, loss, leak = self.test_pressure_pa, self.pressure_loss_pa, self.leak_rate_sccm
+        fill, stab, test = self.fill_s, self.stabilise_s, self.test_s
         if (
             type(self.station) is str and self.station.strip()
             and type(self.line) is str and self.line.strip()
@@ -187,16 +250,19 @@ class TestResult(_RecordMixin):
             and type(e) is datetime and e.utcoffset() is not None
             and type(r) is datetime and r.utcoffset() is not None
             and type(self.verdict) is Verdict
-            and type(self.test_pressure_pa) is float and -inf < self.test_pressure_pa < inf
-            and type(self.pressure_loss_pa) is float and -inf < self.pressure_loss_pa < inf
-            and type(self.leak_rate_sccm) is float and -inf < self.leak_rate_sccm < inf
-            and type(hi) is float and -inf < hi < inf
-            and (lo is None or (type(lo) is float and -inf < lo < hi))
-            and type(self.fill_s) is float and 0.0 <= self.fill_s < inf
-            and type(self.stabilise_s) is float and 0.0 <= self.stabilise_s < inf
-            and type(self.test_s) is float and 0.0 <= self.test_s < inf
+            and (tp is None or (type(tp) is float and -inf < tp < inf))
+            and (loss is None or (type(loss) is float and -inf < loss < inf))
+            and (leak is None or (type(leak) is float and -inf < leak < inf))
+            and (hi is None or (type(hi) is float and -inf < hi < inf))
+            and (lo is None or (type(lo) is float and -inf < lo < inf
+                                and (hi is None or lo < hi)))
+            and (fill is None or (type(fill) is float and 0.0 <= fill < inf))
+            and (stab is None or (type(stab) is float and 0.0 <= stab < inf))
+            and (test is None or (type(test) is float and 0.0 <= test < inf))
             and (temp is None or (type(temp) is float and -inf < temp < inf))
             and type(self.reason) is str and type(self.raw) is str
+            and self.part_family is None and self.time_source == "station"
+            and self.supplied == ()
         ):  # fmt: skip
             if e.tzinfo is not UTC:
                 object.__setattr__(self, "ended_at", e.astimezone(UTC))
@@ -210,6 +276,7 @@ class TestResult(_RecordMixin):
         _check_text("line", self.line)
         _check_text("program", self.program)
         _check_text("part_id", self.part_id, optional=True)
+        _check_text("part_family", self.part_family, optional=True)
         if isinstance(self.cycle, bool) or not isinstance(self.cycle, int) or self.cycle < 0:
             raise ValueError(f"cycle must be a non-negative integer, got {self.cycle!r}")
         _check_time("ended_at", self.ended_at)
@@ -221,21 +288,23 @@ class TestResult(_RecordMixin):
         except ValueError:
             allowed = ", ".join(v.value for v in Verdict)
             raise ValueError(f"verdict must be one of {allowed}, got {self.verdict!r}") from None
-        _check_number("test_pressure_pa", self.test_pressure_pa)
-        _check_number("pressure_loss_pa", self.pressure_loss_pa)
-        _check_number("leak_rate_sccm", self.leak_rate_sccm)
-        _check_number("reject_limit_sccm", self.reject_limit_sccm)
-        _check_number("lower_limit_sccm", self.lower_limit_sccm, optional=True)
-        if self.lower_limit_sccm is not None and self.lower_limit_sccm >= self.reject_limit_sccm:
+        for name in ("test_pressure_pa", "pressure_loss_pa", "leak_rate_sccm",
+                     "reject_limit_sccm", "lower_limit_sccm", "temperature_c"):
+            _check_number(name, getattr(self, name), optional=True)
+        if (
+            self.lower_limit_sccm is not None
+            and self.reject_limit_sccm is not None
+            and self.lower_limit_sccm >= self.reject_limit_sccm
+        ):
             raise ValueError(
-                f"lower_limit_sccm ({self.lower_limit_sccm}) must be below "
-                f"reject_limit_sccm ({self.reject_limit_sccm})"
+                f"lower limit ({self.lower_limit_sccm:g} sccm) must be below "
+                f"the reject limit ({self.reject_limit_sccm:g} sccm)"
             )
         for name in ("fill_s", "stabilise_s", "test_s"):
-            _check_number(name, getattr(self, name), min_value=0.0)
-        _check_number("temperature_c", self.temperature_c, optional=True)
+            _check_number(name, getattr(self, name), optional=True, min_value=0.0)
         if not isinstance(self.reason, str) or not isinstance(self.raw, str):
             raise ValueError("reason and raw must be strings")
+        _check_provenance(self.time_source, self.supplied, _RESULT_NAMES)
 
     @property
     def record_id(self) -> str:
@@ -247,7 +316,13 @@ class TestResult(_RecordMixin):
 
 @dataclass(frozen=True, slots=True)
 class CalibrationEvent(_RecordMixin):
-    """A master-part calibration: the plain loss is the zero, the standard's loss the span."""
+    """A master-part calibration: the plain loss is the zero, the standard's loss the span.
+
+    Only the two losses are essential. ``ratio`` (standard loss / master loss) is None when
+    the master loss is not above zero (undefined); ``sensitivity`` (sccm per Pa of span) is
+    None without a span or without the standard's flow; ``passed`` is None when the station
+    did not judge the calibration.
+    """
 
     kind: ClassVar[str] = "calibration"
     _time_fields: ClassVar[tuple[str, ...]] = ("ended_at", "received_at")
@@ -259,14 +334,16 @@ class CalibrationEvent(_RecordMixin):
     program: str
     master_loss_pa: float
     standard_loss_pa: float
-    standard_sccm: float
-    standard_ref_pressure_pa: float
-    ratio: float
-    sensitivity: float
-    passed: bool
+    standard_sccm: float | None = None
+    standard_ref_pressure_pa: float | None = None
+    ratio: float | None = None
+    sensitivity: float | None = None
+    passed: bool | None = None
     reason: str = ""
     raw: str = ""
     profile: str = ""
+    time_source: str = "station"
+    supplied: tuple[tuple[str, str], ...] = ()
 
     def __post_init__(self) -> None:
         _check_text("station", self.station)
@@ -276,14 +353,18 @@ class CalibrationEvent(_RecordMixin):
         _check_time("received_at", self.received_at)
         object.__setattr__(self, "ended_at", _to_utc(self.ended_at))
         object.__setattr__(self, "received_at", _to_utc(self.received_at))
-        for name in ("master_loss_pa", "standard_loss_pa", "ratio", "sensitivity"):
+        for name in ("master_loss_pa", "standard_loss_pa"):
             _check_number(name, getattr(self, name))
-        _check_number("standard_sccm", self.standard_sccm, min_value=0.0)
+        for name in ("ratio", "sensitivity", "standard_ref_pressure_pa"):
+            _check_number(name, getattr(self, name), optional=True)
+        _check_number("standard_sccm", self.standard_sccm, optional=True, min_value=0.0)
         if self.standard_sccm == 0:
-            raise ValueError("standard_sccm must be > 0 (a leak standard has a flow)")
-        _check_number("standard_ref_pressure_pa", self.standard_ref_pressure_pa)
-        if not isinstance(self.passed, bool):
-            raise ValueError(f"passed must be true or false, got {self.passed!r}")
+            raise ValueError("the leak standard's flow must be above 0 sccm")
+        if self.passed is not None and not isinstance(self.passed, bool):
+            raise ValueError(f"passed must be true, false or absent, got {self.passed!r}")
+        if not isinstance(self.reason, str) or not isinstance(self.raw, str):
+            raise ValueError("reason and raw must be strings")
+        _check_provenance(self.time_source, self.supplied, _CAL_NAMES)
 
     @property
     def record_id(self) -> str:
@@ -318,6 +399,16 @@ class StationStatus(_RecordMixin):
 
 
 Record = TestResult | CalibrationEvent | StationStatus
+
+#: the fields ``supplied`` may name (everything a station may leave out)
+_RESULT_NAMES = frozenset(f.name for f in fields(TestResult)) - {
+    "station", "line", "cycle", "ended_at", "received_at", "verdict", "raw", "profile",
+    "time_source", "supplied", "calibration_ref",
+}
+_CAL_NAMES = frozenset(f.name for f in fields(CalibrationEvent)) - {
+    "station", "line", "ended_at", "received_at", "raw", "profile", "time_source", "supplied",
+    "master_loss_pa", "standard_loss_pa",
+}
 
 _KINDS: dict[str, type[TestResult] | type[CalibrationEvent] | type[StationStatus]] = {
     "result": TestResult,

@@ -380,7 +380,9 @@ def build_targets(config: GatewayConfig, resume: Mapping[str, int]) -> list[Stat
     targets = []
     for st in config.stations:
         ctx = StationContext(
-            station=st.id, line=st.line, timezone=st.timezone, programs=dict(st.programs)
+            station=st.id, line=st.line, timezone=st.timezone, programs=dict(st.programs),
+            # the plant's parameters for values the station does not send
+            program_params=dict(getattr(st, "program_params", None) or {}),
         )
         targets.append(
             StationTarget(

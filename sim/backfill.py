@@ -171,10 +171,12 @@ class _StationStream:
                 leak_true = true_list[j]
             lim = p.reject_limit_sccm
             pressure = p.test_pressure_pa
-            if abort[j]:
-                verdict, loss, leak, reason = "aborted", 0.0, 0.0, "cycle stopped by operator"
+            loss: float | None
+            leak: float | None
+            if abort[j]:  # nothing was measured: no loss, no leak rate (absent, not zero)
+                verdict, loss, leak, reason = "aborted", None, None, "cycle stopped by operator"
             elif leak_true > 100.0:
-                verdict, loss, leak, reason = "gross", 0.0, 0.0, "test pressure not reached"
+                verdict, loss, leak, reason = "gross", None, None, "test pressure not reached"
                 pressure = round(pressure * short[j], 1)
             else:
                 leak = round(measured[j] + (leak_true - true_list[j]), 3)
@@ -190,14 +192,15 @@ class _StationStream:
             self.prev_leak = leak_true
             part = p.part_id.format(s=st.name[-1], n=self.part_no) if p.part_id else None
             iso = isos[j]
+            shown = "" if loss is None else f"{loss:.1f};{leak:.3f}"
             raw = (f"R;{cyc};{iso[:10]} {iso[11:]};{p.name};{part or ''};{verdict};"
-                   f"{pressure / 1000:.2f};{loss:.1f};{leak:.3f};{lim:.3f}")
+                   f"{pressure / 1000:.2f};{shown or ';'};{lim:.3f}")
             results.append((
                 _blake(f"result|{st.name}|{cyc}|{iso}+00:00".encode(), digest_size=12).hexdigest(),
                 st.name, st.line, cyc, end,
                 recv_us[j], p.name, verdict, pressure, loss, leak, lim,
                 p.fill_s, p.stabilise_s, p.test_s, part, reason, p.lower_limit_sccm,
-                temperature[j], None, raw, self.profile,
+                temperature[j], None, raw, self.profile, None, "station", None,
             ))  # fmt: skip
         return results, cals
 
@@ -216,6 +219,7 @@ class _StationStream:
             self.st.line, end, end + 200_000, p.name, master, standard, p.standard.flow_sccm,
             p.standard.reference_pressure_pa, round(ratio, 4), sens, int(passed),
             "" if passed else f"ratio {ratio:.2f} below {p.ratio_min:g}", "", self.profile,
+            "station", None,
         )  # fmt: skip
 
 

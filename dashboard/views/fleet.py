@@ -39,7 +39,7 @@ def _alarms(p: Page, station: str, state: str, last_cal: pd.Series | None) -> li
     out = []
     if state in ("fault", "offline"):
         out.append(f"station {state}")
-    if last_cal is not None and not bool(last_cal["passed"]):
+    if last_cal is not None and pd.notna(last_cal["passed"]) and not bool(last_cal["passed"]):
         out.append("last calibration failed")
     series = data.calibration_series(p.url, station, None, p.now - timedelta(days=7), None)
     if len(series) >= 5:

@@ -104,11 +104,16 @@ _CONTROL = re.compile("[\x00-\x08\x0a-\x1f\x7f]")  # control characters except t
 _CONTEXT_FIELDS = ("station", "line", "received_at", "raw", "profile")
 
 
+#: the defaults a positional TestResult call can take from the constants tuple, by position
+_CONSTANTS: tuple[Any, ...] = (None, "", "station", ())
+_FIRST_VALUE = len(_CONTEXT_FIELDS) + len(_CONSTANTS)
+
+
 def _result_picker(fields: Sequence[FieldSpec]) -> Callable[[tuple[Any, ...]], Any] | None:
-    """Where each TestResult argument sits in (context values, None, "", converted values...),
+    """Where each TestResult argument sits in (context values, constants, converted values...),
     or None when a positional call could differ from make_record's keyword one: a required
     field not mapped, or a mapped field whose "no value" (None) is not its default."""
-    at = {f.canonical: 7 + i for i, f in enumerate(fields)}
+    at = {f.canonical: _FIRST_VALUE + i for i, f in enumerate(fields)}
     empty_ok = {f.canonical: f.empty_none for f in fields}
     order: list[int] = []
     for i, dfield in enumerate(dataclasses.fields(TestResult)):
@@ -123,9 +128,11 @@ def _result_picker(fields: Sequence[FieldSpec]) -> Callable[[tuple[Any, ...]], A
         elif default is dataclasses.MISSING:
             return None
         else:
-            order.append(5 if default is None else 6)
-            if default not in (None, ""):
+            found = [k for k, c in enumerate(_CONSTANTS) if type(c) is type(default)
+                     and c == default]
+            if not found:
                 return None
+            order.append(len(_CONTEXT_FIELDS) + found[0])
         if i == 6 and dfield.name != "verdict":
             return None
     return operator.itemgetter(*order)
@@ -176,9 +183,9 @@ class _Plan:
     def record(self, values: list[Any], ctx: StationContext, label: str, raw: str,
                received_at: datetime, line_no: int | None) -> Parsed:
         """make_record of these values; a result by position when that is the same call."""
-        if self.pick is not None:
-            args = self.pick((ctx.station, ctx.line, received_at, clip_raw(raw), label, None, "",
-                              *values))
+        if self.pick is not None and not ctx.program_params:
+            args = self.pick((ctx.station, ctx.line, received_at, clip_raw(raw), label,
+                              *_CONSTANTS, *values))
             if type(args[6]) is Verdict:
                 try:
                     return TestResult(*args)

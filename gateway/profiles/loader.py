@@ -272,7 +272,9 @@ def _field(
                raw.get("scale", raw.get("offset")))
     scale = r.number(raw, "scale", path, 1.0)
     offset = r.number(raw, "offset", path, 0.0)
-    empty = r.string(raw, "empty", path, "none" if not required else "error",
+    # a station's clock that sends nothing is a fault, not "no clock" (that is: no mapping)
+    strict = required or canonical == "ended_at"
+    empty = r.string(raw, "empty", path, "none" if not strict else "error",
                      ("none", "error"))
     if required and empty == "none":
         r.fail(f"{path}.empty", f'"error": {canonical} is required and cannot be empty', empty)

@@ -12,6 +12,7 @@ from dataclasses import dataclass, field
 from datetime import datetime
 from typing import TYPE_CHECKING, Literal
 
+from gateway.programs import ProgramParams
 from gateway.records import CalibrationEvent, Rejected, StationState, TestResult
 
 if TYPE_CHECKING:
@@ -44,46 +45,61 @@ ValueKind = Literal[
 ]
 
 # canonical field → (value kind, required). Modbus results take ``cycle`` from the head guard.
+# A station that leaves a field out leaves it absent in the record (the plant's config may
+# supply limits and times per program, see gateway.programs); only what a record cannot be
+# without is required.
+# ``ended_at`` unmapped: the station has no clock, the record takes the gateway's receive time
+# and says so (``time_source = "gateway"``); mapped, an empty value is an error.
 RESULT_FIELDS: dict[str, tuple[ValueKind, bool]] = {
     "cycle": ("int", True),
-    "ended_at": ("timestamp", True),
-    "program": ("program", True),
+    "ended_at": ("timestamp", False),
+    "program": ("program", False),
     "verdict": ("verdict", True),
-    "test_pressure_pa": ("pressure", True),
-    "pressure_loss_pa": ("pressure", True),
-    "leak_rate_sccm": ("leak", True),
-    "reject_limit_sccm": ("leak", True),
+    "test_pressure_pa": ("pressure", False),
+    "pressure_loss_pa": ("pressure", False),
+    "leak_rate_sccm": ("leak", False),
+    "reject_limit_sccm": ("leak", False),
     "lower_limit_sccm": ("leak", False),
-    "fill_s": ("time", True),
-    "stabilise_s": ("time", True),
-    "test_s": ("time", True),
+    "fill_s": ("time", False),
+    "stabilise_s": ("time", False),
+    "test_s": ("time", False),
     "part_id": ("text", False),
+    "part_family": ("text", False),
     "temperature_c": ("temperature", False),
     "reason": ("text", False),
 }
 # ratio and sensitivity are derived from the losses when the station does not send them.
 CAL_FIELDS: dict[str, tuple[ValueKind, bool]] = {
-    "ended_at": ("timestamp", True),
-    "program": ("program", True),
+    "ended_at": ("timestamp", False),
+    "program": ("program", False),
     "master_loss_pa": ("pressure", True),
     "standard_loss_pa": ("pressure", True),
-    "standard_sccm": ("leak", True),
-    "standard_ref_pressure_pa": ("pressure", True),
+    "standard_sccm": ("leak", False),
+    "standard_ref_pressure_pa": ("pressure", False),
     "ratio": ("number", False),
     "sensitivity": ("number", False),
-    "passed": ("bool", True),
+    "passed": ("bool", False),
     "reason": ("text", False),
 }
+#: the program of a record whose station names none (and the config gives no other)
+DEFAULT_PROGRAM = "default"
 
 
 @dataclass(frozen=True)
 class StationContext:
-    """Per-station facts the profile cannot know; built by the runtime from its config."""
+    """Per-station facts the profile cannot know; built by the runtime from its config.
+
+    ``program_params`` holds the plant's parameters per program name (``"*"``: the station's
+    defaults) for values the station does not send; ``default_program`` names the program of
+    a station that sends none.
+    """
 
     station: str
     line: str
     timezone: str = "UTC"
     programs: Mapping[int, str] = field(default_factory=dict)
+    program_params: Mapping[str, ProgramParams] = field(default_factory=dict)
+    default_program: str = DEFAULT_PROGRAM
 
 
 @dataclass(frozen=True, slots=True)

@@ -17,6 +17,7 @@ from gateway.calibration import Calibration
 from gateway.errors import DecodeError, UnitError
 from gateway.profiles.model import FieldSpec, Parsed, StationContext
 from gateway.profiles.registers import decode_registers, registers_hex
+from gateway.programs import complete
 from gateway.records import CalibrationEvent, Rejected, TestResult, Verdict
 from gateway.units import same_value, to_canonical, to_canonical_fn
 
@@ -441,35 +442,25 @@ def convert_register(
 def _derive_calibration(values: dict[str, Any]) -> None:
     """Fill ratio and sensitivity from the losses when the station did not send them.
 
-    A failed calibration can have standard_loss <= master_loss; then there is no span, the
-    sensitivity is recorded as 0, the event is marked not passed and the reason says why.
+    The ratio (standard loss / master loss) is undefined when the master loss is not above
+    zero: it stays absent. The sensitivity needs a span (standard loss above master loss) and
+    the standard's flow. A calibration without a span is marked failed, with the reason, also
+    when the station itself reported it passed: it cannot convert a loss into a leak rate.
     """
-    master, standard, flow = (values["master_loss_pa"], values["standard_loss_pa"],
-                              values["standard_sccm"])
+    master, standard = values["master_loss_pa"], values["standard_loss_pa"]
+    flow = values.get("standard_sccm")
     notes = []
-    try:
-        cal = Calibration(master, standard, flow)
-    except ValueError:
-        cal = None
-    if values.get("ratio") is None:
-        if master > 0:
-            values["ratio"] = standard / master
-        else:
-            values["ratio"] = 0.0
-            notes.append(f"ratio undefined (master loss {master:g} Pa), recorded as 0")
-    if values.get("sensitivity") is None:
-        if cal is not None:
-            values["sensitivity"] = cal.sensitivity
-        else:
-            values["sensitivity"] = 0.0
-            notes.append(
-                f"no span: standard loss {standard:g} Pa <= master loss {master:g} Pa, "
-                "sensitivity recorded as 0"
-            )
-    if cal is None:
+    if values.get("ratio") is None and master > 0:
+        values["ratio"] = standard / master
+    if standard <= master:
+        notes.append(f"no span: standard loss {standard:g} Pa is not above the master loss "
+                     f"{master:g} Pa")
         if values.get("passed"):
             notes.append("station reported passed; marked failed")
         values["passed"] = False
+        values.pop("sensitivity", None)
+    elif values.get("sensitivity") is None and flow is not None:
+        values["sensitivity"] = Calibration(master, standard, flow).sensitivity
     if notes:
         reason = values.get("reason") or ""
         values["reason"] = "; ".join([reason, *notes] if reason else notes)
@@ -506,6 +497,16 @@ def make_record(
         "raw": clip_raw(raw),
         "profile": label,
     }
+    if "program" not in present:
+        present["program"] = ctx.default_program
+    if "ended_at" not in present:  # a station without a clock: the gateway's receive time
+        present["ended_at"] = received_at
+        present["time_source"] = "gateway"
+    if ctx.program_params:
+        supplied: dict[str, str] = dict(present.get("supplied", ()))
+        complete(record, present, ctx.program_params, supplied)
+        if supplied:
+            present["supplied"] = tuple(sorted(supplied.items()))
     try:
         if record == "result":
             verdict = present["verdict"]

@@ -21,6 +21,7 @@ after it; a trailing backslash is dropped).
 
 from __future__ import annotations
 
+import json
 from collections.abc import Iterable, Mapping
 from datetime import UTC, datetime, timedelta
 
@@ -112,6 +113,11 @@ def _f(value: float | None) -> float | None:
     return None if value is None else float(value)
 
 
+def _supplied(pairs: tuple[tuple[str, str], ...]) -> str | None:
+    """The journal's JSON text of the values not sent by the station (omitted when none)."""
+    return json.dumps(dict(pairs), separators=(",", ":")) if pairs else None
+
+
 def record_line(
     record: Record, *, site: str, line: str | None = None, seq: int | None = None
 ) -> str:
@@ -141,6 +147,9 @@ def record_line(
             "reason": record.reason,
             "profile": record.profile,
             "raw": record.raw,
+            "part_family": record.part_family,
+            "time_source": record.time_source,
+            "supplied": _supplied(record.supplied),
         }
         at = record.ended_at
     elif isinstance(record, CalibrationEvent):
@@ -161,6 +170,8 @@ def record_line(
             "reason": record.reason,
             "profile": record.profile,
             "raw": record.raw,
+            "time_source": record.time_source,
+            "supplied": _supplied(record.supplied),
         }
         at = record.ended_at
     elif isinstance(record, StationStatus):

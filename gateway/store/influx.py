@@ -197,14 +197,14 @@ class InfluxStore:
         rows = []
         for rec in frame.to_dict("records"):
             rows.append(tuple(
-                conv(rec[c]) if ok else None
+                conv(rec[c] if ok else None)
                 for c, conv, ok in zip(columns, converters, present, strict=True)))
         out = pd.DataFrame.from_records(rows, columns=list(columns))
         for col in (time_col, "received_at"):
             if col in out.columns:
                 out[col] = pd.to_datetime(out[col].astype("int64"), unit="us", utc=True)
-        if "passed" in out.columns:
-            out["passed"] = out["passed"].astype(bool)
+        if "passed" in out.columns:  # nullable: a station may not judge its calibration
+            out["passed"] = out["passed"].astype("boolean")
         return out
 
     def _rows(
@@ -579,6 +579,8 @@ def _converter(column: str, time_col: str) -> Any:
         return lambda v: None if missing(v) else int(v)
     if column in _FLOAT_COLUMNS:
         return lambda v: None if missing(v) else float(v)
+    if column == "time_source":  # points written before records named their clock
+        return lambda v: "station" if missing(v) else v
     return lambda v: None if missing(v) else v
 
 
@@ -590,7 +592,7 @@ def _empty_dtype(column: str) -> Any:
     if column in _FLOAT_COLUMNS:
         return float
     if column == "passed":
-        return bool
+        return "boolean"
     return object
 
 

@@ -20,6 +20,7 @@ lock serialises calls. Forwarders may share the same object.
 from __future__ import annotations
 
 import hashlib
+import json
 import sqlite3
 import threading
 from collections.abc import Callable, Iterable, Sequence
@@ -37,6 +38,7 @@ from gateway.records import (
     StationStatus,
     TestResult,
     Verdict,
+    supplied_pairs,
 )
 from gateway.store._sqlite import from_us, sqlite_path, store_error, to_us
 from gateway.store.schema import (
@@ -85,12 +87,21 @@ def quarantine_id(item: Rejected) -> str:
 
 # Row builders: one attribute fetch per column, in column order, nothing else. Enum members
 # are StrEnums, which sqlite3 binds as their text without a ``.value`` lookup.
+def _supplied_text(pairs: tuple[tuple[str, str], ...]) -> str | None:
+    return json.dumps(dict(pairs), separators=(",", ":")) if pairs else None
+
+
+def _supplied_from(text: str | None) -> tuple[tuple[str, str], ...]:
+    return supplied_pairs(json.loads(text)) if text else ()
+
+
 def _result_row(r: TestResult) -> tuple[Any, ...]:
     return (
         r.record_id, r.station, r.line, r.cycle, to_us(r.ended_at), to_us(r.received_at),
         r.program, r.verdict, r.test_pressure_pa, r.pressure_loss_pa, r.leak_rate_sccm,
         r.reject_limit_sccm, r.fill_s, r.stabilise_s, r.test_s, r.part_id, r.reason,
         r.lower_limit_sccm, r.temperature_c, r.calibration_ref, r.raw, r.profile,
+        r.part_family, r.time_source, _supplied_text(r.supplied) if r.supplied else None,
     )  # fmt: skip
 
 
@@ -98,7 +109,8 @@ def _calibration_row(c: CalibrationEvent) -> tuple[Any, ...]:
     return (
         c.record_id, c.station, c.line, to_us(c.ended_at), to_us(c.received_at), c.program,
         c.master_loss_pa, c.standard_loss_pa, c.standard_sccm, c.standard_ref_pressure_pa,
-        c.ratio, c.sensitivity, int(c.passed), c.reason, c.raw, c.profile,
+        c.ratio, c.sensitivity, None if c.passed is None else int(c.passed), c.reason, c.raw,
+        c.profile, c.time_source, _supplied_text(c.supplied),
     )  # fmt: skip
 
 
@@ -135,19 +147,21 @@ _MAX_RESULT_SEQ = "SELECT MAX(seq) FROM results"
 # Record rebuilders for read_after (rows come back in the SELECT column order below).
 def _result_from(row: tuple[Any, ...]) -> TestResult:
     (st, ln, cy, end, rec, prog, verdict, tp, loss, leak, rl, fill, stab, test, part, reason,
-     lower, temp, cal, raw, prof) = row  # fmt: skip
+     lower, temp, cal, raw, prof, family, time_source, supplied) = row  # fmt: skip
     return TestResult(
         st, ln, cy, from_us(end), from_us(rec), prog, Verdict(verdict), tp, loss, leak, rl,
-        fill, stab, test, part, reason, lower, temp, cal, raw, prof,
+        fill, stab, test, part, reason, lower, temp, cal, raw, prof, family, time_source,
+        _supplied_from(supplied),
     )  # fmt: skip
 
 
 def _calibration_from(row: tuple[Any, ...]) -> CalibrationEvent:
     (st, ln, end, rec, prog, master, std_loss, std_sccm, ref_p, ratio, sens, passed, reason,
-     raw, prof) = row  # fmt: skip
+     raw, prof, time_source, supplied) = row  # fmt: skip
     return CalibrationEvent(
         st, ln, from_us(end), from_us(rec), prog, master, std_loss, std_sccm, ref_p, ratio,
-        sens, bool(passed), reason, raw, prof,
+        sens, None if passed is None else bool(passed), reason, raw, prof, time_source,
+        _supplied_from(supplied),
     )  # fmt: skip
 
 
@@ -441,8 +455,8 @@ class Journal:
         conn.execute(
             f"""INSERT INTO result_hours
             SELECT p.hour, r.station, r.line, r.program, r.verdict, COUNT(*),
-                   SUM(r.part_id IS NULL), SUM(r.leak_rate_sccm),
-                   SUM(r.leak_rate_sccm * r.leak_rate_sccm), MIN(r.leak_rate_sccm),
+                   SUM(r.part_id IS NULL), COUNT(r.leak_rate_sccm), TOTAL(r.leak_rate_sccm),
+                   TOTAL(r.leak_rate_sccm * r.leak_rate_sccm), MIN(r.leak_rate_sccm),
                    MAX(r.leak_rate_sccm)
             FROM prune_hours p JOIN results r
               ON r.ended_at >= p.hour AND r.ended_at < p.hour + {h}

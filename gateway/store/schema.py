@@ -35,12 +35,13 @@ RESULT_COLUMNS: tuple[str, ...] = (
     "station", "line", "cycle", "ended_at", "received_at", "program", "verdict",
     "test_pressure_pa", "pressure_loss_pa", "leak_rate_sccm", "reject_limit_sccm",
     "fill_s", "stabilise_s", "test_s", "part_id", "reason", "lower_limit_sccm",
-    "temperature_c", "calibration_ref", "raw", "profile",
+    "temperature_c", "calibration_ref", "raw", "profile", "part_family", "time_source",
+    "supplied",
 )  # fmt: skip
 CALIBRATION_COLUMNS: tuple[str, ...] = (
     "station", "line", "ended_at", "received_at", "program", "master_loss_pa",
     "standard_loss_pa", "standard_sccm", "standard_ref_pressure_pa", "ratio", "sensitivity",
-    "passed", "reason", "raw", "profile",
+    "passed", "reason", "raw", "profile", "time_source", "supplied",
 )  # fmt: skip
 STATUS_COLUMNS: tuple[str, ...] = ("station", "at", "state", "detail")
 QUARANTINE_COLUMNS: tuple[str, ...] = (
@@ -312,11 +313,127 @@ _V4: tuple[str, ...] = (
     FROM parts GROUP BY 1, 2, 3, 4""",
 )
 
+# v5: stations that do not send a value leave it absent (NULL), never a made-up zero: limits,
+# times, test pressure, and leak rate / loss of gross or aborted tests; a calibration's
+# standard flow, reference pressure, ratio (undefined when the master loss is <= 0),
+# sensitivity and verdict. Records also say where their time came from (``time_source``) and
+# which values the plant's config or the profile supplied (``supplied``, JSON, NULL if none),
+# and may carry a part family. SQLite cannot drop NOT NULL in place, so results, calibrations
+# and result_hours are rebuilt; the AUTOINCREMENT high-water marks are carried over, since the
+# sinks' cursors count on seq never being reused. result_hours counts leak statistics over the
+# tests that have a leak rate (``leak_n``), its min/max are NULL for an hour with none.
+_V5_RESULTS = """CREATE TABLE results_v5 (
+        seq INTEGER PRIMARY KEY AUTOINCREMENT,
+        record_id TEXT NOT NULL UNIQUE,
+        station TEXT NOT NULL,
+        line TEXT NOT NULL,
+        cycle INTEGER NOT NULL,
+        ended_at INTEGER NOT NULL,
+        received_at INTEGER NOT NULL,
+        program TEXT NOT NULL,
+        verdict TEXT NOT NULL,
+        test_pressure_pa REAL,
+        pressure_loss_pa REAL,
+        leak_rate_sccm REAL,
+        reject_limit_sccm REAL,
+        fill_s REAL,
+        stabilise_s REAL,
+        test_s REAL,
+        part_id TEXT,
+        reason TEXT NOT NULL DEFAULT '',
+        lower_limit_sccm REAL,
+        temperature_c REAL,
+        calibration_ref TEXT,
+        raw TEXT NOT NULL DEFAULT '',
+        profile TEXT NOT NULL DEFAULT '',
+        part_family TEXT,
+        time_source TEXT NOT NULL DEFAULT 'station',
+        supplied TEXT,
+        UNIQUE (station, cycle, ended_at)
+    )"""
+_V5_CALIBRATIONS = """CREATE TABLE calibrations_v5 (
+        seq INTEGER PRIMARY KEY AUTOINCREMENT,
+        record_id TEXT NOT NULL UNIQUE,
+        station TEXT NOT NULL,
+        line TEXT NOT NULL,
+        ended_at INTEGER NOT NULL,
+        received_at INTEGER NOT NULL,
+        program TEXT NOT NULL,
+        master_loss_pa REAL NOT NULL,
+        standard_loss_pa REAL NOT NULL,
+        standard_sccm REAL,
+        standard_ref_pressure_pa REAL,
+        ratio REAL,
+        sensitivity REAL,
+        passed INTEGER,
+        reason TEXT NOT NULL DEFAULT '',
+        raw TEXT NOT NULL DEFAULT '',
+        profile TEXT NOT NULL DEFAULT '',
+        time_source TEXT NOT NULL DEFAULT 'station',
+        supplied TEXT,
+        UNIQUE (station, program, ended_at)
+    )"""
+# the v4 columns, spelt out: a migration is history and must not follow later column lists
+_V4_RESULT_COLUMNS = (
+    "station, line, cycle, ended_at, received_at, program, verdict, test_pressure_pa, "
+    "pressure_loss_pa, leak_rate_sccm, reject_limit_sccm, fill_s, stabilise_s, test_s, part_id, "
+    "reason, lower_limit_sccm, temperature_c, calibration_ref, raw, profile"
+)
+_V4_CAL_COLUMNS = (
+    "station, line, ended_at, received_at, program, master_loss_pa, standard_loss_pa, "
+    "standard_sccm, standard_ref_pressure_pa, ratio, sensitivity, passed, reason, raw, profile"
+)
+_V5: tuple[str, ...] = (
+    "CREATE TABLE v5_seq AS SELECT name, seq FROM sqlite_sequence "
+    "WHERE name IN ('results', 'calibrations')",
+    _V5_RESULTS,
+    f"INSERT INTO results_v5 (seq, record_id, {_V4_RESULT_COLUMNS}) "
+    f"SELECT seq, record_id, {_V4_RESULT_COLUMNS} FROM results",
+    "DROP TABLE results",
+    "ALTER TABLE results_v5 RENAME TO results",
+    _V5_CALIBRATIONS,
+    f"INSERT INTO calibrations_v5 (seq, record_id, {_V4_CAL_COLUMNS}) "
+    f"SELECT seq, record_id, {_V4_CAL_COLUMNS} FROM calibrations",
+    "DROP TABLE calibrations",
+    "ALTER TABLE calibrations_v5 RENAME TO calibrations",
+    "DELETE FROM sqlite_sequence WHERE name IN ('results', 'calibrations')",
+    "INSERT INTO sqlite_sequence (name, seq) SELECT name, seq FROM v5_seq",
+    "DROP TABLE v5_seq",
+    "CREATE INDEX ix_results_station_time ON results "
+    "(station, ended_at, program, verdict, leak_rate_sccm)",
+    "CREATE INDEX ix_results_program_time ON results (program, ended_at)",
+    "CREATE INDEX ix_results_time ON results "
+    "(ended_at, station, line, program, verdict, leak_rate_sccm)",
+    "CREATE INDEX ix_results_part ON results (part_id, ended_at) WHERE part_id IS NOT NULL",
+    "CREATE INDEX ix_calibrations_station_time ON calibrations (station, program, ended_at)",
+    "CREATE INDEX ix_calibrations_time ON calibrations (ended_at)",
+    """CREATE TABLE result_hours_v5 (
+        hour INTEGER NOT NULL,
+        station TEXT NOT NULL,
+        line TEXT NOT NULL,
+        program TEXT NOT NULL,
+        verdict TEXT NOT NULL,
+        n INTEGER NOT NULL,
+        no_part INTEGER NOT NULL,
+        leak_n INTEGER NOT NULL,
+        leak_sum REAL NOT NULL,
+        leak_sumsq REAL NOT NULL,
+        leak_min REAL,
+        leak_max REAL,
+        PRIMARY KEY (hour, station, line, program, verdict)
+    ) WITHOUT ROWID""",
+    "INSERT INTO result_hours_v5 SELECT hour, station, line, program, verdict, n, no_part, n, "
+    "leak_sum, leak_sumsq, leak_min, leak_max FROM result_hours",
+    "DROP TABLE result_hours",
+    "ALTER TABLE result_hours_v5 RENAME TO result_hours",
+)
+
 MIGRATIONS: tuple[Migration, ...] = (
     Migration(1, _V1, "initial schema"),
     Migration(2, _V2, "summaries folded in per batch, not by per-row triggers"),
     Migration(3, _V3, "tests per hour by reject reason"),
     Migration(4, _V4, "aborted tests leave the part summaries"),
+    Migration(5, _V5, "absent values stay absent; time source, supplied values, part family"),
 )
 SCHEMA_VERSION = MIGRATIONS[-1].version
 

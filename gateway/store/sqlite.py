@@ -236,8 +236,8 @@ class SqliteStore:
         for col in _TIME_COLUMNS:
             if col in frame.columns:
                 frame[col] = pd.to_datetime(frame[col].astype("int64"), unit="us", utc=True)
-        if "passed" in frame.columns:
-            frame["passed"] = frame["passed"].astype(bool)
+        if "passed" in frame.columns:  # nullable: a station may not judge its calibration
+            frame["passed"] = frame["passed"].astype("boolean")
         return frame
 
     def _rows(
@@ -525,8 +525,9 @@ class SqliteStore:
         params = dict(where.params)
         params.update({f"e{i}": x for i, x in enumerate(e)})
         sql = (
-            f"SELECT {_bin_expr(value, len(e))} AS b, COUNT(*) FROM results{where.sql()} GROUP BY b"
-        )
+            f"SELECT {_bin_expr(value, len(e))} AS b, COUNT(*) FROM results{where.sql()}"
+            f"{' AND' if where.parts else ' WHERE'} {value} IS NOT NULL GROUP BY b"
+        )  # a test without the value (a gross leak with no rate) is in no bin
         with self._lock:
             try:
                 rows = self._conn.execute(sql, params).fetchall()
@@ -553,17 +554,18 @@ class SqliteStore:
     ) -> pd.DataFrame:
         names = _names(by, bucket)
         filters = _Where().eq("station", station).eq("line", line).eq("program", program)
-        # an aborted test measured nothing: its reading would only distort the statistics
+        # an aborted test measured nothing: its reading would only distort the statistics;
+        # n counts the tests that have a leak rate (a gross leak often has none)
         not_aborted = " AND verdict <> 'aborted'"
         rows = self._aggregate(
             names, bucket,
             [("results", "ended_at",
-              "COUNT(*) AS n, SUM(leak_rate_sccm) AS s1, "
-              "SUM(leak_rate_sccm * leak_rate_sccm) AS s2, MIN(leak_rate_sccm) AS lo, "
+              "COUNT(leak_rate_sccm) AS n, TOTAL(leak_rate_sccm) AS s1, "
+              "TOTAL(leak_rate_sccm * leak_rate_sccm) AS s2, MIN(leak_rate_sccm) AS lo, "
               "MAX(leak_rate_sccm) AS hi", not_aborted),
              ("result_hours", "hour",
-              "SUM(n) AS n, SUM(leak_sum) AS s1, SUM(leak_sumsq) AS s2, MIN(leak_min) AS lo, "
-              "MAX(leak_max) AS hi", not_aborted)],
+              "SUM(leak_n) AS n, TOTAL(leak_sum) AS s1, TOTAL(leak_sumsq) AS s2, "
+              "MIN(leak_min) AS lo, MAX(leak_max) AS hi", not_aborted)],
             "SUM(n), SUM(s1), SUM(s2), MIN(lo), MAX(hi)", filters, since, until,
         )  # fmt: skip
         raw = self._frame(rows, [*names, "n", "s1", "s2", "min", "max"])

@@ -1,6 +1,7 @@
 """Hourly summaries of the results, folded in once per written batch.
 
-``result_hours`` (tests per station-hour and verdict, with leak-rate sums), ``reason_hours``
+``result_hours`` (tests per station-hour and verdict, with leak-rate sums over the tests that
+have a leak rate, ``leak_n`` of them), ``reason_hours``
 (tests per station-hour, verdict and reject reason), ``parts`` (each
 part's first and last test) and ``part_hours`` (parts per hour of their first test) let the
 dashboard's yield and summary queries read a few rows per station-hour instead of every result:
@@ -33,17 +34,21 @@ _H = HOUR_US
 
 # NOT INDEXED keeps the planner on the seq (rowid) range of the new rows: left free, it
 # prefers the partial part_id index and reads every stored result with a part id.
+# scalar MIN/MAX are NULL when either side is: an hour of gross tests has no leak min/max
 _FOLD_HOURS = f"""INSERT INTO result_hours
     SELECT (ended_at / {_H}) * {_H}, station, line, program, verdict, COUNT(*),
-           SUM(part_id IS NULL), SUM(leak_rate_sccm), SUM(leak_rate_sccm * leak_rate_sccm),
-           MIN(leak_rate_sccm), MAX(leak_rate_sccm)
+           SUM(part_id IS NULL), COUNT(leak_rate_sccm), TOTAL(leak_rate_sccm),
+           TOTAL(leak_rate_sccm * leak_rate_sccm), MIN(leak_rate_sccm), MAX(leak_rate_sccm)
     FROM results NOT INDEXED WHERE seq > ? GROUP BY 1, 2, 3, 4, 5
     ON CONFLICT DO UPDATE SET
         n = n + excluded.n, no_part = no_part + excluded.no_part,
+        leak_n = leak_n + excluded.leak_n,
         leak_sum = leak_sum + excluded.leak_sum,
         leak_sumsq = leak_sumsq + excluded.leak_sumsq,
-        leak_min = MIN(leak_min, excluded.leak_min),
-        leak_max = MAX(leak_max, excluded.leak_max)"""
+        leak_min = MIN(COALESCE(leak_min, excluded.leak_min),
+                       COALESCE(excluded.leak_min, leak_min)),
+        leak_max = MAX(COALESCE(leak_max, excluded.leak_max),
+                       COALESCE(excluded.leak_max, leak_max))"""
 
 _FOLD_REASONS = f"""INSERT INTO reason_hours
     SELECT (ended_at / {_H}) * {_H}, station, line, program, verdict, reason, COUNT(*)

@@ -24,6 +24,15 @@ def demo_journal(tmp_path_factory: pytest.TempPathFactory) -> Path:
 
 
 @pytest.fixture(scope="session")
+def sparse_journal(tmp_path_factory: pytest.TempPathFactory) -> Path:
+    """The demo plant where line L2's stations send no limits, times, clock or calibration
+    verdicts, and no gross or aborted test has a loss or a leak rate."""
+    path = tmp_path_factory.mktemp("sparse") / "journal.db"
+    fill_demo(path, hours=4.0, sparse=True)
+    return path
+
+
+@pytest.fixture(scope="session")
 def lone_journal(tmp_path_factory: pytest.TempPathFactory) -> Path:
     """One station that has never calibrated."""
     path = tmp_path_factory.mktemp("lone") / "journal.db"

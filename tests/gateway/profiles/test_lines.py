@@ -82,7 +82,7 @@ def test_failing_calibration_without_span_is_kept_and_explained(ctx: StationCont
     c = _one(parser.parse(["C;2026-12-02 06:00:41;HX-210;41.2;39.8;3.000;350.0;0.966;OK"], 1,
                           RECEIVED))
     assert isinstance(c, CalibrationEvent)
-    assert c.passed is False and c.sensitivity == 0.0
+    assert c.passed is False and c.sensitivity is None  # no span: no value, not 0
     assert "no span" in c.reason and "station reported passed" in c.reason
 
 
@@ -187,7 +187,7 @@ def test_fixed_width_and_regex(ctx: StationContext) -> None:
         (DELIM_R.replace("350.02", ""), "test_pressure_pa (from 'pressure'): empty"),
         (DELIM_R.replace("350.02", "nan"), "'nan' is not a number"),
         (DELIM_R.replace("350.02", "1e999"), "is not a finite number"),
-        (DELIM_R.replace("-1.000", "5.000"), "lower_limit_sccm (5.0) must be below"),
+        (DELIM_R.replace("-1.000", "5.000"), "lower limit (5 sccm) must be below"),
         (DELIM_R + ";", "result line has 16 fields"),
         ("", "empty line"),
         ("R;1\x00;x", "control character 0x00"),

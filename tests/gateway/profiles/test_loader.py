@@ -74,13 +74,14 @@ def test_missing_file(tmp_path: Path) -> None:
         # bad choice
         ("lf-delim", 'mode = "stream"', 'mode = "push"', "serial.mode", "'stream', 'request'"),
         # missing required canonical field
-        ("lf-delim", 'leak_rate_sccm = { from = "leak", unit = "sccm" }\n', "",
-         "result.fields.leak_rate_sccm", "required canonical field leak_rate_sccm (missing)"),
+        ("lf-delim", 'cycle = { from = "cycle" }\n', "",
+         "result.fields.cycle", "required canonical field cycle (missing)"),
         # unknown canonical field
         ("lf-delim", "cycle = { from", "cycles = { from", "result.fields.cycles",
          "a canonical field: cycle, ended_at"),
         # bad unit
-        ("lf-delim", 'unit = "kPa" }\npressure_loss', 'unit = "kPaa" }\npressure_loss',
+        ("lf-delim", 'unit = "kPa", empty = "error" }\npressure_loss',
+         'unit = "kPaa", empty = "error" }\npressure_loss',
          "result.fields.test_pressure_pa.unit", "a pressure unit (unknown pressure unit 'kPaa'"),
         # unit of the wrong kind
         ("lf-delim", 'from = "leak", unit = "sccm"', 'from = "leak", unit = "psi"',
@@ -106,9 +107,9 @@ def test_missing_file(tmp_path: Path) -> None:
         ("lf-delim", 'timezone = "station"', 'timezone = "Europe/Nowhere"',
          "result.fields.ended_at.timezone", "an IANA time zone"),
         # required field declared optional
-        ("lf-delim", 'program = { from = "program" }\npart_id',
-         'program = { from = "program", empty = "none" }\npart_id', "result.fields.program.empty",
-         "program is required"),
+        ("lf-delim", 'cycle = { from = "cycle" }',
+         'cycle = { from = "cycle", empty = "none" }', "result.fields.cycle.empty",
+         "cycle is required"),
         # bad regex
         ("lf-print", "(?P<result>\\w+)'", "(?P<result>\\w+'", "calibration.pattern",
          "a valid regular expression"),

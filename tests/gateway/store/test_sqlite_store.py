@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import importlib.util
+import json
 import math
 import sqlite3
 from dataclasses import fields
@@ -14,7 +15,7 @@ import pandas as pd
 import pytest
 
 from gateway.errors import ConfigError, StoreError
-from gateway.records import TestResult
+from gateway.records import TestResult, Verdict
 from gateway.store import Journal, SqliteStore, open_journal, open_store, register_store
 from gateway.store.base import QueryStore
 from tests.gateway.store._data import T0, calibration, result, status
@@ -93,18 +94,29 @@ def test_is_a_query_store(plant: SqliteStore) -> None:
 def test_results_round_trip_values(tmp_path: Path) -> None:
     full = result(
         9, lower_limit_sccm=-0.5, temperature_c=21.5, calibration_ref="cal-7",
-        ended_at=T0 + timedelta(microseconds=987_654), raw="x;y;Ø",
+        ended_at=T0 + timedelta(microseconds=987_654), raw="x;y;Ø", part_family="HX",
+        time_source="gateway", supplied=(("lower_limit_sccm", "config"),),
     )  # fmt: skip
-    _journal(tmp_path / "r.db", [full, result(10, part_id=None)]).close()
+    bare = result(10, part_id=None, leak_rate_sccm=None, pressure_loss_pa=None,
+                  reject_limit_sccm=None, fill_s=None, verdict=Verdict.GROSS)
+    _journal(tmp_path / "r.db", [full, bare]).close()
     with open_store(str(tmp_path / "r.db")) as store:  # type: ignore[attr-defined]
         frame = store.results()
     assert str(frame["ended_at"].dtype).endswith("UTC]")
     row = frame.iloc[0]
     for f in fields(TestResult):
         want = getattr(full, f.name)
+        if f.name == "supplied":  # a frame holds it as the journal's JSON text
+            assert json.loads(row[f.name]) == {"lower_limit_sccm": "config"}
+            continue
         assert row[f.name] == (want.value if hasattr(want, "value") else want), f.name
     assert row["record_id"] == full.record_id
-    assert pd.isna(frame.iloc[1]["part_id"])  # missing text is pandas NA (pandas 3 str dtype)
+    other = frame.iloc[1]
+    assert pd.isna(other["part_id"])  # missing text is pandas NA (pandas 3 str dtype)
+    for name in ("leak_rate_sccm", "pressure_loss_pa", "reject_limit_sccm", "fill_s",
+                 "supplied", "part_family"):
+        assert pd.isna(other[name]), name  # absent stays absent, never a zero
+    assert other["time_source"] == "station"
 
 
 def test_rows_with_filters(plant: SqliteStore) -> None:
@@ -127,7 +139,7 @@ def test_calibrations_statuses_quarantine(plant: SqliteStore) -> None:
     cals = plant.calibrations(station="L1-S1")
     assert list(cals["master_loss_pa"]) == [10.0, 11.0]
     assert list(cals["passed"]) == [True, False]
-    assert cals["passed"].dtype == bool
+    assert cals["passed"].dtype == "boolean"  # nullable: a station may not judge
     assert plant.calibrations(station="L2-S1").empty
     st = plant.statuses(station="L1-S1")
     assert list(st["state"]) == ["online", "testing"]

@@ -17,8 +17,8 @@ import pytest
 
 from gateway.records import TestResult, Verdict
 from gateway.store import Journal, SqliteStore, open_journal
-from gateway.store.journal import _INSERT_RESULT, _result_row
-from gateway.store.schema import MIGRATIONS, SCHEMA_VERSION
+from gateway.store.journal import _result_row
+from gateway.store.schema import MIGRATIONS, RESULT_COLUMNS, SCHEMA_VERSION
 from gateway.store.summaries import SUMMARY_TABLES, rebuild_summaries
 from tests.gateway.store._data import T0, result
 
@@ -297,8 +297,8 @@ def test_rebuild_equals_the_batch_fold(tmp_path: Path) -> None:
     # sums of floats may differ in the last bits with the order of addition
     assert len(rebuilt["result_hours"]) == len(folded["result_hours"])
     for a, b in zip(rebuilt["result_hours"], folded["result_hours"], strict=True):
-        assert a[:7] == b[:7] and a[9:] == b[9:]
-        np.testing.assert_allclose(a[7:9], b[7:9], rtol=1e-12)
+        assert a[:8] == b[:8] and a[10:] == b[10:]
+        np.testing.assert_allclose(a[8:10], b[8:10], rtol=1e-12)
 
 
 def test_v1_journal_migrates_with_correct_summaries(tmp_path: Path) -> None:
@@ -307,7 +307,12 @@ def test_v1_journal_migrates_with_correct_summaries(tmp_path: Path) -> None:
     Journal(path, migrations=MIGRATIONS[:1]).close()  # schema v1, summaries by triggers
     conn = sqlite3.connect(path, isolation_level=None)
     conn.execute("BEGIN")  # rows as a v1 build wrote them, repeats ignored
-    conn.executemany(_INSERT_RESULT, [_result_row(r) for r in rows[:400] + rows[300:350]])
+    v1_columns = RESULT_COLUMNS[: RESULT_COLUMNS.index("part_family")]  # what v1 had
+    v1_insert = (f"INSERT OR IGNORE INTO results (record_id, {', '.join(v1_columns)}) "
+                 f"VALUES ({', '.join('?' * (len(v1_columns) + 1))})")
+    conn.executemany(
+        v1_insert, [_result_row(r)[: len(v1_columns) + 1] for r in rows[:400] + rows[300:350]]
+    )
     conn.execute("COMMIT")
     conn.close()
     journal = open_journal(str(path))

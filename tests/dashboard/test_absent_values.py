@@ -1,0 +1,63 @@
+"""Stations that send little: every page and every report works over records with absent
+values (no limits, no times, no clock, gross tests without a reading, calibrations nobody
+judged) and never turns an absent value into a zero."""
+
+from __future__ import annotations
+
+import json
+import math
+from pathlib import Path
+
+import pytest
+
+from gateway.cli import main
+from gateway.store import open_store
+from tests.dashboard.conftest import AppFactory
+from tests.dashboard.journal_fill import SPARSE_STATIONS
+from tests.dashboard.test_pages import PAGES
+
+pytestmark = pytest.mark.timeout(180)
+
+
+@pytest.mark.parametrize("page", PAGES)
+def test_pages_render_over_absent_values(app: AppFactory, sparse_journal: Path,
+                                         page: str) -> None:  # fmt: skip
+    at = app(sparse_journal, page)
+    assert not at.exception, [e.message for e in at.exception]
+    assert not at.error, [e.value for e in at.error]
+
+
+def test_absent_readings_stay_out_of_statistics(sparse_journal: Path) -> None:
+    with open_store(f"sqlite:///{sparse_journal}") as store:
+        rows = store.results()
+        summary = store.leak_summary(by=("station",))
+    gross = rows[rows["verdict"].isin(["gross", "aborted"])]
+    assert len(gross) and gross["leak_rate_sccm"].isna().all()
+    measured = rows[rows["verdict"].isin(["pass", "reject"])]
+    for station, g in measured.groupby("station"):
+        got = summary[summary["station"] == station].iloc[0]
+        # the summary counts only tests with a reading; the mean is theirs alone
+        assert int(got["n"]) == int(g["leak_rate_sccm"].notna().sum())
+        assert math.isclose(float(got["mean"]), float(g["leak_rate_sccm"].mean()), rel_tol=1e-9)
+    bare = rows[rows["station"].isin(SPARSE_STATIONS)]
+    assert bare["reject_limit_sccm"].isna().all() and (bare["time_source"] == "gateway").all()
+
+
+REPORTS = [
+    ["yield", "--by", "station"],
+    ["capability", "--by-station"],
+    ["calibration"],
+    ["retests"],
+    ["standards", "--config", "demo"],
+]
+
+
+@pytest.mark.parametrize("args", REPORTS, ids=[a[0] for a in REPORTS])
+def test_reports_over_absent_values(sparse_journal: Path, args: list[str],
+                                    capsys: pytest.CaptureFixture[str]) -> None:  # fmt: skip
+    url = f"sqlite:///{sparse_journal}"
+    assert main(["report", *args, "--store", url]) == 0
+    text = capsys.readouterr().out
+    assert "Traceback" not in text
+    assert main(["report", *args, "--store", url, "--json"]) == 0
+    json.loads(capsys.readouterr().out)
