@@ -20,7 +20,10 @@ __all__ = [
     "READABLE_SCHEMAS",
     "SCHEMA_VERSION",
     "TIME_SOURCES",
+    "TRACE_PHASES",
+    "TRACE_ROLES",
     "CalibrationEvent",
+    "PressureTrace",
     "Record",
     "Rejected",
     "StationState",
@@ -396,6 +399,88 @@ class StationStatus(_RecordMixin):
     @property
     def record_id(self) -> str:
         return _stable_id("status", self.station, _iso(self.at), self.state.value)
+
+
+#: phase names of a pressure trace, in the order a cycle runs them
+TRACE_PHASES = ("fill", "stabilise", "test", "dump", "end")
+TRACE_ROLES = ("result", "master", "standard")
+
+
+@dataclass(frozen=True, slots=True)
+class PressureTrace(_RecordMixin):
+    """One test's pressure curve: samples at a fixed interval, with the phase boundaries.
+
+    Tied to its test by (station, cycle, ended_at) and ``role``: the result's own test, or a
+    calibration's master-part test ("master") or master part with the leak standard open
+    ("standard"). ``phases`` are (name, start offset in s from the first sample) pairs in time
+    order, as the station reports them (``TRACE_PHASES``; "end" closes the last one).
+    Pressures are gauge Pa. A test's loss over stabilise S and test T is a window of the curve,
+    which is what lets a long test stand for every shorter one (``analytics.backdown``).
+    """
+
+    kind: ClassVar[str] = "trace"
+    _time_fields: ClassVar[tuple[str, ...]] = ("ended_at", "received_at", "started_at")
+
+    station: str
+    line: str
+    cycle: int
+    ended_at: datetime
+    received_at: datetime
+    started_at: datetime
+    sample_interval_s: float
+    pressures_pa: tuple[float, ...]
+    phases: tuple[tuple[str, float], ...] = ()
+    role: str = "result"
+    program: str = "default"
+    profile: str = ""
+    time_source: str = "station"
+
+    def __post_init__(self) -> None:
+        _check_text("station", self.station)
+        _check_text("line", self.line)
+        _check_text("program", self.program)
+        if isinstance(self.cycle, bool) or not isinstance(self.cycle, int) or self.cycle < 0:
+            raise ValueError(f"cycle must be a non-negative integer, got {self.cycle!r}")
+        for name in self._time_fields:
+            _check_time(name, getattr(self, name))
+            object.__setattr__(self, name, _to_utc(getattr(self, name)))
+        _check_number("sample_interval_s", self.sample_interval_s)
+        if not self.sample_interval_s > 0:
+            raise ValueError(f"sample interval must be above 0 s, got {self.sample_interval_s}")
+        values = tuple(float(v) for v in self.pressures_pa)
+        if len(values) < 2 or not all(math.isfinite(v) for v in values):
+            raise ValueError("a trace needs at least two finite pressure samples")
+        object.__setattr__(self, "pressures_pa", values)
+        phases = tuple((str(n), float(t)) for n, t in self.phases)
+        last = -_INF
+        for name, at in phases:
+            if name not in TRACE_PHASES:
+                raise ValueError(f"trace phase must be one of {', '.join(TRACE_PHASES)}, "
+                                 f"got {name!r}")
+            if not math.isfinite(at) or at < last:
+                raise ValueError("trace phases must start in time order")
+            last = at
+        object.__setattr__(self, "phases", phases)
+        if self.role not in TRACE_ROLES:
+            raise ValueError(f"trace role must be one of {', '.join(TRACE_ROLES)}, "
+                             f"got {self.role!r}")
+        if self.time_source not in TIME_SOURCES:
+            raise ValueError(f"time_source must be one of {', '.join(TIME_SOURCES)}")
+
+    @property
+    def duration_s(self) -> float:
+        return (len(self.pressures_pa) - 1) * self.sample_interval_s
+
+    def phase_start(self, name: str) -> float | None:
+        """Offset (s) where phase ``name`` starts, or None when the station did not say."""
+        for phase, at in self.phases:
+            if phase == name:
+                return at
+        return None
+
+    @property
+    def record_id(self) -> str:
+        return _stable_id("trace", self.station, self.cycle, _iso(self.ended_at), self.role)
 
 
 Record = TestResult | CalibrationEvent | StationStatus

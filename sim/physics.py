@@ -15,6 +15,7 @@ from __future__ import annotations
 
 import math
 import random
+from collections.abc import Sequence
 from dataclasses import dataclass
 from typing import ClassVar
 
@@ -26,6 +27,7 @@ __all__ = [
     "TestConditions",
     "TestOutcome",
     "fill_pressure_pa",
+    "isolated_curve",
     "laminar_flow",
     "simulate_test",
 ]
@@ -148,3 +150,24 @@ def simulate_test(c: TestConditions, rng: random.Random | None = None) -> TestOu
         loss_pa=read_start - read_end,
         loss_exact_pa=p_start - p_end,
     )
+
+
+def isolated_curve(
+    c: TestConditions, times_s: Sequence[float], rng: random.Random | None = None
+) -> list[float]:
+    """Transducer readings (gauge Pa) at ``times_s`` after isolation (t = 0, end of fill).
+
+    The same gas model as ``simulate_test``, read at every sample time instead of twice: a
+    station's pressure trace through stabilise and test. Times must not decrease.
+    """
+    p0 = c.test_pressure_pa if c.start_pressure_pa is None else c.start_pressure_pa
+    m = (p0 + P_ATM_PA) * c.volume_m3 / _gas_temperature_k(c, 0.0)
+    t = 0.0
+    out = []
+    for at in times_s:
+        if at < t:
+            raise ValueError("sample times must not decrease")
+        m = _integrate(c, m, t, at)
+        t = at
+        out.append(_read(c, _pressure_abs(c, m, t) - P_ATM_PA, rng))
+    return out
