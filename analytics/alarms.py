@@ -1,0 +1,274 @@
+"""The fleet's alarm rules: what needs a person now, as conditions with a stable identity.
+
+Each rule is a pure function of what the store holds (records, summaries, sink state) that
+returns the ``Condition`` s true *now*; ``transitions`` turns the difference between those and
+the alarms already open into state changes (raise, clear), so an alarm keeps one identity from
+the moment it is raised, through a person's acknowledgement, until its condition is gone. The
+gateway runs the rules and keeps the states in its journal (so every screen, the shift report
+and the MQTT alarm topics agree); the dashboard only shows and acknowledges them.
+
+Calibration control charts belong to a calibration *epoch*: a stretch of a station's life
+between maintenance events that change the measurement (a seal change, a new fixture, a new
+leak standard, or a person resetting the baseline). An epoch's target and σ come from its own
+first calibrations (phase I, ``phase1`` of them; NIST/SEMATECH e-Handbook 6.3.1 on estimating
+limits from an in-control baseline), never from the range a viewer picks, and a maintenance
+event starts a fresh baseline instead of leaving the chart to signal for ever after a known
+change.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Iterable, Mapping, Sequence
+from dataclasses import dataclass
+from datetime import datetime, timedelta
+from typing import Literal
+
+import numpy as np
+import pandas as pd
+
+from analytics._result import ResultMixin
+from analytics.drift import baseline, cusum_chart, ewma_chart
+
+__all__ = [
+    "EPOCH_EVENTS",
+    "AlarmRules",
+    "Condition",
+    "Transition",
+    "calibration_conditions",
+    "epochs",
+    "link_conditions",
+    "reject_conditions",
+    "transitions",
+]
+
+Severity = Literal["warning", "alarm"]
+#: maintenance event kinds that change a station's measurement and so start a new epoch
+EPOCH_EVENTS = ("seal change", "new fixture", "new leak standard", "baseline reset", "repair")
+
+
+@dataclass(frozen=True, slots=True)
+class Condition(ResultMixin):
+    """A rule found true now. ``key`` is the alarm's identity across evaluations."""
+
+    key: str
+    rule: str
+    station: str | None
+    severity: Severity
+    since: datetime
+    message: str
+
+
+@dataclass(frozen=True, slots=True)
+class Transition(ResultMixin):
+    key: str
+    change: Literal["raise", "clear"]
+    condition: Condition | None  # the condition raised (None when clearing)
+
+
+@dataclass(frozen=True, slots=True)
+class AlarmRules:
+    """Thresholds for the rules (per plant; common practice values as defaults)."""
+
+    phase1: int = 10  # calibrations that set an epoch's baseline
+    ewma_lambda: float = 0.2
+    ewma_L: float = 3.0
+    cusum_k: float = 0.5
+    cusum_h: float = 5.0
+    calibration_interval: timedelta | None = None  # overdue after this (None: not checked)
+    reject_streak: int = 3  # this many rejects in a row
+    reject_window: int = 50  # tests the reject rate is counted over
+    reject_rate: float = 0.15  # share of rejects in that window
+    silent_factor: float = 5.0  # silent after this many typical cycle times
+    silent_min: timedelta = timedelta(minutes=5)
+    garbage_per_10min: int = 20  # quarantined lines a station may send in 10 minutes
+    backlog_age: timedelta = timedelta(minutes=5)  # a sink's oldest unsent record
+
+
+def epochs(times: Sequence[datetime] | pd.Series, events: Iterable[datetime]) -> np.ndarray:
+    """Epoch number of each calibration time: how many epoch-starting events precede it."""
+    t = pd.to_datetime(pd.Series(list(times)), utc=True).to_numpy()
+    starts = np.sort(pd.to_datetime(pd.Series(list(events)), utc=True).to_numpy())
+    return np.searchsorted(starts, t, side="right")
+
+
+def _age(now: datetime, since: datetime) -> str:
+    seconds = max(0.0, (now - since).total_seconds())
+    if seconds < 5400:
+        return f"{seconds / 60:.0f} min"
+    if seconds < 172800:
+        return f"{seconds / 3600:.1f} h"
+    return f"{seconds / 86400:.1f} days"
+
+
+def calibration_conditions(
+    station: str,
+    calibrations: pd.DataFrame,
+    maintenance: Sequence[datetime],
+    rules: AlarmRules,
+    now: datetime,
+) -> list[Condition]:
+    """Failed, overdue and drifting calibrations of one station (all its programs).
+
+    ``calibrations`` has ``ended_at``, ``program``, ``master_loss_pa``, ``sensitivity`` and
+    ``passed`` (absent: not judged); ``maintenance`` the times of epoch-starting events.
+    """
+    out: list[Condition] = []
+    if calibrations.empty:
+        return out
+    cal = calibrations.sort_values("ended_at", kind="mergesort")
+    times = pd.to_datetime(cal["ended_at"], utc=True)
+    for program, g in cal.groupby("program", sort=True):
+        g = g.sort_values("ended_at", kind="mergesort")
+        last = g.iloc[-1]
+        at = pd.Timestamp(last["ended_at"]).to_pydatetime()
+        passed = last["passed"]
+        if pd.notna(passed) and not bool(passed):
+            why = f": {last['reason']}" if str(last.get("reason") or "") else ""
+            out.append(Condition(f"calibration-failed:{station}:{program}", "calibration-failed",
+                                 station, "alarm", at,
+                                 f"last calibration of {program} failed{why}"))
+        out += _drift(station, str(program), g, maintenance, rules)
+    if rules.calibration_interval is not None:
+        newest = times.max().to_pydatetime()
+        if now - newest > rules.calibration_interval:
+            out.append(Condition(f"calibration-overdue:{station}", "calibration-overdue",
+                                 station, "warning", newest + rules.calibration_interval,
+                                 f"no calibration for {_age(now, newest)} (interval "
+                                 f"{_age(newest, newest + rules.calibration_interval)})"))
+    return out
+
+
+def _drift(station: str, program: str, g: pd.DataFrame, maintenance: Sequence[datetime],
+           rules: AlarmRules) -> list[Condition]:
+    """EWMA/CUSUM of the current epoch's passed calibrations, baseline from its phase I."""
+    ok = g["passed"].astype("boolean").fillna(True).astype(bool).to_numpy()
+    g = g[ok]
+    if g.empty:
+        return []
+    number = epochs(g["ended_at"], maintenance)
+    current = g[number == number[-1]]
+    out = []
+    for name, label in (("master_loss_pa", "master loss"), ("sensitivity", "sensitivity")):
+        values = pd.to_numeric(current[name], errors="coerce").to_numpy(dtype=float)
+        keep = np.isfinite(values)
+        values = values[keep]
+        if values.size <= rules.phase1:
+            continue  # still setting the baseline: nothing to judge against yet
+        try:
+            target, sigma = baseline(values, rules.phase1)
+        except ValueError:
+            continue
+        if not sigma > 1e-9 * max(abs(target), 1e-12):
+            continue  # a value that does not vary (beyond rounding) has nothing to chart
+        charts = (
+            ewma_chart(values, target, sigma, lam=rules.ewma_lambda, L=rules.ewma_L),
+            cusum_chart(values, target, sigma, k=rules.cusum_k, h=rules.cusum_h),
+        )
+        for chart in charts:
+            if not chart.points[-1].signal:
+                continue  # out of control now is what an alarm is about
+            first = len(chart.points) - 1
+            while first > 0 and chart.points[first - 1].signal:
+                first -= 1
+            at_times = pd.to_datetime(current["ended_at"], utc=True).to_numpy()[keep]
+            since = pd.Timestamp(at_times[first]).to_pydatetime()
+            out.append(Condition(
+                f"calibration-drift:{station}:{program}:{name}:{chart.kind}",
+                "calibration-drift", station, "warning", since,
+                f"{label} of {program} out of control ({chart.kind.upper()}) since calibration "
+                f"{first + 1} of this epoch; baseline {target:.4g} ± {sigma:.3g} from its "
+                f"first {rules.phase1}",
+            ))
+    return out
+
+
+def reject_conditions(station: str, verdicts: Sequence[str], times: Sequence[datetime],
+                      rules: AlarmRules) -> list[Condition]:
+    """A streak of rejects, or too many rejects among the newest tests (aborted ones left out).
+
+    ``verdicts``/``times`` are the station's newest tests, oldest first.
+    """
+    pairs = [(v, t) for v, t in zip(verdicts, times, strict=True) if v != "aborted"]
+    out: list[Condition] = []
+    if not pairs:
+        return out
+    streak = 0
+    for v, _ in reversed(pairs):
+        if v in ("reject", "gross"):
+            streak += 1
+        else:
+            break
+    if streak >= rules.reject_streak:
+        since = pairs[len(pairs) - streak][1]
+        out.append(Condition(f"reject-streak:{station}", "reject-streak", station, "alarm",
+                             since, f"{streak} rejects in a row"))
+    window = pairs[-rules.reject_window:]
+    if len(window) >= rules.reject_window:
+        n = sum(v in ("reject", "gross") for v, _ in window)
+        if n / len(window) > rules.reject_rate:
+            out.append(Condition(f"reject-rate:{station}", "reject-rate", station, "warning",
+                                 window[0][1], f"{n} rejects in the last {len(window)} tests "
+                                 f"({n / len(window):.0%}, above {rules.reject_rate:.0%})"))
+    return out
+
+
+def link_conditions(
+    station: str,
+    *,
+    state: str | None,
+    state_since: datetime | None,
+    last_result: datetime | None,
+    typical_cycle: timedelta | None,
+    quarantined_10min: int,
+    gaps: Sequence[tuple[int, int, datetime]] = (),
+    conflicts: int = 0,
+    rules: AlarmRules,
+    now: datetime,
+) -> list[Condition]:
+    """Offline or faulted, silent for longer than its cycle suggests, garbage on the line,
+    cycles lost (gaps) and conflicting re-sends."""
+    out: list[Condition] = []
+    if state in ("offline", "fault") and state_since is not None:
+        out.append(Condition(f"link:{station}", "offline", station, "alarm", state_since,
+                             f"station {state} for {_age(now, state_since)}"))
+    elif last_result is not None and typical_cycle is not None:
+        quiet = max(rules.silent_min, typical_cycle * rules.silent_factor)
+        if now - last_result > quiet:
+            out.append(Condition(f"silent:{station}", "silent", station, "warning",
+                                 last_result + quiet,
+                                 f"no result for {_age(now, last_result)} (usually one every "
+                                 f"{typical_cycle.total_seconds():.0f} s)"))
+    if quarantined_10min > rules.garbage_per_10min:
+        out.append(Condition(f"garbage:{station}", "garbage", station, "warning", now,
+                             f"{quarantined_10min} unreadable lines in 10 minutes "
+                             "(wrong line settings, a noisy cable, or another profile?)"))
+    for first, last, at in gaps:
+        what = f"cycle {first}" if first == last else f"cycles {first}..{last}"
+        out.append(Condition(f"gap:{station}:{first}", "gap", station, "warning", at,
+                             f"{what} lost before they could be read"))
+    if conflicts:
+        out.append(Condition(f"conflict:{station}", "conflict", station, "warning", now,
+                             f"{conflicts} re-sent record(s) differ from what was stored"))
+    return out
+
+
+def sink_conditions(backlogs: Mapping[str, tuple[int, timedelta | None]], rules: AlarmRules,
+                    now: datetime) -> list[Condition]:
+    """Sinks whose oldest unsent record is older than ``rules.backlog_age``."""
+    out = []
+    for sink, (count, oldest) in sorted(backlogs.items()):
+        if oldest is not None and oldest > rules.backlog_age:
+            out.append(Condition(f"sink-backlog:{sink}", "sink-backlog", None, "warning",
+                                 now - oldest, f"sink {sink}: {count} record(s) waiting, the "
+                                 f"oldest for {_age(now, now - oldest)}"))
+    return out
+
+
+def transitions(now_true: Iterable[Condition], open_keys: Iterable[str]) -> list[Transition]:
+    """Raise what is newly true, clear what is no longer true; open alarms that stay true
+    (acknowledged or not) change nothing."""
+    current = {c.key: c for c in now_true}
+    opened = set(open_keys)
+    out = [Transition(k, "raise", c) for k, c in sorted(current.items()) if k not in opened]
+    out += [Transition(k, "clear", None) for k in sorted(opened - set(current))]
+    return out

@@ -1,0 +1,136 @@
+"""The alarm rules: calibration epochs with their own phase I baselines, reject streaks and
+rates, link conditions, and raise/clear transitions."""
+
+from __future__ import annotations
+
+from datetime import UTC, datetime, timedelta
+
+import numpy as np
+import pandas as pd
+
+from analytics.alarms import (
+    AlarmRules,
+    Condition,
+    calibration_conditions,
+    epochs,
+    link_conditions,
+    reject_conditions,
+    transitions,
+)
+
+T0 = datetime(2026, 11, 1, 6, 0, tzinfo=UTC)
+# NIST/SEMATECH e-Handbook 6.3.2.4 EWMA example data (in control for target 50, s 2.0539)
+NIST = [52.0, 47.0, 53.0, 49.3, 50.1, 47.0, 51.0, 50.1, 51.2, 50.5, 49.6, 47.6, 49.9, 51.3,
+        47.8, 51.2, 52.6, 52.4, 53.6, 52.1]
+
+
+def _cals(values: list[float], start: datetime = T0, step: timedelta = timedelta(hours=4),
+          passed: list[bool | None] | None = None) -> pd.DataFrame:
+    n = len(values)
+    return pd.DataFrame({
+        "ended_at": [start + i * step for i in range(n)],
+        "program": ["HX-210"] * n,
+        "master_loss_pa": values,
+        "sensitivity": [0.015] * n,
+        "passed": pd.array(passed if passed is not None else [True] * n, dtype="boolean"),
+        "reason": [""] * n,
+    })
+
+
+def test_epochs_count_the_events_before_each_calibration() -> None:
+    times = [T0 + timedelta(days=d) for d in range(6)]
+    events = [T0 + timedelta(days=1.5), T0 + timedelta(days=3.5)]
+    assert epochs(times, events).tolist() == [0, 0, 1, 1, 2, 2]
+
+
+def test_in_control_data_raise_nothing() -> None:
+    out = calibration_conditions("L1-S1", _cals(NIST), [], AlarmRules(), T0 + timedelta(days=5))
+    assert out == []
+
+
+def test_a_seal_wear_sawtooth_alarms_only_where_wear_shows() -> None:
+    """Master loss climbing with seal wear and falling back at every seal change. One baseline
+    for the whole history signals on almost every point; an epoch per seal keeps the charts
+    quiet after each change and signals when a seal has really worn."""
+    rng = np.random.default_rng(3)
+    values, changes = [], []
+    t = T0
+    times = []
+    for _seal in range(6):
+        for k in range(40):
+            values.append(38.0 + 0.04 * k + rng.normal(0, 0.4))  # 4 σ of wear per seal
+            times.append(t)
+            t += timedelta(hours=4)
+        changes.append(t - timedelta(hours=2))  # the seal is changed after its 40th
+    cals = _cals(values)
+    cals["ended_at"] = times
+    rules = AlarmRules()
+    alarmed_epoch, alarmed_single = [], []
+    for i in range(rules.phase1 + 2, len(cals)):
+        now = times[i] + timedelta(minutes=1)
+        seen = cals.iloc[: i + 1]
+        epoch_out = calibration_conditions("L2-S2", seen, [c for c in changes if c < now],
+                                           rules, now)
+        single_out = calibration_conditions("L2-S2", seen, [], rules, now)
+        alarmed_epoch.append(any(c.rule == "calibration-drift" for c in epoch_out))
+        alarmed_single.append(any(c.rule == "calibration-drift" for c in single_out))
+    assert sum(alarmed_single) / len(alarmed_single) > 0.8  # the old way: always in alarm
+    share = sum(alarmed_epoch) / len(alarmed_epoch)
+    assert 0.1 < share < 0.6  # alarms in the worn part of each epoch only
+    # right after a seal change the new epoch is still in its phase I: no drift alarm
+    after = times.index(min(x for x in times if x > changes[2])) + 3
+    now = times[after] + timedelta(minutes=1)
+    out = calibration_conditions("L2-S2", cals.iloc[: after + 1],
+                                 [c for c in changes if c < now], rules, now)
+    assert not any(c.rule == "calibration-drift" for c in out)
+
+
+def test_failed_and_overdue_and_unjudged_calibrations() -> None:
+    cals = _cals([38.0, 38.4, 39.0], passed=[True, None, False])
+    cals.loc[2, "reason"] = "ratio 1.8 below 2.5"
+    rules = AlarmRules(calibration_interval=timedelta(hours=24))
+    now = T0 + timedelta(days=3)
+    out = {c.rule: c for c in calibration_conditions("L1-S3", cals, [], rules, now)}
+    assert "ratio 1.8" in out["calibration-failed"].message
+    assert out["calibration-overdue"].since == T0 + timedelta(hours=8, days=1)
+    judged_none = calibration_conditions("L1-S3", _cals([38.0], passed=[None]), [], rules,
+                                         T0 + timedelta(hours=1))
+    assert judged_none == []  # a station that does not judge: no "failed" alarm
+
+
+def test_reject_streak_and_rate() -> None:
+    times = [T0 + timedelta(seconds=30 * i) for i in range(60)]
+    verdicts = ["pass"] * 50 + ["reject", "aborted", "gross", "reject"] + ["pass"] * 6
+    assert reject_conditions("L1-S1", verdicts, times, AlarmRules()) == []
+    streak = ["pass"] * 57 + ["reject", "aborted", "gross", "reject"]
+    out = reject_conditions("L1-S1", streak, [*times, times[-1]], AlarmRules())
+    assert [c.rule for c in out] == ["reject-streak"]
+    assert out[0].message == "3 rejects in a row"  # the abort measured nothing
+    noisy = (["pass"] * 4 + ["reject"]) * 12
+    rate = reject_conditions("L1-S1", noisy, times, AlarmRules())
+    assert [c.rule for c in rate] == ["reject-rate"] and "10 rejects in the last 50" in \
+        rate[0].message
+
+
+def test_link_conditions() -> None:
+    now = T0 + timedelta(hours=1)
+    rules = AlarmRules()
+    off = link_conditions("L1-S1", state="offline", state_since=now - timedelta(minutes=7),
+                          last_result=now - timedelta(minutes=8), typical_cycle=None,
+                          quarantined_10min=0, rules=rules, now=now)
+    assert [c.rule for c in off] == ["offline"] and "7 min" in off[0].message
+    quiet = link_conditions("L1-S1", state="online", state_since=T0,
+                            last_result=now - timedelta(minutes=12),
+                            typical_cycle=timedelta(seconds=40), quarantined_10min=45,
+                            gaps=[(101, 104, now)], conflicts=2, rules=rules, now=now)
+    assert [c.rule for c in quiet] == ["silent", "garbage", "gap", "conflict"]
+    assert "cycles 101..104" in quiet[2].message
+
+
+def test_transitions_raise_once_and_clear_when_gone() -> None:
+    a = Condition("reject-streak:L1-S1", "reject-streak", "L1-S1", "alarm", T0, "3 rejects")
+    b = Condition("silent:L1-S2", "silent", "L1-S2", "warning", T0, "no result")
+    first = transitions([a, b], [])
+    assert [(t.key, t.change) for t in first] == [(a.key, "raise"), (b.key, "raise")]
+    assert transitions([a, b], [a.key, b.key]) == []  # still true: nothing changes
+    assert [(t.key, t.change) for t in transitions([b], [a.key, b.key])] == [(a.key, "clear")]
