@@ -401,6 +401,48 @@ class StationStatus(_RecordMixin):
         return _stable_id("status", self.station, _iso(self.at), self.state.value)
 
 
+@dataclass(frozen=True, slots=True)
+class GapEvent(_RecordMixin):
+    """Cycles a station ran that the gateway knows it will never read: the loss, on record.
+
+    ``first``..``last`` are the missing cycle numbers (inclusive, as the station counts them,
+    so a range may cross a counter wrap: ``first`` > ``last`` then means first..wrap, 0..last).
+    ``source`` says who noticed: "ring" (overwritten before it could be read), "sequence" (a
+    skipped number in what arrived), "reader" (slots that failed to read). Readers emit one
+    when they know; the journal stores it in its gaps table.
+    """
+
+    kind: ClassVar[str] = "gap"
+    _time_fields: ClassVar[tuple[str, ...]] = ("at",)
+
+    station: str
+    at: datetime
+    first: int
+    last: int
+    source: str
+    detail: str = ""
+    line: str = ""
+
+    def __post_init__(self) -> None:
+        _check_text("station", self.station)
+        _check_text("source", self.source)
+        _check_time("at", self.at)
+        object.__setattr__(self, "at", _to_utc(self.at))
+        for name in ("first", "last"):
+            value = getattr(self, name)
+            if isinstance(value, bool) or not isinstance(value, int) or value < 0:
+                raise ValueError(f"{name} must be a cycle number >= 0, got {value!r}")
+
+    @property
+    def count(self) -> int | None:
+        """How many cycles are missing; None across a wrap (the modulus is the reader's)."""
+        return self.last - self.first + 1 if self.last >= self.first else None
+
+    @property
+    def record_id(self) -> str:
+        return _stable_id("gap", self.station, self.first, self.last, self.source)
+
+
 #: phase names of a pressure trace, in the order a cycle runs them
 TRACE_PHASES = ("fill", "stabilise", "test", "dump", "end")
 TRACE_ROLES = ("result", "master", "standard")

@@ -224,3 +224,16 @@ def test_v4_journal_migrates_keeping_rows_and_sequence(tmp_path: Path) -> None:
     seqs = [seq for seq, _ in journal.read_after("result", 0, 100)]
     journal.close()
     assert seqs[-1] == 6  # never a seq a sink may already have passed
+
+
+def test_gap_event_round_trips_and_counts() -> None:
+    from gateway.records import GapEvent
+
+    gap = GapEvent(station="S1", at=datetime(2026, 12, 3, 8, tzinfo=UTC), first=65534, last=1,
+                   source="ring", detail="overwritten")
+    again = GapEvent.from_dict(gap.to_dict())
+    assert again == gap
+    assert gap.count is None  # across a wrap the reader knows the modulus, the record does not
+    assert GapEvent(station="S1", at=gap.at, first=5, last=7, source="sequence").count == 3
+    with pytest.raises(ValueError, match="first must be a cycle number"):
+        GapEvent(station="S1", at=gap.at, first=-1, last=2, source="ring")
