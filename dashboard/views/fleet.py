@@ -8,23 +8,37 @@ from typing import Any
 import pandas as pd
 import streamlit as st
 
-from analytics import HealthConfig, calibration_health, yield_from_counts
+from analytics import yield_from_counts
+from analytics.alarms import AlarmRules
+from analytics.fleet import (
+    LEVELS,
+    Standing,
+    group_by_line,
+    rank,
+    standing,
+    station_conditions,
+)
 from dashboard import charts, data
 from dashboard.common import Page, page, refreshed
 from dashboard.display import fmt
 
-# badge colours (Streamlit markdown): no emoji, so line PCs without emoji fonts show them too
-_STATE_COLOUR = {
-    "online": "green", "testing": "green", "idle": "gray", "calibrating": "blue",
-    "offline": "gray", "fault": "red",
+# badge colours (Streamlit markdown): no emoji, so line PCs without emoji fonts show them too;
+# every colour comes with the level's word and shape (analytics.fleet.LEVELS), never alone
+_LEVEL_COLOUR = {
+    "alarm": "red", "offline": "violet", "warning": "orange", "ok": "green", "no data": "gray",
 }  # fmt: skip
 _VERDICT_COLOUR = {"pass": "green", "reject": "orange", "gross": "red", "aborted": "gray"}
+_RULES = AlarmRules()
+_RECENT = 60  # newest tests per station the streak, rate and silence rules look at
 
 
 def _age(now: datetime, at: Any) -> str:
     if at is None or pd.isna(at):
         return "never"
-    seconds = max(0.0, (now - pd.Timestamp(at).to_pydatetime()).total_seconds())
+    seconds = (now - pd.Timestamp(at).to_pydatetime()).total_seconds()
+    if seconds < -60:
+        return "in the future (station clock ahead?)"
+    seconds = max(0.0, seconds)
     if seconds < 120:
         return f"{seconds:.0f} s ago"
     if seconds < 7200:
@@ -34,28 +48,89 @@ def _age(now: datetime, at: Any) -> str:
     return f"{seconds / 86400:.0f} days ago"
 
 
-def _alarms(p: Page, station: str, state: str, last_cal: pd.Series | None) -> list[str]:
-    """What needs a look now: station down, last calibration failed, calibration charts."""
+def _when(value: Any) -> datetime | None:
+    return None if value is None or pd.isna(value) else pd.Timestamp(value).to_pydatetime()
+
+
+def _row(frame: pd.DataFrame, station: str) -> pd.Series | None:
+    return frame.loc[station] if station in frame.index else None  # type: ignore[return-value]
+
+
+def standings(p: Page) -> list[Standing]:
+    """Every station's standing from the alarm rules (analytics.fleet), worst first."""
+    status = data.latest(p.url, "status").set_index("station")
+    garbage = data.quarantine(p.url, p.now - timedelta(minutes=10), p.now + timedelta(seconds=1))
+    bad = garbage.groupby("station").size() if not garbage.empty else pd.Series(dtype=int)
     out = []
-    if state in ("fault", "offline"):
-        out.append(f"station {state}")
-    if last_cal is not None and pd.notna(last_cal["passed"]) and not bool(last_cal["passed"]):
-        out.append("last calibration failed")
-    series = data.calibration_series(p.url, station, None, p.now - timedelta(days=7), None)
-    if len(series) >= 5:
-        health = calibration_health(series, HealthConfig())
-        for sh in health.series:  # out of control now: the newest point of a chart signals
-            for name, pair in sh.charts.items():
-                for kind, chart in pair.items():
-                    if chart.points and chart.points[-1].signal:
-                        out.append(f"{kind.upper()} {name} ({sh.program})")
-    return sorted(set(out))
+    for station, line in zip(p.stations["station"], p.stations["line"], strict=True):
+        recent = data.results(p.url, station=station, limit=_RECENT, newest_first=True)
+        recent = recent.iloc[::-1]
+        verdicts = [str(v) for v in recent["verdict"]] if not recent.empty else []
+        times = [] if recent.empty else [_when(t) for t in recent["ended_at"]]
+        cals = data.calibration_series(p.url, station, None, p.now - timedelta(days=90), None)
+        state = str(status.loc[station, "state"]) if station in status.index else None
+        since = _when(status.loc[station, "at"]) if station in status.index else None
+        conds = station_conditions(
+            station, calibrations=cals, maintenance=(), verdicts=verdicts,
+            times=[t for t in times if t is not None], state=state, state_since=since,
+            quarantined_10min=int(bad.get(station, 0)), rules=_RULES, now=p.now,
+        )  # fmt: skip
+        last = recent.iloc[-1] if not recent.empty else None
+        out.append(standing(
+            station, str(line), conds, verdicts=verdicts,
+            last_leak_sccm=None if last is None else last["leak_rate_sccm"],
+            last_limit_sccm=None if last is None else last.get("reject_limit_sccm"),
+            state=state,
+        ))  # fmt: skip
+    return rank(out)
+
+
+def _tile(
+    p: Page, s: Standing, last: pd.Series | None, cycles: int, shown: float | None, cal_at: Any
+) -> None:
+    colour = _LEVEL_COLOUR[s.level]
+    st.markdown(f"**{s.station}** :{colour}-badge[{s.symbol} {s.label}]")
+    if s.headline:
+        st.markdown(f"**{s.headline}**")
+    if last is not None:
+        verdict = str(last["verdict"])
+        if s.last_leak_sccm is None:
+            value = "no reading"
+        else:
+            value = f"{fmt(p.units.q(s.last_leak_sccm))} {p.units.q_label}"
+        limit = (
+            f" · limit {fmt(p.units.q(s.last_limit_sccm))} {p.units.q_label}"
+            f" ({s.limit_share:.0%} used)"
+            if s.last_limit_sccm is not None and s.limit_share is not None
+            else ""
+        )
+        st.metric(f"Last result · {last['program']}", value)
+        st.markdown(
+            f":{_VERDICT_COLOUR.get(verdict, 'gray')}-badge[{verdict}] "
+            f"cycle {last['cycle']} · {_age(p.now, last['ended_at'])}{limit}"
+        )
+    else:
+        st.metric("Last result", "–")
+    a, b = st.columns(2)
+    a.metric("Cycles, last hour", cycles)
+    b.metric(
+        "Yield today", "–" if shown is None or pd.isna(shown) else f"{shown:.1%}",
+        help="first-pass yield of parts first tested today (test yield when parts carry "
+        "no id)",
+    )  # fmt: skip
+    streak = f" · {s.reject_streak} rejects in a row" if s.reject_streak else ""
+    st.caption(f"Last calibration: {_age(p.now, cal_at)}{streak}")
+    if len(s.conditions) > 1:
+        with st.expander(f"{len(s.conditions)} open conditions"):
+            for c in s.conditions:
+                st.markdown(f"- {'ALARM' if c.severity == 'alarm' else 'warning'}: {c.message}")
+    elif not s.conditions:
+        st.caption("No active alarms")
 
 
 def tiles(p: Page) -> None:
-    """The fleet overview (also what the 5 s fragment redraws)."""
+    """The fleet overview, worst station first (also what the 5 s fragment redraws)."""
     res = data.latest(p.url, "result").set_index("station")
-    status = data.latest(p.url, "status").set_index("station")
     cals = data.latest(p.url, "calibration").set_index("station")
     hour = data.verdict_counts(p.url, p.now - timedelta(hours=1), p.now + timedelta(seconds=1))
     since = p.today_start()
@@ -65,47 +140,25 @@ def tiles(p: Page) -> None:
         by=["station"],
     ).set_index("station")
     cycles = hour.groupby("station")["n"].sum() if not hour.empty else pd.Series(dtype=int)
-    st.caption(f"As of {p.local(p.now)} ({p.settings.timezone})")
-    for line, group in p.stations.groupby("line", sort=True):
+    board = standings(p)
+    counts = {lvl: sum(s.level == lvl for s in board) for lvl in LEVELS}
+    summary = " · ".join(
+        f"{LEVELS[k][2]} {n} {LEVELS[k][1].lower()}" for k, n in counts.items() if n
+    )
+    st.caption(f"As of {p.local(p.now)} ({p.settings.timezone}) · {summary} · worst first")
+    for line, group in group_by_line(board).items():
         st.subheader(f"Line {line}")
         cols = st.columns(3)
-        for i, station in enumerate(group["station"]):
-            state = str(status.loc[station, "state"]) if station in status.index else "unknown"
-            last_cal = cals.loc[station] if station in cals.index else None
+        for i, s in enumerate(group):
+            fpy = today["first_pass_yield"].get(s.station) if s.station in today.index else None
+            ty = today["test_yield"].get(s.station) if s.station in today.index else None
+            shown = fpy if fpy is not None and not pd.isna(fpy) else ty
             with cols[i % 3].container(border=True):
-                colour = _STATE_COLOUR.get(state, "gray")
-                st.markdown(f"**{station}** :{colour}-badge[{state}]")
-                if station in res.index:
-                    r = res.loc[station]
-                    verdict = str(r["verdict"])
-                    st.metric(
-                        f"Last result · {r['program']}",
-                        f"{fmt(p.units.q(r['leak_rate_sccm']))} {p.units.q_label}",
-                    )
-                    st.markdown(
-                        f":{_VERDICT_COLOUR.get(verdict, 'gray')}-badge[{verdict}] "
-                        f"cycle {r['cycle']} · {_age(p.now, r['ended_at'])}"
-                    )
-                else:
-                    st.metric("Last result", "–")
-                a, b = st.columns(2)
-                a.metric("Cycles, last hour", int(cycles.get(station, 0)))
-                fpy = today["first_pass_yield"].get(station) if station in today.index else None
-                ty = today["test_yield"].get(station) if station in today.index else None
-                shown = fpy if fpy is not None and not pd.isna(fpy) else ty
-                b.metric(
-                    "Yield today",
-                    "–" if shown is None or pd.isna(shown) else f"{shown:.1%}",
-                    help="first-pass yield of parts first tested today (test yield when "
-                    "parts carry no id)",
-                )
-                cal_at = None if last_cal is None else last_cal["ended_at"]
-                st.caption(f"Last calibration: {_age(p.now, cal_at)}")
-                alarms = _alarms(p, station, state, last_cal)
-                if alarms:
-                    st.warning(" · ".join(alarms), icon=":material/notifications_active:")
-                else:
-                    st.caption("No active alarms")
+                _tile(
+                    p, s, _row(res, s.station),
+                    int(cycles.get(s.station, 0)), shown,
+                    cals.loc[s.station, "ended_at"] if s.station in cals.index else None,
+                )  # fmt: skip
 
 
 def detail(p: Page) -> None:

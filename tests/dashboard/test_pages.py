@@ -53,7 +53,12 @@ def test_fleet_tiles_per_station(app: AppFactory, demo_journal: Path) -> None:
     names = " ".join(m.value for m in at.markdown)
     for station in ("L1-S1", "L1-S2", "L1-S3", "L2-S1", "L2-S2", "L2-S3"):
         assert f"**{station}**" in names
-    assert [s.value for s in at.subheader][:2] == ["Line L1", "Line L2"]
+    assert sorted(s.value for s in at.subheader)[:2] == ["Line L1", "Line L2"]
+    # worst first: tile badges carry the level in words and shapes, in rank order per line
+    badges = [m.value for m in at.markdown if m.value.startswith("**L")]
+    order = ["ALARM", "OFFLINE", "WARNING", "OK", "NO DATA"]
+    levels = [next(i for i, w in enumerate(order) if w in b) for b in badges]
+    assert levels[:3] == sorted(levels[:3]) and levels[3:] == sorted(levels[3:])
     cycles = [int(m.value) for m in at.metric if m.label == "Cycles, last hour"]
     assert all(n > 20 for n in cycles)  # a demo station tests every ~25-40 s
     # station detail: picking another station shows its own latest results
