@@ -173,8 +173,12 @@ def detail(p: Page) -> None:
     shown = p.units.frame(latest)
     u = p.units
     left, right = st.columns(2)
-    hist = latest.assign(
-        leak=latest["leak_rate_sccm"] * u.q_factor, loss=latest["pressure_loss_pa"] * u.p_factor
+    hist = charts.plant_clock(
+        latest.assign(
+            leak=latest["leak_rate_sccm"] * u.q_factor,
+            loss=latest["pressure_loss_pa"] * u.p_factor,
+        ),
+        p.settings.timezone,
     )
     left.altair_chart(charts.history(hist, "leak", f"leak rate [{u.q_label}]"), width="stretch")
     right.altair_chart(
@@ -185,7 +189,10 @@ def detail(p: Page) -> None:
         station=station,
     )  # fmt: skip
     if not summary.empty:
-        band = summary.assign(**{c: summary[c] * u.q_factor for c in ("mean", "min", "max")})
+        band = charts.plant_clock(
+            summary.assign(**{c: summary[c] * u.q_factor for c in ("mean", "min", "max")}),
+            p.settings.timezone,
+        )
         st.caption("Leak rate, hourly mean and range over the last 7 days")
         st.altair_chart(charts.band(band, f"leak rate [{u.q_label}]"), width="stretch")
     cols = ["ended_at", "cycle", "program", "part_id", "verdict", "reason"]
