@@ -146,6 +146,8 @@ def _drift(station: str, program: str, g: pd.DataFrame, maintenance: Sequence[da
     if g.empty:
         return []
     number = epochs(g["ended_at"], maintenance)
+    if number[-1] < len(list(maintenance)):
+        return []  # maintenance since the last calibration: a new epoch with no baseline yet
     current = g[number == number[-1]]
     out = []
     for name, label in (("master_loss_pa", "master loss"), ("sensitivity", "sensitivity")):

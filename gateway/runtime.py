@@ -536,6 +536,10 @@ class Runtime:
                 )  # fmt: skip
             else:
                 prune_task = None
+            alarm_task = tg.create_task(
+                _alarms_forever(cfg.store, [f.name for f in self.forwarders]),
+                name="alarm rules",
+            )
             for fwd in self.forwarders:
                 if isinstance(fwd, Attachable):
                     fwd.attach(writer.committed, writer.save_cursor)
@@ -562,6 +566,7 @@ class Runtime:
             ])
             if prune_task is not None:
                 prune_task.cancel()
+            alarm_task.cancel()
             await writer.close()
             await writer_task
             sink_stop.set()
@@ -594,6 +599,32 @@ async def _prune_forever(writer: JournalWriter, retention_s: float, sinks: list[
                 log.info("journal retention: removed %d row(s) older than %s", n,
                          cutoff.isoformat(timespec="seconds"))  # fmt: skip
         await asyncio.sleep(PRUNE_INTERVAL_S)
+
+
+async def _alarms_forever(store_url: str, sinks: list[str]) -> None:
+    """Every 30 s: evaluate the alarm rules and keep their states in the journal (its own
+    connection, off the event loop). A failure is logged and tried again at the next round."""
+    from gateway.alarm_eval import INTERVAL_S, evaluate
+
+    def once() -> int:
+        from gateway.store import open_journal, open_store
+
+        store = open_store(store_url)
+        try:
+            with open_journal(store_url) as journal:
+                return evaluate(journal, store, sinks=sinks)
+        finally:
+            store.close()
+
+    while True:
+        await asyncio.sleep(INTERVAL_S)
+        try:
+            n = await asyncio.to_thread(once)
+        except (StoreError, ValueError, KeyError) as exc:
+            log.warning("alarm rules: evaluation failed, will retry: %s", exc)
+        else:
+            if n:
+                log.info("alarm rules: %d alarm(s) raised or cleared", n)
 
 
 def _serve_metrics(config: GatewayConfig) -> metrics.MetricsServer | None:

@@ -9,15 +9,7 @@ import pandas as pd
 import streamlit as st
 
 from analytics import yield_from_counts
-from analytics.alarms import AlarmRules
-from analytics.fleet import (
-    LEVELS,
-    Standing,
-    group_by_line,
-    rank,
-    standing,
-    station_conditions,
-)
+from analytics.fleet import LEVELS, Standing, group_by_line, rank, standing
 from dashboard import charts, data
 from dashboard.common import Page, page, refreshed
 from dashboard.display import fmt
@@ -28,8 +20,6 @@ _LEVEL_COLOUR = {
     "alarm": "red", "offline": "violet", "warning": "orange", "ok": "green", "no data": "gray",
 }  # fmt: skip
 _VERDICT_COLOUR = {"pass": "green", "reject": "orange", "gross": "red", "aborted": "gray"}
-_RULES = AlarmRules()
-_RECENT = 60  # newest tests per station the streak, rate and silence rules look at
 
 
 def _age(now: datetime, at: Any) -> str:
@@ -48,10 +38,6 @@ def _age(now: datetime, at: Any) -> str:
     return f"{seconds / 86400:.0f} days ago"
 
 
-def _when(value: Any) -> datetime | None:
-    return None if value is None or pd.isna(value) else pd.Timestamp(value).to_pydatetime()
-
-
 def _row(frame: pd.DataFrame, station: str) -> pd.Series | None:
     return frame.loc[station] if station in frame.index else None  # type: ignore[return-value]
 
@@ -59,28 +45,18 @@ def _row(frame: pd.DataFrame, station: str) -> pd.Series | None:
 def standings(p: Page) -> list[Standing]:
     """Every station's standing from the alarm rules (analytics.fleet), worst first."""
     status = data.latest(p.url, "status").set_index("station")
-    garbage = data.quarantine(p.url, p.now - timedelta(minutes=10), p.now + timedelta(seconds=1))
-    bad = garbage.groupby("station").size() if not garbage.empty else pd.Series(dtype=int)
+    res = data.latest(p.url, "result").set_index("station")
+    conditions = data.fleet_conditions(p.url, p.now)
     out = []
     for station, line in zip(p.stations["station"], p.stations["line"], strict=True):
-        recent = data.results(p.url, station=station, limit=_RECENT, newest_first=True)
-        recent = recent.iloc[::-1]
-        verdicts = [str(v) for v in recent["verdict"]] if not recent.empty else []
-        times = [] if recent.empty else [_when(t) for t in recent["ended_at"]]
-        cals = data.calibration_series(p.url, station, None, p.now - timedelta(days=90), None)
-        state = str(status.loc[station, "state"]) if station in status.index else None
-        since = _when(status.loc[station, "at"]) if station in status.index else None
-        conds = station_conditions(
-            station, calibrations=cals, maintenance=(), verdicts=verdicts,
-            times=[t for t in times if t is not None], state=state, state_since=since,
-            quarantined_10min=int(bad.get(station, 0)), rules=_RULES, now=p.now,
-        )  # fmt: skip
-        last = recent.iloc[-1] if not recent.empty else None
+        recent = data.results(p.url, station=station, limit=60, newest_first=True)
+        verdicts = [str(v) for v in recent["verdict"][::-1]] if not recent.empty else []
+        last = _row(res, station)
         out.append(standing(
-            station, str(line), conds, verdicts=verdicts,
+            station, str(line), conditions.get(station, []), verdicts=verdicts,
             last_leak_sccm=None if last is None else last["leak_rate_sccm"],
             last_limit_sccm=None if last is None else last.get("reject_limit_sccm"),
-            state=state,
+            state=str(status.loc[station, "state"]) if station in status.index else None,
         ))  # fmt: skip
     return rank(out)
 
@@ -200,6 +176,79 @@ def detail(p: Page) -> None:
     table = shown[cols].head(50).copy()
     table["ended_at"] = table["ended_at"].dt.tz_convert(p.settings.timezone)
     st.dataframe(table, hide_index=True, width="stretch", key="fleet_latest_table")
+    maintenance(p, station)
+
+
+def alarm_list(p: Page) -> None:
+    """The journal's alarm list (what the gateway's evaluation keeps), with acknowledgement."""
+    st.subheader("Alarms")
+    if not p.url.startswith("sqlite:"):
+        st.caption("Alarm states are kept in the gateway's journal; this store is not one.")
+        return
+    alarms = data.open_alarms(p.url)
+    if alarms.empty:
+        st.caption("No open alarms in the journal (the gateway evaluates the rules every 30 s).")
+        return
+    table = alarms.assign(
+        since=pd.to_datetime(alarms["since"], utc=True).dt.tz_convert(p.settings.timezone)
+        .dt.strftime("%Y-%m-%d %H:%M"),
+        severity=alarms["severity"].str.upper(),
+    ).rename(columns={"id": "No.", "station": "Station", "severity": "Severity",
+                      "state": "State", "since": "Since", "message": "What",
+                      "acked_by": "Acknowledged by"})  # fmt: skip
+    st.dataframe(table, hide_index=True, width="stretch", key="fleet_alarm_table")
+    unacked = alarms[alarms["state"] == "active"]
+    if unacked.empty:
+        return
+    with st.form("fleet_ack", clear_on_submit=True):
+        a, b, c = st.columns([2, 2, 1])
+        choice = a.selectbox(
+            "Acknowledge alarm", list(unacked["id"]), key="fleet_ack_id",
+            format_func=lambda i: f"#{i} "
+            + str(unacked.loc[unacked["id"] == i, "message"].iloc[0])[:60],
+        )  # fmt: skip
+        who = b.text_input("Your name", key="fleet_ack_by")
+        if c.form_submit_button("Acknowledge") and choice is not None:
+            if not who.strip():
+                st.error("Say who acknowledges the alarm.")
+            elif data.acknowledge(p.url, int(choice), who.strip()):
+                st.success(f"Alarm #{choice} acknowledged by {who.strip()}.")
+            else:
+                st.info(f"Alarm #{choice} is no longer open.")
+
+
+def maintenance(p: Page, station: str) -> None:
+    """A station's maintenance log and a form to add to it (restarts calibration baselines)."""
+    from gateway.records import MAINTENANCE_KINDS, MaintenanceEvent
+
+    st.markdown("**Maintenance and notes**")
+    events = data.maintenance(p.url, station)
+    if not events.empty:
+        shown = events.assign(
+            at=events["at"].dt.tz_convert(p.settings.timezone).dt.strftime("%Y-%m-%d %H:%M")
+        ).rename(columns={"at": "When", "kind": "What", "note": "Note", "by": "By"})
+        st.dataframe(shown[["When", "What", "Note", "By"]], hide_index=True, width="stretch",
+                     key="fleet_maintenance_table")  # fmt: skip
+    if not p.url.startswith("sqlite:"):
+        return
+    with st.form("fleet_maintenance", clear_on_submit=True):
+        a, b, c = st.columns(3)
+        kind = a.selectbox("What was done", MAINTENANCE_KINDS, key="fleet_mt_kind")
+        note = b.text_input("Note", key="fleet_mt_note")
+        who = c.text_input("By", key="fleet_mt_by")
+        st.caption(
+            "A seal change, new fixture, new leak standard, repair or baseline reset restarts "
+            "the station's calibration baselines; a note only annotates. Lock out and vent "
+            "the station before working on it."
+        )
+        if st.form_submit_button("Record"):
+            try:
+                event = MaintenanceEvent(station, p.now, str(kind), note.strip(), who.strip())
+            except ValueError as exc:
+                st.error(str(exc))
+            else:
+                data.add_maintenance(p.url, event)
+                st.success(f"Recorded: {kind} on {station}.")
 
 
 p = page("Fleet, live", live=True)
@@ -211,4 +260,5 @@ def live() -> None:
 
 
 live()
+alarm_list(p)
 detail(p)

@@ -134,3 +134,30 @@ def test_transitions_raise_once_and_clear_when_gone() -> None:
     assert [(t.key, t.change) for t in first] == [(a.key, "raise"), (b.key, "raise")]
     assert transitions([a, b], [a.key, b.key]) == []  # still true: nothing changes
     assert [(t.key, t.change) for t in transitions([b], [a.key, b.key])] == [(a.key, "clear")]
+
+
+def test_maintenance_after_the_last_calibration_ends_the_old_epochs_drift() -> None:
+    """A seal change resolves the drift of the worn seal: until the new epoch has its own
+    phase I calibrations there is nothing to judge (NIST/SEMATECH e-Handbook 6.3.1: limits
+    come from an in-control baseline of the process as it is now)."""
+    from datetime import UTC, datetime, timedelta
+
+    import pandas as pd
+
+    from analytics.alarms import AlarmRules, calibration_conditions
+
+    t0 = datetime(2026, 11, 1, tzinfo=UTC)
+    n = 30
+    cals = pd.DataFrame({
+        "ended_at": [t0 + timedelta(hours=6 * i) for i in range(n)],
+        "program": "P1",
+        "master_loss_pa": [3.0 + (0.02 * i if i >= 10 else 0.01 * (i % 3)) for i in range(n)],
+        "sensitivity": 0.02,
+        "passed": True,
+        "reason": "",
+    })  # fmt: skip
+    now = t0 + timedelta(days=10)
+    before = calibration_conditions("S", cals, [], AlarmRules(), now)
+    assert any(c.rule == "calibration-drift" for c in before)
+    after = calibration_conditions("S", cals, [now - timedelta(hours=1)], AlarmRules(), now)
+    assert not any(c.rule == "calibration-drift" for c in after)
