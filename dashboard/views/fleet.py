@@ -26,8 +26,8 @@ def _age(now: datetime, at: Any) -> str:
     if at is None or pd.isna(at):
         return "never"
     seconds = (now - pd.Timestamp(at).to_pydatetime()).total_seconds()
-    if seconds < -60:
-        return "in the future (station clock ahead?)"
+    if seconds < -600:
+        return "ahead of now (a station clock ahead, or a simulated plant running fast)"
     seconds = max(0.0, seconds)
     if seconds < 120:
         return f"{seconds:.0f} s ago"
@@ -64,6 +64,8 @@ def standings(p: Page) -> list[Standing]:
 def _tile(
     p: Page, s: Standing, last: pd.Series | None, cycles: int, shown: float | None, cal_at: Any
 ) -> None:
+    """One station: level in words and shape, what is wrong, the last reading against its
+    limit. Text that wraps rather than metrics that truncate, so a 1024-px line PC shows it."""
     colour = _LEVEL_COLOUR[s.level]
     st.markdown(f"**{s.station}** :{colour}-badge[{s.symbol} {s.label}]")
     if s.headline:
@@ -74,26 +76,30 @@ def _tile(
             value = "no reading"
         else:
             value = f"{fmt(p.units.q(s.last_leak_sccm))} {p.units.q_label}"
+        share = s.limit_share
         limit = (
             f" · limit {fmt(p.units.q(s.last_limit_sccm))} {p.units.q_label}"
-            f" ({s.limit_share:.0%} used)"
-            if s.last_limit_sccm is not None and s.limit_share is not None
+            + (f" ({share:.0%} of it)" if share is not None and share >= 0 else "")
+            if s.last_limit_sccm is not None
             else ""
         )
-        st.metric(f"Last result · {last['program']}", value)
+        st.markdown(
+            f"Last result · {last['program']}<br>"
+            f"<span style='font-size:1.5rem;font-weight:600'>{value}</span>",
+            unsafe_allow_html=True,
+        )
         st.markdown(
             f":{_VERDICT_COLOUR.get(verdict, 'gray')}-badge[{verdict}] "
             f"cycle {last['cycle']} · {_age(p.now, last['ended_at'])}{limit}"
         )
     else:
-        st.metric("Last result", "–")
-    a, b = st.columns(2)
-    a.metric("Cycles, last hour", cycles)
-    b.metric(
-        "Yield today", "–" if shown is None or pd.isna(shown) else f"{shown:.1%}",
-        help="first-pass yield of parts first tested today (test yield when parts carry "
-        "no id)",
-    )  # fmt: skip
+        st.markdown("Last result · none yet")
+    yield_text = "–" if shown is None or pd.isna(shown) else f"{shown:.1%}"
+    st.markdown(
+        f"**{cycles}** cycles in the last hour · yield today **{yield_text}**",
+        help="yield: first-pass yield of parts first tested today (test yield when parts "
+        "carry no id)",
+    )
     streak = f" · {s.reject_streak} rejects in a row" if s.reject_streak else ""
     st.caption(f"Last calibration: {_age(p.now, cal_at)}{streak}")
     if len(s.conditions) > 1:

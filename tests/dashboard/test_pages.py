@@ -47,10 +47,9 @@ def test_page_renders_without_error(app: AppFactory, demo_journal: Path, page: s
 
 def test_fleet_tiles_per_station(app: AppFactory, demo_journal: Path) -> None:
     at = app(demo_journal, "views/fleet.py")
-    labels = [m.label for m in at.metric]
-    assert labels.count("Cycles, last hour") == 6  # one tile per demo station
-    assert labels.count("Yield today") == 6
     names = " ".join(m.value for m in at.markdown)
+    assert names.count("cycles in the last hour") == 6  # one tile per demo station
+    assert names.count("yield today") == 6
     for station in ("L1-S1", "L1-S2", "L1-S3", "L2-S1", "L2-S2", "L2-S3"):
         assert f"**{station}**" in names
     assert {"Line L1", "Line L2"} <= {s.value for s in at.subheader}
@@ -59,7 +58,10 @@ def test_fleet_tiles_per_station(app: AppFactory, demo_journal: Path) -> None:
     order = ["ALARM", "OFFLINE", "WARNING", "OK", "NO DATA"]
     levels = [next(i for i, w in enumerate(order) if w in b) for b in badges]
     assert levels[:3] == sorted(levels[:3]) and levels[3:] == sorted(levels[3:])
-    cycles = [int(m.value) for m in at.metric if m.label == "Cycles, last hour"]
+    import re
+
+    cycles = [int(n) for n in re.findall(r"\*\*(\d+)\*\* cycles in the last hour", names)]
+    assert len(cycles) == 6
     assert all(n > 20 for n in cycles)  # a demo station tests every ~25-40 s
     # station detail: picking another station shows its own latest results
     table = _table(at, "cycle", "program")
@@ -195,7 +197,7 @@ def test_bad_config_is_one_line(app: AppFactory, demo_journal: Path, tmp_path: P
 def test_lone_station_that_never_calibrated(app: AppFactory, lone_journal: Path) -> None:
     at = app(lone_journal, "views/fleet.py")
     assert not at.exception
-    assert [m.label for m in at.metric].count("Cycles, last hour") == 1
+    assert " ".join(m.value for m in at.markdown).count("cycles in the last hour") == 1
     assert any(c.value == "Last calibration: never" for c in at.caption)
     at.switch_page("views/calibration.py").run()
     assert not at.exception
@@ -233,4 +235,4 @@ def test_password_login_when_configured(app: AppFactory, demo_journal: Path) -> 
     at.text_input(key="lf_password").input("s3cret")
     at.button[0].click().run()
     assert not at.exception
-    assert [m.label for m in at.metric].count("Cycles, last hour") == 6
+    assert " ".join(m.value for m in at.markdown).count("cycles in the last hour") == 6
