@@ -30,6 +30,7 @@ _PAGES = [
     st.Page("views/gauge.py", title="Gauge study & test time"),
     st.Page("views/quality.py", title="Quality"),
     st.Page("views/data_view.py", title="Data"),
+    st.Page("views/health.py", title="Gateway & sink health"),
 ]
 
 gate()

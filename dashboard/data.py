@@ -39,6 +39,7 @@ __all__ = [
     "open_alarms",
     "quarantine",
     "results",
+    "sink_backlogs",
     "stations",
     "statuses",
     "verdict_counts",
@@ -341,3 +342,23 @@ def fleet_conditions(url: str, now: datetime) -> dict[str, list[Any]]:
         return evaluate(store, now, maintenance=by_station, rules=AlarmRules())
     except (LeakfleetError, sqlite3.Error, OSError) as exc:
         raise StoreUnavailable(str(exc)) from exc
+
+
+@st.cache_data(ttl=LIVE_TTL, show_spinner=False)
+def sink_backlogs(url: str) -> pd.DataFrame:
+    """Per sink that has ever confirmed a record: waiting records and the oldest one's time."""
+    if not url.startswith("sqlite:"):
+        return pd.DataFrame(columns=["sink", "kind", "waiting", "oldest"])
+    from gateway.store import open_journal
+
+    rows = []
+    try:
+        with open_journal(url) as journal:
+            sinks = [r[0] for r in journal._query(
+                "SELECT DISTINCT sink FROM sink_cursors ORDER BY sink", (), "reading sinks")]
+            for sink in sinks:
+                for kind, (n, oldest) in journal.backlog(sink).items():
+                    rows.append({"sink": sink, "kind": kind, "waiting": n, "oldest": oldest})
+    except (LeakfleetError, sqlite3.Error, OSError) as exc:
+        raise StoreUnavailable(str(exc)) from exc
+    return pd.DataFrame(rows, columns=["sink", "kind", "waiting", "oldest"])

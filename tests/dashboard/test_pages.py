@@ -19,6 +19,7 @@ PAGES = [
     "views/gauge.py",
     "views/quality.py",
     "views/data_view.py",
+    "views/health.py",
 ]
 
 
@@ -236,3 +237,11 @@ def test_password_login_when_configured(app: AppFactory, demo_journal: Path) -> 
     at.button[0].click().run()
     assert not at.exception
     assert " ".join(m.value for m in at.markdown).count("cycles in the last hour") == 6
+
+
+def test_health_page_lists_every_station_and_quarantine(app: AppFactory,
+                                                        demo_journal: Path) -> None:
+    at = app(demo_journal, "views/health.py")
+    assert not at.exception
+    stations = _table(at, "Station", "Link", "Quarantined lines, 24 h")
+    assert len(stations) == 6

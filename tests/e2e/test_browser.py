@@ -33,6 +33,7 @@ PAGES = [  # (navigation entry, a text the page shows once it has data)
     ("Gauge study & test time", "qualified person"),
     ("Quality", "Part history"),
     ("Data", "Download CSV"),
+    ("Gateway & sink health", "Quarantined lines, 24 h"),
 ]
 
 pytestmark = [
