@@ -97,6 +97,10 @@ def register(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
         "--input", metavar="FILE.csv", help="read a tidy CSV file instead of the store"
     )
 
+    from gateway.cli import report_backdown
+
+    report_backdown.register(kinds, common)
+
     p = kinds.add_parser(
         "yield",
         parents=[common, source, shifts],

@@ -32,6 +32,7 @@ from typing import Any, Literal
 from gateway.errors import StoreError
 from gateway.records import (
     CalibrationEvent,
+    PressureTrace,
     Record,
     Rejected,
     StationState,
@@ -53,6 +54,7 @@ from gateway.store.schema import (
     migrate,
 )
 from gateway.store.summaries import fold_results, part_shares, settle_part_hours
+from gateway.store.traces import INSERT_TRACE, trace_row
 
 __all__ = ["Journal", "Kind", "WriteStats", "open_journal", "quarantine_id"]
 
@@ -244,7 +246,8 @@ class Journal:
 
     # -- write side ---------------------------------------------------------------------------
     def write(
-        self, items: Iterable[TestResult | CalibrationEvent | StationStatus | Rejected]
+        self,
+        items: Iterable[TestResult | CalibrationEvent | StationStatus | Rejected | PressureTrace],
     ) -> WriteStats:
         """Store a batch in ONE transaction; repeats of stored records are counted, not stored.
 
@@ -255,6 +258,7 @@ class Journal:
         calibrations: list[tuple[Any, ...]] = []
         statuses: list[tuple[Any, ...]] = []
         rejected: list[tuple[Any, ...]] = []
+        curves: list[tuple[Any, ...]] = []
         for item in items:
             # exact type dispatch: cheaper than isinstance chains on the hot path
             t = type(item)
@@ -266,9 +270,11 @@ class Journal:
                 statuses.append(_status_row(item))  # type: ignore[arg-type]
             elif t is CalibrationEvent:
                 calibrations.append(_calibration_row(item))  # type: ignore[arg-type]
+            elif t is PressureTrace:
+                curves.append(trace_row(item))  # type: ignore[arg-type]
             else:
                 raise TypeError(f"cannot journal a {t.__name__}")
-        total = len(results) + len(calibrations) + len(statuses) + len(rejected)
+        total = len(results) + len(calibrations) + len(statuses) + len(rejected) + len(curves)
         if total == 0:
             return WriteStats()
         with self._lock:
@@ -291,6 +297,8 @@ class Journal:
                     inserted += conn.executemany(_INSERT_STATUS, statuses).rowcount
                 if rejected:
                     quarantined = conn.executemany(_INSERT_QUARANTINE, rejected).rowcount
+                if curves:
+                    inserted += conn.executemany(INSERT_TRACE, curves).rowcount
                 conn.execute("COMMIT")
             except sqlite3.Error as exc:
                 self._rollback()

@@ -15,6 +15,7 @@ from collections.abc import Sequence
 from dataclasses import dataclass
 
 from gateway.errors import StoreError
+from gateway.store.traces import TRACE_SCHEMA
 
 __all__ = [
     "CALIBRATION_COLUMNS",
@@ -468,6 +469,7 @@ MIGRATIONS: tuple[Migration, ...] = (
     Migration(4, _V4, "aborted tests leave the part summaries"),
     Migration(5, _V5, "absent values stay absent; time source, supplied values, part family"),
     Migration(6, _V6, "maintenance events and alarm states"),
+    Migration(7, TRACE_SCHEMA, "pressure traces, one packed row per curve"),
 )
 SCHEMA_VERSION = MIGRATIONS[-1].version
 
