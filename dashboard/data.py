@@ -42,6 +42,8 @@ __all__ = [
     "sink_backlogs",
     "stations",
     "statuses",
+    "trace_stations",
+    "traces",
     "verdict_counts",
 ]
 
@@ -362,3 +364,33 @@ def sink_backlogs(url: str) -> pd.DataFrame:
     except (LeakfleetError, sqlite3.Error, OSError) as exc:
         raise StoreUnavailable(str(exc)) from exc
     return pd.DataFrame(rows, columns=["sink", "kind", "waiting", "oldest"])
+
+
+@st.cache_data(ttl=HISTORY_TTL, show_spinner=False)
+def traces(url: str, station: str, role: str | None = None, limit: int = 50) -> list[Any]:
+    """A station's pressure traces, newest first (journals only; empty otherwise)."""
+    if not url.startswith("sqlite:"):
+        return []
+    from gateway.store import open_journal
+    from gateway.store.traces import traces as read
+
+    try:
+        with open_journal(url) as journal:
+            return read(journal, station, role=role, limit=limit)
+    except (LeakfleetError, sqlite3.Error, OSError) as exc:
+        raise StoreUnavailable(str(exc)) from exc
+
+
+@st.cache_data(ttl=HISTORY_TTL, show_spinner=False)
+def trace_stations(url: str) -> list[str]:
+    if not url.startswith("sqlite:"):
+        return []
+    from gateway.store import open_journal
+
+    try:
+        with open_journal(url) as journal:
+            rows = journal._query("SELECT DISTINCT station FROM traces ORDER BY station", (),
+                                  "reading traces")
+    except (LeakfleetError, sqlite3.Error, OSError) as exc:
+        raise StoreUnavailable(str(exc)) from exc
+    return [str(r[0]) for r in rows]

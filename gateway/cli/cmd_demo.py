@@ -186,6 +186,8 @@ async def _demo(args: argparse.Namespace, store: str, run_dir: Path) -> int:
         if args.free_ports
         else dataclasses.replace(scenario, run_dir=sim_dir)
     )
+    if store.startswith("sqlite:"):
+        _record_study(scenario, store)
     stop = asyncio.Event()
     loop = asyncio.get_running_loop()
     for sig in (signal.SIGINT, signal.SIGTERM):
@@ -243,6 +245,19 @@ async def _demo(args: argparse.Namespace, store: str, run_dir: Path) -> int:
             loop.remove_signal_handler(sig)
     _summary(store)
     return 1 if failed else 0
+
+
+def _record_study(scenario: Any, store: str) -> None:
+    """A long-cycle calibration study of the first station with its pressure traces, so the
+    demo's trace viewer and back-down map have something to show."""
+    from gateway.store import open_journal
+    from sim.trace_study import study
+
+    st = scenario.stations[0]
+    program = next(iter(st.programs.values()))
+    with open_journal(store) as journal:
+        journal.write(study(scenario, st, program, masters=12, standards=4, stabilise_s=20.0,
+                            test_s=20.0, interval_s=0.2))
 
 
 def _summary(store: str) -> None:

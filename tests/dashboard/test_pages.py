@@ -20,6 +20,7 @@ PAGES = [
     "views/quality.py",
     "views/data_view.py",
     "views/health.py",
+    "views/traces.py",
 ]
 
 
@@ -245,3 +246,21 @@ def test_health_page_lists_every_station_and_quarantine(app: AppFactory,
     assert not at.exception
     stations = _table(at, "Station", "Link", "Quarantined lines, 24 h")
     assert len(stations) == 6
+
+
+def test_traces_page_overlays_curves_and_maps_the_backdown(
+    app: AppFactory, demo_journal: Path, tmp_path: Path
+) -> None:
+    import shutil
+
+    from gateway.cli import main
+
+    db = tmp_path / "journal.db"
+    shutil.copy(demo_journal, db)
+    assert main(["sim", "study", "--station", "L1-S1", "--program", "HX-210",
+                 "--store", f"sqlite:///{db}", "--masters", "10", "--standards", "4",
+                 "--stabilise", "15", "--test", "15", "--interval", "0.2"]) == 0
+    at = app(db, "views/traces.py")
+    assert not at.exception, [e.message for e in at.exception]
+    assert "Back-down map" in [h.value for h in at.subheader]
+    assert any("Shortest cycle meeting" in s.value for s in at.success)

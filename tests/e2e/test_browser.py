@@ -31,6 +31,7 @@ PAGES = [  # (navigation entry, a text the page shows once it has data)
     ("Readings vs limits", "Ppu"),
     ("Calibration", "Calibrations"),
     ("Gauge study & test time", "qualified person"),
+    ("Pressure traces", "Back-down map"),
     ("Quality", "Part history"),
     ("Data", "Download CSV"),
     ("Gateway & sink health", "Quarantined lines, 24 h"),
