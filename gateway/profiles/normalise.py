@@ -144,6 +144,8 @@ def convert_text(
     """Canonical value of one field from the raw text fields of a line or answer block."""
     assert spec.source is not None
     text = raw.get(spec.source)
+    if text and spec.number is not None:
+        text = spec.number.plain(text)
     if text is None:
         if spec.empty_none:
             return None
@@ -277,6 +279,23 @@ def _compile_timestamp(spec: FieldSpec, ctx: StationContext) -> Callable[[str], 
 
 
 def compile_text_field(
+    spec: FieldSpec, ctx: StationContext, reference_c: float = 0.0
+) -> tuple[TextConverter, bool]:
+    """``_compile_text_field`` with the field's number writing (decimal comma, thousands,
+    trailing sign, placeholders) made plain first."""
+    convert, wants_raw = _compile_text_field(spec, ctx, reference_c)
+    number = spec.number
+    if number is None:
+        return convert, wants_raw
+    plain = number.plain
+
+    def plain_first(text: str | None, raw: Mapping[str, str]) -> Any:
+        return convert(plain(text) if text else text, raw)
+
+    return plain_first, wants_raw
+
+
+def _compile_text_field(
     spec: FieldSpec, ctx: StationContext, reference_c: float = 0.0
 ) -> tuple[TextConverter, bool]:
     """``convert_text`` for one field with its per-field work done once, and whether it
