@@ -132,6 +132,16 @@ class RingReader:
         )
         self._state_span = field_span(spec.state) if spec.state is not None else None
         self._acked: int | None = None
+        # the station's counter wraps (65535 -> 0, or at 2^32): cycles are handled here as
+        # unwrapped integers and turned back into the station's numbers at its registers
+        self._mod = 2 ** (16 * int(ring.counter_registers))
+
+    def _unwrap(self, counter: int) -> int | None:
+        """The counter as an unwrapped cycle after ``seen``; None when it went back (reset)."""
+        if self.seen is None:
+            return counter
+        ahead = (counter - self.seen) % self._mod
+        return self.seen + ahead if ahead <= self._mod // 2 else None
 
     def pending_ack(self) -> tuple[int, list[int]] | None:
         """(address, registers) to acknowledge the newest handled cycle, if the profile asks.
@@ -143,7 +153,7 @@ class RingReader:
         if ack is None or self.seen is None or self.seen == self._acked or self.seen <= 0:
             return None
         self._acked = self.seen
-        return int(ack.address), list(ack.encode(self.seen, self.spec.word_order))
+        return int(ack.address), list(ack.encode(self.seen % self._mod, self.spec.word_order))
 
     # -- the poll ---------------------------------------------------------------------------
     async def poll(self, link: RegisterLink, *, take_results: bool = True) -> PollOutcome:
@@ -164,10 +174,12 @@ class RingReader:
 
         ring = self.spec.result
         depth = int(ring.depth)
-        cycles = self._cycles_to_read(c1, depth, out, received_at)
+        u1 = self._unwrap(c1)
+        cycles = self._cycles_to_read(c1, u1, depth, out, received_at)
+        u1 = self._unwrap(c1)  # after a reset or first contact, relative to the new ``seen``
         blocks: dict[int, list[int]] = {}
         for cycle in cycles:
-            address = int(ring.slot_address(cycle))
+            address = int(ring.slot_address(cycle % self._mod))
             blocks[cycle] = await self._read(link, address, int(ring.length))
         cal_regs: list[int] | None = None
         cal = self.spec.calibration
@@ -179,7 +191,12 @@ class RingReader:
         header2 = await self._read_header(link)
         c2 = self.spec.decode_counter(self._slice(header2, self._counter_span))
         if blocks:
-            self._accept_results(blocks, c1, c2, depth, received_at, out)
+            u2 = self._unwrap(c2)
+            if u1 is None or u2 is None or u2 < u1:
+                log.debug("%s: counter moved back during the read (%d -> %d)", self.station,
+                          c1, c2)
+            else:
+                self._accept_results(blocks, u1, u2, depth, received_at, out)
         if cal_regs is not None and self._cal_counter_span is not None:
             cc2 = self.spec.decode_calibration_counter(
                 self._slice(header2, self._cal_counter_span)
@@ -188,20 +205,28 @@ class RingReader:
         return out
 
     def _cycles_to_read(
-        self, c1: int, depth: int, out: PollOutcome, received_at: datetime
+        self, c1: int, u1: int | None, depth: int, out: PollOutcome, received_at: datetime
     ) -> list[int]:
-        if c1 <= 0:
-            return []
+        """Unwrapped cycles to read now. First contact reads what the ring still holds (the
+        newest ``depth``; a counter of 0 means nothing yet, and arms gap detection); a counter
+        that went back is a station reset (its ring is read again); one that passed its
+        maximum has wrapped and goes on counting, the record numbered 0 included."""
         if self.seen is None:
             self.seen = max(0, c1 - depth)  # first contact: whatever the ring still holds
-        elif c1 < self.seen:
+            if c1 <= 0:
+                return []
+            u1 = c1
+        elif u1 is None:
             log.warning(
                 "%s: result counter went back from %d to %d (station reset?); rereading its ring",
-                self.station, self.seen, c1,
+                self.station, self.seen % self._mod, c1,
             )
             self.seen = max(0, c1 - depth)
             self._torn.clear()
-        first = max(self.seen + 1, c1 - depth + 1)
+            u1 = c1
+        if u1 <= self.seen:
+            return []
+        first = max(self.seen + 1, u1 - depth + 1)
         if first > self.seen + 1:
             self._gap(self.seen + 1, first - 1, depth, received_at, out)
             self.seen = first - 1
@@ -209,12 +234,13 @@ class RingReader:
             # after a restart, read the whole ring once: a cycle torn at the moment the last
             # run stopped is read now, and repeats are ignored by the journal
             self._resumed = False
-            first = max(1, c1 - depth + 1)
-        return list(range(first, c1 + 1))
+            first = max(1, u1 - depth + 1)
+        return list(range(first, u1 + 1))
 
     def _gap(self, lo: int, hi: int, depth: int, at: datetime, out: PollOutcome) -> None:
         out.missed += hi - lo + 1
-        what = f"cycles {lo}..{hi}" if hi > lo else f"cycle {lo}"
+        lo, hi = lo % self._mod, hi % self._mod  # as the station numbers them
+        what = f"cycles {lo}..{hi}" if hi != lo else f"cycle {lo}"
         detail = (
             f"gap: {what} overwritten in the station's ring (depth {depth}) before they could "
             "be read"
@@ -232,16 +258,14 @@ class RingReader:
         received_at: datetime,
         out: PollOutcome,
     ) -> None:
-        if c2 < c1:
-            log.debug("%s: counter moved back during the read (%d -> %d)", self.station, c1, c2)
-            return
         advance = True
         for cycle in sorted(blocks):
             if c2 >= cycle + depth:
                 # its slot may have been rewritten while we read: the next poll reports the gap
                 advance = False
                 continue
-            decoded = self.spec.decode_result(blocks[cycle], cycle, self.context, received_at)
+            decoded = self.spec.decode_result(blocks[cycle], cycle % self._mod, self.context,
+                                              received_at)
             if isinstance(decoded, TestResult):
                 out.items.append(decoded)
                 out.accepted += 1

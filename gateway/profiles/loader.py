@@ -151,7 +151,9 @@ _FIELD_KEYS_TEXT = ("from", "unit", "unit_from", "scale", "offset", "empty", "co
                     "timezone", "programs", "decimal", "thousands", "sign", "absent", "value")
 _NUMBER_KEYS = ("decimal", "thousands", "sign", "absent")
 _FIELD_KEYS_REG = ("at", "type", "word_order", "byte_order", "null", "unit", "scale", "offset",
-                   "empty", "codes", "format", "timezone")
+                   "empty", "codes", "format", "timezone", "bit", "mask", "bits")
+#: timestamps built from several uint16 registers: (format, registers)
+REGISTER_TIMES = {"ymdhms": 6, "bcd-ymdhms": 4}
 
 
 def _codes(r: _Reader, value: Any, path: str, kind: ValueKind, registers: bool
@@ -246,7 +248,19 @@ def _field(
             else:
                 r.fail(f"{path}.null", '"nan" (float32) or an integer sentinel (integer types)',
                        value)
-        register = RegisterField(at, type_name, width, wo, bo, null)
+        bit = r.integer(raw, "bit", path, None, lo=0, hi=31)
+        mask = r.integer(raw, "mask", path, None, lo=1, hi=2**32 - 1)
+        if (bit is not None or mask is not None) and type_name not in (
+                "uint16", "uint32", "int16", "int32"):
+            r.fail(f"{path}.bit", "an integer register type for bit and mask", type_name)
+        if bit is not None and mask is not None:
+            r.fail(f"{path}.mask", "either bit or mask, not both", mask)
+        fmt = raw.get("format")
+        if kind == "timestamp" and fmt in REGISTER_TIMES:
+            if type_name != "uint16":
+                r.fail(f"{path}.type", f'"uint16" for format "{fmt}"', type_name)
+            width = REGISTER_TIMES[fmt]
+        register = RegisterField(at, type_name, width, wo, bo, null, bit, mask)
         if type_name.startswith("string") and kind not in ("text", "program"):
             r.fail(f"{path}.type", f"a numeric type for a {kind} field", type_name)
     else:
@@ -290,7 +304,10 @@ def _field(
     if required and empty == "none":
         r.fail(f"{path}.empty", f'"error": {canonical} is required and cannot be empty', empty)
     codes = None
-    if kind in ("verdict", "bool"):
+    bit_codes: tuple[tuple[int, Any], ...] = ()
+    if registers and "bits" in raw:
+        bit_codes = _bit_codes(r, raw, path, kind)
+    elif kind in ("verdict", "bool"):
         if "codes" not in raw:
             r.fail(f"{path}.codes", "a table of station code = "
                    + ("verdict" if kind == "verdict" else "true/false") + " (missing)")
@@ -301,9 +318,13 @@ def _field(
     timezone = None
     if kind == "timestamp":
         time_format = r.string(raw, "format", path, "unix" if registers else "iso")
-        _time_format(r, time_format, f"{path}.format")
-        if registers and time_format != "unix":
-            r.fail(f"{path}.format", '"unix" for a register timestamp', time_format)
+        if registers:
+            if time_format != "unix" and time_format not in REGISTER_TIMES:
+                r.fail(f"{path}.format", '"unix", "ymdhms" (six registers: year, month, day, '
+                       'hour, minute, second) or "bcd-ymdhms" (four packed-BCD registers)',
+                       time_format)
+        else:
+            _time_format(r, time_format, f"{path}.format")
         tz = _zone(r, r.string(raw, "timezone", path, "station"), f"{path}.timezone")
         timezone = None if tz == "station" else tz
     else:
@@ -320,10 +341,36 @@ def _field(
         canonical=canonical, kind=kind, source=source, register=register, unit=unit,
         unit_from=unit_from, scale=scale, offset=offset, empty_none=empty == "none",
         codes=codes, time_format=time_format, timezone=timezone,
-        program_lookup=program_lookup or registers, number=number,
+        program_lookup=program_lookup or registers, number=number, bit_codes=bit_codes,
         join=tuple(source.split("+")) if source is not None and "+" in source
         and isinstance(raw.get("from"), list) else (),
     )
+
+
+def _bit_codes(r: _Reader, raw: Mapping[str, Any], path: str, kind: ValueKind
+               ) -> tuple[tuple[int, Any], ...]:
+    """``bits = { aborted = 4, gross = 3, reject = 2, pass = 1 }``: the first listed value
+    whose bit is set wins, so unrelated flag bits never need listing."""
+    if kind not in ("verdict", "bool"):
+        r.fail(f"{path}.bits", "only on a verdict or passed field", raw["bits"])
+    if "codes" in raw:
+        r.fail(f"{path}.codes", "either codes or bits, not both", raw["codes"])
+    table = raw["bits"]
+    if not isinstance(table, dict) or not table:
+        r.fail(f"{path}.bits", "a table of value = bit number, in priority order", table)
+    out: list[tuple[int, Any]] = []
+    for name, bit in table.items():
+        if isinstance(bit, bool) or not isinstance(bit, int) or not 0 <= bit <= 31:
+            r.fail(f"{path}.bits.{name}", "a bit number 0..31", bit)
+        if kind == "verdict":
+            if name not in {v.value for v in Verdict}:
+                r.fail(f"{path}.bits.{name}", "a verdict: pass, reject, gross, aborted", name)
+            out.append((bit, name))
+        else:
+            if name not in ("true", "false"):
+                r.fail(f"{path}.bits.{name}", "true or false", name)
+            out.append((bit, name == "true"))
+    return tuple(out)
 
 
 def _join(r: _Reader, names: list[Any], path: str, kind: ValueKind,
@@ -764,9 +811,8 @@ def _modbus(r: _Reader, doc: dict[str, Any], label: str, ref_c: float) -> Modbus
         ack = r.sub(m, "acknowledge", "modbus")
         r.table(ack, "modbus.acknowledge", ("enabled", "address", "type"))
         if r.boolean(ack, "enabled", "modbus.acknowledge", False):
-            if function != 3:
-                r.fail("modbus.acknowledge.enabled", "function = 3: an acknowledge register "
-                       "is a holding register", True)
+            # always written to a holding register (function 6/16), also when the data are
+            # input registers (function 4): stations keep their handshake where they can write
             acknowledge = AckSpec(
                 r.integer(ack, "address", "modbus.acknowledge", lo=0, hi=65535),
                 r.string(ack, "type", "modbus.acknowledge", "uint32", ("uint16", "uint32")),

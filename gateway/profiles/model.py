@@ -119,6 +119,8 @@ class RegisterField:
     word_order: Literal["big", "little"] = "big"
     byte_order: Literal["big", "little"] = "big"
     null: float | int | None = None  # sentinel meaning "no value"; math.nan for NaN
+    bit: int | None = None  # one bit of an integer register (0 = least significant)
+    mask: int | None = None  # a group of bits, shifted down to its lowest set bit
 
 
 @dataclass(frozen=True, slots=True)
@@ -169,6 +171,8 @@ class FieldSpec:
     number: NumberText | None = None  # decimal comma, thousands, trailing sign, placeholders
     join: tuple[str, ...] = ()  # raw fields joined with a space (a date column + a time column)
     constant: Any = None  # a value the profile sets (canonical units); no raw field is read
+    # verdict / flag from bits in priority order: the first listed whose bit is set wins
+    bit_codes: tuple[tuple[int, str | bool], ...] = ()
 
 
 @dataclass(frozen=True, slots=True)

@@ -413,11 +413,24 @@ def convert_register(
     reg = spec.register
     assert reg is not None
     words = list(block[reg.at : reg.at + reg.width])
+    if spec.kind == "timestamp" and spec.time_format in ("ymdhms", "bcd-ymdhms"):
+        return _register_time(spec, words, ctx)
     try:
         value = decode_registers(words, reg.type, word_order=reg.word_order,
                                  byte_order=reg.byte_order, encoding=encoding)
     except DecodeError as exc:
         raise _fail(spec, str(exc)) from None
+    if spec.bit_codes and isinstance(value, int):
+        for bit, code in spec.bit_codes:  # priority order: the first set bit wins
+            if value >> bit & 1:
+                return code
+        raise _fail(spec, f"no verdict bit set in 0x{value:04X} (bits "
+                    + ", ".join(f"{b} = {c}" for b, c in spec.bit_codes) + ")")
+    if isinstance(value, int) and reg.mask is not None:
+        shift = (reg.mask & -reg.mask).bit_length() - 1
+        value = (value & reg.mask) >> shift
+    elif isinstance(value, int) and reg.bit is not None:
+        value = value >> reg.bit & 1
     is_null = False
     if isinstance(value, float) and math.isnan(value):
         if reg.null is None or not (isinstance(reg.null, float) and math.isnan(reg.null)):
@@ -456,6 +469,31 @@ def convert_register(
     if not math.isfinite(value):
         raise _fail(spec, f"{value!r} is not a finite number")
     return _quantity(spec, float(value), None, reference_c)
+
+
+def _bcd(word: int) -> int:
+    """A packed-BCD register as its decimal value (0x2026 -> 2026); ValueError if not BCD."""
+    digits = f"{word:04X}"
+    if not digits.isdigit():
+        raise ValueError(f"0x{word:04X} is not packed BCD")
+    return int(digits)
+
+
+def _register_time(spec: FieldSpec, words: Sequence[int], ctx: StationContext) -> datetime:
+    """A station clock kept as registers: year, month, day, hour, minute, second (one per
+    register), or packed BCD (0x2026, 0x1203 month/day, 0x1405 hour/minute, 0x0009 second),
+    in the station's local zone."""
+    try:
+        if spec.time_format == "ymdhms":
+            y, mo, d, h, mi, sec = (int(w) for w in words)
+        else:
+            year, md, hm, ss = (_bcd(w) for w in words)
+            y, mo, d, h, mi, sec = year, md // 100, md % 100, hm // 100, hm % 100, ss
+        local = datetime(y, mo, d, h, mi, sec)
+    except (ValueError, OverflowError) as exc:
+        shown = " ".join(f"{w:04X}" for w in words)
+        raise _fail(spec, f"registers {shown} are not a date and time ({exc})") from None
+    return local.replace(tzinfo=_zone(spec, ctx))
 
 
 def _derive_calibration(values: dict[str, Any]) -> None:

@@ -18,6 +18,7 @@ from collections.abc import Iterator
 from dataclasses import dataclass
 from datetime import UTC, datetime, timedelta
 from typing import Any
+from zoneinfo import ZoneInfo
 
 import pint
 from pymodbus.client import ModbusTcpClient
@@ -79,6 +80,7 @@ class Block:
     cycle: int
     good: bool
     why: str = ""
+    values: dict[str, Any] | None = None
 
 
 _RANGES = {  # plausible station values in the field's own (raw, unscaled-by-us) canonical kind
@@ -485,3 +487,51 @@ def noclock_lines(n: int, seed: int, good_share: float = 0.4) -> Iterator[Line]:
             pos = rng.randrange(1, len(payload))
             line = _crc_line(payload[:pos] + chr(rng.choice([0, 1, 7, 27, 127])) + payload[pos:])
         yield Line(line, False, {}, why)
+
+
+_MBINPUT_BITS = {"pass": 1, "reject": 2, "gross": 3, "aborted": 4}
+
+
+def mbinput_blocks(n: int, seed: int, good_share: float = 0.4) -> Iterator[Block]:
+    """lf-mbinput ring slots (gateway/profiles/builtin/lf-mbinput.toml): values chosen and
+    encoded with pymodbus; bad ones with an impossible clock, no verdict bit, a torn guard,
+    a NaN leak without "null", or the wrong length."""
+    rng = random.Random(seed)
+    dt = ModbusTcpClient.DATATYPE
+    for _ in range(n):
+        cycle = rng.randrange(65536)
+        when = _T0 + timedelta(seconds=rng.randrange(3 * 10**7))
+        verdict = rng.choice(list(_MBINPUT_BITS))
+        status = 1 << _MBINPUT_BITS[verdict] | rng.choice([0, 0x1000, 0x2000, 0x3001])
+        p = round(rng.uniform(500, 6000), 1)
+        loss = rng.randrange(-200, 40000)
+        leak = round(rng.uniform(-0.9, 9.0), 3)
+        regs = [cycle, when.year, when.month, when.day, when.hour, when.minute, when.second,
+                *_encode("P1234567", "string(4)", 4, "big", "big"), 2,
+                *ModbusTcpClient.convert_to_registers(p, dt.FLOAT32, word_order="little"),
+                *ModbusTcpClient.convert_to_registers(loss, dt.INT32, word_order="big"),
+                *ModbusTcpClient.convert_to_registers(leak, dt.FLOAT32, word_order="big"),
+                status, 0, 0, 0, 0, cycle]
+        values = {"cycle": cycle, "verdict": verdict,
+                  # a local time in the autumn's repeated hour is taken as its first occurrence
+                  # (fold 0, PEP 495); compared in UTC, since Python never calls an ambiguous
+                  # time equal to a time in another zone
+                  "ended_at": when.replace(tzinfo=ZoneInfo("Europe/Berlin")).astimezone(UTC),
+                  "pressure_loss_pa": loss / 100.0,
+                  "leak_rate_sccm": float(ModbusTcpClient.convert_from_registers(
+                      ModbusTcpClient.convert_to_registers(leak, dt.FLOAT32), dt.FLOAT32))}
+        if rng.random() < good_share:
+            yield Block(regs, cycle, True, "", values)
+            continue
+        why = rng.choice(["clock", "bits", "torn", "nan", "short"])
+        if why == "clock":
+            regs[2] = rng.choice([0, 13, 99, 65535])
+        elif why == "bits":
+            regs[18] = rng.choice([0, 1, 0x1000, 0x3001, 0x8001])
+        elif why == "torn":
+            regs[23] = (cycle + 1 + rng.randrange(65534)) % 65536
+        elif why == "nan":
+            regs[16:18] = ModbusTcpClient.convert_to_registers(math.inf, dt.FLOAT32)
+        else:
+            regs = regs[: rng.randrange(0, 23)]
+        yield Block(regs, cycle, False, why)

@@ -24,6 +24,7 @@ from tests.hostile.reference import (
     blocks,
     delim_lines,
     kv_answers,
+    mbinput_blocks,
     noclock_lines,
     noise,
     print_lines,
@@ -115,6 +116,16 @@ def _lines(name: str, lines: Any, seed: int, ctx: StationContext = CTX) -> Tally
     return tally
 
 
+def _lf_mbinput() -> Tally:
+    spec = load_profile("lf-mbinput").modbus
+    assert spec is not None
+    tally = Tally()
+    for b in mbinput_blocks(N, seed=71):
+        out = spec.decode_result(b.regs, b.cycle, CTX, RECEIVED)
+        tally.check([out], b.good, b.values or {}, f"block ({'good' if b.good else b.why})")
+    return tally
+
+
 def _lf_kv() -> Tally:
     parser = load_profile("lf-kv").serial.parser(CTX)  # type: ignore[union-attr]
     tally = Tally()
@@ -139,14 +150,16 @@ def _modbus(name: str) -> Tally:
 def _run(name: str) -> Tally:
     runner = {"lf-delim": _lf_delim, "lf-print": _lf_print, "lf-kv": _lf_kv,
               "lf-semi": lambda: _lines("lf-semi", semi_lines, 51),
-              "lf-noclock": lambda: _lines("lf-noclock", noclock_lines, 61)}.get(name)
+              "lf-noclock": lambda: _lines("lf-noclock", noclock_lines, 61),
+              "lf-mbinput": _lf_mbinput}.get(name)
     tally = runner() if runner is not None else _modbus(name)
     tally.problems = tally.problems[:15] + [f"... {len(tally.problems)} in all"] * bool(
         tally.problems)
     return tally
 
 
-PROFILES = ["lf-delim", "lf-print", "lf-kv", "lf-mbtcp", "lf-mbrtu", "lf-semi", "lf-noclock"]
+PROFILES = ["lf-delim", "lf-print", "lf-kv", "lf-mbtcp", "lf-mbrtu", "lf-semi", "lf-noclock",
+            "lf-mbinput"]
 
 
 @pytest.fixture(scope="module")

@@ -17,7 +17,7 @@ from pymodbus.framer import FramerAscii, FramerRTU
 
 from gateway.errors import ConfigError
 from gateway.profiles import StationContext, load_profile, parse_profile
-from gateway.profiles.check import check_text
+from gateway.profiles.check import check_sample, check_text
 from gateway.profiles.checks import CHECKS, crc16_modbus, lrc8, xor8
 from gateway.profiles.model import NumberText
 from gateway.records import Rejected, TestResult
@@ -30,7 +30,8 @@ UREG = pint.UnitRegistry()
 def _records(profile: str, sample: str, **ctx: object) -> list[object]:
     context = StationContext(station="S1", line="L1", **ctx)  # type: ignore[arg-type]
     data = (SAMPLES / sample).read_bytes()
-    return [e.item for e in check_text(load_profile(profile), data, context, NOW)]
+    return [e.item for e in check_sample(load_profile(profile), data, context, NOW)
+            if e.item is not None]
 
 
 # -- check values --------------------------------------------------------------------------
@@ -180,3 +181,70 @@ verdict = { from = "v", codes = { P = "pass" } }
 def test_loader_errors_name_the_key(extra: str, message: str) -> None:
     with pytest.raises(ConfigError, match=message):
         _profile(extra)
+
+
+# -- Modbus: bits, masks, clocks kept in registers, a wrapping counter -------------------------
+def _mbinput_results() -> list[object]:
+    return _records("lf-mbinput", "lf-mbinput.json", programs={2: "HX-210"})
+
+
+def test_input_register_station_across_its_counter_wrap() -> None:
+    """The sample's registers were written with pymodbus's convert_to_registers (float32 low
+    word first, int32 and strings big-endian); the clock registers are Berlin wall time."""
+    items = _mbinput_results()
+    assert [i.cycle for i in items if isinstance(i, TestResult)] == [65533, 65534, 65535, 0, 1]
+    first, reject, gross, aborted, negative = items
+    berlin = ZoneInfo("Europe/Berlin")
+    assert first.ended_at == datetime(2026, 12, 3, 14, 5, 9, tzinfo=berlin)  # type: ignore[attr-defined]
+    assert first.test_pressure_pa == pytest.approx(  # type: ignore[attr-defined]
+        UREG.Quantity(2000.5, "mbar").to("Pa").magnitude, rel=1e-6)  # float32 of 2000.5
+    assert first.pressure_loss_pa == pytest.approx(12.48)  # type: ignore[attr-defined]
+    # status words 0x1003 (valid, pass, heater), 0x3005 (+ door, reject), 0x1009 (gross),
+    # 0x0017 (valid, pass, reject, abort: abort is listed first and wins)
+    assert [i.verdict for i in items] == ["pass", "reject", "gross", "aborted", "pass"]  # type: ignore[attr-defined]
+    assert gross.leak_rate_sccm is None and gross.pressure_loss_pa is None  # type: ignore[attr-defined]
+    assert reject.reason == "LEAK"  # type: ignore[attr-defined]
+    assert aborted.cycle == 0 and negative.leak_rate_sccm == pytest.approx(-0.024)  # type: ignore[attr-defined]
+
+
+def _variant(old: str, new: str) -> object:
+    text = (Path(__file__).resolve().parents[3] / "gateway" / "profiles" / "builtin"
+            / "lf-mbinput.toml").read_text()
+    assert old in text
+    return parse_profile(tomllib.loads(text.replace(old, new)), "variant.toml")
+
+
+def test_packed_bcd_clock_and_masked_fields() -> None:
+    profile = _variant(
+        'ended_at = { at = 1, type = "uint16", format = "ymdhms", timezone = "Europe/Berlin" }\n'
+        'part_id = { at = 7, type = "string(4)", empty = "none" }\n'
+        'program = { at = 11, type = "uint16" }',
+        'ended_at = { at = 1, type = "uint16", format = "bcd-ymdhms", timezone = "UTC" }\n'
+        'program = { at = 11, type = "uint16", mask = 0xFF00 }')
+    regs = [7, 0x2026, 0x1203, 0x1405, 0x0009, 0, 0, 0, 0, 0, 0, 0x0203, *([0] * 11), 7]
+    regs[12:14] = [0, 0]
+    regs[14:16] = [0, 100]
+    regs[16:18] = [0x3F80, 0]  # float32 1.0, big-endian words (IEEE 754)
+    regs[18] = 0b10  # pass
+    spec = profile.modbus  # type: ignore[attr-defined]
+    record = spec.decode_result(regs, 7, StationContext("S1", "L1", programs={2: "HX-210"}), NOW)
+    assert isinstance(record, TestResult), record
+    # 0x2026 0x1203 0x1405 0x0009: packed BCD for 2026-12-03 14:05:09
+    assert record.ended_at == datetime(2026, 12, 3, 14, 5, 9, tzinfo=UTC)
+    assert record.program == "HX-210"  # the high byte of 0x0203
+    assert record.leak_rate_sccm == 1.0 and record.pressure_loss_pa == 1.0
+    regs[2] = 0x12A3  # not BCD
+    bad = spec.decode_result(regs, 7, StationContext("S1", "L1"), NOW)
+    assert isinstance(bad, Rejected) and "not a date and time" in bad.reason
+
+
+def test_no_verdict_bit_set_is_rejected_with_the_word() -> None:
+    items = _records("lf-mbinput", "lf-mbinput.json", programs={2: "HX-210"})
+    assert all(isinstance(i, TestResult) for i in items)
+    profile = load_profile("lf-mbinput")
+    spec = profile.modbus
+    assert spec is not None
+    regs = [5, 2026, 12, 3, 14, 5, 9, *([0] * 16), 5]
+    regs[18] = 0x3001  # valid, heater, door: no verdict bit
+    out = spec.decode_result(regs, 5, StationContext("S1", "L1"), NOW)
+    assert isinstance(out, Rejected) and "no verdict bit set in 0x3001" in out.reason
