@@ -220,14 +220,13 @@ def test_station_with_only_a_state_change(app: AppFactory, status_only_journal: 
 
 
 def test_password_login_when_configured(app: AppFactory, demo_journal: Path) -> None:
-    import hashlib
-
+    from argon2 import PasswordHasher
     from streamlit.testing.v1 import AppTest
 
     from tests.dashboard.conftest import APP
 
     at = AppTest.from_file(APP, default_timeout=60)
-    at.secrets["leakfleet"] = {"password_sha256": hashlib.sha256(b"s3cret").hexdigest()}
+    at.secrets["leakfleet"] = {"password_hash": PasswordHasher().hash("s3cret")}
     app(demo_journal)  # sets the environment for the store
     at.run()
     assert not at.metric and [h.value for h in at.header] == ["leakfleet"]
@@ -264,3 +263,32 @@ def test_traces_page_overlays_curves_and_maps_the_backdown(
     assert not at.exception, [e.message for e in at.exception]
     assert "Back-down map" in [h.value for h in at.subheader]
     assert any("Shortest cycle meeting" in s.value for s in at.success)
+
+
+def test_legacy_unsalted_password_is_refused_with_how_to_fix(app: AppFactory,
+                                                             demo_journal: Path) -> None:
+    from streamlit.testing.v1 import AppTest
+
+    from tests.dashboard.conftest import APP
+
+    at = AppTest.from_file(APP, default_timeout=60)
+    at.secrets["leakfleet"] = {"password_sha256": "00" * 32}
+    app(demo_journal)
+    at.run()
+    assert not at.metric
+    assert any("--hash-password" in e.value for e in at.error)
+
+
+def test_wrong_passwords_pause_sign_in() -> None:
+    """An attacker cycling browser sessions meets the same limit (it is process-wide)."""
+    from argon2 import PasswordHasher
+
+    from dashboard import auth
+
+    good = PasswordHasher().hash("s3cret-pass")
+    auth._failures.clear()
+    for _ in range(auth.MAX_FAILURES):
+        assert auth.password_ok("guess", good, now=100.0) is False
+    assert auth.password_ok("s3cret-pass", good, now=101.0) is None  # paused, even if right
+    assert auth.password_ok("s3cret-pass", good, now=100.0 + auth.WINDOW_S + 1) is True
+    auth._failures.clear()
