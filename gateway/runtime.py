@@ -601,30 +601,42 @@ async def _prune_forever(writer: JournalWriter, retention_s: float, sinks: list[
         await asyncio.sleep(PRUNE_INTERVAL_S)
 
 
+#: seconds between alarm evaluations (gateway.alarm_eval.INTERVAL_S, not imported: that module
+#: brings pandas, which the gateway itself never needs)
+INTERVAL_S = 30.0
+
+
 async def _alarms_forever(store_url: str, sinks: list[str]) -> None:
-    """Every 30 s: evaluate the alarm rules and keep their states in the journal (its own
-    connection, off the event loop). A failure is logged and tried again at the next round."""
-    from gateway.alarm_eval import INTERVAL_S, evaluate
+    """Keep ``leakfleet alarms watch`` running beside the gateway: the alarm rules evaluated
+    every 30 s with their states in the journal. A process of its own, so pandas and scipy
+    never weigh on the gateway's memory; it is restarted (with backoff) if it dies, and
+    stopped with the gateway."""
+    import sys
 
-    def once() -> int:
-        from gateway.store import open_journal, open_store
-
-        store = open_store(store_url)
-        try:
-            with open_journal(store_url) as journal:
-                return evaluate(journal, store, sinks=sinks)
-        finally:
-            store.close()
-
+    backoff = 5.0
+    await asyncio.sleep(INTERVAL_S)  # nothing to judge in the first seconds of a run
     while True:
-        await asyncio.sleep(INTERVAL_S)
+        proc = await asyncio.create_subprocess_exec(
+            sys.executable, "-m", "gateway", "alarms", "--store", store_url, "watch",
+            "--interval", str(INTERVAL_S), "--sinks", ",".join(sinks),
+            stdin=asyncio.subprocess.DEVNULL,
+        )
         try:
-            n = await asyncio.to_thread(once)
-        except (StoreError, ValueError, KeyError) as exc:
-            log.warning("alarm rules: evaluation failed, will retry: %s", exc)
-        else:
-            if n:
-                log.info("alarm rules: %d alarm(s) raised or cleared", n)
+            rc = await proc.wait()
+        except asyncio.CancelledError:
+            if proc.returncode is None:
+                proc.terminate()
+                try:
+                    async with asyncio.timeout(10):
+                        await proc.wait()
+                except TimeoutError:
+                    proc.kill()
+                    await proc.wait()
+            raise
+        log.warning("alarm rules: the evaluator stopped (exit %s); restarting in %.0f s",
+                    rc, backoff)
+        await asyncio.sleep(backoff)
+        backoff = min(backoff * 2, 300.0)
 
 
 def _serve_metrics(config: GatewayConfig) -> metrics.MetricsServer | None:

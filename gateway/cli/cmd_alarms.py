@@ -40,6 +40,14 @@ def register(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
     ack.set_defaults(func=_ack)
     ev = verbs.add_parser("evaluate", help="run the rules once and update the states")
     ev.set_defaults(func=_evaluate)
+    watch = verbs.add_parser(
+        "watch", help="run the rules every --interval seconds until stopped (the gateway "
+        "starts this itself, as its own process)")
+    watch.add_argument("--interval", type=float, default=30.0, metavar="S",
+                       help="seconds between evaluations (default 30)")
+    watch.add_argument("--sinks", default="", metavar="A,B",
+                       help="sinks whose backlog the rules watch")
+    watch.set_defaults(func=_watch)
 
 
 def _open(url: str) -> tuple[Any, Any]:
@@ -95,4 +103,46 @@ def _evaluate(args: argparse.Namespace) -> int:
         journal.close()
         store.close()
     print(f"{n} alarm(s) raised or cleared")
+    return 0
+
+
+def _watch(args: argparse.Namespace) -> int:
+    """Evaluate until SIGTERM/SIGINT. Its own process, so the statistics libraries the rules
+    need never weigh on the gateway's memory; a failed round is reported and retried."""
+    import signal
+    import sys
+    import time
+
+    from gateway.alarm_eval import evaluate
+    from gateway.errors import LeakfleetError
+    from gateway.store import open_journal, open_store
+
+    if not 1.0 <= args.interval <= 86400:
+        raise ValueError(f"--interval: expected 1..86400 s, got {args.interval:g}")
+    sinks = [s for s in args.sinks.split(",") if s]
+    stopping = False
+
+    def stop(signum: int, frame: object) -> None:
+        nonlocal stopping
+        stopping = True
+
+    signal.signal(signal.SIGTERM, stop)
+    signal.signal(signal.SIGINT, stop)
+    while not stopping:
+        try:
+            store = open_store(args.store)
+            try:
+                with open_journal(args.store) as journal:
+                    n = evaluate(journal, store, sinks=sinks)
+            finally:
+                store.close()
+            if n:
+                print(f"alarm rules: {n} alarm(s) raised or cleared", file=sys.stderr,
+                      flush=True)
+        except (LeakfleetError, ValueError, KeyError, OSError) as exc:
+            print(f"alarm rules: evaluation failed, will retry: {exc}", file=sys.stderr,
+                  flush=True)
+        end = time.monotonic() + args.interval
+        while not stopping and time.monotonic() < end:
+            time.sleep(0.2)
     return 0

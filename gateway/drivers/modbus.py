@@ -224,7 +224,7 @@ class RingReader:
             self.seen = max(0, c1 - depth)
             self._torn.clear()
             u1 = c1
-        if u1 <= self.seen:
+        if u1 <= self.seen and not self._resumed:
             return []
         first = max(self.seen + 1, u1 - depth + 1)
         if first > self.seen + 1:

@@ -80,3 +80,39 @@ def test_cli_round_trip(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> N
     assert main(["alarms", "--store", url, "ack", "1", "--by", "Jo"]) != 0
     err = capsys.readouterr().err
     assert "not open and unacknowledged" in err and "Traceback" not in err
+
+
+def test_alarms_watch_evaluates_until_stopped(tmp_path: Path) -> None:
+    """The evaluator the gateway runs beside itself: raises a rejecting station's streak
+    in the journal, and stops cleanly on SIGTERM."""
+    import os
+    import signal
+    import subprocess
+    import sys
+    import time
+
+    from gateway.records import TestResult
+
+    url = f"sqlite:///{tmp_path / 'j.db'}"
+    now = datetime.now(UTC)
+    with open_journal(url) as j:
+        j.write([TestResult(station="S1", line="L1", cycle=i, ended_at=now - timedelta(
+            seconds=30 * (6 - i)), received_at=now, verdict="reject", program="P")
+            for i in range(6)])
+    repo = Path(__file__).resolve().parents[3]
+    proc = subprocess.Popen([sys.executable, "-m", "gateway", "alarms", "--store", url, "watch",
+                             "--interval", "1"], cwd=repo,
+                            env={**os.environ, "PYTHONPATH": str(repo)},
+                            stderr=subprocess.PIPE, text=True)
+    try:
+        deadline = time.monotonic() + 60
+        found: list[str] = []
+        while time.monotonic() < deadline and not found:
+            time.sleep(0.5)
+            with open_journal(url) as j:
+                found = [a.rule for a in Logbook(j).open_alarms()]
+    finally:
+        proc.send_signal(signal.SIGTERM)
+        rc = proc.wait(timeout=30)
+    assert "reject-streak" in found
+    assert rc == 0 and "Traceback" not in (proc.stderr.read() if proc.stderr else "")
