@@ -125,6 +125,11 @@ class InfluxClient:
         self._http: InfluxHttp | None = None
         self._v2: Any = None  # (InfluxDBClient, WriteApi)
         self._db_checked = False
+        # a missing secret is a config mistake: say so before the gateway starts (--check)
+        if opts.target.version == 2 and not read_secret(TOKEN_ENV, opts.token_file,
+                                                        f"sink {sink_name}"):
+            raise ConfigError(f"sink {sink_name}: influxdb2 needs a token: set {TOKEN_ENV} or "
+                              "token_file")
 
     def describe(self) -> str:
         return self.opts.target.describe()
