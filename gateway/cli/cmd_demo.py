@@ -91,9 +91,17 @@ def _run(args: argparse.Namespace) -> int:
         raise ConfigError(f"--port: expected 1..65535, got {args.port}")
     sinks_from_cli(args.mqtt, args.influx)  # a bad URL stops here, before any station starts
     run_dir: Path = args.run_dir
-    run_dir.mkdir(parents=True, exist_ok=True)
+    if run_dir.exists() and not run_dir.is_dir():
+        raise ConfigError(f"--run-dir {run_dir}: a file is in the way; give a directory")
+    try:
+        run_dir.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise ConfigError(f"--run-dir {run_dir}: cannot create it ({exc.strerror})") from None
     if args.store:
         check_store_url(args.store)
+        if not args.store.startswith("sqlite:") and "://" in args.store:
+            raise ConfigError(f"--store {args.store}: the demo's journal is SQLite "
+                              "(sqlite:///path/demo.db); add InfluxDB as a sink with --influx")
         store = args.store
     else:
         db = run_dir / "demo.db"
@@ -116,7 +124,8 @@ def _check_port_free(port: int) -> None:
         try:
             s.bind(("127.0.0.1", port))
         except OSError:
-            raise ConfigError(f"--port {port}: already in use; pick another with --port") from None
+            raise ConfigError(f"--port {port}: already in use; pick another with --port, or "
+                              "add --free-ports if the stations' ports are taken too") from None
 
 
 def demo_config(

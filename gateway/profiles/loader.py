@@ -883,7 +883,8 @@ def load_profile(ref: str | Path, search_dirs: Sequence[Path] = ()) -> Profile:
             profile = _read(candidate)
             if profile.name != text:
                 raise ConfigError(f"{candidate}: profile.name: expected {text!r} (the file "
-                                  f"name), got {profile.name!r}")
+                                  f"name), got {profile.name!r}; set name = {text!r} in the "
+                                  f"file (a copy of a built-in keeps its old name)")
             return profile
     places = ", ".join(str(d) for d in search_dirs) or "no profile directories"
     raise ConfigError(f"profile {text!r}: expected a profile file {text}.toml in {places} or a "
