@@ -41,6 +41,11 @@ def register(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
         help="gateway/plant TOML config for site name, time zone, shifts and leak standards",
     )  # fmt: skip
     parser.add_argument(
+        "--clock", choices=("wall", "data"), default="wall",
+        help="'now' on the pages: this machine's clock (default), or the newest record's time "
+        "(for a simulated plant running faster than real time, or a history replayed)",
+    )
+    parser.add_argument(
         "--no-login-ok", action="store_true",
         help="serve on a non-loopback address without a login (refused otherwise: anyone on "
         "the network would see the plant's data)",
@@ -172,7 +177,7 @@ def _run(args: argparse.Namespace) -> int:
             "set up a login first (dashboard/README.md), or add --no-login-ok"
         )
     argv, env = streamlit_command(
-        args.store, port=args.port, address=args.address, config=args.config
+        args.store, port=args.port, address=args.address, config=args.config, clock=args.clock
     )
     load_settings(env)  # a config mistake is one line now, not an error page later
     print(f"dashboard: http://{args.address}:{args.port}  (store {args.store}; Ctrl-C stops)",

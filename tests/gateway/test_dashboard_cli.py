@@ -97,3 +97,12 @@ def test_sigterm_stops_the_streamlit_child(tmp_path: Path) -> None:
     time.sleep(0.5)
     with socket.socket() as s:
         assert s.connect_ex(("127.0.0.1", port)) != 0  # nothing left serving the port
+
+
+def test_clock_option_reaches_the_pages() -> None:
+    from gateway.cli import build_parser
+
+    args = build_parser().parse_args(["dashboard", "--store", "sqlite:///x.db", "--clock", "data"])
+    assert args.clock == "data"
+    _, env = streamlit_command("sqlite:///x.db", port=8501, clock=args.clock, environ={})
+    assert env["LEAKFLEET_CLOCK"] == "data"
