@@ -40,6 +40,7 @@ from gateway.sinks.influx_http import (
     InfluxHttp,
     InfluxHttpError,
     InfluxTarget,
+    clear_text_warning,
     parse_influx_url,
 )
 from gateway.sinks.lineprotocol import encode
@@ -146,6 +147,9 @@ class InfluxClient:
                 raise ConfigError(f"{what}: influxdb2 needs a token: set {TOKEN_ENV} or token_file")
         else:
             password = read_secret(PASSWORD_ENV, self.opts.password_file, what)
+        warning = clear_text_warning(t, bool(token or password))
+        if warning:
+            log.warning("sink %s: %s", self.sink_name, warning)
         self._http = InfluxHttp(t, token=token, password=password,
                                 timeout_s=self.opts.timeout_s, ca_file=self.opts.ca_file)
         return self._http
