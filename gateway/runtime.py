@@ -33,6 +33,7 @@ from collections import deque
 from collections.abc import Awaitable, Callable, Mapping, Sequence
 from dataclasses import dataclass, field
 from datetime import timedelta
+from pathlib import Path
 from typing import Any
 
 from gateway import metrics
@@ -43,6 +44,7 @@ from gateway.errors import ConfigError, StoreError
 from gateway.health import Backoff, ClockWatch
 from gateway.records import CalibrationEvent, Rejected, StationState, StationStatus, TestResult
 from gateway.sinks import REGISTRY, Attachable, Forwarder, SinkContext, SinkFactory
+from gateway.store.guard import JournalGone, JournalLock, spill, take_back
 
 __all__ = [
     "Forwarder",
@@ -134,6 +136,10 @@ class JournalWriter:
         self._executor = concurrent.futures.ThreadPoolExecutor(1, thread_name_prefix="journal")
         self._journal: Any = None
         self._retry = Backoff(retry_initial_s, retry_max_s)
+        self.fatal: str | None = None  # why the writer stopped for good (journal gone ...)
+        self.on_fatal: Callable[[], None] | None = None
+        self.journal_path: Path | None = None  # for the spill file
+        self.spilled = 0
         self._failing: str | None = None
         self._closing = False
         self.committed = Pulse()  # fired after every commit: forwarders wake instead of polling
@@ -204,6 +210,8 @@ class JournalWriter:
                         await self._collect_until(loop.time() + wait)
                 if self._pending:
                     ok = await self._write_batch()
+                    if self.fatal is not None:
+                        return
                     if not ok:
                         if self._closing:
                             closed_at = closed_at or loop.time()
@@ -212,6 +220,8 @@ class JournalWriter:
                                     "journal still failing at shutdown: %d item(s) not stored",
                                     len(self._pending),
                                 )
+                                self.fatal = "journal failing at shutdown"
+                                self._spill_pending()
                                 return
                         await self._collect_until(loop.time() + self._retry.next())
                     continue
@@ -264,6 +274,16 @@ class JournalWriter:
         try:
             stats, stored = await loop.run_in_executor(self._executor, _write_counted,
                                                        self._journal, batch)
+        except JournalGone as exc:
+            self.fatal = str(exc)
+            log.error("%s", exc)
+            rescued = await loop.run_in_executor(self._executor, self._journal.rescue)
+            if rescued is not None:
+                log.error("the journal's committed records are kept in %s", rescued)
+            self._spill_pending()
+            if self.on_fatal is not None:
+                self.on_fatal()
+            return False
         except StoreError as exc:
             self.stats["failed_writes"] += 1
             if self._failing is None:
@@ -290,6 +310,22 @@ class JournalWriter:
             m = metrics.for_station(station)
             (m.rejected if kind == "rejected" else m.stored[kind]).inc(count)
         return True
+
+    def _spill_pending(self) -> None:
+        """What could not be committed goes to the spill file beside the journal (taken back
+        at the next start); the loss of anything that cannot be spilled is logged as such."""
+        if not self._pending or self.journal_path is None:
+            return
+        try:
+            n, path = spill(self.journal_path, list(self._pending))
+        except OSError as exc:
+            log.error("%d record(s) could not be stored nor spilled (%s): they are lost",
+                      len(self._pending), exc.strerror or exc)
+            return
+        self.spilled += n
+        log.error("%d record(s) not stored are kept in %s and stored at the next start", n,
+                  path)
+        self._pending.clear()
 
     async def _close_journal(self) -> None:
         loop = asyncio.get_running_loop()
@@ -517,7 +553,25 @@ class Runtime:
                 max_pending=cfg.runtime.max_pending,
             )
         writer = self.writer
+        from gateway.store._sqlite import sqlite_path
+
+        path = Path(sqlite_path(cfg.store))
+        writer.journal_path = path
+        writer.on_fatal = stop.set
+        lock = JournalLock(path)
+        lock.acquire()
+        try:
+            await self._run_locked(stop, writer, path)
+        finally:
+            lock.release()
+
+    async def _run_locked(self, stop: asyncio.Event, writer: JournalWriter, path: Path) -> None:
+        cfg = self.config
         journal = await writer.open()
+        if journal is not None:
+            back = await writer.call(take_back, path)
+            if back:
+                log.info("stored %d record(s) an earlier run had spilled", back)
         resume = await writer.call(resume_points, cfg.store) if journal is not None else {}
         self.targets = build_targets(cfg, resume)
         pacing = cfg.runtime.pacing
@@ -669,16 +723,24 @@ async def _cancel_all(tasks: Sequence[asyncio.Task[None]]) -> None:
 def run_gateway(config: GatewayConfig) -> int:
     """Run until SIGTERM/SIGINT; returns the process exit code."""
 
+    runtime = Runtime(config)
+
     async def main() -> None:
         stop = asyncio.Event()
         loop = asyncio.get_running_loop()
         for sig in (signal.SIGTERM, signal.SIGINT):
             with contextlib.suppress(NotImplementedError, RuntimeError):
                 loop.add_signal_handler(sig, stop.set)
-        await Runtime(config).run(stop)
+        await runtime.run(stop)
 
     started = time.monotonic()
     asyncio.run(main())  # Runtime.run serves the metrics endpoint when configured
     log.debug("ran %.1f s", time.monotonic() - started)
+    writer = runtime.writer
+    if writer is not None and writer.fatal is not None:
+        # a supervisor with restart-on-failure must see this: exit non-zero
+        log.error("stopped: %s%s", writer.fatal,
+                  f"; {writer.spilled} record(s) spilled" if writer.spilled else "")
+        return 1
     return 0
 

@@ -21,6 +21,7 @@ from __future__ import annotations
 
 import hashlib
 import json
+import os
 import sqlite3
 import threading
 from collections.abc import Callable, Iterable, Sequence
@@ -42,6 +43,7 @@ from gateway.records import (
     supplied_pairs,
 )
 from gateway.store._sqlite import from_us, sqlite_path, store_error, to_us
+from gateway.store.guard import JournalGone
 from gateway.store.schema import (
     CALIBRATION_COLUMNS,
     HOUR_US,
@@ -237,6 +239,7 @@ class Journal:
             # journal in memory, which is what insert speed depends on (SQLite default: 2 MB)
             self._conn.execute(f"PRAGMA cache_size = {CACHE_SIZE}")
             self.version = migrate(self._conn, migrations, where=str(self.path))
+            self._identity = _file_id(self.path)
         except sqlite3.Error as exc:
             self._conn.close()
             raise store_error(exc, self.path, "opening and migrating") from exc
@@ -254,6 +257,9 @@ class Journal:
         On failure nothing of the batch is stored and StoreError says why; the journal stays
         consistent, so the caller may retry the same batch later (repeats are ignored).
         """
+        if self._identity is not None and _file_id(self.path) != self._identity:
+            raise JournalGone(f"journal {self.path} was deleted or replaced while in use; "
+                              "stopping (what was committed is kept, see the log)")
         results: list[tuple[Any, ...]] = []
         calibrations: list[tuple[Any, ...]] = []
         statuses: list[tuple[Any, ...]] = []
@@ -501,6 +507,18 @@ class Journal:
         settle_part_hours(conn)
         return n
 
+    def rescue(self) -> Path | None:
+        """After ``JournalGone``: a complete copy of what this connection holds (the committed
+        records of a deleted or renamed file), beside the original path. None if it fails."""
+        target = self.path.with_name(f"{self.path.name}.rescued-{os.getpid()}.db")
+        with self._lock:
+            try:
+                self._conn.execute("PRAGMA wal_checkpoint(TRUNCATE)")
+                self._conn.execute("VACUUM INTO ?", (str(target),))
+            except sqlite3.Error:
+                return None
+        return target
+
     def close(self) -> None:
         """Checkpoint and close; safe to call twice."""
         with self._lock:
@@ -530,6 +548,17 @@ class Journal:
             except sqlite3.Error as exc:
                 self._rollback()
                 raise store_error(exc, self.path, action) from exc
+
+
+def _file_id(path: Path) -> tuple[int, int] | None:
+    """(device, inode) of the file at ``path``; None for an in-memory journal or no file."""
+    if str(path) == ":memory:":
+        return None
+    try:
+        st = path.stat()
+    except FileNotFoundError:
+        return (-1, -1)
+    return (st.st_dev, st.st_ino)
 
 
 def open_journal(url: str, *, durable: bool = False) -> Journal:
