@@ -29,6 +29,7 @@ __all__ = [
     "add_maintenance",
     "calibration_series",
     "calibrations",
+    "conflicts",
     "first_pass_counts",
     "fleet_conditions",
     "histogram",
@@ -394,3 +395,13 @@ def trace_stations(url: str) -> list[str]:
     except (LeakfleetError, sqlite3.Error, OSError) as exc:
         raise StoreUnavailable(str(exc)) from exc
     return [str(r[0]) for r in rows]
+
+
+@st.cache_data(ttl=LIVE_TTL, show_spinner=False)
+def conflicts(url: str) -> pd.DataFrame:
+    """Re-sends that disagreed with the stored record, newest first (journals only)."""
+    from gateway.store.conflicts import conflicts as read
+
+    rows = _logbook_call(url, lambda book: read(book._j)) or []
+    return pd.DataFrame(rows, columns=["kind", "record_id", "station", "detected_at", "reason",
+                                       "stored_raw", "new_raw"])

@@ -54,6 +54,7 @@ def fleet_conditions(
     status = status.set_index("station") if not status.empty else status
     quarantine = store.quarantine(now - timedelta(minutes=10), now + timedelta(seconds=1))
     bad = quarantine.groupby("station").size() if not quarantine.empty else pd.Series(dtype=int)
+    clashes = _conflict_counts(store, now)
     out: dict[str, list[Condition]] = {}
     for station in store.stations()["station"]:
         inp = station_inputs(store, station, now)
@@ -65,8 +66,26 @@ def fleet_conditions(
             state=str(status.loc[station, "state"]) if known else None,
             state_since=_when(status.loc[station, "at"]) if known else None,
             quarantined_10min=int(bad.get(station, 0)), rules=rules, now=now,
+            conflicts=clashes.get(station, 0),
         )  # fmt: skip
     return out
+
+
+def _conflict_counts(store: Any, now: datetime) -> dict[str, int]:
+    """Conflicting re-sends per station over the last day (SQLite journals keep them)."""
+    path = getattr(store, "path", None)
+    if path is None:
+        return {}
+    import sqlite3
+
+    try:
+        with sqlite3.connect(f"file:{path}?mode=ro", uri=True) as conn:
+            rows = conn.execute(
+                "SELECT station, COUNT(*) FROM conflicts WHERE detected_at >= ? GROUP BY station",
+                (int((now - timedelta(days=1)).timestamp() * 1e6),)).fetchall()
+    except sqlite3.Error:
+        return {}
+    return {str(s): int(n) for s, n in rows}
 
 
 def evaluate(journal: Any, store: Any, now: datetime | None = None,

@@ -306,6 +306,9 @@ class JournalWriter:
             self._failing = None
         for key in ("inserted", "duplicates", "quarantined"):
             self.stats[key] += int(getattr(stats, key, 0))
+        if getattr(stats, "conflicts", 0):
+            log.warning("%d re-sent record(s) differ from the stored ones; kept in the "
+                        "journal's conflicts table (leakfleet alarms list)", stats.conflicts)
         for (station, kind), count in stored.items():
             m = metrics.for_station(station)
             (m.rejected if kind == "rejected" else m.stored[kind]).inc(count)

@@ -88,3 +88,20 @@ else:
     st.dataframe(shown.rename(columns={"sink": "Sink", "kind": "Records", "waiting": "Waiting",
                                        "oldest": "Oldest waiting for"}),
                  hide_index=True, width="stretch", key="health_sinks")  # fmt: skip
+
+st.subheader("Conflicting re-sends")
+clashes = data.conflicts(p.url)
+if clashes.empty:
+    st.caption("No station has re-sent a stored record with other values.")
+else:
+    st.caption("The stored record stays; the differing re-send is kept here with both raw "
+               "inputs. A reset station clock or counter, or a corrected result, causes these.")
+    st.dataframe(
+        clashes.assign(detected_at=pd.to_datetime(clashes["detected_at"], utc=True)
+                       .dt.tz_convert(tz).dt.strftime("%Y-%m-%d %H:%M:%S"))
+        .rename(columns={"detected_at": "Seen", "station": "Station", "kind": "Record",
+                         "reason": "What differs", "stored_raw": "Stored (raw)",
+                         "new_raw": "Re-sent (raw)"})
+        [["Seen", "Station", "Record", "What differs", "Stored (raw)", "Re-sent (raw)"]],
+        hide_index=True, width="stretch", key="health_conflicts",
+    )  # fmt: skip

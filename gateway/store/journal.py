@@ -43,6 +43,7 @@ from gateway.records import (
     supplied_pairs,
 )
 from gateway.store._sqlite import from_us, sqlite_path, store_error, to_us
+from gateway.store.conflicts import find_conflicts
 from gateway.store.guard import JournalGone
 from gateway.store.schema import (
     CALIBRATION_COLUMNS,
@@ -77,6 +78,7 @@ class WriteStats:
     inserted: int = 0
     duplicates: int = 0
     quarantined: int = 0
+    conflicts: int = 0  # repeats of a stored key with other values (kept in ``conflicts``)
 
 
 def quarantine_id(item: Rejected) -> str:
@@ -288,7 +290,7 @@ class Journal:
             try:
                 conn.execute("BEGIN IMMEDIATE")
                 # rowcount, not total_changes: the summaries' own writes must not count
-                inserted = quarantined = 0
+                inserted = quarantined = new = 0
                 if results:
                     # new rows get seqs above the current maximum: that is how the summary
                     # fold tells them from the stored ones (and from ignored repeats)
@@ -297,8 +299,15 @@ class Journal:
                     if new > 0:
                         fold_results(conn, before)
                     inserted += new
+                clashes = 0
+                if results and new < len(results):  # some were repeats: true ones, or not?
+                    clashes += find_conflicts(conn, "results", RESULT_COLUMNS, results)
                 if calibrations:
-                    inserted += conn.executemany(_INSERT_CALIBRATION, calibrations).rowcount
+                    new_cal = conn.executemany(_INSERT_CALIBRATION, calibrations).rowcount
+                    inserted += new_cal
+                    if new_cal < len(calibrations):
+                        clashes += find_conflicts(conn, "calibrations", CALIBRATION_COLUMNS,
+                                                  calibrations)
                 if statuses:
                     inserted += conn.executemany(_INSERT_STATUS, statuses).rowcount
                 if rejected:
@@ -312,7 +321,8 @@ class Journal:
             except BaseException:
                 self._rollback()
                 raise
-        return WriteStats(inserted, total - inserted - quarantined, quarantined)
+        return WriteStats(inserted, total - inserted - quarantined - clashes, quarantined,
+                          clashes)
 
     def _rollback(self) -> None:
         try:

@@ -15,6 +15,7 @@ from collections.abc import Sequence
 from dataclasses import dataclass
 
 from gateway.errors import StoreError
+from gateway.store.conflicts import CONFLICT_SCHEMA
 from gateway.store.traces import TRACE_SCHEMA
 
 __all__ = [
@@ -470,6 +471,7 @@ MIGRATIONS: tuple[Migration, ...] = (
     Migration(5, _V5, "absent values stay absent; time source, supplied values, part family"),
     Migration(6, _V6, "maintenance events and alarm states"),
     Migration(7, TRACE_SCHEMA, "pressure traces, one packed row per curve"),
+    Migration(8, CONFLICT_SCHEMA, "re-sends that disagree with the stored record"),
 )
 SCHEMA_VERSION = MIGRATIONS[-1].version
 
