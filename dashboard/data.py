@@ -32,6 +32,7 @@ __all__ = [
     "conflicts",
     "first_pass_counts",
     "fleet_conditions",
+    "gaps",
     "histogram",
     "latest",
     "leak_summary",
@@ -405,3 +406,14 @@ def conflicts(url: str) -> pd.DataFrame:
     rows = _logbook_call(url, lambda book: read(book._j)) or []
     return pd.DataFrame(rows, columns=["kind", "record_id", "station", "detected_at", "reason",
                                        "stored_raw", "new_raw"])
+
+
+@st.cache_data(ttl=LIVE_TTL, show_spinner=False)
+def gaps(url: str) -> pd.DataFrame:
+    """Lost cycles on record, newest first (journals only)."""
+    from gateway.store.gaps import gaps as read
+
+    rows = _logbook_call(url, lambda book: read(book._j)) or []
+    return pd.DataFrame([{"station": g.station, "at": g.at, "first": g.first, "last": g.last,
+                          "source": g.source, "detail": g.detail} for g in rows],
+                        columns=["station", "at", "first", "last", "source", "detail"])

@@ -55,6 +55,7 @@ def fleet_conditions(
     quarantine = store.quarantine(now - timedelta(minutes=10), now + timedelta(seconds=1))
     bad = quarantine.groupby("station").size() if not quarantine.empty else pd.Series(dtype=int)
     clashes = _conflict_counts(store, now)
+    lost = _recent_gaps(store, now)
     out: dict[str, list[Condition]] = {}
     for station in store.stations()["station"]:
         inp = station_inputs(store, station, now)
@@ -66,7 +67,7 @@ def fleet_conditions(
             state=str(status.loc[station, "state"]) if known else None,
             state_since=_when(status.loc[station, "at"]) if known else None,
             quarantined_10min=int(bad.get(station, 0)), rules=rules, now=now,
-            conflicts=clashes.get(station, 0),
+            conflicts=clashes.get(station, 0), gaps=lost.get(station, []),
         )  # fmt: skip
     return out
 
@@ -114,3 +115,24 @@ def evaluate(journal: Any, store: Any, now: datetime | None = None,
         conds += sink_conditions(oldest, rules, now)
     opened = [a.key for a in book.open_alarms()]
     return book.apply(transitions(conds, opened), now)
+
+
+def _recent_gaps(store: Any, now: datetime) -> dict[str, list[tuple[int, int, datetime]]]:
+    """Gaps recorded over the last day, per station (SQLite journals keep them)."""
+    path = getattr(store, "path", None)
+    if path is None:
+        return {}
+    import sqlite3
+
+    from gateway.store._sqlite import from_us
+
+    try:
+        with sqlite3.connect(f"file:{path}?mode=ro", uri=True) as conn:
+            rows = conn.execute("SELECT station, first, last, at FROM gaps WHERE at >= ?",
+                                (int((now - timedelta(days=1)).timestamp() * 1e6),)).fetchall()
+    except sqlite3.Error:
+        return {}
+    out: dict[str, list[tuple[int, int, datetime]]] = {}
+    for station, first, last, at in rows:
+        out.setdefault(str(station), []).append((int(first), int(last), from_us(at)))
+    return out

@@ -349,7 +349,10 @@ Tally = dict[tuple[str, str], int]  # (station, kind) -> count
 def _tally(items: Sequence[Item]) -> Tally:
     out: Tally = {}
     for item in items:
-        key = (item.station, _KIND[type(item)])
+        kind = _KIND.get(type(item))
+        if kind is None:
+            continue  # gaps and traces: journalled, not counted per station here
+        key = (item.station, kind)
         out[key] = out.get(key, 0) + 1
     return out
 
@@ -479,7 +482,9 @@ class _FlaggingOutbox:
         m = self._metrics.get(item.station)
         if m is None:
             m = self._metrics[item.station] = metrics.for_station(item.station)
-        m.received[_KIND[type(item)]].inc()
+        kind = _KIND.get(type(item))
+        if kind is not None:
+            m.received[kind].inc()
         if isinstance(item, StationStatus):
             m.state(item.state)
 

@@ -105,3 +105,18 @@ else:
         [["Seen", "Station", "Record", "What differs", "Stored (raw)", "Re-sent (raw)"]],
         hide_index=True, width="stretch", key="health_conflicts",
     )  # fmt: skip
+
+st.subheader("Lost cycles (gaps)")
+lost = data.gaps(p.url)
+if lost.empty:
+    st.caption("No gap recorded: every cycle the stations numbered has arrived.")
+else:
+    st.caption("Cycles a station ran that never reached the journal: overwritten in its ring "
+               "before they could be read (ring), or numbers skipped in what arrived (sequence).")
+    st.dataframe(
+        lost.assign(at=pd.to_datetime(lost["at"], utc=True).dt.tz_convert(tz)
+                    .dt.strftime("%Y-%m-%d %H:%M:%S"))
+        .rename(columns={"at": "Recorded", "station": "Station", "first": "First cycle",
+                         "last": "Last cycle", "source": "Found by", "detail": "Detail"}),
+        hide_index=True, width="stretch", key="health_gaps",
+    )  # fmt: skip

@@ -36,7 +36,14 @@ from gateway.drivers.base import (
 )
 from gateway.drivers.lines import split_host_port
 from gateway.errors import ProtocolError, TransportError
-from gateway.records import CalibrationEvent, Rejected, StationState, StationStatus, TestResult
+from gateway.records import (
+    CalibrationEvent,
+    GapEvent,
+    Rejected,
+    StationState,
+    StationStatus,
+    TestResult,
+)
 
 if TYPE_CHECKING:
     from gateway.profiles import ModbusSpec, StationContext
@@ -248,6 +255,9 @@ class RingReader:
         log.warning("%s: %s", self.station, detail)
         state = out.state or StationState.ONLINE  # restate the current state, with the gap
         out.items.append(StationStatus(station=self.station, at=at, state=state, detail=detail))
+        # the loss itself, on record: the journal keeps it in its gaps table
+        out.items.append(GapEvent(station=self.station, at=at, first=lo, last=hi, source="ring",
+                                  detail=detail, line=self.context.line))
 
     def _accept_results(
         self,

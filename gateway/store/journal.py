@@ -33,6 +33,7 @@ from typing import Any, Literal
 from gateway.errors import StoreError
 from gateway.records import (
     CalibrationEvent,
+    GapEvent,
     PressureTrace,
     Record,
     Rejected,
@@ -44,6 +45,7 @@ from gateway.records import (
 )
 from gateway.store._sqlite import from_us, sqlite_path, store_error, to_us
 from gateway.store.conflicts import find_conflicts
+from gateway.store.gaps import record_gaps
 from gateway.store.guard import JournalGone
 from gateway.store.schema import (
     CALIBRATION_COLUMNS,
@@ -79,6 +81,7 @@ class WriteStats:
     duplicates: int = 0
     quarantined: int = 0
     conflicts: int = 0  # repeats of a stored key with other values (kept in ``conflicts``)
+    gaps: int = 0  # ranges of lost cycles recorded (reported by readers, or skipped numbers)
 
 
 def quarantine_id(item: Rejected) -> str:
@@ -242,6 +245,7 @@ class Journal:
             self._conn.execute(f"PRAGMA cache_size = {CACHE_SIZE}")
             self.version = migrate(self._conn, migrations, where=str(self.path))
             self._identity = _file_id(self.path)
+            self._last_cycle: dict[str, int] = {}  # per station, for sequence gaps
         except sqlite3.Error as exc:
             self._conn.close()
             raise store_error(exc, self.path, "opening and migrating") from exc
@@ -252,7 +256,9 @@ class Journal:
     # -- write side ---------------------------------------------------------------------------
     def write(
         self,
-        items: Iterable[TestResult | CalibrationEvent | StationStatus | Rejected | PressureTrace],
+        items: Iterable[
+            TestResult | CalibrationEvent | StationStatus | Rejected | PressureTrace | GapEvent
+        ],
     ) -> WriteStats:
         """Store a batch in ONE transaction; repeats of stored records are counted, not stored.
 
@@ -267,6 +273,7 @@ class Journal:
         statuses: list[tuple[Any, ...]] = []
         rejected: list[tuple[Any, ...]] = []
         curves: list[tuple[Any, ...]] = []
+        lost: list[GapEvent] = []
         for item in items:
             # exact type dispatch: cheaper than isinstance chains on the hot path
             t = type(item)
@@ -280,9 +287,12 @@ class Journal:
                 calibrations.append(_calibration_row(item))  # type: ignore[arg-type]
             elif t is PressureTrace:
                 curves.append(trace_row(item))  # type: ignore[arg-type]
+            elif t is GapEvent:
+                lost.append(item)  # type: ignore[arg-type]
             else:
                 raise TypeError(f"cannot journal a {t.__name__}")
-        total = len(results) + len(calibrations) + len(statuses) + len(rejected) + len(curves)
+        total = (len(results) + len(calibrations) + len(statuses) + len(rejected) + len(curves)
+                 + len(lost))
         if total == 0:
             return WriteStats()
         with self._lock:
@@ -291,14 +301,19 @@ class Journal:
                 conn.execute("BEGIN IMMEDIATE")
                 # rowcount, not total_changes: the summaries' own writes must not count
                 inserted = quarantined = new = 0
+                before = conn.execute(_MAX_RESULT_SEQ).fetchone()[0] or 0
                 if results:
                     # new rows get seqs above the current maximum: that is how the summary
                     # fold tells them from the stored ones (and from ignored repeats)
-                    before = conn.execute(_MAX_RESULT_SEQ).fetchone()[0] or 0
                     new = conn.executemany(_INSERT_RESULT, results).rowcount
                     if new > 0:
                         fold_results(conn, before)
                     inserted += new
+                found_gaps = 0
+                if lost or new > 0:
+                    stored_gaps, found_gaps = record_gaps(conn, lost, before, self._last_cycle)
+                    inserted += stored_gaps
+                    found_gaps += stored_gaps
                 clashes = 0
                 if results and new < len(results):  # some were repeats: true ones, or not?
                     clashes += find_conflicts(conn, "results", RESULT_COLUMNS, results)
@@ -322,9 +337,10 @@ class Journal:
                 self._rollback()
                 raise
         return WriteStats(inserted, total - inserted - quarantined - clashes, quarantined,
-                          clashes)
+                          clashes, found_gaps)
 
     def _rollback(self) -> None:
+        self._last_cycle.clear()  # it may hold cycles of the batch that is undone
         try:
             if self._conn.in_transaction:
                 self._conn.execute("ROLLBACK")
