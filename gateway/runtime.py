@@ -41,6 +41,7 @@ from gateway.aio import Pulse, within
 from gateway.config import GatewayConfig
 from gateway.drivers.base import Item, Outbox, Pacing, StationTarget, utcnow
 from gateway.errors import ConfigError, StoreError
+from gateway.garbage import GarbageLimiter
 from gateway.health import Backoff, ClockWatch
 from gateway.records import CalibrationEvent, Rejected, StationState, StationStatus, TestResult
 from gateway.sinks import REGISTRY, Attachable, Forwarder, SinkContext, SinkFactory
@@ -458,6 +459,7 @@ class _FlaggingOutbox:
         self._health = health
         self._clock = ClockWatch()
         self._metrics = {station: metrics.for_station(station) for station in health}
+        self._garbage = GarbageLimiter()
 
     @property
     def accepting(self) -> bool:
@@ -465,8 +467,16 @@ class _FlaggingOutbox:
 
     async def put(self, items: Sequence[Item]) -> None:
         notes: list[Item] = []
+        kept: list[Item] = []
+        now = utcnow()
         for item in items:
             self._count(item)
+            if isinstance(item, Rejected):
+                keep, closed = self._garbage.admit(item, now)
+                notes.extend(closed)
+                if not keep:
+                    continue
+            kept.append(item)
             if isinstance(item, TestResult):
                 note = self._clock.check(item.station, item.cycle, item.ended_at)
                 if note is not None:
@@ -476,7 +486,17 @@ class _FlaggingOutbox:
                     status = StationStatus(item.station, utcnow(), state, note)
                     self._count(status)
                     notes.append(status)
-        await self._writer.put([*items, *notes] if notes else items)
+        for summary in [n for n in notes if isinstance(n, Rejected)]:
+            h = self._health.get(summary.station)
+            state = getattr(h, "state", None) or StationState.ONLINE
+            notes.append(StationStatus(summary.station, now, state, summary.reason))
+        await self._writer.put([*kept, *notes] if notes else kept)
+
+    async def flush_garbage(self) -> None:
+        """At shutdown: the counts of inputs not kept in the open windows, on record."""
+        rows = self._garbage.flush(utcnow())
+        if rows:
+            await self._writer.put(rows)
 
     def _count(self, item: Item) -> None:
         m = self._metrics.get(item.station)
@@ -620,6 +640,7 @@ class Runtime:
             await stop.wait()
             log.info("stopping: %d item(s) waiting for the journal", writer.pending)
             await _cancel_all(bus_tasks)
+            await outbox.flush_garbage()
             at = utcnow()
             await outbox.put([
                 StationStatus(station=t.station, at=at, state=StationState.OFFLINE,
