@@ -31,6 +31,7 @@ from gateway.sinks import SinkContext, register_sink
 from gateway.sinks.forwarder import (
     ForwarderOptions,
     JournalForwarder,
+    SinkRefused,
     SinkUnavailable,
     read_secret,
 )
@@ -49,6 +50,9 @@ from gateway.store.journal import KINDS, Kind
 __all__ = ["InfluxClient", "InfluxOptions", "make_influx"]
 
 log = logging.getLogger(__name__)
+#: HTTP answers that judge the data, not the server's state: 400 bad request (unparsable
+#: point, time out of range), 413 too large, 422 unprocessable (v2: outside retention)
+_REFUSED = (400, 413, 422)
 
 _KEYS = ("url", "username", "password_file", "token_file", "ca_file", "create_database",
          "kinds", "timeout_s")
@@ -181,6 +185,10 @@ class InfluxClient:
             else:
                 await asyncio.to_thread(http.write, body)
         except InfluxHttpError as exc:
+            if exc.status in _REFUSED:
+                # the server read the batch and will never take it (a timestamp outside its
+                # range, a malformed point, too large): retrying cannot help
+                raise SinkRefused(f"{self.describe()}: {exc}") from None
             hint = ""
             if exc.status in (401, 403):
                 hint = f" (check {TOKEN_ENV if http.target.version == 2 else PASSWORD_ENV})"

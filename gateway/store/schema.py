@@ -16,6 +16,7 @@ from dataclasses import dataclass
 
 from gateway.errors import StoreError
 from gateway.store.conflicts import CONFLICT_SCHEMA
+from gateway.store.deadletters import DEAD_LETTER_SCHEMA
 from gateway.store.gaps import GAP_SCHEMA
 from gateway.store.traces import TRACE_SCHEMA
 
@@ -474,6 +475,7 @@ MIGRATIONS: tuple[Migration, ...] = (
     Migration(7, TRACE_SCHEMA, "pressure traces, one packed row per curve"),
     Migration(8, CONFLICT_SCHEMA, "re-sends that disagree with the stored record"),
     Migration(9, GAP_SCHEMA, "cycles known to be lost"),
+    Migration(10, DEAD_LETTER_SCHEMA, "records a sink's server refused"),
 )
 SCHEMA_VERSION = MIGRATIONS[-1].version
 
