@@ -93,7 +93,11 @@ def _check_number(
 
 
 def _to_utc(value: datetime) -> datetime:
-    return value.astimezone(UTC)
+    try:
+        return value.astimezone(UTC)
+    except OverflowError:  # year 1 east of Greenwich, year 9999 west of it
+        raise ValueError(f"time {value.isoformat()} is outside what UTC can hold "
+                         "(years 1..9999)") from None
 
 
 def _iso(value: datetime | None) -> str | None:
@@ -268,9 +272,9 @@ class TestResult(_RecordMixin):
             and self.supplied == ()
         ):  # fmt: skip
             if e.tzinfo is not UTC:
-                object.__setattr__(self, "ended_at", e.astimezone(UTC))
+                object.__setattr__(self, "ended_at", _to_utc(e))
             if r.tzinfo is not UTC:
-                object.__setattr__(self, "received_at", r.astimezone(UTC))
+                object.__setattr__(self, "received_at", _to_utc(r))
             return
         self._validate()
 

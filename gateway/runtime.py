@@ -478,7 +478,8 @@ class _FlaggingOutbox:
                     continue
             kept.append(item)
             if isinstance(item, TestResult):
-                note = self._clock.check(item.station, item.cycle, item.ended_at)
+                note = self._clock.check(item.station, item.cycle, item.ended_at,
+                                         item.received_at)
                 if note is not None:
                     log.warning("%s: %s", item.station, note)
                     h = self._health.get(item.station)

@@ -248,3 +248,13 @@ def test_no_verdict_bit_set_is_rejected_with_the_word() -> None:
     regs[18] = 0x3001  # valid, heater, door: no verdict bit
     out = spec.decode_result(regs, 5, StationContext("S1", "L1"), NOW)
     assert isinstance(out, Rejected) and "no verdict bit set in 0x3001" in out.reason
+
+
+def test_times_utc_cannot_hold_are_rejected_with_a_reason() -> None:
+    """Year 1 in a zone east of Greenwich (or 9999 west of it) has no UTC equivalent: the
+    line is quarantined with that reason, never an OverflowError."""
+    profile = load_profile("lf-delim")
+    data = (b"R;1042;0001-01-01 00:30:00;HX-210;X;ACC;350.02;41.8;0.213;2.000;-1.000;3.0;8.0;"
+            b"10.0;22.41\n")
+    [entry] = check_text(profile, data, StationContext("S1", "L1", "Europe/Berlin"), NOW)
+    assert isinstance(entry.item, Rejected) and "outside what UTC can hold" in entry.item.reason
