@@ -187,7 +187,16 @@ class RingReader:
         blocks: dict[int, list[int]] = {}
         for cycle in cycles:
             address = int(ring.slot_address(cycle % self._mod))
-            blocks[cycle] = await self._read(link, address, int(ring.length))
+            try:
+                blocks[cycle] = await self._read(link, address, int(ring.length))
+            except ProtocolError as exc:
+                # read what can be read: the slots before this one still count, the rest
+                # wait for the next poll (a poll is not all-or-nothing)
+                if not blocks:
+                    raise
+                log.debug("%s: slot of cycle %d not read (%s); %d read this poll",
+                          self.station, cycle % self._mod, exc, len(blocks))
+                break
         cal_regs: list[int] | None = None
         cal = self.spec.calibration
         if cal is not None and cc1 > 0 and cc1 != self.cal_seen:
@@ -195,7 +204,12 @@ class RingReader:
         if not blocks and cal_regs is None:
             return out
 
-        header2 = await self._read_header(link)
+        try:
+            header2 = await self._read_header(link)
+        except (ProtocolError, TransportError):
+            if any(isinstance(i, GapEvent) for i in out.items):
+                return out  # the gap found before the failure stays on record
+            raise
         c2 = self.spec.decode_counter(self._slice(header2, self._counter_span))
         if blocks:
             u2 = self._unwrap(c2)
