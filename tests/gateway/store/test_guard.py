@@ -107,3 +107,32 @@ async def test_a_conflict_is_a_status_and_a_metric(tmp_path: Path) -> None:
     assert any(d.startswith("conflict: 1 re-sent") for d in details)
     text = metrics.exposition().decode()
     assert 'leakfleet_records_kept_aside_total{station="S1",what="conflict"}' in text
+
+
+async def test_stopping_while_the_disk_is_full_spills_and_fails(tmp_path: Path) -> None:
+    """SIGTERM while every write fails (disk full): what is held in memory goes to the spill
+    file, the writer says it failed (the gateway then exits non-zero), and nothing is lost."""
+    from gateway.errors import StoreError
+
+    class FullDisk:
+        def write(self, items: object) -> object:
+            raise StoreError("journal j.db: disk full while writing a batch")
+
+        def max_seq(self, kind: str) -> int:
+            return 0
+
+        def close(self) -> None:
+            pass
+
+    db = tmp_path / "j.db"
+    writer = JournalWriter(lambda: FullDisk(), retry_initial_s=0.01, retry_max_s=0.02)
+    writer.journal_path = db
+    await writer.open()
+    task = asyncio.create_task(writer.run(shutdown_grace_s=0.2))
+    await writer.put(_results(1, 17))
+    await asyncio.sleep(0.1)
+    await writer.close()
+    await asyncio.wait_for(task, 10)
+    assert writer.fatal is not None and writer.spilled == 17
+    with open_journal(f"sqlite:///{db}") as j:  # the next start takes them back
+        assert take_back(j, db) == 17
