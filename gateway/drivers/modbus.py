@@ -132,6 +132,9 @@ class RingReader:
         )
         self._state_span = field_span(spec.state) if spec.state is not None else None
         self._acked: int | None = None
+        self._handled: int | None = None  # newest cycle actually journalled or quarantined
+        self._first_contact = False  # reading what the ring held before we knew its counter
+        self._modulus = 1 << (16 * int(ring.counter_registers))
 
     def pending_ack(self) -> tuple[int, list[int]] | None:
         """(address, registers) to acknowledge the newest handled cycle, if the profile asks.
@@ -140,10 +143,10 @@ class RingReader:
         never writes to a station on its own initiative.
         """
         ack = self.spec.acknowledge
-        if ack is None or self.seen is None or self.seen == self._acked or self.seen <= 0:
+        if ack is None or self._handled is None or self._handled == self._acked:
             return None
-        self._acked = self.seen
-        return int(ack.address), list(ack.encode(self.seen, self.spec.word_order))
+        self._acked = self._handled
+        return int(ack.address), list(ack.encode(self._handled, self.spec.word_order))
 
     # -- the poll ---------------------------------------------------------------------------
     async def poll(self, link: RegisterLink, *, take_results: bool = True) -> PollOutcome:
@@ -171,7 +174,9 @@ class RingReader:
             blocks[cycle] = await self._read(link, address, int(ring.length))
         cal_regs: list[int] | None = None
         cal = self.spec.calibration
-        if cal is not None and cc1 > 0 and cc1 != self.cal_seen:
+        if cal is not None and self.cal_seen is None and cc1 == 0:
+            self.cal_seen = 0  # no calibration yet; the one numbered 0 after a wrap is new
+        if cal is not None and cc1 != self.cal_seen:
             cal_regs = await self._read(link, int(cal.address), int(cal.length))
         if not blocks and cal_regs is None:
             return out
@@ -190,31 +195,54 @@ class RingReader:
     def _cycles_to_read(
         self, c1: int, depth: int, out: PollOutcome, received_at: datetime
     ) -> list[int]:
-        if c1 <= 0:
-            return []
+        """The cycles to read this poll, oldest first, counted modulo the counter's range.
+
+        A 16- or 32-bit counter wraps (65535 -> 0): the cycle after ``seen`` is
+        ``(seen + 1) mod 2^n``, so the result numbered 0 is the next cycle, not a reset. A
+        counter that moves back by more than half its range is read as a station reset.
+        First contact (and after a reset or restart): the last ``depth`` cycles the ring can
+        hold are read (only 1..c1 when the counter is below the depth: no wrap is assumed);
+        slots never written (all zero, or both guards naming another cycle) are skipped
+        silently, never quarantined. A counter of 0 at first contact means "nothing yet": no
+        slot is read, but gap detection is armed from 0.
+        """
+        modulus = self._modulus
         if self.seen is None:
-            self.seen = max(0, c1 - depth)  # first contact: whatever the ring still holds
-        elif c1 < self.seen:
+            if c1 == 0:
+                self.seen = 0  # nothing produced yet; cycle 1 (or a jump past it) comes next
+                return []
+            # first contact: a young station's ring holds cycles 1..c1 only (no wrap assumed)
+            self.seen = (c1 - min(c1, depth)) % modulus
+            self._first_contact = True
+        ahead = (c1 - self.seen) % modulus
+        if ahead > modulus // 2:
             log.warning(
                 "%s: result counter went back from %d to %d (station reset?); rereading its ring",
                 self.station, self.seen, c1,
             )
-            self.seen = max(0, c1 - depth)
+            self.seen = (c1 - depth) % modulus
+            self._first_contact = True
             self._torn.clear()
-        first = max(self.seen + 1, c1 - depth + 1)
-        if first > self.seen + 1:
-            self._gap(self.seen + 1, first - 1, depth, received_at, out)
-            self.seen = first - 1
+            ahead = depth
+        if ahead > depth and not self._first_contact:
+            lost_to = (c1 - depth) % modulus
+            self._gap((self.seen + 1) % modulus, lost_to, depth, received_at, out, ahead - depth)
+            self.seen = lost_to
+            ahead = depth
+        ahead = min(ahead, depth)
         if self._resumed:
             # after a restart, read the whole ring once: a cycle torn at the moment the last
             # run stopped is read now, and repeats are ignored by the journal
             self._resumed = False
-            first = max(1, c1 - depth + 1)
-        return list(range(first, c1 + 1))
+            self._first_contact = True  # slots never written since are skipped, not torn
+            ahead = depth
+        return [(c1 - ahead + 1 + i) % modulus for i in range(ahead)]
 
-    def _gap(self, lo: int, hi: int, depth: int, at: datetime, out: PollOutcome) -> None:
-        out.missed += hi - lo + 1
-        what = f"cycles {lo}..{hi}" if hi > lo else f"cycle {lo}"
+    def _gap(
+        self, lo: int, hi: int, depth: int, at: datetime, out: PollOutcome, count: int
+    ) -> None:
+        out.missed += count
+        what = f"cycles {lo}..{hi}" if count > 1 else f"cycle {lo}"
         detail = (
             f"gap: {what} overwritten in the station's ring (depth {depth}) before they could "
             "be read"
@@ -232,21 +260,36 @@ class RingReader:
         received_at: datetime,
         out: PollOutcome,
     ) -> None:
-        if c2 < c1:
+        modulus = self._modulus
+        if (c2 - c1) % modulus > modulus // 2:
             log.debug("%s: counter moved back during the read (%d -> %d)", self.station, c1, c2)
             return
+        first_contact, self._first_contact = self._first_contact, False
         advance = True
-        for cycle in sorted(blocks):
-            if c2 >= cycle + depth:
+        for cycle in blocks:  # in read order, oldest first (65535 comes before 0)
+            if (c2 - cycle) % modulus >= depth:
                 # its slot may have been rewritten while we read: the next poll reports the gap
                 advance = False
+                self._first_contact = first_contact
                 continue
-            decoded = self.spec.decode_result(blocks[cycle], cycle, self.context, received_at)
+            regs = blocks[cycle]
+            if first_contact and not any(regs):
+                if advance:
+                    self.seen = cycle  # a slot never written: nothing to take, nothing lost
+                continue
+            decoded = self.spec.decode_result(regs, cycle, self.context, received_at)
             if isinstance(decoded, TestResult):
                 out.items.append(decoded)
                 out.accepted += 1
                 self._torn.pop(cycle, None)
+                self._handled = cycle
             elif isinstance(decoded, Rejected) and _is_torn(decoded):
+                if first_contact and self._holds_other_cycle(regs, cycle):
+                    # the slot still holds an older cycle (written before this station's
+                    # counter came round): not ours to take, not a torn block
+                    if advance:
+                        self.seen = cycle
+                    continue
                 out.torn += 1
                 tries = self._torn.get(cycle, 0) + 1
                 self._torn[cycle] = tries
@@ -256,10 +299,29 @@ class RingReader:
                     continue
                 self._torn.pop(cycle, None)
                 out.items.append(_persisted(decoded, tries))
+                self._handled = cycle
             else:
                 out.items.append(decoded)  # consistent but undecodable: bad data, quarantine
+                self._handled = cycle
             if advance:
                 self.seen = cycle
+
+    def _holds_other_cycle(self, regs: list[int], cycle: int) -> bool:
+        """Both guards agree on a cycle other than ``cycle``: a complete older block."""
+        from gateway.errors import DecodeError
+        from gateway.profiles.registers import decode_registers
+
+        ring = self.spec.result
+        width = int(ring.counter_registers)
+        try:
+            head, tail = (
+                decode_registers(regs[at : at + width], ring.counter_type,
+                                 word_order=ring.word_order, byte_order=ring.byte_order)
+                for at in (int(ring.head_guard), int(ring.tail_guard))
+            )
+        except DecodeError:
+            return False
+        return head == tail and head != cycle
 
     def _accept_calibration(
         self, regs: list[int], cc1: int, cc2: int, received_at: datetime, out: PollOutcome
