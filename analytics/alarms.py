@@ -27,7 +27,7 @@ import numpy as np
 import pandas as pd
 
 from analytics._result import ResultMixin
-from analytics.drift import baseline, cusum_chart, ewma_chart
+from analytics.drift import cusum_chart, ewma_chart
 
 __all__ = [
     "EPOCH_EVENTS",
@@ -36,6 +36,7 @@ __all__ = [
     "Transition",
     "calibration_conditions",
     "epochs",
+    "forecast_errors",
     "link_conditions",
     "reject_conditions",
     "transitions",
@@ -74,6 +75,7 @@ class AlarmRules:
     ewma_L: float = 3.0
     cusum_k: float = 0.5
     cusum_h: float = 5.0
+    trend_window: int = 20  # calibrations the local trend line is fitted through
     calibration_interval: timedelta | None = None  # overdue after this (None: not checked)
     reject_streak: int = 3  # this many rejects in a row
     reject_window: int = 50  # tests the reject rate is counted over
@@ -138,14 +140,45 @@ def calibration_conditions(
     return out
 
 
+def forecast_errors(values: np.ndarray, start: int, window: int) -> np.ndarray:
+    """Standardised one-step-ahead prediction errors of a local straight line.
+
+    Each value from ``start`` on is predicted from a least-squares line through the ``window``
+    values before it; the error is divided by the line's prediction standard error
+    (s·√(1 + 1/n + (x₀ − x̄)²/Sxx), the textbook prediction interval of simple regression).
+    Charting these instead of the raw values (Alwan & Roberts 1988, special-cause charts on
+    forecast errors) lets a steady trend such as seal wear pass as expected while a step
+    (a damaged fixture, a blocked leak standard) or a change of the trend still signals.
+    """
+    out = []
+    for i in range(start, values.size):
+        lo = max(0, i - window)
+        y = values[lo:i]
+        x = np.arange(lo, i, dtype=float)
+        if y.size < 4:
+            continue
+        slope, intercept = np.polyfit(x, y, 1)
+        resid = y - (intercept + slope * x)
+        s = float(np.sqrt(np.sum(resid**2) / (y.size - 2)))
+        sxx = float(np.sum((x - x.mean()) ** 2))
+        se = s * np.sqrt(1.0 + 1.0 / y.size + (i - x.mean()) ** 2 / sxx)
+        if not se > 1e-12 * max(1.0, abs(float(values[i]))):
+            continue
+        out.append((values[i] - (intercept + slope * i)) / se)
+    return np.asarray(out, dtype=float)
+
+
 def _drift(station: str, program: str, g: pd.DataFrame, maintenance: Sequence[datetime],
            rules: AlarmRules) -> list[Condition]:
-    """EWMA/CUSUM of the current epoch's passed calibrations, baseline from its phase I."""
+    """EWMA/CUSUM of the current epoch's forecast errors: a change the epoch's own trend does
+    not explain (phase I: its first ``rules.phase1`` passed calibrations)."""
     ok = g["passed"].astype("boolean").fillna(True).astype(bool).to_numpy()
     g = g[ok]
     if g.empty:
         return []
     number = epochs(g["ended_at"], maintenance)
+    if number[-1] < len(list(maintenance)):
+        return []  # maintenance since the last calibration: a new epoch with no baseline yet
     current = g[number == number[-1]]
     out = []
     for name, label in (("master_loss_pa", "master loss"), ("sensitivity", "sensitivity")):
@@ -154,30 +187,27 @@ def _drift(station: str, program: str, g: pd.DataFrame, maintenance: Sequence[da
         values = values[keep]
         if values.size <= rules.phase1:
             continue  # still setting the baseline: nothing to judge against yet
-        try:
-            target, sigma = baseline(values, rules.phase1)
-        except ValueError:
+        z = forecast_errors(values, rules.phase1, rules.trend_window)
+        if z.size == 0:
             continue
-        if not sigma > 1e-9 * max(abs(target), 1e-12):
-            continue  # a value that does not vary (beyond rounding) has nothing to chart
         charts = (
-            ewma_chart(values, target, sigma, lam=rules.ewma_lambda, L=rules.ewma_L),
-            cusum_chart(values, target, sigma, k=rules.cusum_k, h=rules.cusum_h),
+            ewma_chart(z, 0.0, 1.0, lam=rules.ewma_lambda, L=rules.ewma_L),
+            cusum_chart(z, 0.0, 1.0, k=rules.cusum_k, h=rules.cusum_h),
         )
+        at_times = pd.to_datetime(current["ended_at"], utc=True).to_numpy()[keep]
+        offset = values.size - z.size
         for chart in charts:
             if not chart.points[-1].signal:
                 continue  # out of control now is what an alarm is about
             first = len(chart.points) - 1
             while first > 0 and chart.points[first - 1].signal:
                 first -= 1
-            at_times = pd.to_datetime(current["ended_at"], utc=True).to_numpy()[keep]
-            since = pd.Timestamp(at_times[first]).to_pydatetime()
+            since = pd.Timestamp(at_times[first + offset]).to_pydatetime()
             out.append(Condition(
                 f"calibration-drift:{station}:{program}:{name}:{chart.kind}",
                 "calibration-drift", station, "warning", since,
-                f"{label} of {program} out of control ({chart.kind.upper()}) since calibration "
-                f"{first + 1} of this epoch; baseline {target:.4g} ± {sigma:.3g} from its "
-                f"first {rules.phase1}",
+                f"{label} of {program} changed beyond its own trend ({chart.kind.upper()}) "
+                f"since calibration {first + offset + 1} of this epoch",
             ))
     return out
 

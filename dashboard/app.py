@@ -28,8 +28,10 @@ _PAGES = [
     st.Page("views/readings.py", title="Readings vs limits"),
     st.Page("views/calibration.py", title="Calibration"),
     st.Page("views/gauge.py", title="Gauge study & test time"),
+    st.Page("views/traces.py", title="Pressure traces"),
     st.Page("views/quality.py", title="Quality"),
     st.Page("views/data_view.py", title="Data"),
+    st.Page("views/health.py", title="Gateway & sink health"),
 ]
 
 gate()

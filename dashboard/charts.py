@@ -16,10 +16,42 @@ __all__ = [
     "histogram",
     "history",
     "pareto",
+    "plant_clock",
     "series",
     "verdict_trend",
     "yield_trend",
 ]
+
+#: time axes in 24-hour wall-clock time at every zoom level (Vega-Lite's dynamic time format
+#: object); the frames hold naive plant-zone times (``plant_clock``), which the browser shows as
+#: they are, so a chart and a table beside it show the same hour whatever the viewer's zone
+_TIME_FORMAT = {
+    "year": "%Y", "quarter": "%Y-%m", "month": "%Y-%m", "week": "%m-%d", "date": "%m-%d",
+    "hours": "%H:%M", "minutes": "%H:%M", "seconds": "%H:%M:%S", "milliseconds": "%H:%M:%S.%L",
+}  # fmt: skip
+_TIP_FORMAT = "%Y-%m-%d %H:%M:%S"
+
+
+def plant_clock(df: pd.DataFrame, timezone: str) -> pd.DataFrame:
+    """Every time column as naive wall-clock time in ``timezone`` (the plant's by default).
+
+    Vega-Lite turns zoned times into the *browser's* zone, so a chart on a laptop abroad (or a
+    PC set to UTC) disagreed with the tables by hours; a naive time is shown unchanged.
+    """
+    out = df.copy()
+    for col in out.columns:
+        if isinstance(out[col].dtype, pd.DatetimeTZDtype):
+            out[col] = out[col].dt.tz_convert(timezone).dt.tz_localize(None)
+    return out
+
+
+def _time_x(field: str) -> alt.X:
+    return alt.X(f"{field}:T", title=None, axis=alt.Axis(format=_TIME_FORMAT))
+
+
+def _time_tip(field: str) -> alt.Tooltip:
+    return alt.Tooltip(f"{field}:T", format=_TIP_FORMAT, title="time")
+
 
 #: what ``alt.layer(...).properties(...)`` is typed as
 Layered = alt.LayerChart | alt.FacetChart
@@ -138,7 +170,7 @@ def histogram(
 
 def series(df: pd.DataFrame, y: str, title: str, alarms: pd.DataFrame | None = None) -> alt.Chart:
     """One calibration quantity over time; failed calibrations as red points, alarms as rules."""
-    base = alt.Chart(df).encode(x=alt.X("ended_at:T", title=None))
+    base = alt.Chart(df).encode(x=_time_x("ended_at"))
     line = base.mark_line(color="#5b7fa6").encode(
         y=alt.Y(f"{y}:Q", title=title, scale=alt.Scale(zero=False))
     )
@@ -149,12 +181,12 @@ def series(df: pd.DataFrame, y: str, title: str, alarms: pd.DataFrame | None = N
             scale=alt.Scale(domain=["passed", "failed"], range=["#5b7fa6", "#b23a48"]),
             title=None,
         ),
-        tooltip=["ended_at:T", alt.Tooltip(f"{y}:Q", format=".4g"), "outcome", "reason"],
+        tooltip=[_time_tip("ended_at"), alt.Tooltip(f"{y}:Q", format=".4g"), "outcome", "reason"],
     )
     chart = line + points
     if alarms is not None and not alarms.empty:
         chart = chart + alt.Chart(alarms).mark_rule(color="#b23a48", strokeDash=[4, 3]).encode(
-            x="at:T", tooltip=["kind", "message"]
+            x=_time_x("at"), tooltip=["kind", "message"]
         )
     return chart.properties(height=200)
 
@@ -175,14 +207,16 @@ def control_chart(chart: ControlChart, times: Sequence[object], title: str, fact
                          "lower": -p.upper * factor, "upper": p.upper * factor,
                          "signal": p.signal})  # fmt: skip
     df = pd.DataFrame(rows)
-    base = alt.Chart(df).encode(x=alt.X("at:T", title=None))
+    base = alt.Chart(df).encode(x=_time_x("at"))
     layers = [
         base.mark_line(color="#999", strokeDash=[4, 3]).encode(y=alt.Y("upper:Q", title=title)),
         base.mark_line(color="#999", strokeDash=[4, 3]).encode(y="lower:Q"),
         base.mark_line(color="#5b7fa6", point=True).encode(y="statistic:Q"),
         base.transform_filter("datum.signal")
         .mark_point(color="#b23a48", size=90, filled=True)
-        .encode(y="statistic:Q", tooltip=["at:T", alt.Tooltip("statistic:Q", format=".4g")]),
+        .encode(
+            y="statistic:Q", tooltip=[_time_tip("at"), alt.Tooltip("statistic:Q", format=".4g")]
+        ),
     ]
     if chart.kind == "cusum":
         layers.insert(3, base.mark_line(color="#6a4c93", point=True).encode(y="low:Q"))
@@ -195,11 +229,11 @@ def history(df: pd.DataFrame, y: str, title: str) -> alt.Chart:
         alt.Chart(df)
         .mark_circle(size=28)
         .encode(
-            x=alt.X("ended_at:T", title=None),
+            x=_time_x("ended_at"),
             y=alt.Y(f"{y}:Q", title=title, scale=alt.Scale(zero=False)),
             color=alt.Color("verdict:N", scale=_VERDICT_COLOURS),
             tooltip=[
-                "ended_at:T",
+                _time_tip("ended_at"),
                 "cycle",
                 "program",
                 "verdict",
@@ -212,13 +246,13 @@ def history(df: pd.DataFrame, y: str, title: str) -> alt.Chart:
 
 def band(df: pd.DataFrame, title: str) -> Layered:
     """Hourly mean with min–max band (the long view, from the store's summaries)."""
-    base = alt.Chart(df).encode(x=alt.X("bucket:T", title=None))
+    base = alt.Chart(df).encode(x=_time_x("bucket"))
     return alt.layer(
         base.mark_area(opacity=0.25, color="#5b7fa6").encode(
             y=alt.Y("min:Q", title=title), y2="max:Q"
         ),
         base.mark_line(color="#5b7fa6").encode(
-            y="mean:Q", tooltip=["bucket:T", "n", "mean", "min", "max"]
+            y="mean:Q", tooltip=[_time_tip("bucket"), "n", "mean", "min", "max"]
         ),
     ).properties(height=220)
 

@@ -25,17 +25,27 @@ if TYPE_CHECKING:
 __all__ = [
     "LIVE_TTL",
     "StoreUnavailable",
+    "acknowledge",
+    "add_maintenance",
     "calibration_series",
     "calibrations",
+    "conflicts",
     "first_pass_counts",
+    "fleet_conditions",
+    "gaps",
     "histogram",
     "latest",
     "leak_summary",
+    "maintenance",
     "newest_record_time",
+    "open_alarms",
     "quarantine",
     "results",
+    "sink_backlogs",
     "stations",
     "statuses",
+    "trace_stations",
+    "traces",
     "verdict_counts",
 ]
 
@@ -258,3 +268,152 @@ def programs(url: str) -> pd.DataFrame:
         return pd.DataFrame(columns=["station", "program", "n"])
     out: pd.DataFrame = df.groupby(["station", "program"], as_index=False)[["n"]].sum()
     return out
+
+
+# -- the journal's logbook: maintenance and alarm states (SQLite journals only) ---------------
+def _logbook_call(url: str, fn: Any) -> Any:
+    """Run ``fn(Logbook)`` on the journal at ``url``; None when the store is not a journal."""
+    if not url.startswith("sqlite:"):
+        return None
+    from gateway.store import open_journal
+    from gateway.store.logbook import Logbook
+
+    try:
+        with open_journal(url) as journal:
+            return fn(Logbook(journal))
+    except (LeakfleetError, sqlite3.Error, OSError) as exc:
+        raise StoreUnavailable(str(exc)) from exc
+
+
+@st.cache_data(ttl=LIVE_TTL, show_spinner=False)
+def maintenance(url: str, station: str | None = None) -> pd.DataFrame:
+    """Maintenance events (station, at, kind, note, by), oldest first; empty when none."""
+    frame = _logbook_call(url, lambda book: book.maintenance_frame(station))
+    if frame is None:
+        return pd.DataFrame(columns=["station", "at", "kind", "note", "by"])
+    frame["at"] = pd.to_datetime(frame["at"], utc=True)
+    return frame
+
+
+@st.cache_data(ttl=LIVE_TTL, show_spinner=False)
+def open_alarms(url: str) -> pd.DataFrame:
+    """The journal's open alarms (the gateway's evaluation), oldest first."""
+    rows = _logbook_call(url, lambda book: book.open_alarms()) or []
+    return pd.DataFrame(
+        [
+            {
+                "id": a.id,
+                "station": a.station or "–",
+                "severity": a.severity,
+                "state": a.state,
+                "since": a.since,
+                "message": a.message,
+                "acked_by": a.acked_by or "",
+            }
+            for a in rows
+        ],
+        columns=["id", "station", "severity", "state", "since", "message", "acked_by"],
+    )
+
+
+def add_maintenance(url: str, event: Any) -> bool:
+    done = bool(_logbook_call(url, lambda book: book.add_maintenance(event)))
+    maintenance.clear()
+    fleet_conditions.clear()
+    return done
+
+
+def acknowledge(url: str, alarm_id: int, by: str) -> bool:
+    done = bool(_logbook_call(url, lambda book: book.acknowledge(alarm_id, by)))
+    open_alarms.clear()
+    return done
+
+
+@st.cache_data(ttl=LIVE_TTL, show_spinner=False)
+def fleet_conditions(url: str, now: datetime) -> dict[str, list[Any]]:
+    """Each station's alarm conditions now, by the gateway's own evaluation code."""
+    from analytics.alarms import AlarmRules
+    from gateway.alarm_eval import fleet_conditions as evaluate
+
+    events = maintenance(url)
+    starts = events[events["kind"] != "note"]
+    by_station = {
+        str(s): [pd.Timestamp(t).to_pydatetime() for t in g["at"]]
+        for s, g in starts.groupby("station")
+    }
+    store = _store(url)
+    try:
+        return evaluate(store, now, maintenance=by_station, rules=AlarmRules())
+    except (LeakfleetError, sqlite3.Error, OSError) as exc:
+        raise StoreUnavailable(str(exc)) from exc
+
+
+@st.cache_data(ttl=LIVE_TTL, show_spinner=False)
+def sink_backlogs(url: str) -> pd.DataFrame:
+    """Per sink that has ever confirmed a record: waiting records and the oldest one's time."""
+    if not url.startswith("sqlite:"):
+        return pd.DataFrame(columns=["sink", "kind", "waiting", "oldest"])
+    from gateway.store import open_journal
+
+    rows = []
+    try:
+        with open_journal(url) as journal:
+            sinks = [r[0] for r in journal._query(
+                "SELECT DISTINCT sink FROM sink_cursors ORDER BY sink", (), "reading sinks")]
+            for sink in sinks:
+                for kind, (n, oldest) in journal.backlog(sink).items():
+                    rows.append({"sink": sink, "kind": kind, "waiting": n, "oldest": oldest})
+    except (LeakfleetError, sqlite3.Error, OSError) as exc:
+        raise StoreUnavailable(str(exc)) from exc
+    return pd.DataFrame(rows, columns=["sink", "kind", "waiting", "oldest"])
+
+
+@st.cache_data(ttl=HISTORY_TTL, show_spinner=False)
+def traces(url: str, station: str, role: str | None = None, limit: int = 50) -> list[Any]:
+    """A station's pressure traces, newest first (journals only; empty otherwise)."""
+    if not url.startswith("sqlite:"):
+        return []
+    from gateway.store import open_journal
+    from gateway.store.traces import traces as read
+
+    try:
+        with open_journal(url) as journal:
+            return read(journal, station, role=role, limit=limit)
+    except (LeakfleetError, sqlite3.Error, OSError) as exc:
+        raise StoreUnavailable(str(exc)) from exc
+
+
+@st.cache_data(ttl=HISTORY_TTL, show_spinner=False)
+def trace_stations(url: str) -> list[str]:
+    if not url.startswith("sqlite:"):
+        return []
+    from gateway.store import open_journal
+
+    try:
+        with open_journal(url) as journal:
+            rows = journal._query("SELECT DISTINCT station FROM traces ORDER BY station", (),
+                                  "reading traces")
+    except (LeakfleetError, sqlite3.Error, OSError) as exc:
+        raise StoreUnavailable(str(exc)) from exc
+    return [str(r[0]) for r in rows]
+
+
+@st.cache_data(ttl=LIVE_TTL, show_spinner=False)
+def conflicts(url: str) -> pd.DataFrame:
+    """Re-sends that disagreed with the stored record, newest first (journals only)."""
+    from gateway.store.conflicts import conflicts as read
+
+    rows = _logbook_call(url, lambda book: read(book._j)) or []
+    return pd.DataFrame(rows, columns=["kind", "record_id", "station", "detected_at", "reason",
+                                       "stored_raw", "new_raw"])
+
+
+@st.cache_data(ttl=LIVE_TTL, show_spinner=False)
+def gaps(url: str) -> pd.DataFrame:
+    """Lost cycles on record, newest first (journals only)."""
+    from gateway.store.gaps import gaps as read
+
+    rows = _logbook_call(url, lambda book: read(book._j)) or []
+    return pd.DataFrame([{"station": g.station, "at": g.at, "first": g.first, "last": g.last,
+                          "source": g.source, "detail": g.detail} for g in rows],
+                        columns=["station", "at", "first", "last", "source", "detail"])

@@ -64,6 +64,13 @@ __all__ = [
 DEFAULT_STORE = "sqlite:///./leakfleet.db"
 SHIPPED = ("demo",)
 _OVERRIDES = {"device_id": int, "baudrate": int, "bytesize": int, "parity": str, "stopbits": float}
+_OVERRIDE_RANGES: dict[str, tuple[Any, str]] = {
+    "device_id": (lambda v: 0 <= v <= 255, "a Modbus device id from 0 to 255 (247 on RS-485)"),
+    "baudrate": (lambda v: 50 <= v <= 4_000_000, "a baud rate from 50 to 4000000"),
+    "bytesize": (lambda v: 5 <= v <= 8, "5, 6, 7 or 8 data bits"),
+    "parity": (lambda v: v in ("N", "E", "O", "M", "S"), "N, E, O, M or S"),
+    "stopbits": (lambda v: v in (1, 1.5, 2), "1, 1.5 or 2 stop bits"),
+}
 
 
 @dataclass(frozen=True)
@@ -167,6 +174,10 @@ class _Reader:
         value = data[key]
         if not isinstance(value, str) or not value.strip():
             raise self.fail(prefix + key, "a non-empty string", value)
+        if any(ord(c) < 32 or ord(c) == 127 for c in value):
+            # a newline in an id would forge lines in logs and in --check output
+            raise self.fail(prefix + key, "one line of text without control characters",
+                            value.encode("unicode_escape").decode("ascii"))
         return value.strip()
 
     def integer(
@@ -196,8 +207,8 @@ class _Reader:
                 raise self.fail(prefix + key, f"a duration ({exc})") from None
         else:
             raise self.fail(prefix + key, "a duration (seconds, or text like '250 ms')", value)
-        if not seconds > 0 or seconds > 86400:
-            raise self.fail(prefix + key, "a duration above 0 and at most a day", value)
+        if not seconds >= 0.001 or seconds > 86400:
+            raise self.fail(prefix + key, "a duration from 1 ms to a day", value)
         return seconds
 
     def zone(self, value: str, key: str) -> str:
@@ -265,6 +276,9 @@ def parse_config(
             raise r.fail("profile_dirs", "existing directories", str(d))
 
     shifts = r.table(doc.get("shifts", {}), "shifts")
+    for name, start in shifts.items():
+        if not isinstance(start, str) or not _HHMM.fullmatch(start.strip()):
+            raise r.fail(f"shifts.{name}", 'a start time "HH:MM" from 00:00 to 23:59', start)
     standards_raw = doc.get("standards", [])
     if not isinstance(standards_raw, list):
         raise r.fail("standards", "an array of [[standards]] tables", standards_raw)
@@ -298,12 +312,26 @@ def parse_config(
     )
 
 
+_HHMM = re.compile(r"([01]\d|2[0-3]):[0-5]\d")
+_SQLITE_HEADER = b"SQLite format 3\x00"
+
+
 def _check_store(r: _Reader, url: str, key: str) -> None:
     scheme = url.partition("://")[0].lower() if "://" in url else "sqlite"
     if scheme != "sqlite":
         raise r.fail(key, "a journal URL sqlite:///path/file.db (the journal is SQLite)", url)
     if "://" in url and not url.partition("://")[2].startswith("/"):
         raise r.fail(key, "sqlite:///relative/path.db or sqlite:////absolute/path.db", url)
+    path = Path(url.partition("://")[2][1:] if "://" in url else url)
+    try:
+        with path.open("rb") as fh:
+            head = fh.read(len(_SQLITE_HEADER))
+    except FileNotFoundError:
+        return  # created at start
+    except OSError as exc:
+        raise r.fail(key, f"a journal file this user can read ({exc.strerror})", url) from None
+    if head and head != _SQLITE_HEADER:
+        raise r.fail(key, "a SQLite journal (that file is something else)", url)
 
 
 def _retention(r: _Reader, t: dict[str, Any], p: str) -> float | None:
@@ -359,7 +387,8 @@ def _station(
     r: _Reader, t: dict[str, Any], i: int, zone: str, dirs: Sequence[Path]
 ) -> StationConfig:
     sid = t.get("id")
-    p = f"stations[{i}]." if not isinstance(sid, str) else f"stations[{sid}]."
+    clean = isinstance(sid, str) and sid.isprintable()
+    p = f"stations[{sid}]." if clean else f"stations[{i}]."
     r.known(t, p, _STATION)
     sid = r.text(t, "id", p)
     line = r.text(t, "line", p)
@@ -387,7 +416,7 @@ def _station(
     programs_raw = r.table(t.get("programs", {}), p + "programs")
     programs: dict[int, str] = {}
     for k, v in programs_raw.items():
-        if not str(k).isdigit() or not isinstance(v, str) or not v.strip():
+        if not (str(k).isascii() and str(k).isdigit()) or not isinstance(v, str) or not v.strip():
             raise r.fail(f"{p}programs.{k}", "program number = \"program name\"", v)
         programs[int(k)] = v.strip()
 
@@ -399,6 +428,9 @@ def _station(
         if isinstance(v, bool) or not isinstance(v, (want, int) if want is float else want):
             kind = {int: "an integer", float: "a number", str: "a string"}[want]
             raise r.fail(f"{p}overrides.{k}", kind, v)
+        allowed, what = _OVERRIDE_RANGES[k]
+        if not allowed(v):
+            raise r.fail(f"{p}overrides.{k}", what, v)
 
     return StationConfig(
         id=sid,
@@ -428,6 +460,10 @@ def _check_endpoint(r: _Reader, endpoint: str, key: str, profile: Profile) -> No
             raise r.fail(key, f"{scheme}://host:port", endpoint) from None
     elif scheme:
         raise r.fail(key, "tcp://host:port, socket://host:port, rfc2217://host:port or a tty path",
+                     endpoint)
+    elif ":/" in endpoint or re.fullmatch(r"[\w.-]+:\d+", endpoint):
+        # "tcp:/host:4001", "htp:/x" or "host:4001" would be taken for a serial device path
+        raise r.fail(key, "tcp://host:port (two slashes) or a tty path such as /dev/ttyUSB0",
                      endpoint)
     if profile.modbus is not None:
         if profile.modbus.framer == "tcp" and scheme != "tcp":

@@ -154,29 +154,43 @@ class StationHealth:
 
 
 class ClockWatch:
-    """Notices a station clock that jumps back (daylight saving, a battery swap).
+    """Notices a station clock that jumps, back (daylight saving, a battery swap) or forward
+    (someone setting it, a clock that resets to a fixed date).
 
     Results are stored as the station reported them (its clock is the record's truth, and the
     unique key includes the cycle, so an hour repeated does not collide); the jump itself is
-    flagged once, as a status detail, so an analyst knows why times overlap.
+    flagged once, as a status detail, so an analyst knows why times overlap or leap. A jump
+    back is a newer cycle ending before the previous one; a jump either way is the station
+    clock's offset from the gateway's receive time changing by more than the tolerance (a
+    long pause between cycles changes both times alike, so it is no jump).
     """
 
     def __init__(self, tolerance_s: float = 300.0) -> None:
         self.tolerance_s = tolerance_s
-        self._last: dict[str, tuple[int, datetime]] = {}
+        self._last: dict[str, tuple[int, datetime, float | None]] = {}
 
-    def check(self, station: str, cycle: int, ended_at: datetime) -> str | None:
-        """A note when a newer cycle ended well before the previous one, else None."""
+    def check(self, station: str, cycle: int, ended_at: datetime,
+              received_at: datetime | None = None) -> str | None:
+        """A note when the station clock jumped between this cycle and the previous one."""
         last = self._last.get(station)
         if last is not None and cycle <= last[0]:
             return None  # a re-read of an older cycle (after a restart or a torn read)
-        self._last[station] = (cycle, ended_at)
+        skew = (ended_at - received_at).total_seconds() if received_at is not None else None
+        self._last[station] = (cycle, ended_at, skew)
         if last is None:
             return None
         back = (last[1] - ended_at).total_seconds()
-        if back <= self.tolerance_s:
-            return None
-        return (
-            f"clock: cycle {cycle} ended at {ended_at.isoformat()}, {back / 60:.0f} min before "
-            f"cycle {last[0]} (station clock set back?)"
-        )
+        if back > self.tolerance_s:
+            return (
+                f"clock: cycle {cycle} ended at {ended_at.isoformat()}, {back / 60:.0f} min "
+                f"before cycle {last[0]} (station clock set back?)"
+            )
+        if skew is not None and last[2] is not None:
+            ahead = skew - last[2]
+            if ahead > self.tolerance_s:
+                return (
+                    f"clock: cycle {cycle} is stamped {ended_at.isoformat()}, "
+                    f"{ahead / 60:.0f} min further ahead of the gateway's clock than cycle "
+                    f"{last[0]} (station clock set forward?)"
+                )
+        return None

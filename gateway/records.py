@@ -93,7 +93,11 @@ def _check_number(
 
 
 def _to_utc(value: datetime) -> datetime:
-    return value.astimezone(UTC)
+    try:
+        return value.astimezone(UTC)
+    except OverflowError:  # year 1 east of Greenwich, year 9999 west of it
+        raise ValueError(f"time {value.isoformat()} is outside what UTC can hold "
+                         "(years 1..9999)") from None
 
 
 def _iso(value: datetime | None) -> str | None:
@@ -268,9 +272,9 @@ class TestResult(_RecordMixin):
             and self.supplied == ()
         ):  # fmt: skip
             if e.tzinfo is not UTC:
-                object.__setattr__(self, "ended_at", e.astimezone(UTC))
+                object.__setattr__(self, "ended_at", _to_utc(e))
             if r.tzinfo is not UTC:
-                object.__setattr__(self, "received_at", r.astimezone(UTC))
+                object.__setattr__(self, "received_at", _to_utc(r))
             return
         self._validate()
 
@@ -441,6 +445,53 @@ class GapEvent(_RecordMixin):
     @property
     def record_id(self) -> str:
         return _stable_id("gap", self.station, self.first, self.last, self.source)
+
+
+#: maintenance kinds that change a station's measurement (they restart its calibration
+#: baselines); "note" only annotates the charts
+MAINTENANCE_KINDS = ("seal change", "new fixture", "new leak standard", "baseline reset",
+                     "repair", "note")
+
+
+@dataclass(frozen=True, slots=True)
+class MaintenanceEvent(_RecordMixin):
+    """Something a person did to a station (or noted about it), entered on the dashboard or
+    with ``leakfleet maintenance add``. ``at`` is when it happened; ``entered_at`` when it was
+    written down."""
+
+    kind: ClassVar[str] = "maintenance"
+    _time_fields: ClassVar[tuple[str, ...]] = ("at", "entered_at")
+
+    station: str
+    at: datetime
+    what: str
+    note: str = ""
+    by: str = ""
+    entered_at: datetime | None = None
+
+    def __post_init__(self) -> None:
+        _check_text("station", self.station)
+        _check_time("at", self.at)
+        object.__setattr__(self, "at", _to_utc(self.at))
+        if self.entered_at is None:
+            object.__setattr__(self, "entered_at", datetime.now(UTC))
+        _check_time("entered_at", self.entered_at)
+        object.__setattr__(self, "entered_at", _to_utc(self.entered_at))  # type: ignore[arg-type]
+        if self.what not in MAINTENANCE_KINDS:
+            raise ValueError(f"maintenance kind must be one of {', '.join(MAINTENANCE_KINDS)}, "
+                             f"got {self.what!r}")
+        for name in ("note", "by"):
+            value = getattr(self, name)
+            if not isinstance(value, str) or any(ord(c) < 32 and c not in "\t" for c in value):
+                raise ValueError(f"{name} must be one line of text")
+
+    @property
+    def restarts_baseline(self) -> bool:
+        return self.what != "note"
+
+    @property
+    def record_id(self) -> str:
+        return _stable_id("maintenance", self.station, _iso(self.at), self.what)
 
 
 #: phase names of a pressure trace, in the order a cycle runs them

@@ -33,6 +33,7 @@ from collections import deque
 from collections.abc import Awaitable, Callable, Mapping, Sequence
 from dataclasses import dataclass, field
 from datetime import timedelta
+from pathlib import Path
 from typing import Any
 
 from gateway import metrics
@@ -40,9 +41,11 @@ from gateway.aio import Pulse, within
 from gateway.config import GatewayConfig
 from gateway.drivers.base import Item, Outbox, Pacing, StationTarget, utcnow
 from gateway.errors import ConfigError, StoreError
+from gateway.garbage import GarbageLimiter
 from gateway.health import Backoff, ClockWatch
 from gateway.records import CalibrationEvent, Rejected, StationState, StationStatus, TestResult
 from gateway.sinks import REGISTRY, Attachable, Forwarder, SinkContext, SinkFactory
+from gateway.store.guard import JournalGone, JournalLock, spill, take_back
 
 __all__ = [
     "Forwarder",
@@ -134,6 +137,10 @@ class JournalWriter:
         self._executor = concurrent.futures.ThreadPoolExecutor(1, thread_name_prefix="journal")
         self._journal: Any = None
         self._retry = Backoff(retry_initial_s, retry_max_s)
+        self.fatal: str | None = None  # why the writer stopped for good (journal gone ...)
+        self.on_fatal: Callable[[], None] | None = None
+        self.journal_path: Path | None = None  # for the spill file
+        self.spilled = 0
         self._failing: str | None = None
         self._closing = False
         self.committed = Pulse()  # fired after every commit: forwarders wake instead of polling
@@ -204,6 +211,8 @@ class JournalWriter:
                         await self._collect_until(loop.time() + wait)
                 if self._pending:
                     ok = await self._write_batch()
+                    if self.fatal is not None:
+                        return
                     if not ok:
                         if self._closing:
                             closed_at = closed_at or loop.time()
@@ -212,6 +221,8 @@ class JournalWriter:
                                     "journal still failing at shutdown: %d item(s) not stored",
                                     len(self._pending),
                                 )
+                                self.fatal = "journal failing at shutdown"
+                                self._spill_pending()
                                 return
                         await self._collect_until(loop.time() + self._retry.next())
                     continue
@@ -264,6 +275,16 @@ class JournalWriter:
         try:
             stats, stored = await loop.run_in_executor(self._executor, _write_counted,
                                                        self._journal, batch)
+        except JournalGone as exc:
+            self.fatal = str(exc)
+            log.error("%s", exc)
+            rescued = await loop.run_in_executor(self._executor, self._journal.rescue)
+            if rescued is not None:
+                log.error("the journal's committed records are kept in %s", rescued)
+            self._spill_pending()
+            if self.on_fatal is not None:
+                self.on_fatal()
+            return False
         except StoreError as exc:
             self.stats["failed_writes"] += 1
             if self._failing is None:
@@ -286,10 +307,29 @@ class JournalWriter:
             self._failing = None
         for key in ("inserted", "duplicates", "quarantined"):
             self.stats[key] += int(getattr(stats, key, 0))
+        if getattr(stats, "conflicts", 0):
+            log.warning("%d re-sent record(s) differ from the stored ones; kept in the "
+                        "journal's conflicts table (leakfleet alarms list)", stats.conflicts)
         for (station, kind), count in stored.items():
             m = metrics.for_station(station)
             (m.rejected if kind == "rejected" else m.stored[kind]).inc(count)
         return True
+
+    def _spill_pending(self) -> None:
+        """What could not be committed goes to the spill file beside the journal (taken back
+        at the next start); the loss of anything that cannot be spilled is logged as such."""
+        if not self._pending or self.journal_path is None:
+            return
+        try:
+            n, path = spill(self.journal_path, list(self._pending))
+        except OSError as exc:
+            log.error("%d record(s) could not be stored nor spilled (%s): they are lost",
+                      len(self._pending), exc.strerror or exc)
+            return
+        self.spilled += n
+        log.error("%d record(s) not stored are kept in %s and stored at the next start", n,
+                  path)
+        self._pending.clear()
 
     async def _close_journal(self) -> None:
         loop = asyncio.get_running_loop()
@@ -310,7 +350,10 @@ Tally = dict[tuple[str, str], int]  # (station, kind) -> count
 def _tally(items: Sequence[Item]) -> Tally:
     out: Tally = {}
     for item in items:
-        key = (item.station, _KIND[type(item)])
+        kind = _KIND.get(type(item))
+        if kind is None:
+            continue  # gaps and traces: journalled, not counted per station here
+        key = (item.station, kind)
         out[key] = out.get(key, 0) + 1
     return out
 
@@ -416,6 +459,7 @@ class _FlaggingOutbox:
         self._health = health
         self._clock = ClockWatch()
         self._metrics = {station: metrics.for_station(station) for station in health}
+        self._garbage = GarbageLimiter()
 
     @property
     def accepting(self) -> bool:
@@ -423,10 +467,19 @@ class _FlaggingOutbox:
 
     async def put(self, items: Sequence[Item]) -> None:
         notes: list[Item] = []
+        kept: list[Item] = []
+        now = utcnow()
         for item in items:
             self._count(item)
+            if isinstance(item, Rejected):
+                keep, closed = self._garbage.admit(item, now)
+                notes.extend(closed)
+                if not keep:
+                    continue
+            kept.append(item)
             if isinstance(item, TestResult):
-                note = self._clock.check(item.station, item.cycle, item.ended_at)
+                note = self._clock.check(item.station, item.cycle, item.ended_at,
+                                         item.received_at)
                 if note is not None:
                     log.warning("%s: %s", item.station, note)
                     h = self._health.get(item.station)
@@ -434,13 +487,25 @@ class _FlaggingOutbox:
                     status = StationStatus(item.station, utcnow(), state, note)
                     self._count(status)
                     notes.append(status)
-        await self._writer.put([*items, *notes] if notes else items)
+        for summary in [n for n in notes if isinstance(n, Rejected)]:
+            h = self._health.get(summary.station)
+            state = getattr(h, "state", None) or StationState.ONLINE
+            notes.append(StationStatus(summary.station, now, state, summary.reason))
+        await self._writer.put([*kept, *notes] if notes else kept)
+
+    async def flush_garbage(self) -> None:
+        """At shutdown: the counts of inputs not kept in the open windows, on record."""
+        rows = self._garbage.flush(utcnow())
+        if rows:
+            await self._writer.put(rows)
 
     def _count(self, item: Item) -> None:
         m = self._metrics.get(item.station)
         if m is None:
             m = self._metrics[item.station] = metrics.for_station(item.station)
-        m.received[_KIND[type(item)]].inc()
+        kind = _KIND.get(type(item))
+        if kind is not None:
+            m.received[kind].inc()
         if isinstance(item, StationStatus):
             m.state(item.state)
 
@@ -517,7 +582,25 @@ class Runtime:
                 max_pending=cfg.runtime.max_pending,
             )
         writer = self.writer
+        from gateway.store._sqlite import sqlite_path
+
+        path = Path(sqlite_path(cfg.store))
+        writer.journal_path = path
+        writer.on_fatal = stop.set
+        lock = JournalLock(path)
+        lock.acquire()
+        try:
+            await self._run_locked(stop, writer, path)
+        finally:
+            lock.release()
+
+    async def _run_locked(self, stop: asyncio.Event, writer: JournalWriter, path: Path) -> None:
+        cfg = self.config
         journal = await writer.open()
+        if journal is not None:
+            back = await writer.call(take_back, path)
+            if back:
+                log.info("stored %d record(s) an earlier run had spilled", back)
         resume = await writer.call(resume_points, cfg.store) if journal is not None else {}
         self.targets = build_targets(cfg, resume)
         pacing = cfg.runtime.pacing
@@ -536,6 +619,10 @@ class Runtime:
                 )  # fmt: skip
             else:
                 prune_task = None
+            alarm_task = tg.create_task(
+                _alarms_forever(cfg.store, [f.name for f in self.forwarders]),
+                name="alarm rules",
+            )
             for fwd in self.forwarders:
                 if isinstance(fwd, Attachable):
                     fwd.attach(writer.committed, writer.save_cursor)
@@ -554,6 +641,7 @@ class Runtime:
             await stop.wait()
             log.info("stopping: %d item(s) waiting for the journal", writer.pending)
             await _cancel_all(bus_tasks)
+            await outbox.flush_garbage()
             at = utcnow()
             await outbox.put([
                 StationStatus(station=t.station, at=at, state=StationState.OFFLINE,
@@ -562,6 +650,7 @@ class Runtime:
             ])
             if prune_task is not None:
                 prune_task.cancel()
+            alarm_task.cancel()
             await writer.close()
             await writer_task
             sink_stop.set()
@@ -596,6 +685,44 @@ async def _prune_forever(writer: JournalWriter, retention_s: float, sinks: list[
         await asyncio.sleep(PRUNE_INTERVAL_S)
 
 
+#: seconds between alarm evaluations (gateway.alarm_eval.INTERVAL_S, not imported: that module
+#: brings pandas, which the gateway itself never needs)
+INTERVAL_S = 30.0
+
+
+async def _alarms_forever(store_url: str, sinks: list[str]) -> None:
+    """Keep ``leakfleet alarms watch`` running beside the gateway: the alarm rules evaluated
+    every 30 s with their states in the journal. A process of its own, so pandas and scipy
+    never weigh on the gateway's memory; it is restarted (with backoff) if it dies, and
+    stopped with the gateway."""
+    import sys
+
+    backoff = 5.0
+    await asyncio.sleep(INTERVAL_S)  # nothing to judge in the first seconds of a run
+    while True:
+        proc = await asyncio.create_subprocess_exec(
+            sys.executable, "-m", "gateway", "alarms", "--store", store_url, "watch",
+            "--interval", str(INTERVAL_S), "--sinks", ",".join(sinks),
+            stdin=asyncio.subprocess.DEVNULL,
+        )
+        try:
+            rc = await proc.wait()
+        except asyncio.CancelledError:
+            if proc.returncode is None:
+                proc.terminate()
+                try:
+                    async with asyncio.timeout(10):
+                        await proc.wait()
+                except TimeoutError:
+                    proc.kill()
+                    await proc.wait()
+            raise
+        log.warning("alarm rules: the evaluator stopped (exit %s); restarting in %.0f s",
+                    rc, backoff)
+        await asyncio.sleep(backoff)
+        backoff = min(backoff * 2, 300.0)
+
+
 def _serve_metrics(config: GatewayConfig) -> metrics.MetricsServer | None:
     """Start the Prometheus endpoint if configured; a port we cannot take is the user's to fix."""
     mc = config.metrics
@@ -626,16 +753,24 @@ async def _cancel_all(tasks: Sequence[asyncio.Task[None]]) -> None:
 def run_gateway(config: GatewayConfig) -> int:
     """Run until SIGTERM/SIGINT; returns the process exit code."""
 
+    runtime = Runtime(config)
+
     async def main() -> None:
         stop = asyncio.Event()
         loop = asyncio.get_running_loop()
         for sig in (signal.SIGTERM, signal.SIGINT):
             with contextlib.suppress(NotImplementedError, RuntimeError):
                 loop.add_signal_handler(sig, stop.set)
-        await Runtime(config).run(stop)
+        await runtime.run(stop)
 
     started = time.monotonic()
     asyncio.run(main())  # Runtime.run serves the metrics endpoint when configured
     log.debug("ran %.1f s", time.monotonic() - started)
+    writer = runtime.writer
+    if writer is not None and writer.fatal is not None:
+        # a supervisor with restart-on-failure must see this: exit non-zero
+        log.error("stopped: %s%s", writer.fatal,
+                  f"; {writer.spilled} record(s) spilled" if writer.spilled else "")
+        return 1
     return 0
 

@@ -100,6 +100,7 @@ class _StationStream:
         self.prev_leak = 0.0
         self.since_cal = {p.name: p.calibration_interval for p in self.programs}  # due at start
         self.profile = _PROFILE.get(st.type, f"{st.type}@1.0")
+        self.seal_changes: list[int] = []  # end times (µs) of the cycles the seal was replaced
 
     def chunk(self, n: int) -> tuple[list[tuple[Any, ...]], list[tuple[Any, ...]]]:
         st, rng, progs = self.st, self.rng, self.programs
@@ -149,6 +150,7 @@ class _StationStream:
         spans = [expected_loss_pa(p.volume_m3, p.standard.flow_sccm, p.test_s) for p in progs]
         seal = (st.seal_leak_sccm + st.seal_wear_sccm * ((idx + 1) % _SEAL_LIFE) / 10).tolist()
         prog_list = prog_i.tolist()
+        renewed = ((idx + 1) % _SEAL_LIFE == 0).tolist()
 
         results: list[tuple[Any, ...]] = []
         cals: list[tuple[Any, ...]] = []
@@ -160,6 +162,8 @@ class _StationStream:
             end = ended_us[j]
             per_pa = spans[k] / p.standard.flow_sccm
             master = 2.0 + seal[j] * per_pa
+            if renewed[j]:  # the plant's maintenance log: the worn seal replaced here
+                self.seal_changes.append(ended_us[j])
             self.since_cal[p.name] += 1
             if self.since_cal[p.name] > p.calibration_interval:
                 self.since_cal[p.name] = 1
@@ -221,6 +225,25 @@ class _StationStream:
             "" if passed else f"ratio {ratio:.2f} below {p.ratio_min:g}", "", self.profile,
             "station", None,
         )  # fmt: skip
+
+
+def _log_seal_changes(path: Path, streams: list[_StationStream], last_us: int,
+                      epoch: datetime) -> None:
+    """The maintenance log a plant would keep: every seal replacement, so the dashboard's
+    calibration baselines restart there as they would on a real line."""
+    from gateway.records import MaintenanceEvent
+    from gateway.store import open_journal
+    from gateway.store.logbook import Logbook
+
+    with open_journal(str(path)) as journal:
+        book = Logbook(journal)
+        for s in streams:
+            for at_us in s.seal_changes:
+                if at_us <= last_us:
+                    at = epoch + timedelta(microseconds=at_us)
+                    book.add_maintenance(MaintenanceEvent(
+                        s.st.name, at, "seal change", "fixture seal replaced (wear)",
+                        "maintenance", at))  # fmt: skip
 
 
 def _insert_sql(table: str, columns: tuple[str, ...]) -> str:
@@ -322,6 +345,7 @@ def backfill(
         conn.execute("PRAGMA wal_checkpoint(TRUNCATE)")
         conn.close()
     epoch = datetime(1970, 1, 1, tzinfo=UTC)
+    _log_seal_changes(path, streams, last_us, epoch)
     return BackfillStats(
         results=done, calibrations=n_cal, first=epoch + timedelta(microseconds=first_us),
         last=epoch + timedelta(microseconds=last_us),

@@ -56,7 +56,9 @@ st.markdown(f"**Drift of the master loss:** {sh.projection.status} — {sh.proje
 if sh.projection.reaches_limit_at is not None:
     st.warning(f"Projected to reach the limit on {p.local(sh.projection.reaches_limit_at)}")
 
-shown = series.assign(
+tz = p.settings.timezone
+chart_alarms = charts.plant_clock(alarms, tz)
+shown = charts.plant_clock(series, tz).assign(
     master=series["master_loss_pa"] * u.p_factor,
     standard=series["standard_loss_pa"] * u.p_factor,
     sens=series["sensitivity"] * u.q_factor / u.p_factor,
@@ -64,18 +66,18 @@ shown = series.assign(
     reason=series["reason"].fillna(""),
 )
 left, right = st.columns(2)
-left.altair_chart(charts.series(shown, "master", f"master loss [{u.p_label}]", alarms),
+left.altair_chart(charts.series(shown, "master", f"master loss [{u.p_label}]", chart_alarms),
                   width="stretch")  # fmt: skip
-right.altair_chart(charts.series(shown, "standard", f"standard loss [{u.p_label}]", alarms),
+right.altair_chart(charts.series(shown, "standard", f"standard loss [{u.p_label}]", chart_alarms),
                    width="stretch")  # fmt: skip
-left.altair_chart(charts.series(shown, "ratio", "ratio", alarms), width="stretch")
+left.altair_chart(charts.series(shown, "ratio", "ratio", chart_alarms), width="stretch")
 right.altair_chart(
-    charts.series(shown, "sens", f"sensitivity [{u.q_label}/{u.p_label}]", alarms),
+    charts.series(shown, "sens", f"sensitivity [{u.q_label}/{u.p_label}]", chart_alarms),
     width="stretch",
 )
 
 st.subheader("Control charts")
-good_times = list(series.loc[series["passed"].astype(bool), "ended_at"])
+good_times = list(shown.loc[series["passed"].astype(bool), "ended_at"])
 if not sh.charts:
     st.info(f"Too few passed calibrations for control charts ({sh.note}).")
 for name, pair in sh.charts.items():

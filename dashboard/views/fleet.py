@@ -8,15 +8,16 @@ from typing import Any
 import pandas as pd
 import streamlit as st
 
-from analytics import HealthConfig, calibration_health, yield_from_counts
+from analytics import yield_from_counts
+from analytics.fleet import LEVELS, Standing, group_by_line, rank, standing
 from dashboard import charts, data
 from dashboard.common import Page, page, refreshed
 from dashboard.display import fmt
 
-# badge colours (Streamlit markdown): no emoji, so line PCs without emoji fonts show them too
-_STATE_COLOUR = {
-    "online": "green", "testing": "green", "idle": "gray", "calibrating": "blue",
-    "offline": "gray", "fault": "red",
+# badge colours (Streamlit markdown): no emoji, so line PCs without emoji fonts show them too;
+# every colour comes with the level's word and shape (analytics.fleet.LEVELS), never alone
+_LEVEL_COLOUR = {
+    "alarm": "red", "offline": "violet", "warning": "orange", "ok": "green", "no data": "gray",
 }  # fmt: skip
 _VERDICT_COLOUR = {"pass": "green", "reject": "orange", "gross": "red", "aborted": "gray"}
 
@@ -24,7 +25,10 @@ _VERDICT_COLOUR = {"pass": "green", "reject": "orange", "gross": "red", "aborted
 def _age(now: datetime, at: Any) -> str:
     if at is None or pd.isna(at):
         return "never"
-    seconds = max(0.0, (now - pd.Timestamp(at).to_pydatetime()).total_seconds())
+    seconds = (now - pd.Timestamp(at).to_pydatetime()).total_seconds()
+    if seconds < -600:
+        return "ahead of now (a station clock ahead, or a simulated plant running fast)"
+    seconds = max(0.0, seconds)
     if seconds < 120:
         return f"{seconds:.0f} s ago"
     if seconds < 7200:
@@ -34,28 +38,81 @@ def _age(now: datetime, at: Any) -> str:
     return f"{seconds / 86400:.0f} days ago"
 
 
-def _alarms(p: Page, station: str, state: str, last_cal: pd.Series | None) -> list[str]:
-    """What needs a look now: station down, last calibration failed, calibration charts."""
+def _row(frame: pd.DataFrame, station: str) -> pd.Series | None:
+    return frame.loc[station] if station in frame.index else None  # type: ignore[return-value]
+
+
+def standings(p: Page) -> list[Standing]:
+    """Every station's standing from the alarm rules (analytics.fleet), worst first."""
+    status = data.latest(p.url, "status").set_index("station")
+    res = data.latest(p.url, "result").set_index("station")
+    conditions = data.fleet_conditions(p.url, p.now)
     out = []
-    if state in ("fault", "offline"):
-        out.append(f"station {state}")
-    if last_cal is not None and pd.notna(last_cal["passed"]) and not bool(last_cal["passed"]):
-        out.append("last calibration failed")
-    series = data.calibration_series(p.url, station, None, p.now - timedelta(days=7), None)
-    if len(series) >= 5:
-        health = calibration_health(series, HealthConfig())
-        for sh in health.series:  # out of control now: the newest point of a chart signals
-            for name, pair in sh.charts.items():
-                for kind, chart in pair.items():
-                    if chart.points and chart.points[-1].signal:
-                        out.append(f"{kind.upper()} {name} ({sh.program})")
-    return sorted(set(out))
+    for station, line in zip(p.stations["station"], p.stations["line"], strict=True):
+        recent = data.results(p.url, station=station, limit=60, newest_first=True)
+        verdicts = [str(v) for v in recent["verdict"][::-1]] if not recent.empty else []
+        last = _row(res, station)
+        out.append(standing(
+            station, str(line), conditions.get(station, []), verdicts=verdicts,
+            last_leak_sccm=None if last is None else last["leak_rate_sccm"],
+            last_limit_sccm=None if last is None else last.get("reject_limit_sccm"),
+            state=str(status.loc[station, "state"]) if station in status.index else None,
+        ))  # fmt: skip
+    return rank(out)
+
+
+def _tile(
+    p: Page, s: Standing, last: pd.Series | None, cycles: int, shown: float | None, cal_at: Any
+) -> None:
+    """One station: level in words and shape, what is wrong, the last reading against its
+    limit. Text that wraps rather than metrics that truncate, so a 1024-px line PC shows it."""
+    colour = _LEVEL_COLOUR[s.level]
+    st.markdown(f"**{s.station}** :{colour}-badge[{s.symbol} {s.label}]")
+    if s.headline:
+        st.markdown(f"**{s.headline}**")
+    if last is not None:
+        verdict = str(last["verdict"])
+        if s.last_leak_sccm is None:
+            value = "no reading"
+        else:
+            value = f"{fmt(p.units.q(s.last_leak_sccm))} {p.units.q_label}"
+        share = s.limit_share
+        limit = (
+            f" · limit {fmt(p.units.q(s.last_limit_sccm))} {p.units.q_label}"
+            + (f" ({share:.0%} of it)" if share is not None and share >= 0 else "")
+            if s.last_limit_sccm is not None
+            else ""
+        )
+        st.markdown(
+            f"Last result · {last['program']}<br>"
+            f"<span style='font-size:1.5rem;font-weight:600'>{value}</span>",
+            unsafe_allow_html=True,
+        )
+        st.markdown(
+            f":{_VERDICT_COLOUR.get(verdict, 'gray')}-badge[{verdict}] "
+            f"cycle {last['cycle']} · {_age(p.now, last['ended_at'])}{limit}"
+        )
+    else:
+        st.markdown("Last result · none yet")
+    yield_text = "–" if shown is None or pd.isna(shown) else f"{shown:.1%}"
+    st.markdown(
+        f"**{cycles}** cycles in the last hour · yield today **{yield_text}**",
+        help="yield: first-pass yield of parts first tested today (test yield when parts "
+        "carry no id)",
+    )
+    streak = f" · {s.reject_streak} rejects in a row" if s.reject_streak else ""
+    st.caption(f"Last calibration: {_age(p.now, cal_at)}{streak}")
+    if len(s.conditions) > 1:
+        with st.expander(f"{len(s.conditions)} open conditions"):
+            for c in s.conditions:
+                st.markdown(f"- {'ALARM' if c.severity == 'alarm' else 'warning'}: {c.message}")
+    elif not s.conditions:
+        st.caption("No active alarms")
 
 
 def tiles(p: Page) -> None:
-    """The fleet overview (also what the 5 s fragment redraws)."""
+    """The fleet overview, worst station first (also what the 5 s fragment redraws)."""
     res = data.latest(p.url, "result").set_index("station")
-    status = data.latest(p.url, "status").set_index("station")
     cals = data.latest(p.url, "calibration").set_index("station")
     hour = data.verdict_counts(p.url, p.now - timedelta(hours=1), p.now + timedelta(seconds=1))
     since = p.today_start()
@@ -65,47 +122,25 @@ def tiles(p: Page) -> None:
         by=["station"],
     ).set_index("station")
     cycles = hour.groupby("station")["n"].sum() if not hour.empty else pd.Series(dtype=int)
-    st.caption(f"As of {p.local(p.now)} ({p.settings.timezone})")
-    for line, group in p.stations.groupby("line", sort=True):
+    board = standings(p)
+    counts = {lvl: sum(s.level == lvl for s in board) for lvl in LEVELS}
+    summary = " · ".join(
+        f"{LEVELS[k][2]} {n} {LEVELS[k][1].lower()}" for k, n in counts.items() if n
+    )
+    st.caption(f"As of {p.local(p.now)} ({p.settings.timezone}) · {summary} · worst first")
+    for line, group in group_by_line(board).items():
         st.subheader(f"Line {line}")
         cols = st.columns(3)
-        for i, station in enumerate(group["station"]):
-            state = str(status.loc[station, "state"]) if station in status.index else "unknown"
-            last_cal = cals.loc[station] if station in cals.index else None
+        for i, s in enumerate(group):
+            fpy = today["first_pass_yield"].get(s.station) if s.station in today.index else None
+            ty = today["test_yield"].get(s.station) if s.station in today.index else None
+            shown = fpy if fpy is not None and not pd.isna(fpy) else ty
             with cols[i % 3].container(border=True):
-                colour = _STATE_COLOUR.get(state, "gray")
-                st.markdown(f"**{station}** :{colour}-badge[{state}]")
-                if station in res.index:
-                    r = res.loc[station]
-                    verdict = str(r["verdict"])
-                    st.metric(
-                        f"Last result · {r['program']}",
-                        f"{fmt(p.units.q(r['leak_rate_sccm']))} {p.units.q_label}",
-                    )
-                    st.markdown(
-                        f":{_VERDICT_COLOUR.get(verdict, 'gray')}-badge[{verdict}] "
-                        f"cycle {r['cycle']} · {_age(p.now, r['ended_at'])}"
-                    )
-                else:
-                    st.metric("Last result", "–")
-                a, b = st.columns(2)
-                a.metric("Cycles, last hour", int(cycles.get(station, 0)))
-                fpy = today["first_pass_yield"].get(station) if station in today.index else None
-                ty = today["test_yield"].get(station) if station in today.index else None
-                shown = fpy if fpy is not None and not pd.isna(fpy) else ty
-                b.metric(
-                    "Yield today",
-                    "–" if shown is None or pd.isna(shown) else f"{shown:.1%}",
-                    help="first-pass yield of parts first tested today (test yield when "
-                    "parts carry no id)",
-                )
-                cal_at = None if last_cal is None else last_cal["ended_at"]
-                st.caption(f"Last calibration: {_age(p.now, cal_at)}")
-                alarms = _alarms(p, station, state, last_cal)
-                if alarms:
-                    st.warning(" · ".join(alarms), icon=":material/notifications_active:")
-                else:
-                    st.caption("No active alarms")
+                _tile(
+                    p, s, _row(res, s.station),
+                    int(cycles.get(s.station, 0)), shown,
+                    cals.loc[s.station, "ended_at"] if s.station in cals.index else None,
+                )  # fmt: skip
 
 
 def detail(p: Page) -> None:
@@ -120,8 +155,12 @@ def detail(p: Page) -> None:
     shown = p.units.frame(latest)
     u = p.units
     left, right = st.columns(2)
-    hist = latest.assign(
-        leak=latest["leak_rate_sccm"] * u.q_factor, loss=latest["pressure_loss_pa"] * u.p_factor
+    hist = charts.plant_clock(
+        latest.assign(
+            leak=latest["leak_rate_sccm"] * u.q_factor,
+            loss=latest["pressure_loss_pa"] * u.p_factor,
+        ),
+        p.settings.timezone,
     )
     left.altair_chart(charts.history(hist, "leak", f"leak rate [{u.q_label}]"), width="stretch")
     right.altair_chart(
@@ -132,7 +171,10 @@ def detail(p: Page) -> None:
         station=station,
     )  # fmt: skip
     if not summary.empty:
-        band = summary.assign(**{c: summary[c] * u.q_factor for c in ("mean", "min", "max")})
+        band = charts.plant_clock(
+            summary.assign(**{c: summary[c] * u.q_factor for c in ("mean", "min", "max")}),
+            p.settings.timezone,
+        )
         st.caption("Leak rate, hourly mean and range over the last 7 days")
         st.altair_chart(charts.band(band, f"leak rate [{u.q_label}]"), width="stretch")
     cols = ["ended_at", "cycle", "program", "part_id", "verdict", "reason"]
@@ -140,6 +182,79 @@ def detail(p: Page) -> None:
     table = shown[cols].head(50).copy()
     table["ended_at"] = table["ended_at"].dt.tz_convert(p.settings.timezone)
     st.dataframe(table, hide_index=True, width="stretch", key="fleet_latest_table")
+    maintenance(p, station)
+
+
+def alarm_list(p: Page) -> None:
+    """The journal's alarm list (what the gateway's evaluation keeps), with acknowledgement."""
+    st.subheader("Alarms")
+    if not p.url.startswith("sqlite:"):
+        st.caption("Alarm states are kept in the gateway's journal; this store is not one.")
+        return
+    alarms = data.open_alarms(p.url)
+    if alarms.empty:
+        st.caption("No open alarms in the journal (the gateway evaluates the rules every 30 s).")
+        return
+    table = alarms.assign(
+        since=pd.to_datetime(alarms["since"], utc=True).dt.tz_convert(p.settings.timezone)
+        .dt.strftime("%Y-%m-%d %H:%M"),
+        severity=alarms["severity"].str.upper(),
+    ).rename(columns={"id": "No.", "station": "Station", "severity": "Severity",
+                      "state": "State", "since": "Since", "message": "What",
+                      "acked_by": "Acknowledged by"})  # fmt: skip
+    st.dataframe(table, hide_index=True, width="stretch", key="fleet_alarm_table")
+    unacked = alarms[alarms["state"] == "active"]
+    if unacked.empty:
+        return
+    with st.form("fleet_ack", clear_on_submit=True):
+        a, b, c = st.columns([2, 2, 1])
+        choice = a.selectbox(
+            "Acknowledge alarm", list(unacked["id"]), key="fleet_ack_id",
+            format_func=lambda i: f"#{i} "
+            + str(unacked.loc[unacked["id"] == i, "message"].iloc[0])[:60],
+        )  # fmt: skip
+        who = b.text_input("Your name", key="fleet_ack_by")
+        if c.form_submit_button("Acknowledge") and choice is not None:
+            if not who.strip():
+                st.error("Say who acknowledges the alarm.")
+            elif data.acknowledge(p.url, int(choice), who.strip()):
+                st.success(f"Alarm #{choice} acknowledged by {who.strip()}.")
+            else:
+                st.info(f"Alarm #{choice} is no longer open.")
+
+
+def maintenance(p: Page, station: str) -> None:
+    """A station's maintenance log and a form to add to it (restarts calibration baselines)."""
+    from gateway.records import MAINTENANCE_KINDS, MaintenanceEvent
+
+    st.markdown("**Maintenance and notes**")
+    events = data.maintenance(p.url, station)
+    if not events.empty:
+        shown = events.assign(
+            at=events["at"].dt.tz_convert(p.settings.timezone).dt.strftime("%Y-%m-%d %H:%M")
+        ).rename(columns={"at": "When", "kind": "What", "note": "Note", "by": "By"})
+        st.dataframe(shown[["When", "What", "Note", "By"]], hide_index=True, width="stretch",
+                     key="fleet_maintenance_table")  # fmt: skip
+    if not p.url.startswith("sqlite:"):
+        return
+    with st.form("fleet_maintenance", clear_on_submit=True):
+        a, b, c = st.columns(3)
+        kind = a.selectbox("What was done", MAINTENANCE_KINDS, key="fleet_mt_kind")
+        note = b.text_input("Note", key="fleet_mt_note")
+        who = c.text_input("By", key="fleet_mt_by")
+        st.caption(
+            "A seal change, new fixture, new leak standard, repair or baseline reset restarts "
+            "the station's calibration baselines; a note only annotates. Lock out and vent "
+            "the station before working on it."
+        )
+        if st.form_submit_button("Record"):
+            try:
+                event = MaintenanceEvent(station, p.now, str(kind), note.strip(), who.strip())
+            except ValueError as exc:
+                st.error(str(exc))
+            else:
+                data.add_maintenance(p.url, event)
+                st.success(f"Recorded: {kind} on {station}.")
 
 
 p = page("Fleet, live", live=True)
@@ -151,4 +266,5 @@ def live() -> None:
 
 
 live()
+alarm_list(p)
 detail(p)

@@ -91,9 +91,17 @@ def _run(args: argparse.Namespace) -> int:
         raise ConfigError(f"--port: expected 1..65535, got {args.port}")
     sinks_from_cli(args.mqtt, args.influx)  # a bad URL stops here, before any station starts
     run_dir: Path = args.run_dir
-    run_dir.mkdir(parents=True, exist_ok=True)
+    if run_dir.exists() and not run_dir.is_dir():
+        raise ConfigError(f"--run-dir {run_dir}: a file is in the way; give a directory")
+    try:
+        run_dir.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise ConfigError(f"--run-dir {run_dir}: cannot create it ({exc.strerror})") from None
     if args.store:
         check_store_url(args.store)
+        if not args.store.startswith("sqlite:") and "://" in args.store:
+            raise ConfigError(f"--store {args.store}: the demo's journal is SQLite "
+                              "(sqlite:///path/demo.db); add InfluxDB as a sink with --influx")
         store = args.store
     else:
         db = run_dir / "demo.db"
@@ -116,7 +124,8 @@ def _check_port_free(port: int) -> None:
         try:
             s.bind(("127.0.0.1", port))
         except OSError:
-            raise ConfigError(f"--port {port}: already in use; pick another with --port") from None
+            raise ConfigError(f"--port {port}: already in use; pick another with --port, or "
+                              "add --free-ports if the stations' ports are taken too") from None
 
 
 def demo_config(
@@ -186,6 +195,8 @@ async def _demo(args: argparse.Namespace, store: str, run_dir: Path) -> int:
         if args.free_ports
         else dataclasses.replace(scenario, run_dir=sim_dir)
     )
+    if store.startswith("sqlite:"):
+        _record_study(scenario, store)
     stop = asyncio.Event()
     loop = asyncio.get_running_loop()
     for sig in (signal.SIGINT, signal.SIGTERM):
@@ -243,6 +254,19 @@ async def _demo(args: argparse.Namespace, store: str, run_dir: Path) -> int:
             loop.remove_signal_handler(sig)
     _summary(store)
     return 1 if failed else 0
+
+
+def _record_study(scenario: Any, store: str) -> None:
+    """A long-cycle calibration study of the first station with its pressure traces, so the
+    demo's trace viewer and back-down map have something to show."""
+    from gateway.store import open_journal
+    from sim.trace_study import study
+
+    st = scenario.stations[0]
+    program = next(iter(st.programs.values()))
+    with open_journal(store) as journal:
+        journal.write(study(scenario, st, program, masters=12, standards=4, stabilise_s=20.0,
+                            test_s=20.0, interval_s=0.2))
 
 
 def _summary(store: str) -> None:

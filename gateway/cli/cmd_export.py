@@ -53,8 +53,44 @@ def register(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
                         help="from this time: ISO 8601 (no offset = UTC) or an age like 8h, 7d")
     parser.add_argument("--until", metavar="T", type=_time, help="up to this time (same forms)")
     parser.add_argument("--station", metavar="S", help="only this station")
-    parser.add_argument("--out", metavar="FILE", type=Path, help="write here instead of stdout")
+    parser.add_argument("--out", metavar="FILE", type=Path,
+                        help="write here instead of stdout (never through a symbolic link; an "
+                        "existing file only with --force)")
+    parser.add_argument("--force", action="store_true", help="overwrite an existing --out file")
     parser.set_defaults(func=_run)
+
+
+def check_target(out: Path, force: bool) -> None:
+    """Refuse what would surprise: a missing folder, a folder, a link, an existing file."""
+    if out.is_symlink():
+        raise ValueError(f"{out} is a symbolic link; refusing to write through it (give the "
+                         "real path)")
+    if out.is_dir():
+        raise ValueError(f"{out} is a directory; give a file name, e.g. {out / 'results.csv'}")
+    if not out.parent.is_dir():
+        raise ValueError(f"{out.parent}: no such directory")
+    if out.exists() and not force:
+        raise ValueError(f"{out} exists; add --force to overwrite it")
+
+
+def _write_atomically(out: Path, write: Any) -> None:
+    """Write to a new file beside ``out`` and rename it over ``out``: a rename replaces a
+    link that appeared meanwhile instead of writing through it, and a failed write leaves
+    no half file."""
+    import os
+    import tempfile
+
+    fd, tmp = tempfile.mkstemp(prefix=f".{out.name}.", dir=out.parent)
+    os.close(fd)
+    umask = os.umask(0)
+    os.umask(umask)
+    os.chmod(tmp, 0o666 & ~umask)  # as an ordinary new file, not mkstemp's 0600
+    try:
+        write(tmp)
+        os.replace(tmp, out)
+    except BaseException:
+        Path(tmp).unlink(missing_ok=True)
+        raise
 
 
 def _time(text: str) -> datetime:
@@ -84,6 +120,8 @@ def frame_for(store: Any, kind: str, since: datetime | None, until: datetime | N
 def _run(args: argparse.Namespace) -> int:
     if args.format == "parquet" and args.out is None:
         raise ValueError("--format parquet needs --out FILE (Parquet is not written to a terminal)")
+    if args.out is not None:
+        check_target(args.out, args.force)
     from gateway.store import open_store
 
     store = open_store(args.store)
@@ -94,7 +132,7 @@ def _run(args: argparse.Namespace) -> int:
         if callable(close):
             close()
     if args.format == "parquet":
-        frame.to_parquet(args.out, index=False)
+        _write_atomically(args.out, lambda tmp: frame.to_parquet(tmp, index=False))
     else:
         for col in frame.columns:
             if str(frame[col].dtype).startswith("datetime64"):
@@ -102,7 +140,8 @@ def _run(args: argparse.Namespace) -> int:
         if args.out is None:
             frame.to_csv(sys.stdout, index=False, lineterminator="\n")
         else:
-            frame.to_csv(args.out, index=False, lineterminator="\n")
+            _write_atomically(args.out,
+                              lambda tmp: frame.to_csv(tmp, index=False, lineterminator="\n"))
     if args.out is not None:
         print(f"{len(frame)} {args.kind} row(s) written to {args.out}", file=sys.stderr)
     return 0

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import argparse
 import json
+import sys
 from pathlib import Path
 from typing import Any
 
@@ -67,12 +68,19 @@ def _dirs(p: argparse.ArgumentParser) -> None:
 
 
 def _list(args: argparse.Namespace) -> int:
+    from gateway.errors import ConfigError
     from gateway.profiles import builtin_profiles, load_profile
 
     names = list(builtin_profiles())
     for directory in args.profiles:
         names += [p.stem for p in sorted(Path(directory).glob("*.toml")) if p.stem not in names]
-    profiles = [load_profile(n, args.profiles) for n in names]
+    profiles = []
+    bad: list[str] = []
+    for n in names:  # one broken file must not hide the good ones
+        try:
+            profiles.append(load_profile(n, args.profiles))
+        except ConfigError as exc:
+            bad.append(str(exc))
     if args.json:
         print(json.dumps([{"name": p.name, "version": p.version, "transport": p.transport,
                            "description": p.description, "source": p.source}
@@ -81,7 +89,9 @@ def _list(args: argparse.Namespace) -> int:
     width = max((len(p.name) for p in profiles), default=4)
     for p in profiles:
         print(f"{p.name:<{width}}  {p.version:<6}  {p.transport:<6}  {p.description}")
-    return 0
+    for reason in bad:
+        print(f"not loaded: {reason}", file=sys.stderr)
+    return 1 if bad else 0
 
 
 def _show(args: argparse.Namespace) -> int:

@@ -97,6 +97,10 @@ def register(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
         "--input", metavar="FILE.csv", help="read a tidy CSV file instead of the store"
     )
 
+    from gateway.cli import report_backdown
+
+    report_backdown.register(kinds, common)
+
     p = kinds.add_parser(
         "yield",
         parents=[common, source, shifts],
@@ -127,7 +131,7 @@ def register(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
         help="leak readings against the reject limit: Ppu/Cpu, ppm, guard band, histogram",
         description=(
             "One-sided capability of leak rates against the reject limit per program (and "
-            "station with --by-station): Ppu and Cpu with 95 %% intervals, expected ppm, a "
+            "station with --by-station): Ppu and Cpu with 95 % intervals, expected ppm, a "
             "non-normal estimate and which model the data support."
         ),
     )
@@ -197,7 +201,7 @@ def register(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
         help="test-time advice: predicted %%GRR vs test time, shortest time meeting a target",
         description=(
             "From the master part's repeated losses at the current test time and the "
-            "calibration's sensitivity, predict %%GRR against the reject limit as a function of "
+            "calibration's sensitivity, predict %GRR against the reject limit as a function of "
             "test time. From the store: the master losses of the calibrations of one station "
             "and program; --input FILE.csv: a loss column (Pa) plus --test-time, "
             "--sensitivity and --reject-limit."

@@ -48,9 +48,11 @@ def register(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
     )
     parser.set_defaults(func=_run)
     # `leakfleet sim backfill ...`; plain `leakfleet sim --scenario ...` runs the plant as before
-    from gateway.cli import sim_backfill
+    from gateway.cli import sim_backfill, sim_study
 
-    sim_backfill.register(parser.add_subparsers(title="other actions", metavar="{backfill}"))
+    actions = parser.add_subparsers(title="other actions", metavar="{backfill,study}")
+    sim_backfill.register(actions)
+    sim_study.register(actions)
 
 
 def _run(args: argparse.Namespace) -> int:

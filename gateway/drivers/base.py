@@ -10,7 +10,7 @@ from typing import TYPE_CHECKING, Any, Protocol
 
 from gateway.errors import ProtocolError, TransportError
 from gateway.health import Backoff, StationHealth
-from gateway.records import CalibrationEvent, Rejected, StationStatus, TestResult
+from gateway.records import CalibrationEvent, GapEvent, Rejected, StationStatus, TestResult
 
 if TYPE_CHECKING:
     from gateway.profiles import Profile, StationContext
@@ -26,7 +26,7 @@ __all__ = [
     "utcnow",
 ]
 
-Item = TestResult | CalibrationEvent | StationStatus | Rejected
+Item = TestResult | CalibrationEvent | StationStatus | Rejected | GapEvent
 
 
 class NoAnswer(TransportError):

@@ -132,13 +132,17 @@ class LineLink:
 
     async def drain_input(self, wait: float = 0.0) -> tuple[list[RawLine], bytes]:
         """Collect input that arrives within ``wait`` seconds plus what is buffered."""
-        with contextlib.suppress(TimeoutError):
-            while True:
-                async with asyncio.timeout(max(wait, 0.0001)):
-                    data = await self._reader.read(_CHUNK)
-                if not data:
-                    break
-                self._lines.extend(self._splitter.feed(data))
+        try:
+            with contextlib.suppress(TimeoutError):
+                while True:
+                    async with asyncio.timeout(max(wait, 0.0001)):
+                        data = await self._reader.read(_CHUNK)
+                    if not data:
+                        break
+                    self._lines.extend(self._splitter.feed(data))
+        except (ConnectionError, OSError) as exc:
+            # an unplugged adapter or a reset between two requests: a link failure like any
+            raise TransportError(f"{self.name}: read failed: {exc}") from exc
         return self.take_buffered()
 
     async def write(self, data: bytes, timeout: float) -> None:

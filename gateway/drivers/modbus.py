@@ -35,8 +35,16 @@ from gateway.drivers.base import (
     utcnow,
 )
 from gateway.drivers.lines import split_host_port
-from gateway.errors import ProtocolError, TransportError
-from gateway.records import CalibrationEvent, Rejected, StationState, StationStatus, TestResult
+from gateway.profiles.registers import decode_registers
+from gateway.errors import DecodeError, ProtocolError, TransportError
+from gateway.records import (
+    CalibrationEvent,
+    GapEvent,
+    Rejected,
+    StationState,
+    StationStatus,
+    TestResult,
+)
 
 if TYPE_CHECKING:
     from gateway.profiles import ModbusSpec, StationContext
@@ -132,9 +140,17 @@ class RingReader:
         )
         self._state_span = field_span(spec.state) if spec.state is not None else None
         self._acked: int | None = None
-        self._handled: int | None = None  # newest cycle actually journalled or quarantined
+        # the station's counter wraps (65535 -> 0, or at 2^32): cycles are handled here as
+        # unwrapped integers and turned back into the station's numbers at its registers
+        self._mod = 2 ** (16 * int(ring.counter_registers))
         self._first_contact = False  # reading what the ring held before we knew its counter
-        self._modulus = 1 << (16 * int(ring.counter_registers))
+
+    def _unwrap(self, counter: int) -> int | None:
+        """The counter as an unwrapped cycle after ``seen``; None when it went back (reset)."""
+        if self.seen is None:
+            return counter
+        ahead = (counter - self.seen) % self._mod
+        return self.seen + ahead if ahead <= self._mod // 2 else None
 
     def pending_ack(self) -> tuple[int, list[int]] | None:
         """(address, registers) to acknowledge the newest handled cycle, if the profile asks.
@@ -143,10 +159,10 @@ class RingReader:
         never writes to a station on its own initiative.
         """
         ack = self.spec.acknowledge
-        if ack is None or self._handled is None or self._handled == self._acked:
+        if ack is None or self.seen is None or self.seen == self._acked or self.seen <= 0:
             return None
-        self._acked = self._handled
-        return int(ack.address), list(ack.encode(self._handled, self.spec.word_order))
+        self._acked = self.seen
+        return int(ack.address), list(ack.encode(self.seen % self._mod, self.spec.word_order))
 
     # -- the poll ---------------------------------------------------------------------------
     async def poll(self, link: RegisterLink, *, take_results: bool = True) -> PollOutcome:
@@ -167,10 +183,12 @@ class RingReader:
 
         ring = self.spec.result
         depth = int(ring.depth)
-        cycles = self._cycles_to_read(c1, depth, out, received_at)
+        u1 = self._unwrap(c1)
+        cycles = self._cycles_to_read(c1, u1, depth, out, received_at)
+        u1 = self._unwrap(c1)  # after a reset or first contact, relative to the new ``seen``
         blocks: dict[int, list[int]] = {}
         for cycle in cycles:
-            address = int(ring.slot_address(cycle))
+            address = int(ring.slot_address(cycle % self._mod))
             blocks[cycle] = await self._read(link, address, int(ring.length))
         cal_regs: list[int] | None = None
         cal = self.spec.calibration
@@ -184,7 +202,12 @@ class RingReader:
         header2 = await self._read_header(link)
         c2 = self.spec.decode_counter(self._slice(header2, self._counter_span))
         if blocks:
-            self._accept_results(blocks, c1, c2, depth, received_at, out)
+            u2 = self._unwrap(c2)
+            if u1 is None or u2 is None or u2 < u1:
+                log.debug("%s: counter moved back during the read (%d -> %d)", self.station,
+                          c1, c2)
+            else:
+                self._accept_results(blocks, u1, u2, depth, received_at, out)
         if cal_regs is not None and self._cal_counter_span is not None:
             cc2 = self.spec.decode_calibration_counter(
                 self._slice(header2, self._cal_counter_span)
@@ -193,56 +216,45 @@ class RingReader:
         return out
 
     def _cycles_to_read(
-        self, c1: int, depth: int, out: PollOutcome, received_at: datetime
+        self, c1: int, u1: int | None, depth: int, out: PollOutcome, received_at: datetime
     ) -> list[int]:
-        """The cycles to read this poll, oldest first, counted modulo the counter's range.
-
-        A 16- or 32-bit counter wraps (65535 -> 0): the cycle after ``seen`` is
-        ``(seen + 1) mod 2^n``, so the result numbered 0 is the next cycle, not a reset. A
-        counter that moves back by more than half its range is read as a station reset.
-        First contact (and after a reset or restart): the last ``depth`` cycles the ring can
-        hold are read (only 1..c1 when the counter is below the depth: no wrap is assumed);
-        slots never written (all zero, or both guards naming another cycle) are skipped
-        silently, never quarantined. A counter of 0 at first contact means "nothing yet": no
-        slot is read, but gap detection is armed from 0.
-        """
-        modulus = self._modulus
+        """Unwrapped cycles to read now. First contact reads what the ring still holds (the
+        newest ``depth``; a counter of 0 means nothing yet, and arms gap detection); a counter
+        that went back is a station reset (its ring is read again); one that passed its
+        maximum has wrapped and goes on counting, the record numbered 0 included."""
         if self.seen is None:
-            if c1 == 0:
-                self.seen = 0  # nothing produced yet; cycle 1 (or a jump past it) comes next
+            self.seen = max(0, c1 - depth)  # first contact: whatever the ring still holds
+            if c1 <= 0:
                 return []
-            # first contact: a young station's ring holds cycles 1..c1 only (no wrap assumed)
-            self.seen = (c1 - min(c1, depth)) % modulus
+            u1 = c1
             self._first_contact = True
-        ahead = (c1 - self.seen) % modulus
-        if ahead > modulus // 2:
+        elif u1 is None:
             log.warning(
                 "%s: result counter went back from %d to %d (station reset?); rereading its ring",
-                self.station, self.seen, c1,
+                self.station, self.seen % self._mod, c1,
             )
-            self.seen = (c1 - depth) % modulus
-            self._first_contact = True
+            self.seen = max(0, c1 - depth)
             self._torn.clear()
-            ahead = depth
-        if ahead > depth and not self._first_contact:
-            lost_to = (c1 - depth) % modulus
-            self._gap((self.seen + 1) % modulus, lost_to, depth, received_at, out, ahead - depth)
-            self.seen = lost_to
-            ahead = depth
-        ahead = min(ahead, depth)
+            u1 = c1
+            self._first_contact = True
+        if u1 <= self.seen and not self._resumed:
+            return []
+        first = max(self.seen + 1, u1 - depth + 1)
+        if first > self.seen + 1:
+            self._gap(self.seen + 1, first - 1, depth, received_at, out)
+            self.seen = first - 1
         if self._resumed:
             # after a restart, read the whole ring once: a cycle torn at the moment the last
             # run stopped is read now, and repeats are ignored by the journal
             self._resumed = False
             self._first_contact = True  # slots never written since are skipped, not torn
-            ahead = depth
-        return [(c1 - ahead + 1 + i) % modulus for i in range(ahead)]
+            first = max(1, u1 - depth + 1)
+        return list(range(first, u1 + 1))
 
-    def _gap(
-        self, lo: int, hi: int, depth: int, at: datetime, out: PollOutcome, count: int
-    ) -> None:
-        out.missed += count
-        what = f"cycles {lo}..{hi}" if count > 1 else f"cycle {lo}"
+    def _gap(self, lo: int, hi: int, depth: int, at: datetime, out: PollOutcome) -> None:
+        out.missed += hi - lo + 1
+        lo, hi = lo % self._mod, hi % self._mod  # as the station numbers them
+        what = f"cycles {lo}..{hi}" if hi != lo else f"cycle {lo}"
         detail = (
             f"gap: {what} overwritten in the station's ring (depth {depth}) before they could "
             "be read"
@@ -250,6 +262,9 @@ class RingReader:
         log.warning("%s: %s", self.station, detail)
         state = out.state or StationState.ONLINE  # restate the current state, with the gap
         out.items.append(StationStatus(station=self.station, at=at, state=state, detail=detail))
+        # the loss itself, on record: the journal keeps it in its gaps table
+        out.items.append(GapEvent(station=self.station, at=at, first=lo, last=hi, source="ring",
+                                  detail=detail, line=self.context.line))
 
     def _accept_results(
         self,
@@ -260,36 +275,28 @@ class RingReader:
         received_at: datetime,
         out: PollOutcome,
     ) -> None:
-        modulus = self._modulus
-        if (c2 - c1) % modulus > modulus // 2:
-            log.debug("%s: counter moved back during the read (%d -> %d)", self.station, c1, c2)
-            return
         first_contact, self._first_contact = self._first_contact, False
         advance = True
-        for cycle in blocks:  # in read order, oldest first (65535 comes before 0)
-            if (c2 - cycle) % modulus >= depth:
+        for cycle in sorted(blocks):
+            if c2 >= cycle + depth:
                 # its slot may have been rewritten while we read: the next poll reports the gap
                 advance = False
                 self._first_contact = first_contact
                 continue
             regs = blocks[cycle]
-            if first_contact and not any(regs):
+            if first_contact and (not any(regs) or self._holds_other_cycle(regs, cycle)):
+                # first contact, restart or reset: a slot never written (all zero) or still
+                # holding an older cycle is nothing to take and nothing lost, not a torn block
                 if advance:
-                    self.seen = cycle  # a slot never written: nothing to take, nothing lost
+                    self.seen = cycle
                 continue
-            decoded = self.spec.decode_result(regs, cycle, self.context, received_at)
+            decoded = self.spec.decode_result(regs, cycle % self._mod, self.context,
+                                              received_at)
             if isinstance(decoded, TestResult):
                 out.items.append(decoded)
                 out.accepted += 1
                 self._torn.pop(cycle, None)
-                self._handled = cycle
             elif isinstance(decoded, Rejected) and _is_torn(decoded):
-                if first_contact and self._holds_other_cycle(regs, cycle):
-                    # the slot still holds an older cycle (written before this station's
-                    # counter came round): not ours to take, not a torn block
-                    if advance:
-                        self.seen = cycle
-                    continue
                 out.torn += 1
                 tries = self._torn.get(cycle, 0) + 1
                 self._torn[cycle] = tries
@@ -299,18 +306,13 @@ class RingReader:
                     continue
                 self._torn.pop(cycle, None)
                 out.items.append(_persisted(decoded, tries))
-                self._handled = cycle
             else:
                 out.items.append(decoded)  # consistent but undecodable: bad data, quarantine
-                self._handled = cycle
             if advance:
                 self.seen = cycle
 
     def _holds_other_cycle(self, regs: list[int], cycle: int) -> bool:
         """Both guards agree on a cycle other than ``cycle``: a complete older block."""
-        from gateway.errors import DecodeError
-        from gateway.profiles.registers import decode_registers
-
         ring = self.spec.result
         width = int(ring.counter_registers)
         try:
@@ -321,7 +323,7 @@ class RingReader:
             )
         except DecodeError:
             return False
-        return head == tail and head != cycle
+        return head == tail and head != cycle % self._mod
 
     def _accept_calibration(
         self, regs: list[int], cc1: int, cc2: int, received_at: datetime, out: PollOutcome

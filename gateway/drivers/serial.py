@@ -28,6 +28,7 @@ __all__ = ["LineHandler", "read_answer", "run_request_station", "run_stream_stat
 log = logging.getLogger(__name__)
 
 _IDLE_READ_S = 5.0  # a streaming read wakes this often even on a silent line
+LINK_HOLD_S = 5.0  # a stream link that stays open this long (or delivers) counts as up
 
 
 def _spec(target: StationTarget) -> SerialSpec:
@@ -123,11 +124,17 @@ async def run_stream_station(
             await _emit(outbox, health.failed(str(exc)))
             await sleep_for(backoff.next())
             continue
-        backoff.reset()
-        await _emit(outbox, health.succeeded())
+        # a link counts as up once it has held (or delivered): a device server that accepts
+        # and drops at once must not reset the backoff and flood online/offline statuses
+        loop = asyncio.get_running_loop()
+        opened, up = loop.time(), False
         try:
             while True:
                 raw = await link.read_line(_IDLE_READ_S)
+                if not up and (raw is not None or loop.time() - opened >= LINK_HOLD_S):
+                    up = True
+                    backoff.reset()
+                    await _emit(outbox, health.succeeded())
                 if raw is None:
                     continue
                 if not raw.overlong and not raw.data.strip():

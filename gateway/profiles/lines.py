@@ -11,10 +11,11 @@ from __future__ import annotations
 import dataclasses
 import operator
 import re
-from collections.abc import Callable, Sequence
+from collections.abc import Callable, Mapping, Sequence
 from datetime import datetime
 from typing import Any
 
+from gateway.profiles.checks import CHECKS
 from gateway.profiles.model import FieldSpec, LineKind, Parsed, SerialSpec, StationContext
 from gateway.profiles.normalise import (
     FieldError,
@@ -44,7 +45,7 @@ def split_fields(spec: SerialSpec, kind: LineKind, text: str) -> dict[str, str]:
     if kind.dialect == "delimited":
         parts = [_clean(p, strip) for p in text.split(dialect.separator)]
         raw = dict(zip(kind.columns, parts, strict=False))
-        if kind.when is not None and not kind.when.holds(raw):
+        if kind.when is not None and not kind.when.holds(raw, len(parts)):
             raise _NoMatch
         if len(parts) != len(kind.columns):
             raise FieldError(
@@ -138,37 +139,67 @@ def _result_picker(fields: Sequence[FieldSpec]) -> Callable[[tuple[Any, ...]], A
     return operator.itemgetter(*order)
 
 
+def _constant(value: Any) -> TextConverter:
+    def constant(text: str | None, raw: Mapping[str, str]) -> Any:
+        return value
+
+    return constant
+
+
+def _joined(names: tuple[str, ...], source: str, convert: TextConverter) -> TextConverter:
+    """A field made of several raw fields joined with a space (date column + time column)."""
+
+    def joined(text: str | None, raw: Mapping[str, str]) -> Any:
+        text = " ".join(p for p in (raw.get(n) for n in names) if p) or None
+        return convert(text, {**raw, source: text} if text is not None else raw)
+
+    return joined
+
+
 class _Plan:
     """One line kind with its per-line work done once: compiled field converters and, for a
     delimited kind, where each field and the discriminator sit among the columns."""
 
-    __slots__ = ("converters", "delimited", "kind", "known_keys", "names", "ncols", "needs_raw",
-                 "pick", "sources", "when_at", "when_values")
+    __slots__ = ("constants", "converters", "delimited", "kind", "known_keys", "names", "ncols",
+                 "needs_raw", "pick", "sources", "when_at", "when_count", "when_re",
+                 "when_values")
 
     def __init__(self, kind: LineKind, ctx: StationContext, reference_c: float) -> None:
         self.kind = kind
         self.delimited = kind.dialect == "delimited"
         self.ncols = len(kind.columns)
         at = {name: i for i, name in enumerate(kind.columns)}
-        self.when_at = None if kind.when is None else at.get(kind.when.field, -1)
-        self.when_values = () if kind.when is None else kind.when.values
+        when = kind.when
+        self.when_at = None if when is None or when.field is None else at.get(when.field, -1)
+        self.when_values = () if when is None else when.values
+        self.when_count = None if when is None else when.count
+        self.when_re = None if when is None or when.matches is None else re.compile(when.matches)
         converters: list[tuple[int, TextConverter]] = []
         needs_raw = False
         for fspec in kind.fields:
+            if fspec.constant is not None:
+                converters.append((-1, _constant(fspec.constant)))
+                continue
             convert, wants_raw = compile_text_field(fspec, ctx, reference_c)
             needs_raw = needs_raw or wants_raw
             assert fspec.source is not None
+            if fspec.join:
+                convert = _joined(fspec.join, fspec.source, convert)
+                needs_raw = True
             converters.append((at.get(fspec.source, -1), convert))
         self.converters = tuple(converters)
         self.names = tuple(f.canonical for f in kind.fields)
         self.sources = tuple(f.source or "" for f in kind.fields)
+        self.constants = tuple(f.canonical for f in kind.fields if f.constant is not None)
         self.known_keys = frozenset(
             {f.source for f in kind.fields if f.source}
+            | {n for f in kind.fields for n in f.join}
             | {f.unit_from for f in kind.fields if f.unit_from}
-            | ({kind.when.field} if kind.when is not None else set())
+            | ({when.field} if when is not None and when.field is not None else set())
         )
         self.needs_raw = needs_raw
-        self.pick = _result_picker(kind.fields) if kind.record == "result" else None
+        plain = not self.constants and not any(f.join for f in kind.fields)
+        self.pick = _result_picker(kind.fields) if kind.record == "result" and plain else None
 
     def values_of(self, parts: list[str]) -> list[Any]:
         """Each field's canonical value (None: no value) from a delimited line's columns."""
@@ -193,6 +224,8 @@ class _Plan:
                     return reject(ctx, label, raw, f"result not valid: {exc}", received_at,
                                   line_no)
         present = {k: v for k, v in zip(self.names, values, strict=True) if v is not None}
+        if self.constants:  # values the profile states: on record as such
+            present["supplied"] = tuple((name, "profile") for name in sorted(self.constants))
         return make_record(self.kind.record, present, ctx, label, raw, received_at, line_no)
 
 
@@ -237,7 +270,26 @@ class SerialParser:
         if found is not None:
             bad = found.group()
             raise FieldError(f"control character 0x{ord(bad):02x} at position {found.start()}")
+        if self.spec.checksum is not None:
+            text = self._checked(text)
         return text
+
+    def _checked(self, text: str) -> str:
+        """The line without its check value, when the value is right; else a FieldError."""
+        check = self.spec.checksum
+        assert check is not None
+        payload, marker, value = text.rpartition(check.marker)
+        fn, digits = CHECKS[check.algorithm]
+        if not marker:
+            raise FieldError(f"checksum: no {check.marker!r} before a check value")
+        value = value.strip()
+        if len(value) != digits or not all(c in "0123456789abcdefABCDEF" for c in value):
+            raise FieldError(f"checksum: {value[:8]!r} is not {digits} hex digits")
+        computed = fn(payload.encode(self.spec.encoding, "replace"))
+        if int(value, 16) != computed:
+            raise FieldError(f"checksum ({check.algorithm}): the line says {value.upper()}, "
+                             f"its bytes give {computed:0{digits}X}")
+        return payload
 
     def parse(
         self,
@@ -291,10 +343,15 @@ class SerialParser:
                         parts = text.split(dialect.separator)
                         if dialect.strip:
                             parts = [p.strip() for p in parts]
+                    if plan.when_count is not None and len(parts) != plan.when_count:
+                        continue
                     if plan.when_at is not None:
                         at = plan.when_at
                         found = parts[at] if 0 <= at < len(parts) else None
-                        if found not in plan.when_values:
+                        if plan.when_re is not None:
+                            if found is None or plan.when_re.search(found) is None:
+                                continue
+                        elif found not in plan.when_values:
                             continue
                     if len(parts) != plan.ncols:
                         raise FieldError(
@@ -345,7 +402,7 @@ class SerialParser:
         wants = []
         for kind in self.spec.dialect.kinds:
             if kind.when is not None:
-                wants.append(f"{kind.when.field} = {'|'.join(kind.when.values)} ({kind.record})")
+                wants.append(f"{kind.when.describe()} ({kind.record})")
             elif kind.pattern is not None:
                 wants.append(f"the {kind.record} pattern")
         return "matches no line kind; expected " + " or ".join(wants)

@@ -20,6 +20,7 @@ from typing import Any, NoReturn
 from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 
 from gateway.errors import ConfigError, DecodeError, UnitError
+from gateway.profiles.checks import CHECKS
 from gateway.profiles.model import (
     CAL_FIELDS,
     RESULT_FIELDS,
@@ -29,8 +30,10 @@ from gateway.profiles.model import (
     Dialect,
     FieldSpec,
     FixedColumn,
+    LineCheck,
     LineKind,
     ModbusSpec,
+    NumberText,
     Profile,
     RegisterField,
     RequestSpec,
@@ -40,7 +43,7 @@ from gateway.profiles.model import (
 )
 from gateway.profiles.registers import NUMERIC_TYPES, parse_type
 from gateway.records import StationState, Verdict
-from gateway.units import normalise_unit
+from gateway.units import normalise_unit, parse_quantity
 
 __all__ = ["builtin_dir", "builtin_profiles", "load_profile", "parse_profile"]
 
@@ -145,9 +148,12 @@ class _Reader:
 
 
 _FIELD_KEYS_TEXT = ("from", "unit", "unit_from", "scale", "offset", "empty", "codes", "format",
-                    "timezone", "programs")
+                    "timezone", "programs", "decimal", "thousands", "sign", "absent", "value")
+_NUMBER_KEYS = ("decimal", "thousands", "sign", "absent")
 _FIELD_KEYS_REG = ("at", "type", "word_order", "byte_order", "null", "unit", "scale", "offset",
-                   "empty", "codes", "format", "timezone")
+                   "empty", "codes", "format", "timezone", "bit", "mask", "bits")
+#: timestamps built from several uint16 registers: (format, registers)
+REGISTER_TIMES = {"ymdhms": 6, "bcd-ymdhms": 4}
 
 
 def _codes(r: _Reader, value: Any, path: str, kind: ValueKind, registers: bool
@@ -211,9 +217,12 @@ def _field(
     word_order: str = "big",
     byte_order: str = "big",
     raw_names: Sequence[str] | None = None,
+    numbers: NumberText | None = None,
 ) -> FieldSpec:
     if isinstance(raw, str) and not registers:
         raw = {"from": raw}
+    if not registers and isinstance(raw, dict) and "value" in raw:
+        return _constant(r, canonical, raw, path, kind, required)
     if not isinstance(raw, dict):
         r.fail(path, "an inline table such as { from = \"...\", unit = \"...\" }", raw)
     r.table(raw, path, _FIELD_KEYS_REG if registers else _FIELD_KEYS_TEXT)
@@ -239,13 +248,29 @@ def _field(
             else:
                 r.fail(f"{path}.null", '"nan" (float32) or an integer sentinel (integer types)',
                        value)
-        register = RegisterField(at, type_name, width, wo, bo, null)
+        bit = r.integer(raw, "bit", path, None, lo=0, hi=31)
+        mask = r.integer(raw, "mask", path, None, lo=1, hi=2**32 - 1)
+        if (bit is not None or mask is not None) and type_name not in (
+                "uint16", "uint32", "int16", "int32"):
+            r.fail(f"{path}.bit", "an integer register type for bit and mask", type_name)
+        if bit is not None and mask is not None:
+            r.fail(f"{path}.mask", "either bit or mask, not both", mask)
+        fmt = raw.get("format")
+        if kind == "timestamp" and fmt in REGISTER_TIMES:
+            if type_name != "uint16":
+                r.fail(f"{path}.type", f'"uint16" for format "{fmt}"', type_name)
+            width = REGISTER_TIMES[fmt]
+        register = RegisterField(at, type_name, width, wo, bo, null, bit, mask)
         if type_name.startswith("string") and kind not in ("text", "program"):
             r.fail(f"{path}.type", f"a numeric type for a {kind} field", type_name)
     else:
-        source = r.string(raw, "from", path, canonical)
-        if raw_names is not None and source not in raw_names:
-            r.fail(f"{path}.from", "one of the raw fields " + ", ".join(raw_names), source)
+        if isinstance(raw.get("from"), list):
+            join = _join(r, raw["from"], f"{path}.from", kind, raw_names)
+            source = "+".join(join)
+        else:
+            source = r.string(raw, "from", path, canonical)
+            if raw_names is not None and source not in raw_names:
+                r.fail(f"{path}.from", "one of the raw fields " + ", ".join(raw_names), source)
     unit = None
     unit_from = None
     if ("unit" in raw or "unit_from" in raw) and kind not in _QUANTITY:
@@ -279,7 +304,10 @@ def _field(
     if required and empty == "none":
         r.fail(f"{path}.empty", f'"error": {canonical} is required and cannot be empty', empty)
     codes = None
-    if kind in ("verdict", "bool"):
+    bit_codes: tuple[tuple[int, Any], ...] = ()
+    if registers and "bits" in raw:
+        bit_codes = _bit_codes(r, raw, path, kind)
+    elif kind in ("verdict", "bool"):
         if "codes" not in raw:
             r.fail(f"{path}.codes", "a table of station code = "
                    + ("verdict" if kind == "verdict" else "true/false") + " (missing)")
@@ -290,9 +318,13 @@ def _field(
     timezone = None
     if kind == "timestamp":
         time_format = r.string(raw, "format", path, "unix" if registers else "iso")
-        _time_format(r, time_format, f"{path}.format")
-        if registers and time_format != "unix":
-            r.fail(f"{path}.format", '"unix" for a register timestamp', time_format)
+        if registers:
+            if time_format != "unix" and time_format not in REGISTER_TIMES:
+                r.fail(f"{path}.format", '"unix", "ymdhms" (six registers: year, month, day, '
+                       'hour, minute, second) or "bcd-ymdhms" (four packed-BCD registers)',
+                       time_format)
+        else:
+            _time_format(r, time_format, f"{path}.format")
         tz = _zone(r, r.string(raw, "timezone", path, "station"), f"{path}.timezone")
         timezone = None if tz == "station" else tz
     else:
@@ -304,17 +336,119 @@ def _field(
         if kind != "program":
             r.fail(f"{path}.programs", "only on the program field", raw["programs"])
         program_lookup = r.boolean(raw, "programs", path)
+    number = None if registers else _number_text(r, raw, path, kind, numbers)
     return FieldSpec(
         canonical=canonical, kind=kind, source=source, register=register, unit=unit,
         unit_from=unit_from, scale=scale, offset=offset, empty_none=empty == "none",
         codes=codes, time_format=time_format, timezone=timezone,
-        program_lookup=program_lookup or registers,
+        program_lookup=program_lookup or registers, number=number, bit_codes=bit_codes,
+        join=tuple(source.split("+")) if source is not None and "+" in source
+        and isinstance(raw.get("from"), list) else (),
     )
+
+
+def _bit_codes(r: _Reader, raw: Mapping[str, Any], path: str, kind: ValueKind
+               ) -> tuple[tuple[int, Any], ...]:
+    """``bits = { aborted = 4, gross = 3, reject = 2, pass = 1 }``: the first listed value
+    whose bit is set wins, so unrelated flag bits never need listing."""
+    if kind not in ("verdict", "bool"):
+        r.fail(f"{path}.bits", "only on a verdict or passed field", raw["bits"])
+    if "codes" in raw:
+        r.fail(f"{path}.codes", "either codes or bits, not both", raw["codes"])
+    table = raw["bits"]
+    if not isinstance(table, dict) or not table:
+        r.fail(f"{path}.bits", "a table of value = bit number, in priority order", table)
+    out: list[tuple[int, Any]] = []
+    for name, bit in table.items():
+        if isinstance(bit, bool) or not isinstance(bit, int) or not 0 <= bit <= 31:
+            r.fail(f"{path}.bits.{name}", "a bit number 0..31", bit)
+        if kind == "verdict":
+            if name not in {v.value for v in Verdict}:
+                r.fail(f"{path}.bits.{name}", "a verdict: pass, reject, gross, aborted", name)
+            out.append((bit, name))
+        else:
+            if name not in ("true", "false"):
+                r.fail(f"{path}.bits.{name}", "true or false", name)
+            out.append((bit, name == "true"))
+    return tuple(out)
+
+
+def _join(r: _Reader, names: list[Any], path: str, kind: ValueKind,
+          raw_names: Sequence[str] | None) -> tuple[str, ...]:
+    """``from = ["date", "time"]``: raw fields joined with one space (a split timestamp)."""
+    if kind not in ("timestamp", "text"):
+        r.fail(path, f"one raw field for a {kind} field (several only for a time or text)",
+               names)
+    if len(names) < 2 or not all(isinstance(n, str) and n and "+" not in n for n in names):
+        r.fail(path, "an array of two or more raw field names", names)
+    for name in names:
+        if raw_names is not None and name not in raw_names:
+            r.fail(path, "raw fields among " + ", ".join(raw_names), name)
+    return tuple(names)
+
+
+def _number_text(r: _Reader, raw: Mapping[str, Any], path: str, kind: ValueKind,
+                 defaults: NumberText | None) -> NumberText | None:
+    """The field's number writing: the dialect's, with this field's overrides."""
+    base = defaults or NumberText()
+    given = [k for k in _NUMBER_KEYS if k in raw]
+    numeric = kind in _QUANTITY or kind in ("number", "int")
+    if given and not numeric and given != ["absent"]:
+        r.fail(f"{path}.{given[0]}", f"no number format for a {kind} field (remove the key)",
+               raw[given[0]])
+    decimal = r.string(raw, "decimal", path, base.decimal, (".", ","))
+    thousands = r.string(raw, "thousands", path, base.thousands, ("", ".", ",", " ", "'"))
+    if thousands and thousands == decimal:
+        r.fail(f"{path}.thousands", "a thousands separator other than the decimal mark",
+               thousands)
+    sign = r.string(raw, "sign", path, "trailing" if base.trailing_sign else "leading",
+                    ("leading", "trailing"))
+    absent = base.absent
+    if "absent" in raw:
+        value = raw["absent"]
+        if isinstance(value, str):
+            value = [value]
+        if not isinstance(value, list) or not all(isinstance(v, str) and v for v in value):
+            r.fail(f"{path}.absent", 'placeholder text(s) meaning "no value", e.g. "---"',
+                   raw["absent"])
+        absent = tuple(value)
+    spec = NumberText(decimal if numeric else ".", thousands if numeric else "",
+                      sign == "trailing" and numeric, absent)
+    return None if spec == NumberText() else spec
+
+
+def _constant(r: _Reader, canonical: str, raw: Mapping[str, Any], path: str,
+              kind: ValueKind, required: bool) -> FieldSpec:
+    """``value = "2 sccm"``: the profile states a value the station does not send."""
+    r.table(raw, path, ("value",))
+    value = raw["value"]
+    if kind in _QUANTITY:
+        text = value if isinstance(value, str) else None
+        if text is None and isinstance(value, int | float) and not isinstance(value, bool) \
+                and kind in ("time", "temperature"):
+            text = f"{value} {'s' if kind == 'time' else 'C'}"
+        if text is None:
+            r.fail(f"{path}.value", f'a {kind} with its unit, e.g. "2 sccm"', value)
+        try:
+            constant: Any = parse_quantity(text, kind).canonical  # type: ignore[arg-type]
+        except UnitError as exc:
+            r.fail(f"{path}.value", f"a {kind} with its unit ({exc})", value)
+    elif kind in ("text", "program") and isinstance(value, str) and value:
+        constant = value
+    else:
+        r.fail(f"{path}.value", f"a constant for a {kind} field (times, pressures, leak rates, "
+               "temperatures, text, program)", value)
+    if required:
+        r.fail(f"{path}.value", f"the station's own {canonical} (a required field cannot be a "
+               "constant)", value)
+    return FieldSpec(canonical=canonical, kind=kind, source=None, empty_none=True,
+                     constant=constant)
 
 
 def _fields(r: _Reader, table: Any, path: str, record: str, *, registers: bool,
             word_order: str = "big", byte_order: str = "big",
-            raw_names: Sequence[str] | None = None) -> tuple[FieldSpec, ...]:
+            raw_names: Sequence[str] | None = None,
+            numbers: NumberText | None = None) -> tuple[FieldSpec, ...]:
     catalogue = dict(RESULT_FIELDS if record == "result" else CAL_FIELDS)
     if registers and record == "result":
         del catalogue["cycle"]  # the slot's head guard is the cycle
@@ -330,18 +464,37 @@ def _fields(r: _Reader, table: Any, path: str, record: str, *, registers: bool,
                    "(missing)")
     return tuple(
         _field(r, name, table[name], f"{path}.{name}", *catalogue[name], registers=registers,
-               word_order=word_order, byte_order=byte_order, raw_names=raw_names)
+               word_order=word_order, byte_order=byte_order, raw_names=raw_names,
+               numbers=numbers)
         for name in table
     )
 
 
 def _condition(r: _Reader, raw: Any, path: str, names: Sequence[str] | None) -> Condition:
     if not isinstance(raw, dict):
-        r.fail(path, 'an inline table { field = "...", equals = "..." }', raw)
-    r.table(raw, path, ("field", "equals"))
+        r.fail(path, 'an inline table { field = "...", equals = "..." } or { fields = N }', raw)
+    r.table(raw, path, ("field", "equals", "matches", "fields"))
+    count = r.integer(raw, "fields", path, None, lo=1, hi=1000)
+    if "field" not in raw:
+        if count is None:
+            r.fail(f"{path}.field", "a raw field to test, or fields = N (a field count)")
+        for key in ("equals", "matches"):
+            if key in raw:
+                r.fail(f"{path}.field", f"the raw field {key} applies to (missing)")
+        return Condition(None, (), count)
     name = r.string(raw, "field", path)
     if names is not None and name not in names:
         r.fail(f"{path}.field", "one of the raw fields " + ", ".join(names), name)
+    if ("equals" in raw) == ("matches" in raw):
+        r.fail(f"{path}.equals", "exactly one of equals (values) or matches (a regular "
+               "expression)")
+    if "matches" in raw:
+        pattern = r.string(raw, "matches", path)
+        try:
+            re.compile(pattern)
+        except re.error as exc:
+            r.fail(f"{path}.matches", f"a valid regular expression ({exc})", pattern)
+        return Condition(name, (), count, pattern)
     equals = raw.get("equals", _MISSING)
     if isinstance(equals, str):
         values: tuple[str, ...] = (equals,)
@@ -350,10 +503,11 @@ def _condition(r: _Reader, raw: Any, path: str, names: Sequence[str] | None) -> 
     else:
         r.fail(f"{path}.equals", "a string or a non-empty array of strings",
                None if equals is _MISSING else equals)
-    return Condition(name, values)
+    return Condition(name, values, count)
 
 
-def _line_kind(r: _Reader, data: Any, record: str, dialect: str) -> LineKind:
+def _line_kind(r: _Reader, data: Any, record: str, dialect: str,
+               numbers: NumberText | None = None) -> LineKind:
     path = record
     if "dialect" in data:  # a line kind may use another line dialect than the profile's
         choices = ("delimited", "fixed", "regex")
@@ -412,8 +566,13 @@ def _line_kind(r: _Reader, data: Any, record: str, dialect: str) -> LineKind:
                    pattern)
         names = list(compiled.groupindex)
     when = _condition(r, data["when"], f"{path}.when", names) if "when" in data else None
+    if when is not None and when.count is not None:
+        if dialect != "delimited":
+            r.fail(f"{path}.when.fields", "a field count only for delimited lines", when.count)
+        if when.count != len(columns):
+            r.fail(f"{path}.when.fields", f"{len(columns)} (the number of columns)", when.count)
     fields = _fields(r, r.sub(data, "fields", path), f"{path}.fields", record, registers=False,
-                     raw_names=names)
+                     raw_names=names, numbers=numbers)
     return LineKind(record=record, fields=fields, dialect=dialect,  # type: ignore[arg-type]
                     when=when, columns=columns, fixed=fixed, pattern=pattern)
 
@@ -421,7 +580,15 @@ def _line_kind(r: _Reader, data: Any, record: str, dialect: str) -> LineKind:
 def _serial(r: _Reader, doc: dict[str, Any], label: str, ref_c: float) -> SerialSpec:
     s = r.sub(doc, "serial", "")
     r.table(s, "serial", ("mode", "baudrate", "bytesize", "parity", "stopbits", "encoding",
-                          "terminator", "max_line", "request_gap_s", "requests"))
+                          "terminator", "max_line", "request_gap_s", "requests", "checksum"))
+    checksum = None
+    if "checksum" in s:
+        c = r.sub(s, "checksum", "serial")
+        r.table(c, "serial.checksum", ("algorithm", "marker"))
+        checksum = LineCheck(
+            r.string(c, "algorithm", "serial.checksum", choices=tuple(CHECKS)),
+            r.string(c, "marker", "serial.checksum", "*", nonempty=True),
+        )
     mode = r.string(s, "mode", "serial", choices=("stream", "request"))
     baudrate = r.integer(s, "baudrate", "serial", 9600, lo=50, hi=4_000_000)
     bytesize = r.integer(s, "bytesize", "serial", 8, lo=5, hi=8)
@@ -467,7 +634,9 @@ def _serial(r: _Reader, doc: dict[str, Any], label: str, ref_c: float) -> Serial
             empty=r.string(req, "empty", where, None),
         ))
     d = r.sub(doc, "dialect", "")
-    r.table(d, "dialect", ("kind", "separator", "pair_separator", "strip", "unknown_keys"))
+    r.table(d, "dialect", ("kind", "separator", "pair_separator", "strip", "unknown_keys",
+                           *_NUMBER_KEYS))
+    numbers = _number_text(r, d, "dialect", "number", None)
     kind = r.string(d, "kind", "dialect", choices=("delimited", "keyvalue", "fixed", "regex"))
     default_sep = "=" if kind == "keyvalue" else ";"
     separator = r.string(d, "separator", "dialect", default_sep, nonempty=True)
@@ -484,7 +653,7 @@ def _serial(r: _Reader, doc: dict[str, Any], label: str, ref_c: float) -> Serial
     kinds = []
     for record in ("result", "calibration"):
         if record in doc:
-            kinds.append(_line_kind(r, r.sub(doc, record, ""), record, kind))
+            kinds.append(_line_kind(r, r.sub(doc, record, ""), record, kind, numbers))
     if not kinds:
         r.fail("result", "a [result] and/or [calibration] section (missing)")
     if len(kinds) > 1:
@@ -501,7 +670,8 @@ def _serial(r: _Reader, doc: dict[str, Any], label: str, ref_c: float) -> Serial
                       dialect=Dialect(kind=kind, kinds=tuple(kinds), separator=separator,
                                       pair_separator=pair_sep, strip=strip,
                                       unknown_keys=unknown),
-                      profile_label=label, leak_reference_c=ref_c, request_gap_s=gap)
+                      profile_label=label, leak_reference_c=ref_c, request_gap_s=gap,
+                      checksum=checksum)
 
 
 def _check_layout(r: _Reader, path: str, length: int, guards: Sequence[tuple[str, int, int]],
@@ -641,9 +811,8 @@ def _modbus(r: _Reader, doc: dict[str, Any], label: str, ref_c: float) -> Modbus
         ack = r.sub(m, "acknowledge", "modbus")
         r.table(ack, "modbus.acknowledge", ("enabled", "address", "type"))
         if r.boolean(ack, "enabled", "modbus.acknowledge", False):
-            if function != 3:
-                r.fail("modbus.acknowledge.enabled", "function = 3: an acknowledge register "
-                       "is a holding register", True)
+            # always written to a holding register (function 6/16), also when the data are
+            # input registers (function 4): stations keep their handshake where they can write
             acknowledge = AckSpec(
                 r.integer(ack, "address", "modbus.acknowledge", lo=0, hi=65535),
                 r.string(ack, "type", "modbus.acknowledge", "uint32", ("uint16", "uint32")),
@@ -714,7 +883,8 @@ def load_profile(ref: str | Path, search_dirs: Sequence[Path] = ()) -> Profile:
             profile = _read(candidate)
             if profile.name != text:
                 raise ConfigError(f"{candidate}: profile.name: expected {text!r} (the file "
-                                  f"name), got {profile.name!r}")
+                                  f"name), got {profile.name!r}; set name = {text!r} in the "
+                                  f"file (a copy of a built-in keeps its old name)")
             return profile
     places = ", ".join(str(d) for d in search_dirs) or "no profile directories"
     raise ConfigError(f"profile {text!r}: expected a profile file {text}.toml in {places} or a "

@@ -7,10 +7,11 @@ lives in ``lines`` and ``normalise``, register codecs in ``registers``.
 
 from __future__ import annotations
 
+import re
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from datetime import datetime
-from typing import TYPE_CHECKING, Literal
+from typing import TYPE_CHECKING, Any, Literal
 
 from gateway.programs import ProgramParams
 from gateway.records import CalibrationEvent, Rejected, StationState, TestResult
@@ -26,8 +27,10 @@ __all__ = [
     "Condition",
     "FieldSpec",
     "FixedColumn",
+    "LineCheck",
     "LineKind",
     "ModbusSpec",
+    "NumberText",
     "Parsed",
     "Profile",
     "RegisterField",
@@ -116,6 +119,36 @@ class RegisterField:
     word_order: Literal["big", "little"] = "big"
     byte_order: Literal["big", "little"] = "big"
     null: float | int | None = None  # sentinel meaning "no value"; math.nan for NaN
+    bit: int | None = None  # one bit of an integer register (0 = least significant)
+    mask: int | None = None  # a group of bits, shifted down to its lowest set bit
+
+
+@dataclass(frozen=True, slots=True)
+class NumberText:
+    """How a station writes numbers, made plain before they are read.
+
+    Plants write numbers the local way: a decimal comma (``12,48``), thousands separators
+    (``2.000,5`` or ``2,000.5``), the sign after the number (``0.3-``), and placeholders such
+    as ``---`` for "no value". Each is a per-dialect default and per-field override.
+    """
+
+    decimal: str = "."
+    thousands: str = ""
+    trailing_sign: bool = False
+    absent: tuple[str, ...] = ()
+
+    def plain(self, text: str) -> str:
+        """The text as a plain decimal ("" when it is a placeholder for no value)."""
+        if text in self.absent:
+            return ""
+        if self.thousands:
+            text = text.replace(self.thousands, "")
+        if self.decimal != ".":
+            text = text.replace(self.decimal, ".")
+        if self.trailing_sign and len(text) > 1 and text[-1] in "+-" and text[-2] != "e" \
+                and text[-2] != "E":
+            text = text[-1] + text[:-1]
+        return text
 
 
 @dataclass(frozen=True, slots=True)
@@ -135,17 +168,41 @@ class FieldSpec:
     time_format: str | None = None  # strftime pattern, "iso" or "unix"
     timezone: str | None = None  # None: the station's zone (StationContext.timezone)
     program_lookup: bool = False  # number → StationContext.programs
+    number: NumberText | None = None  # decimal comma, thousands, trailing sign, placeholders
+    join: tuple[str, ...] = ()  # raw fields joined with a space (a date column + a time column)
+    constant: Any = None  # a value the profile sets (canonical units); no raw field is read
+    # verdict / flag from bits in priority order: the first listed whose bit is set wins
+    bit_codes: tuple[tuple[int, str | bool], ...] = ()
 
 
 @dataclass(frozen=True, slots=True)
 class Condition:
-    """A discriminator: raw field ``field`` is one of ``values``."""
+    """A discriminator: raw field ``field`` is one of ``values`` (or matches ``matches``), and/or
+    the line has ``count`` fields (untagged lines told apart by their shape)."""
 
-    field: str
-    values: tuple[str, ...]
+    field: str | None
+    values: tuple[str, ...] = ()
+    count: int | None = None
+    matches: str | None = None
 
-    def holds(self, raw: Mapping[str, str]) -> bool:
-        return raw.get(self.field) in self.values
+    def holds(self, raw: Mapping[str, str], count: int | None = None) -> bool:
+        if self.count is not None and count is not None and count != self.count:
+            return False
+        if self.field is None:
+            return True
+        value = raw.get(self.field)
+        if self.matches is not None:
+            return value is not None and re.search(self.matches, value) is not None
+        return value in self.values
+
+    def describe(self) -> str:
+        parts = []
+        if self.count is not None:
+            parts.append(f"{self.count} fields")
+        if self.field is not None:
+            parts.append(f"{self.field} ~ /{self.matches}/" if self.matches is not None
+                         else f"{self.field} = {'|'.join(self.values)}")
+        return " and ".join(parts)
 
 
 @dataclass(frozen=True, slots=True)
@@ -191,6 +248,14 @@ class RequestSpec:
     empty: str | None = None  # an answer consisting of just this line means "nothing yet"
 
 
+@dataclass(frozen=True, slots=True)
+class LineCheck:
+    """A check value at the end of each line: ``<payload><marker><hex digits>``."""
+
+    algorithm: str  # a name in gateway.profiles.checks.CHECKS
+    marker: str = "*"
+
+
 @dataclass(frozen=True)
 class SerialSpec:
     mode: Literal["stream", "request"]
@@ -206,6 +271,7 @@ class SerialSpec:
     profile_label: str
     leak_reference_c: float = 0.0
     request_gap_s: float = 0.0
+    checksum: LineCheck | None = None
 
     def parser(self, ctx: StationContext) -> SerialParser:
         from gateway.profiles.lines import SerialParser

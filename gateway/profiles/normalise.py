@@ -144,6 +144,8 @@ def convert_text(
     """Canonical value of one field from the raw text fields of a line or answer block."""
     assert spec.source is not None
     text = raw.get(spec.source)
+    if text and spec.number is not None:
+        text = spec.number.plain(text)
     if text is None:
         if spec.empty_none:
             return None
@@ -279,6 +281,23 @@ def _compile_timestamp(spec: FieldSpec, ctx: StationContext) -> Callable[[str], 
 def compile_text_field(
     spec: FieldSpec, ctx: StationContext, reference_c: float = 0.0
 ) -> tuple[TextConverter, bool]:
+    """``_compile_text_field`` with the field's number writing (decimal comma, thousands,
+    trailing sign, placeholders) made plain first."""
+    convert, wants_raw = _compile_text_field(spec, ctx, reference_c)
+    number = spec.number
+    if number is None:
+        return convert, wants_raw
+    plain = number.plain
+
+    def plain_first(text: str | None, raw: Mapping[str, str]) -> Any:
+        return convert(plain(text) if text else text, raw)
+
+    return plain_first, wants_raw
+
+
+def _compile_text_field(
+    spec: FieldSpec, ctx: StationContext, reference_c: float = 0.0
+) -> tuple[TextConverter, bool]:
     """``convert_text`` for one field with its per-field work done once, and whether it
     reads other raw fields than its own (then the caller must pass them all).
 
@@ -394,11 +413,24 @@ def convert_register(
     reg = spec.register
     assert reg is not None
     words = list(block[reg.at : reg.at + reg.width])
+    if spec.kind == "timestamp" and spec.time_format in ("ymdhms", "bcd-ymdhms"):
+        return _register_time(spec, words, ctx)
     try:
         value = decode_registers(words, reg.type, word_order=reg.word_order,
                                  byte_order=reg.byte_order, encoding=encoding)
     except DecodeError as exc:
         raise _fail(spec, str(exc)) from None
+    if spec.bit_codes and isinstance(value, int):
+        for bit, code in spec.bit_codes:  # priority order: the first set bit wins
+            if value >> bit & 1:
+                return code
+        raise _fail(spec, f"no verdict bit set in 0x{value:04X} (bits "
+                    + ", ".join(f"{b} = {c}" for b, c in spec.bit_codes) + ")")
+    if isinstance(value, int) and reg.mask is not None:
+        shift = (reg.mask & -reg.mask).bit_length() - 1
+        value = (value & reg.mask) >> shift
+    elif isinstance(value, int) and reg.bit is not None:
+        value = value >> reg.bit & 1
     is_null = False
     if isinstance(value, float) and math.isnan(value):
         if reg.null is None or not (isinstance(reg.null, float) and math.isnan(reg.null)):
@@ -437,6 +469,31 @@ def convert_register(
     if not math.isfinite(value):
         raise _fail(spec, f"{value!r} is not a finite number")
     return _quantity(spec, float(value), None, reference_c)
+
+
+def _bcd(word: int) -> int:
+    """A packed-BCD register as its decimal value (0x2026 -> 2026); ValueError if not BCD."""
+    digits = f"{word:04X}"
+    if not digits.isdigit():
+        raise ValueError(f"0x{word:04X} is not packed BCD")
+    return int(digits)
+
+
+def _register_time(spec: FieldSpec, words: Sequence[int], ctx: StationContext) -> datetime:
+    """A station clock kept as registers: year, month, day, hour, minute, second (one per
+    register), or packed BCD (0x2026, 0x1203 month/day, 0x1405 hour/minute, 0x0009 second),
+    in the station's local zone."""
+    try:
+        if spec.time_format == "ymdhms":
+            y, mo, d, h, mi, sec = (int(w) for w in words)
+        else:
+            year, md, hm, ss = (_bcd(w) for w in words)
+            y, mo, d, h, mi, sec = year, md // 100, md % 100, hm // 100, hm % 100, ss
+        local = datetime(y, mo, d, h, mi, sec)
+    except (ValueError, OverflowError) as exc:
+        shown = " ".join(f"{w:04X}" for w in words)
+        raise _fail(spec, f"registers {shown} are not a date and time ({exc})") from None
+    return local.replace(tzinfo=_zone(spec, ctx))
 
 
 def _derive_calibration(values: dict[str, Any]) -> None:

@@ -53,6 +53,7 @@ __all__ = [
     "ForwarderOptions",
     "JournalForwarder",
     "SinkClient",
+    "SinkRefused",
     "SinkUnavailable",
     "read_secret",
 ]
@@ -62,6 +63,11 @@ log = logging.getLogger(__name__)
 
 class SinkUnavailable(TransportError):
     """The remote system cannot take records right now; retry later (nothing is lost)."""
+
+
+class SinkRefused(Exception):
+    """The remote system answered and will not take these records (retrying cannot help):
+    the forwarder isolates the culprit and parks it as a dead letter."""
 
 
 class SinkClient(Protocol):
@@ -176,6 +182,7 @@ class JournalForwarder:
         self.last_success: datetime | None = None
         self.last_error: str | None = None
         self.failures = 0  # in the current streak
+        self.dead_letters = 0  # records the server refused, parked
         self._cursors: dict[Kind, int] = {}
         self._backlog_at = 0.0
         # the journal writer's commit signal, set by the runtime: with it a record goes out as
@@ -256,14 +263,7 @@ class JournalForwarder:
             if not rows:
                 continue
             t0 = time.monotonic()
-            try:
-                async with asyncio.timeout(self.options.send_timeout_s):
-                    await self.client.send(kind, rows)
-            except TimeoutError:
-                raise SinkUnavailable(
-                    f"{self.client.describe()} did not acknowledge {len(rows)} {kind} record(s) "
-                    f"within {self.options.send_timeout_s:g}s"
-                ) from None
+            await self._send_isolating(journal, kind, rows)
             last = rows[-1][0]
             if self._save_cursor is None or not await self._save_cursor(self.name, kind, last):
                 await asyncio.to_thread(journal.set_cursor, self.name, kind, last)
@@ -273,6 +273,36 @@ class JournalForwarder:
             metrics.sink_sent(self.name, kind, len(rows), time.monotonic() - t0)
             moved += len(rows)
         return moved
+
+    async def _send_one(self, kind: Kind, rows: Sequence[tuple[int, Record]]) -> None:
+        try:
+            async with asyncio.timeout(self.options.send_timeout_s):
+                await self.client.send(kind, rows)
+        except TimeoutError:
+            raise SinkUnavailable(
+                f"{self.client.describe()} did not acknowledge {len(rows)} {kind} record(s) "
+                f"within {self.options.send_timeout_s:g}s"
+            ) from None
+
+    async def _send_isolating(self, journal: Journal, kind: Kind,
+                              rows: Sequence[tuple[int, Record]]) -> None:
+        """Send ``rows``; when the server refuses the batch, halve it until the refused
+        records stand alone, park those as dead letters, and send the rest."""
+        try:
+            await self._send_one(kind, rows)
+            return
+        except SinkRefused as exc:
+            if len(rows) == 1:
+                from gateway.store.deadletters import park
+
+                await asyncio.to_thread(park, journal, self.name, kind, rows, str(exc))
+                self.dead_letters += 1
+                log.error("sink %s: %s record %s refused, parked as a dead letter: %s",
+                          self.name, kind, rows[0][1].record_id, exc)
+                return
+        half = len(rows) // 2
+        await self._send_isolating(journal, kind, rows[:half])
+        await self._send_isolating(journal, kind, rows[half:])
 
     async def _refresh_backlog(self, journal: Journal, *, force: bool = False) -> None:
         now = time.monotonic()

@@ -31,6 +31,7 @@ from gateway.sinks import SinkContext, register_sink
 from gateway.sinks.forwarder import (
     ForwarderOptions,
     JournalForwarder,
+    SinkRefused,
     SinkUnavailable,
     read_secret,
 )
@@ -40,6 +41,7 @@ from gateway.sinks.influx_http import (
     InfluxHttp,
     InfluxHttpError,
     InfluxTarget,
+    clear_text_warning,
     parse_influx_url,
 )
 from gateway.sinks.lineprotocol import encode
@@ -48,6 +50,9 @@ from gateway.store.journal import KINDS, Kind
 __all__ = ["InfluxClient", "InfluxOptions", "make_influx"]
 
 log = logging.getLogger(__name__)
+#: HTTP answers that judge the data, not the server's state: 400 bad request (unparsable
+#: point, time out of range), 413 too large, 422 unprocessable (v2: outside retention)
+_REFUSED = (400, 413, 422)
 
 _KEYS = ("url", "username", "password_file", "token_file", "ca_file", "create_database",
          "kinds", "timeout_s")
@@ -125,6 +130,11 @@ class InfluxClient:
         self._http: InfluxHttp | None = None
         self._v2: Any = None  # (InfluxDBClient, WriteApi)
         self._db_checked = False
+        # a missing secret is a config mistake: say so before the gateway starts (--check)
+        if opts.target.version == 2 and not read_secret(TOKEN_ENV, opts.token_file,
+                                                        f"sink {sink_name}"):
+            raise ConfigError(f"sink {sink_name}: influxdb2 needs a token: set {TOKEN_ENV} or "
+                              "token_file")
 
     def describe(self) -> str:
         return self.opts.target.describe()
@@ -141,6 +151,9 @@ class InfluxClient:
                 raise ConfigError(f"{what}: influxdb2 needs a token: set {TOKEN_ENV} or token_file")
         else:
             password = read_secret(PASSWORD_ENV, self.opts.password_file, what)
+        warning = clear_text_warning(t, bool(token or password))
+        if warning:
+            log.warning("sink %s: %s", self.sink_name, warning)
         self._http = InfluxHttp(t, token=token, password=password,
                                 timeout_s=self.opts.timeout_s, ca_file=self.opts.ca_file)
         return self._http
@@ -172,6 +185,10 @@ class InfluxClient:
             else:
                 await asyncio.to_thread(http.write, body)
         except InfluxHttpError as exc:
+            if exc.status in _REFUSED:
+                # the server read the batch and will never take it (a timestamp outside its
+                # range, a malformed point, too large): retrying cannot help
+                raise SinkRefused(f"{self.describe()}: {exc}") from None
             hint = ""
             if exc.status in (401, 403):
                 hint = f" (check {TOKEN_ENV if http.target.version == 2 else PASSWORD_ENV})"

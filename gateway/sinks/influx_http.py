@@ -97,6 +97,32 @@ def parse_influx_url(url: str) -> InfluxTarget:
     return InfluxTarget(2, parts.hostname, port, tls, bucket, org=org)
 
 
+class _NoRedirect(urllib.request.HTTPRedirectHandler):
+    """Never follow a redirect: urllib would send the Authorization header to wherever the
+    server points, any host included."""
+
+    def redirect_request(self, req: Any, fp: Any, code: int, msg: str, headers: Any,
+                         newurl: str) -> None:
+        return None
+
+
+def clear_text_warning(target: Any, has_credentials: bool) -> str | None:
+    """A warning when credentials would travel unencrypted to another machine."""
+    import ipaddress
+
+    if not has_credentials or target.tls:
+        return None
+    host = str(getattr(target, "host", "") or "")
+    try:
+        loopback = host == "localhost" or ipaddress.ip_address(host).is_loopback
+    except ValueError:
+        loopback = False
+    if loopback:
+        return None
+    return (f"credentials for {host} travel in clear text over http://; use https:// "
+            "(influxdbs:// / influxdb2s://) or keep the server on this machine")
+
+
 @dataclass
 class InfluxHttp:
     """The v1 API of one server. ``token`` (2.x) or ``username``/``password`` (1.x auth)."""
@@ -136,10 +162,18 @@ class InfluxHttp:
         elif body is not None:
             headers["Content-Type"] = "application/x-www-form-urlencoded"
         req = urllib.request.Request(url, data=body, method=method, headers=headers)
+        opener = urllib.request.build_opener(
+            urllib.request.HTTPSHandler(context=self._context()), _NoRedirect()
+        )
         try:
-            with urllib.request.urlopen(req, timeout=self.timeout_s, context=self._context()) as r:
+            with opener.open(req, timeout=self.timeout_s) as r:
                 return int(r.status), r.read()
         except urllib.error.HTTPError as exc:
+            if 300 <= exc.code < 400:
+                where = exc.headers.get("Location", "elsewhere") if exc.headers else "elsewhere"
+                raise InfluxHttpError(exc.code, f"HTTP {exc.code}: the server redirects to "
+                                      f"{where}; not followed (credentials would go along); "
+                                      "configure the final address") from None
             detail = _error_text(exc.read())
             raise InfluxHttpError(exc.code, f"HTTP {exc.code} {detail}".strip()) from None
         except (urllib.error.URLError, OSError) as exc:

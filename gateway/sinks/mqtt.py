@@ -43,6 +43,7 @@ from gateway.sinks import SinkContext, register_sink
 from gateway.sinks.forwarder import (
     ForwarderOptions,
     JournalForwarder,
+    SinkRefused,
     SinkUnavailable,
     read_secret,
 )
@@ -55,7 +56,7 @@ log = logging.getLogger(__name__)
 PASSWORD_ENV = "LEAKFLEET_MQTT_PASSWORD"
 _KEYS = (
     "url", "username", "password_file", "ca_file", "cert_file", "key_file", "protocol",
-    "client_id", "topic_prefix", "keepalive_s", "kinds",
+    "client_id", "topic_prefix", "keepalive_s", "kinds", "max_payload_bytes",
 )
 # CONNACK codes that mean "your credentials are wrong" (MQTT 3.1.1: 4, 5; MQTT 5: 0x86, 0x87)
 _AUTH_CODES = {4, 5, 134, 135}
@@ -104,6 +105,7 @@ class MqttOptions:
     topic_prefix: str
     keepalive_s: int
     kinds: tuple[Kind, ...]
+    max_payload_bytes: int = 262_144  # set it to the broker's limit (message_size_limit)
 
     @classmethod
     def from_options(cls, options: Mapping[str, Any], ctx: SinkContext) -> MqttOptions:
@@ -131,7 +133,12 @@ class MqttOptions:
         keepalive = options.get("keepalive_s", 30)
         if isinstance(keepalive, bool) or not isinstance(keepalive, int) or keepalive < 5:
             raise ValueError(f"keepalive_s must be an integer >= 5, got {keepalive!r}")
+        limit = options.get("max_payload_bytes", 262_144)
+        if isinstance(limit, bool) or not isinstance(limit, int) or not 256 <= limit <= 268_435_455:
+            raise ValueError(f"max_payload_bytes must be an integer from 256 to 268435455 "
+                             f"(MQTT's maximum), got {limit!r}")
         return cls(
+            max_payload_bytes=limit,
             host=host, port=port, tls=tls,
             username=text["username"] or url_user,
             password_file=text["password_file"],
@@ -194,6 +201,12 @@ class MqttClient:
         self._password = read_secret(PASSWORD_ENV, self.opts.password_file, what)
         if self._password and not self.opts.username:
             raise ConfigError(f"{what}: a password is set but no username")
+        from gateway.sinks.influx_http import clear_text_warning
+
+        warning = clear_text_warning(self.opts, bool(self._password))
+        if warning:
+            log.warning("%s: %s", what, warning.replace("https:// (influxdbs:// / "
+                                                         "influxdb2s://)", "mqtts://"))
         if self.opts.tls:
             try:
                 context = ssl.create_default_context(cafile=self.opts.ca_file)
@@ -267,10 +280,15 @@ class MqttClient:
         # paho puts each message on the wire in call order (so the last status of a station is
         # the one left retained); tasks start in creation order and call paho before awaiting.
         retain = kind == "status"
+        payloads = [json.dumps(record.to_dict(), separators=(",", ":")).encode()
+                    for _, record in rows]
+        too_big = [len(p) for p in payloads if len(p) > self.opts.max_payload_bytes]
+        if too_big:  # the broker would drop or disconnect us: refuse it here, with a reason
+            raise SinkRefused(f"payload of {max(too_big)} bytes is over the broker's limit "
+                              f"(max_payload_bytes = {self.opts.max_payload_bytes})")
         try:
             async with asyncio.TaskGroup() as tg:
-                for _, record in rows:
-                    payload = json.dumps(record.to_dict(), separators=(",", ":")).encode()
+                for (_, record), payload in zip(rows, payloads, strict=True):
                     tg.create_task(self._publish(self.topic(record), payload, retain=retain))
         except* SinkUnavailable as group:
             raise SinkUnavailable(str(group.exceptions[0])) from None

@@ -21,6 +21,7 @@ from __future__ import annotations
 
 import hashlib
 import json
+import os
 import sqlite3
 import threading
 from collections.abc import Callable, Iterable, Sequence
@@ -32,6 +33,8 @@ from typing import Any, Literal
 from gateway.errors import StoreError
 from gateway.records import (
     CalibrationEvent,
+    GapEvent,
+    PressureTrace,
     Record,
     Rejected,
     StationState,
@@ -41,6 +44,9 @@ from gateway.records import (
     supplied_pairs,
 )
 from gateway.store._sqlite import from_us, sqlite_path, store_error, to_us
+from gateway.store.conflicts import find_conflicts
+from gateway.store.gaps import record_gaps
+from gateway.store.guard import JournalGone
 from gateway.store.schema import (
     CALIBRATION_COLUMNS,
     HOUR_US,
@@ -53,6 +59,7 @@ from gateway.store.schema import (
     migrate,
 )
 from gateway.store.summaries import fold_results, part_shares, settle_part_hours
+from gateway.store.traces import INSERT_TRACE, trace_row
 
 __all__ = ["Journal", "Kind", "WriteStats", "open_journal", "quarantine_id"]
 
@@ -73,6 +80,8 @@ class WriteStats:
     inserted: int = 0
     duplicates: int = 0
     quarantined: int = 0
+    conflicts: int = 0  # repeats of a stored key with other values (kept in ``conflicts``)
+    gaps: int = 0  # ranges of lost cycles recorded (reported by readers, or skipped numbers)
 
 
 def quarantine_id(item: Rejected) -> str:
@@ -235,6 +244,8 @@ class Journal:
             # journal in memory, which is what insert speed depends on (SQLite default: 2 MB)
             self._conn.execute(f"PRAGMA cache_size = {CACHE_SIZE}")
             self.version = migrate(self._conn, migrations, where=str(self.path))
+            self._identity = _file_id(self.path)
+            self._last_cycle: dict[str, int] = {}  # per station, for sequence gaps
         except sqlite3.Error as exc:
             self._conn.close()
             raise store_error(exc, self.path, "opening and migrating") from exc
@@ -244,17 +255,25 @@ class Journal:
 
     # -- write side ---------------------------------------------------------------------------
     def write(
-        self, items: Iterable[TestResult | CalibrationEvent | StationStatus | Rejected]
+        self,
+        items: Iterable[
+            TestResult | CalibrationEvent | StationStatus | Rejected | PressureTrace | GapEvent
+        ],
     ) -> WriteStats:
         """Store a batch in ONE transaction; repeats of stored records are counted, not stored.
 
         On failure nothing of the batch is stored and StoreError says why; the journal stays
         consistent, so the caller may retry the same batch later (repeats are ignored).
         """
+        if self._identity is not None and _file_id(self.path) != self._identity:
+            raise JournalGone(f"journal {self.path} was deleted or replaced while in use; "
+                              "stopping (what was committed is kept, see the log)")
         results: list[tuple[Any, ...]] = []
         calibrations: list[tuple[Any, ...]] = []
         statuses: list[tuple[Any, ...]] = []
         rejected: list[tuple[Any, ...]] = []
+        curves: list[tuple[Any, ...]] = []
+        lost: list[GapEvent] = []
         for item in items:
             # exact type dispatch: cheaper than isinstance chains on the hot path
             t = type(item)
@@ -266,9 +285,14 @@ class Journal:
                 statuses.append(_status_row(item))  # type: ignore[arg-type]
             elif t is CalibrationEvent:
                 calibrations.append(_calibration_row(item))  # type: ignore[arg-type]
+            elif t is PressureTrace:
+                curves.append(trace_row(item))  # type: ignore[arg-type]
+            elif t is GapEvent:
+                lost.append(item)  # type: ignore[arg-type]
             else:
                 raise TypeError(f"cannot journal a {t.__name__}")
-        total = len(results) + len(calibrations) + len(statuses) + len(rejected)
+        total = (len(results) + len(calibrations) + len(statuses) + len(rejected) + len(curves)
+                 + len(lost))
         if total == 0:
             return WriteStats()
         with self._lock:
@@ -276,21 +300,35 @@ class Journal:
             try:
                 conn.execute("BEGIN IMMEDIATE")
                 # rowcount, not total_changes: the summaries' own writes must not count
-                inserted = quarantined = 0
+                inserted = quarantined = new = 0
+                before = conn.execute(_MAX_RESULT_SEQ).fetchone()[0] or 0
                 if results:
                     # new rows get seqs above the current maximum: that is how the summary
                     # fold tells them from the stored ones (and from ignored repeats)
-                    before = conn.execute(_MAX_RESULT_SEQ).fetchone()[0] or 0
                     new = conn.executemany(_INSERT_RESULT, results).rowcount
                     if new > 0:
                         fold_results(conn, before)
                     inserted += new
+                found_gaps = 0
+                if lost or new > 0:
+                    stored_gaps, found_gaps = record_gaps(conn, lost, before, self._last_cycle)
+                    inserted += stored_gaps
+                    found_gaps += stored_gaps
+                clashes = 0
+                if results and new < len(results):  # some were repeats: true ones, or not?
+                    clashes += find_conflicts(conn, "results", RESULT_COLUMNS, results)
                 if calibrations:
-                    inserted += conn.executemany(_INSERT_CALIBRATION, calibrations).rowcount
+                    new_cal = conn.executemany(_INSERT_CALIBRATION, calibrations).rowcount
+                    inserted += new_cal
+                    if new_cal < len(calibrations):
+                        clashes += find_conflicts(conn, "calibrations", CALIBRATION_COLUMNS,
+                                                  calibrations)
                 if statuses:
                     inserted += conn.executemany(_INSERT_STATUS, statuses).rowcount
                 if rejected:
                     quarantined = conn.executemany(_INSERT_QUARANTINE, rejected).rowcount
+                if curves:
+                    inserted += conn.executemany(INSERT_TRACE, curves).rowcount
                 conn.execute("COMMIT")
             except sqlite3.Error as exc:
                 self._rollback()
@@ -298,9 +336,11 @@ class Journal:
             except BaseException:
                 self._rollback()
                 raise
-        return WriteStats(inserted, total - inserted - quarantined, quarantined)
+        return WriteStats(inserted, total - inserted - quarantined - clashes, quarantined,
+                          clashes, found_gaps)
 
     def _rollback(self) -> None:
+        self._last_cycle.clear()  # it may hold cycles of the batch that is undone
         try:
             if self._conn.in_transaction:
                 self._conn.execute("ROLLBACK")
@@ -493,6 +533,18 @@ class Journal:
         settle_part_hours(conn)
         return n
 
+    def rescue(self) -> Path | None:
+        """After ``JournalGone``: a complete copy of what this connection holds (the committed
+        records of a deleted or renamed file), beside the original path. None if it fails."""
+        target = self.path.with_name(f"{self.path.name}.rescued-{os.getpid()}.db")
+        with self._lock:
+            try:
+                self._conn.execute("PRAGMA wal_checkpoint(TRUNCATE)")
+                self._conn.execute("VACUUM INTO ?", (str(target),))
+            except sqlite3.Error:
+                return None
+        return target
+
     def close(self) -> None:
         """Checkpoint and close; safe to call twice."""
         with self._lock:
@@ -522,6 +574,17 @@ class Journal:
             except sqlite3.Error as exc:
                 self._rollback()
                 raise store_error(exc, self.path, action) from exc
+
+
+def _file_id(path: Path) -> tuple[int, int] | None:
+    """(device, inode) of the file at ``path``; None for an in-memory journal or no file."""
+    if str(path) == ":memory:":
+        return None
+    try:
+        st = path.stat()
+    except FileNotFoundError:
+        return (-1, -1)
+    return (st.st_dev, st.st_ino)
 
 
 def open_journal(url: str, *, durable: bool = False) -> Journal:

@@ -15,6 +15,10 @@ from collections.abc import Sequence
 from dataclasses import dataclass
 
 from gateway.errors import StoreError
+from gateway.store.conflicts import CONFLICT_SCHEMA
+from gateway.store.deadletters import DEAD_LETTER_SCHEMA
+from gateway.store.gaps import GAP_SCHEMA
+from gateway.store.traces import TRACE_SCHEMA
 
 __all__ = [
     "CALIBRATION_COLUMNS",
@@ -428,12 +432,50 @@ _V5: tuple[str, ...] = (
     "ALTER TABLE result_hours_v5 RENAME TO result_hours",
 )
 
+_V6: tuple[str, ...] = (
+    # maintenance events and notes: a seal change, a new fixture or leak standard restarts a
+    # station's calibration baselines (analytics.alarms.epochs); notes only annotate charts
+    """CREATE TABLE maintenance (
+        seq INTEGER PRIMARY KEY AUTOINCREMENT,
+        record_id TEXT NOT NULL UNIQUE,
+        station TEXT NOT NULL,
+        at INTEGER NOT NULL,
+        kind TEXT NOT NULL,
+        note TEXT NOT NULL DEFAULT '',
+        entered_by TEXT NOT NULL DEFAULT '',
+        entered_at INTEGER NOT NULL
+    )""",
+    "CREATE INDEX ix_maintenance_station_time ON maintenance (station, at)",
+    # one row per alarm occurrence: raised, maybe acknowledged (by whom, when), cleared; at
+    # most one open occurrence per key, so every screen and report agrees on what is open
+    """CREATE TABLE alarms (
+        id INTEGER PRIMARY KEY AUTOINCREMENT,
+        key TEXT NOT NULL,
+        rule TEXT NOT NULL,
+        station TEXT,
+        severity TEXT NOT NULL,
+        message TEXT NOT NULL,
+        since INTEGER NOT NULL,
+        raised_at INTEGER NOT NULL,
+        acked_at INTEGER,
+        acked_by TEXT,
+        cleared_at INTEGER
+    )""",
+    "CREATE UNIQUE INDEX ix_alarms_open ON alarms (key) WHERE cleared_at IS NULL",
+    "CREATE INDEX ix_alarms_raised ON alarms (raised_at)",
+)
+
 MIGRATIONS: tuple[Migration, ...] = (
     Migration(1, _V1, "initial schema"),
     Migration(2, _V2, "summaries folded in per batch, not by per-row triggers"),
     Migration(3, _V3, "tests per hour by reject reason"),
     Migration(4, _V4, "aborted tests leave the part summaries"),
     Migration(5, _V5, "absent values stay absent; time source, supplied values, part family"),
+    Migration(6, _V6, "maintenance events and alarm states"),
+    Migration(7, TRACE_SCHEMA, "pressure traces, one packed row per curve"),
+    Migration(8, CONFLICT_SCHEMA, "re-sends that disagree with the stored record"),
+    Migration(9, GAP_SCHEMA, "cycles known to be lost"),
+    Migration(10, DEAD_LETTER_SCHEMA, "records a sink's server refused"),
 )
 SCHEMA_VERSION = MIGRATIONS[-1].version
 

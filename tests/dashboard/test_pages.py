@@ -19,6 +19,8 @@ PAGES = [
     "views/gauge.py",
     "views/quality.py",
     "views/data_view.py",
+    "views/health.py",
+    "views/traces.py",
 ]
 
 
@@ -47,14 +49,21 @@ def test_page_renders_without_error(app: AppFactory, demo_journal: Path, page: s
 
 def test_fleet_tiles_per_station(app: AppFactory, demo_journal: Path) -> None:
     at = app(demo_journal, "views/fleet.py")
-    labels = [m.label for m in at.metric]
-    assert labels.count("Cycles, last hour") == 6  # one tile per demo station
-    assert labels.count("Yield today") == 6
     names = " ".join(m.value for m in at.markdown)
+    assert names.count("cycles in the last hour") == 6  # one tile per demo station
+    assert names.count("yield today") == 6
     for station in ("L1-S1", "L1-S2", "L1-S3", "L2-S1", "L2-S2", "L2-S3"):
         assert f"**{station}**" in names
-    assert [s.value for s in at.subheader][:2] == ["Line L1", "Line L2"]
-    cycles = [int(m.value) for m in at.metric if m.label == "Cycles, last hour"]
+    assert {"Line L1", "Line L2"} <= {s.value for s in at.subheader}
+    # worst first: tile badges carry the level in words and shapes, in rank order per line
+    badges = [m.value for m in at.markdown if m.value.startswith("**L")]
+    order = ["ALARM", "OFFLINE", "WARNING", "OK", "NO DATA"]
+    levels = [next(i for i, w in enumerate(order) if w in b) for b in badges]
+    assert levels[:3] == sorted(levels[:3]) and levels[3:] == sorted(levels[3:])
+    import re
+
+    cycles = [int(n) for n in re.findall(r"\*\*(\d+)\*\* cycles in the last hour", names)]
+    assert len(cycles) == 6
     assert all(n > 20 for n in cycles)  # a demo station tests every ~25-40 s
     # station detail: picking another station shows its own latest results
     table = _table(at, "cycle", "program")
@@ -190,7 +199,7 @@ def test_bad_config_is_one_line(app: AppFactory, demo_journal: Path, tmp_path: P
 def test_lone_station_that_never_calibrated(app: AppFactory, lone_journal: Path) -> None:
     at = app(lone_journal, "views/fleet.py")
     assert not at.exception
-    assert [m.label for m in at.metric].count("Cycles, last hour") == 1
+    assert " ".join(m.value for m in at.markdown).count("cycles in the last hour") == 1
     assert any(c.value == "Last calibration: never" for c in at.caption)
     at.switch_page("views/calibration.py").run()
     assert not at.exception
@@ -211,14 +220,13 @@ def test_station_with_only_a_state_change(app: AppFactory, status_only_journal: 
 
 
 def test_password_login_when_configured(app: AppFactory, demo_journal: Path) -> None:
-    import hashlib
-
+    from argon2 import PasswordHasher
     from streamlit.testing.v1 import AppTest
 
     from tests.dashboard.conftest import APP
 
     at = AppTest.from_file(APP, default_timeout=60)
-    at.secrets["leakfleet"] = {"password_sha256": hashlib.sha256(b"s3cret").hexdigest()}
+    at.secrets["leakfleet"] = {"password_hash": PasswordHasher().hash("s3cret")}
     app(demo_journal)  # sets the environment for the store
     at.run()
     assert not at.metric and [h.value for h in at.header] == ["leakfleet"]
@@ -228,4 +236,59 @@ def test_password_login_when_configured(app: AppFactory, demo_journal: Path) -> 
     at.text_input(key="lf_password").input("s3cret")
     at.button[0].click().run()
     assert not at.exception
-    assert [m.label for m in at.metric].count("Cycles, last hour") == 6
+    assert " ".join(m.value for m in at.markdown).count("cycles in the last hour") == 6
+
+
+def test_health_page_lists_every_station_and_quarantine(app: AppFactory,
+                                                        demo_journal: Path) -> None:
+    at = app(demo_journal, "views/health.py")
+    assert not at.exception
+    stations = _table(at, "Station", "Link", "Quarantined lines, 24 h")
+    assert len(stations) == 6
+
+
+def test_traces_page_overlays_curves_and_maps_the_backdown(
+    app: AppFactory, demo_journal: Path, tmp_path: Path
+) -> None:
+    import shutil
+
+    from gateway.cli import main
+
+    db = tmp_path / "journal.db"
+    shutil.copy(demo_journal, db)
+    assert main(["sim", "study", "--station", "L1-S1", "--program", "HX-210",
+                 "--store", f"sqlite:///{db}", "--masters", "10", "--standards", "4",
+                 "--stabilise", "15", "--test", "15", "--interval", "0.2"]) == 0
+    at = app(db, "views/traces.py")
+    assert not at.exception, [e.message for e in at.exception]
+    assert "Back-down map" in [h.value for h in at.subheader]
+    assert any("Shortest cycle meeting" in s.value for s in at.success)
+
+
+def test_legacy_unsalted_password_is_refused_with_how_to_fix(app: AppFactory,
+                                                             demo_journal: Path) -> None:
+    from streamlit.testing.v1 import AppTest
+
+    from tests.dashboard.conftest import APP
+
+    at = AppTest.from_file(APP, default_timeout=60)
+    at.secrets["leakfleet"] = {"password_sha256": "00" * 32}
+    app(demo_journal)
+    at.run()
+    assert not at.metric
+    assert any("--hash-password" in e.value for e in at.error)
+
+
+def test_wrong_passwords_pause_sign_in() -> None:
+    """An attacker cycling browser sessions meets the same limit (it is process-wide)."""
+    from argon2 import PasswordHasher
+
+    from dashboard import auth
+
+    good = PasswordHasher().hash("s3cret-pass")
+    auth._failures.clear()
+    for _ in range(auth.MAX_FAILURES):
+        assert auth.password_ok("guess", good, now=100.0) is False
+    assert auth.password_ok("s3cret-pass", good, now=101.0) is None  # paused, even if right
+    assert auth.password_ok("s3cret-pass", good, now=100.0 + auth.WINDOW_S + 1) is True
+    auth._failures.clear()

@@ -26,13 +26,15 @@ ARGS = [
     "--disable-component-update", "--disable-sync", "--no-first-run",
 ]  # fmt: skip
 PAGES = [  # (navigation entry, a text the page shows once it has data)
-    ("Fleet live", "Cycles, last hour"),
+    ("Fleet live", "cycles in the last hour"),
     ("Yield", "First-pass yield"),
     ("Readings vs limits", "Ppu"),
     ("Calibration", "Calibrations"),
     ("Gauge study & test time", "qualified person"),
+    ("Pressure traces", "Back-down map"),
     ("Quality", "Part history"),
     ("Data", "Download CSV"),
+    ("Gateway & sink health", "Quarantined lines, 24 h"),
 ]
 
 pytestmark = [
@@ -77,6 +79,36 @@ def demo(tmp_path: Path) -> Iterator[tuple[str, subprocess.Popen[str]]]:
         log.close()
 
 
+LEVEL_WORDS = ["ALARM", "OFFLINE", "WARNING", "OK", "NO DATA"]  # analytics.fleet.LEVELS order
+
+
+def _fleet_at_a_glance(page: object, shots: Path) -> None:
+    """The fleet page on a line PC (1024×768) and a wall screen (1920×1080): every tile names
+    its level in words beside the colour, worst first within each line."""
+    import re
+
+    pattern = re.compile(r"^[▲■◆●○] (ALARM|OFFLINE|WARNING|OK|NO DATA)$")
+    page.locator("[data-testid='stSidebarNav'] a", has_text="Fleet live").first.click()  # type: ignore[attr-defined]
+    for width, height in ((1024, 768), (1920, 1080)):
+        page.set_viewport_size({"width": width, "height": height})  # type: ignore[attr-defined]
+        page.wait_for_timeout(1500)  # type: ignore[attr-defined]
+        page.screenshot(path=str(shots / f"fleet-{width}x{height}.png"), full_page=True)  # type: ignore[attr-defined]
+        blocks = page.locator("[data-testid='stHeading'], [data-testid='stMarkdownContainer']")  # type: ignore[attr-defined]
+        texts = [t.strip() for t in blocks.all_inner_texts()]
+        lines: list[list[int]] = []
+        for text in texts:
+            if text.startswith("Line "):
+                lines.append([])
+            for part in text.splitlines():
+                m = pattern.match(part.split("  ")[-1].strip()) or re.search(
+                    r"[▲■◆●○] (ALARM|OFFLINE|WARNING|OK|NO DATA)", part)
+                if m and lines:
+                    lines[-1].append(LEVEL_WORDS.index(m.group(1)))
+        assert sum(len(x) for x in lines) >= 6, texts[:20]  # one badge per demo station
+        for ranks in lines:
+            assert ranks == sorted(ranks), (width, lines)
+
+
 def test_every_page_renders_in_chromium(demo: tuple[str, subprocess.Popen[str]],
                                         tmp_path: Path) -> None:  # fmt: skip
     from playwright.sync_api import sync_playwright
@@ -111,6 +143,7 @@ def test_every_page_renders_in_chromium(demo: tuple[str, subprocess.Popen[str]],
                 assert page.locator("[data-testid='stException']").count() == 0, name
                 assert page.get_by_text(marker).count() > 0, f"{name}: {marker!r} not shown"
                 assert page.get_by_text("pressure ratings").count() > 0, name  # safety note
+            _fleet_at_a_glance(page, shots)
         finally:
             browser.close()
     # nothing but this machine was asked for anything

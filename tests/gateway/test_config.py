@@ -94,7 +94,7 @@ def test_good_config_with_defaults(tmp_path: Path) -> None:
         (('poll_interval = "250 ms"', 'poll_interval = "fast"'),
          "stations[L2-S3].poll_interval: expected a duration"),
         (('poll_interval = "250 ms"', "poll_interval = -1"),
-         "stations[L2-S3].poll_interval: expected a duration above 0"),
+         "stations[L2-S3].poll_interval: expected a duration from 1 ms to a day"),
         (('timezone = "Europe/Berlin"', 'timezone = "Mars/Olympus"'),
          "timezone: expected an IANA time zone"),
         (("overrides = { device_id = 7 }", 'overrides = { device_id = "7" }'),

@@ -84,3 +84,32 @@ def test_parquet_needs_out_and_round_trips(store: str, tmp_path: Path) -> None:
     frame = pd.read_parquet(out)
     assert list(frame.columns) == list(COLUMNS["results"]) and len(frame) == 3
     assert str(frame["ended_at"].dt.tz) == "UTC"
+
+
+@pytest.mark.parametrize("fmt", ["csv", "parquet"])
+def test_out_refuses_links_folders_and_existing_files(
+    store: str, tmp_path: Path, capsys: pytest.CaptureFixture[str], fmt: str
+) -> None:
+    victim = tmp_path / "precious.txt"
+    victim.write_text("keep me")
+    link = tmp_path / "link.out"
+    link.symlink_to(victim)
+    cases = [
+        (link, "symbolic link"),
+        (tmp_path, "is a directory"),
+        (tmp_path / "missing" / "x.out", "no such directory"),
+        (victim, "exists; add --force"),
+    ]
+    for out, message in cases:
+        code = main(["export", "--store", store, "--format", fmt, "--out", str(out)])
+        err = capsys.readouterr().err
+        assert code != 0 and message in err and "Traceback" not in err, (out, err)
+        assert len(err.strip().splitlines()) == 1
+    assert victim.read_text() == "keep me"
+    # --force overwrites a real file (and only the file: a link is still refused)
+    assert main(["export", "--store", store, "--format", fmt, "--out", str(victim),
+                 "--force"]) == 0
+    assert victim.read_bytes() != b"keep me"
+    assert main(["export", "--store", store, "--format", fmt, "--out", str(link),
+                 "--force"]) != 0
+    assert not [p for p in tmp_path.iterdir() if p.name.startswith(".")]  # no temp left over

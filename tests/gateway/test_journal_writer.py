@@ -175,3 +175,19 @@ def test_clock_set_back_is_noted_once_and_rereads_are_not() -> None:
     note = watch.check("S1", 12, t - timedelta(minutes=29))  # daylight saving: back an hour
     assert note is not None and "cycle 12" in note and "30 min before cycle 11" in note
     assert watch.check("S1", 13, t - timedelta(minutes=28)) is None  # the new time goes on
+
+
+def test_clock_set_forward_is_noted_and_a_long_pause_is_not() -> None:
+    from datetime import timedelta
+
+    from gateway.health import ClockWatch
+
+    watch = ClockWatch(tolerance_s=300)
+    t = datetime(2026, 12, 3, 8, 0, tzinfo=UTC)
+    assert watch.check("S1", 1, t, t + timedelta(seconds=1)) is None
+    # a weekend's pause: both clocks move on together
+    later = t + timedelta(days=2)
+    assert watch.check("S1", 2, later, later + timedelta(seconds=1)) is None
+    # the station clock set forward by a year: its offset from the gateway's jumps
+    note = watch.check("S1", 3, later + timedelta(days=365), later + timedelta(seconds=40))
+    assert note is not None and "set forward" in note and "cycle 3" in note

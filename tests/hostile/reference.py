@@ -18,6 +18,7 @@ from collections.abc import Iterator
 from dataclasses import dataclass
 from datetime import UTC, datetime, timedelta
 from typing import Any
+from zoneinfo import ZoneInfo
 
 import pint
 from pymodbus.client import ModbusTcpClient
@@ -79,6 +80,7 @@ class Block:
     cycle: int
     good: bool
     why: str = ""
+    values: dict[str, Any] | None = None
 
 
 _RANGES = {  # plausible station values in the field's own (raw, unscaled-by-us) canonical kind
@@ -388,3 +390,148 @@ def kv_answers(
         elif why == "type":
             lines[0] = "TYPE=" + rng.choice(["XYZ", "", "res"])
         yield lines, False, {}, why
+
+
+_SEMI_CODES = {"pass": "OK", "reject": "NOK", "gross": "GROSS", "aborted": "ABORT"}
+
+
+def _comma(value: float, digits: int, thousands: bool = False) -> str:
+    """A number the way lf-semi writes it: decimal comma, optional thousands points."""
+    text = f"{value:,.{digits}f}" if thousands else f"{value:.{digits}f}"
+    return text.replace(",", "\x00").replace(".", ",").replace("\x00", ".")
+
+
+def semi_lines(n: int, seed: int, good_share: float = 0.4) -> Iterator[Line]:
+    """lf-semi lines (gateway/profiles/builtin/lf-semi.toml): decimal comma, thousands points,
+    date and time columns; gross and aborted tests with empty readings."""
+    rng = random.Random(seed)
+    for i in range(n):
+        ended = _T0 + timedelta(seconds=rng.randrange(3 * 10**7))
+        verdict = rng.choice(list(_SEMI_CODES))
+        p_mbar = round(rng.uniform(500, 6000), 1)
+        loss = round(rng.uniform(-2, 400), 2)
+        leak = round(rng.uniform(-0.9, 9.0), 3)
+        reading = verdict in ("pass", "reject")
+        text = (f"{ended:%d.%m.%y};{ended:%H:%M:%S};{i + 1:06d};P{i};1;"
+                f"{_comma(p_mbar, 1, thousands=True)};"
+                f"{_comma(loss, 2) if reading else ''};{_comma(leak, 3) if reading else ''};"
+                f"{_SEMI_CODES[verdict]}")
+        values = {"cycle": i + 1, "local_ended": ended, "program": "HX-210", "part_id": f"P{i}",
+                  "verdict": verdict, "test_pressure_pa": p_mbar * 100.0,
+                  "pressure_loss_pa": loss if reading else None,
+                  "leak_rate_sccm": leak if reading else None}
+        if rng.random() < good_share:
+            yield Line(text, True, values)
+            continue
+        parts = text.split(";")
+        why = rng.choice(["verdict", "date", "number", "fields", "control"])
+        if why == "verdict":
+            parts[8] = rng.choice(["ok", "PASS", "X", "1"])
+        elif why == "date":
+            parts[0] = rng.choice(["31.02.26", "2026-01-01", "1.1", "32.01.26"])
+        elif why == "number":
+            parts[5] = rng.choice(["1,2,3", "abc", "--1", "0x10", "1e", "∞", "1.2.3,4,5"])
+        elif why == "fields":
+            parts = parts[:rng.randrange(1, 8)] if rng.random() < 0.5 else [*parts, "x"]
+        else:
+            pos = rng.randrange(1, len(text))
+            text = text[:pos] + chr(rng.choice([0, 1, 7, 27, 127])) + text[pos:]
+            yield Line(text, False, {}, why)
+            continue
+        yield Line(";".join(parts), False, {}, why)
+
+
+_NOCLOCK_CODES = {"pass": "PASS", "reject": "FAIL", "gross": "GROSS", "aborted": "ABORT"}
+
+
+def _crc_line(payload: str) -> str:
+    import binascii
+
+    return f"{payload} *{binascii.crc_hqx(payload.encode(), 0xFFFF):04X}"
+
+
+def noclock_lines(n: int, seed: int, good_share: float = 0.4) -> Iterator[Line]:
+    """lf-noclock lines: untagged, trailing minus, "---" placeholders, CRC-16 per line."""
+    rng = random.Random(seed)
+    for i in range(n):
+        verdict = rng.choice(list(_NOCLOCK_CODES))
+        leak = round(rng.uniform(-0.9, 9.0), 2)
+        loss = round(rng.uniform(-2, 400), 1)
+        reading = verdict in ("pass", "reject")
+
+        def signed(v: float) -> str:
+            return f"{abs(v):.2f}-" if v < 0 else f"{v:.2f}"
+
+        payload = (f"{i + 1} P{i % 100:02d} {signed(leak) if reading else '---'} "
+                   f"{signed(loss) if reading else '---'} {_NOCLOCK_CODES[verdict]}")
+        values = {"cycle": i + 1, "program": f"P{i % 100:02d}", "verdict": verdict,
+                  "leak_rate_sccm": leak if reading else None,
+                  "pressure_loss_pa": round(loss, 2) if reading else None,
+                  "time_source": "gateway"}
+        if rng.random() < good_share:
+            yield Line(_crc_line(payload), True, values)
+            continue
+        why = rng.choice(["crc", "number", "fields", "verdict", "control"])
+        if why == "crc":
+            line = _crc_line(payload)
+            line = line[:-1] + ("0" if line[-1] != "0" else "1")
+        elif why == "number":
+            parts = payload.split(" ")
+            parts[2] = rng.choice(["1..2", "abc", "-", "1e", "--1"])
+            line = _crc_line(" ".join(parts))
+        elif why == "fields":
+            line = _crc_line(payload + " X") if rng.random() < 0.5 else _crc_line("1 P01")
+        elif why == "verdict":
+            line = _crc_line(payload.rsplit(" ", 1)[0] + " OK")
+        else:
+            pos = rng.randrange(1, len(payload))
+            line = _crc_line(payload[:pos] + chr(rng.choice([0, 1, 7, 27, 127])) + payload[pos:])
+        yield Line(line, False, {}, why)
+
+
+_MBINPUT_BITS = {"pass": 1, "reject": 2, "gross": 3, "aborted": 4}
+
+
+def mbinput_blocks(n: int, seed: int, good_share: float = 0.4) -> Iterator[Block]:
+    """lf-mbinput ring slots (gateway/profiles/builtin/lf-mbinput.toml): values chosen and
+    encoded with pymodbus; bad ones with an impossible clock, no verdict bit, a torn guard,
+    a NaN leak without "null", or the wrong length."""
+    rng = random.Random(seed)
+    dt = ModbusTcpClient.DATATYPE
+    for _ in range(n):
+        cycle = rng.randrange(65536)
+        when = _T0 + timedelta(seconds=rng.randrange(3 * 10**7))
+        verdict = rng.choice(list(_MBINPUT_BITS))
+        status = 1 << _MBINPUT_BITS[verdict] | rng.choice([0, 0x1000, 0x2000, 0x3001])
+        p = round(rng.uniform(500, 6000), 1)
+        loss = rng.randrange(-200, 40000)
+        leak = round(rng.uniform(-0.9, 9.0), 3)
+        regs = [cycle, when.year, when.month, when.day, when.hour, when.minute, when.second,
+                *_encode("P1234567", "string(4)", 4, "big", "big"), 2,
+                *ModbusTcpClient.convert_to_registers(p, dt.FLOAT32, word_order="little"),
+                *ModbusTcpClient.convert_to_registers(loss, dt.INT32, word_order="big"),
+                *ModbusTcpClient.convert_to_registers(leak, dt.FLOAT32, word_order="big"),
+                status, 0, 0, 0, 0, cycle]
+        values = {"cycle": cycle, "verdict": verdict,
+                  # a local time in the autumn's repeated hour is taken as its first occurrence
+                  # (fold 0, PEP 495); compared in UTC, since Python never calls an ambiguous
+                  # time equal to a time in another zone
+                  "ended_at": when.replace(tzinfo=ZoneInfo("Europe/Berlin")).astimezone(UTC),
+                  "pressure_loss_pa": loss / 100.0,
+                  "leak_rate_sccm": float(ModbusTcpClient.convert_from_registers(
+                      ModbusTcpClient.convert_to_registers(leak, dt.FLOAT32), dt.FLOAT32))}
+        if rng.random() < good_share:
+            yield Block(regs, cycle, True, "", values)
+            continue
+        why = rng.choice(["clock", "bits", "torn", "nan", "short"])
+        if why == "clock":
+            regs[2] = rng.choice([0, 13, 99, 65535])
+        elif why == "bits":
+            regs[18] = rng.choice([0, 1, 0x1000, 0x3001, 0x8001])
+        elif why == "torn":
+            regs[23] = (cycle + 1 + rng.randrange(65534)) % 65536
+        elif why == "nan":
+            regs[16:18] = ModbusTcpClient.convert_to_registers(math.inf, dt.FLOAT32)
+        else:
+            regs = regs[: rng.randrange(0, 23)]
+        yield Block(regs, cycle, False, why)

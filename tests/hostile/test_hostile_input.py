@@ -24,9 +24,12 @@ from tests.hostile.reference import (
     blocks,
     delim_lines,
     kv_answers,
+    mbinput_blocks,
+    noclock_lines,
     noise,
     print_lines,
     reference_values,
+    semi_lines,
 )
 
 N = 100_000
@@ -102,6 +105,27 @@ def _lf_print() -> Tally:
     return tally
 
 
+def _lines(name: str, lines: Any, seed: int, ctx: StationContext = CTX) -> Tally:
+    parser = load_profile(name).serial.parser(ctx)  # type: ignore[union-attr]
+    tally = Tally()
+    for no, line in enumerate(lines(N - N // 10, seed=seed), 1):
+        tally.check(parser.parse([line.text], no, RECEIVED), line.good, line.values,
+                    f"line ({line.why}) {line.text!r}")
+    for no, text in enumerate(noise(N // 10, seed=seed + 1), 1):
+        tally.check(parser.parse([text], no, RECEIVED), False, {}, f"noise {text!r}")
+    return tally
+
+
+def _lf_mbinput() -> Tally:
+    spec = load_profile("lf-mbinput").modbus
+    assert spec is not None
+    tally = Tally()
+    for b in mbinput_blocks(N, seed=71):
+        out = spec.decode_result(b.regs, b.cycle, CTX, RECEIVED)
+        tally.check([out], b.good, b.values or {}, f"block ({'good' if b.good else b.why})")
+    return tally
+
+
 def _lf_kv() -> Tally:
     parser = load_profile("lf-kv").serial.parser(CTX)  # type: ignore[union-attr]
     tally = Tally()
@@ -124,14 +148,18 @@ def _modbus(name: str) -> Tally:
 
 
 def _run(name: str) -> Tally:
-    runner = {"lf-delim": _lf_delim, "lf-print": _lf_print, "lf-kv": _lf_kv}.get(name)
+    runner = {"lf-delim": _lf_delim, "lf-print": _lf_print, "lf-kv": _lf_kv,
+              "lf-semi": lambda: _lines("lf-semi", semi_lines, 51),
+              "lf-noclock": lambda: _lines("lf-noclock", noclock_lines, 61),
+              "lf-mbinput": _lf_mbinput}.get(name)
     tally = runner() if runner is not None else _modbus(name)
     tally.problems = tally.problems[:15] + [f"... {len(tally.problems)} in all"] * bool(
         tally.problems)
     return tally
 
 
-PROFILES = ["lf-delim", "lf-print", "lf-kv", "lf-mbtcp", "lf-mbrtu"]
+PROFILES = ["lf-delim", "lf-print", "lf-kv", "lf-mbtcp", "lf-mbrtu", "lf-semi", "lf-noclock",
+            "lf-mbinput"]
 
 
 @pytest.fixture(scope="module")

@@ -231,3 +231,53 @@ async def test_late_answer_is_parsed_before_the_next_query() -> None:
     assert [i.reason for i in out.items if isinstance(i, Rejected)] == [
         "unsolicited input between answers"
     ]
+
+
+async def test_a_link_that_drops_at_once_does_not_flood_statuses() -> None:
+    """A device server that accepts and resets: the link never counts as up, so there is no
+    'online' status and the backoff keeps growing (no online/offline flood)."""
+    from gateway.drivers.base import TransportError
+    from gateway.drivers.serial import run_stream_station
+
+    opened: list[float] = []
+
+    class Dropping:
+        async def read_line(self, timeout: float) -> Any:
+            raise TransportError("mock: connection reset by peer")
+
+        async def close(self) -> None:
+            return None
+
+    async def opener(_: StationTarget) -> Any:
+        opened.append(asyncio.get_running_loop().time())
+        return Dropping()
+
+    profile = load_profile("lf-delim")
+    t = StationTarget(station="D1", endpoint="mock", profile=profile,
+                      context=StationContext(station="D1", line="L1"), poll_interval_s=1.0,
+                      timeout_s=1.0)
+    out = Collect()
+    task = asyncio.create_task(run_stream_station(
+        t, out, Pacing(backoff_initial_s=0.01, backoff_max_s=0.32, offline_after=1,
+                       line_gap_s=0.03), opener=opener))
+    await asyncio.sleep(0.8)
+    task.cancel()
+    with pytest.raises(asyncio.CancelledError):
+        await task
+    states = [i.state for i in out.items if isinstance(i, StationStatus)]
+    assert StationState.ONLINE not in states
+    # growing backoff: 0.8 s holds a handful of attempts, not hundreds
+    assert 3 <= len(opened) <= 12, len(opened)
+
+
+async def test_a_read_error_between_requests_is_a_link_failure() -> None:
+    """OSError while draining stale input (an unplugged USB adapter) ends the link with a
+    status, it does not crash the bus task."""
+    from gateway.drivers.base import TransportError
+
+    reader = asyncio.StreamReader()
+    reader.set_exception(OSError(5, "Input/output error"))
+    link = LineLink(reader, ScriptedPeer(reader, lambda q: b""), LineSplitter(b"\r\n", 256),
+                    "mock")  # type: ignore[arg-type]
+    with pytest.raises(TransportError, match="read failed"):
+        await link.drain_input(0.0)

@@ -262,3 +262,48 @@ async def test_acknowledge_register_when_the_profile_enables_it() -> None:
     await r.poll(image)
     assert r.pending_ack() == (50, [0, 2])
     assert r.pending_ack() is None  # once per new cycle
+
+
+class _WrapImage(StationImage):
+    """A station whose 32-bit counter is near its maximum (times kept in range)."""
+
+    def publish(self, cycle: int, *, torn: bool = False) -> None:
+        from tests.gateway.drivers.station_image import slot, u32
+
+        wrapped = cycle % 2**32
+        regs = slot(cycle % 997)
+        regs[0:2] = u32(wrapped)  # head guard
+        regs[28:30] = u32(wrapped)  # tail guard
+        start = BASE + STRIDE * (wrapped % DEPTH)
+        self.regs[start : start + len(regs)] = regs
+        self.regs[1:3] = u32(wrapped)
+        self.counter = wrapped
+
+
+async def test_a_counter_wrap_keeps_the_record_numbered_0() -> None:
+    """The station counts ..., 2^32 − 1, 0, 1: three new cycles, not a reset."""
+    image, r = _WrapImage(), reader()
+    top = 2**32 - 1
+    for c in range(top - 9, top):  # 4294967286 .. 4294967294
+        image.publish(c)
+    first = await r.poll(image)
+    assert results(first.items) == list(range(top - DEPTH, top))
+    for c in (top, top + 1, top + 2):  # the station's 4294967295, 0, 1
+        image.publish(c)
+    out = await r.poll(image)
+    assert results(out.items) == [top, 0, 1]
+    assert out.missed == 0 and not [i for i in out.items if isinstance(i, StationStatus)]
+    image.publish(top + 3)
+    assert results((await r.poll(image)).items) == [2]
+
+
+async def test_a_counter_that_goes_back_is_still_a_reset() -> None:
+    image, r = StationImage(), reader()
+    for c in range(1, 501):
+        image.publish(c)
+    await r.poll(image)
+    image.regs = [0] * 600
+    for c in (1, 2, 3):
+        image.publish(c)
+    out = await r.poll(image)
+    assert results(out.items) == [1, 2, 3]  # the reset station's ring is read again

@@ -29,7 +29,8 @@ def _fails(path: Path, key: str, expected: str) -> str:
 
 
 def test_builtins_load() -> None:
-    assert builtin_profiles() == ["lf-delim", "lf-kv", "lf-mbrtu", "lf-mbtcp", "lf-print"]
+    assert builtin_profiles() == ["lf-delim", "lf-kv", "lf-mbinput", "lf-mbrtu", "lf-mbtcp",
+                                  "lf-noclock", "lf-print", "lf-semi"]
     for name in builtin_profiles():
         p = load_profile(name)
         # lf-kv 1.1: answers with keys no field maps are rejected (unknown_keys = "reject")
@@ -181,9 +182,11 @@ def test_acknowledge_disabled_unless_enabled(tmp_path: Path) -> None:
                  "[modbus.state]")
     ack = load_profile(path).modbus.acknowledge  # type: ignore[union-attr]
     assert ack is not None and ack.address == 10 and ack.encode(7) == [7]
+    # input-register data (lf-mbrtu reads function 4) acknowledge in a holding register
     path = _edit(tmp_path, "lf-mbrtu", "[modbus.state]",
                  "[modbus.acknowledge]\nenabled = true\naddress = 10\n\n[modbus.state]")
-    _fails(path, "modbus.acknowledge.enabled", "function = 3")
+    ack = load_profile(path).modbus.acknowledge  # type: ignore[union-attr]
+    assert ack is not None and ack.address == 10
 
 
 def test_state_register_keeps_its_address(tmp_path: Path) -> None:

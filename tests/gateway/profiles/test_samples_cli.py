@@ -135,3 +135,19 @@ def test_cli_as_module_help() -> None:
     out = subprocess.run([sys.executable, "-m", "gateway", "profile", "check", "--help"],
                          cwd=ROOT, capture_output=True, text=True, check=True).stdout
     assert "register dump" in out and "--timezone" in out
+
+
+def test_list_shows_the_good_profiles_and_names_the_bad_ones(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    from gateway.cli import main
+
+    assert main(["profile", "show", "lf-kv"]) == 0
+    copy = capsys.readouterr().out
+    (tmp_path / "my-station.toml").write_text(copy)
+    (tmp_path / "broken.toml").write_text("this is not toml\n")
+    code = main(["profile", "list", "--profiles", str(tmp_path)])
+    out, err = capsys.readouterr()
+    assert code == 1 and "lf-delim" in out and "lf-semi" in out
+    assert "broken.toml: not valid TOML" in err
+    assert "set name = 'my-station'" in err and "Traceback" not in err

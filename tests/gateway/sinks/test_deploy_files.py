@@ -18,7 +18,11 @@ from gateway.sinks.cli import sinks_from_cli
 DEPLOY = Path(__file__).resolve().parents[3] / "deploy"
 
 
-def test_example_gateway_config_checks(capsys: pytest.CaptureFixture[str]) -> None:
+def test_example_gateway_config_checks(capsys: pytest.CaptureFixture[str],
+                                       monkeypatch: pytest.MonkeyPatch) -> None:
+    # --check reads the sinks' secrets as the service would; here from the environment (the
+    # example's token file exists only on an installed machine)
+    monkeypatch.setenv("LEAKFLEET_INFLUX_TOKEN", "example-token")
     assert main(["gateway", "--config", str(DEPLOY / "gateway.toml"), "--check"]) == 0
     out = capsys.readouterr().out
     assert "sink mqtt" in out and "sink influx" in out
