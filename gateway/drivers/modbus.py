@@ -35,8 +35,8 @@ from gateway.drivers.base import (
     utcnow,
 )
 from gateway.drivers.lines import split_host_port
-from gateway.profiles.registers import decode_registers
 from gateway.errors import DecodeError, ProtocolError, TransportError
+from gateway.profiles.registers import decode_registers
 from gateway.records import (
     CalibrationEvent,
     GapEvent,
