@@ -105,6 +105,7 @@ class PollOutcome:
     accepted: int = 0
     torn: int = 0
     missed: int = 0
+    unread: int = 0  # slots whose read failed this poll (read again at the next)
 
 
 class RingReader:
@@ -144,6 +145,7 @@ class RingReader:
         # unwrapped integers and turned back into the station's numbers at its registers
         self._mod = 2 ** (16 * int(ring.counter_registers))
         self._first_contact = False  # reading what the ring held before we knew its counter
+        self._pending: list[Item] = []  # gap records not yet handed out
 
     def _unwrap(self, counter: int) -> int | None:
         """The counter as an unwrapped cycle after ``seen``; None when it went back (reset)."""
@@ -165,7 +167,19 @@ class RingReader:
         return int(ack.address), list(ack.encode(self.seen % self._mod, self.spec.word_order))
 
     # -- the poll ---------------------------------------------------------------------------
+    def drain_pending(self) -> list[Item]:
+        """Gap records noted this poll, handed out even when a later read of the poll failed."""
+        pending, self._pending = self._pending, []
+        return pending
+
     async def poll(self, link: RegisterLink, *, take_results: bool = True) -> PollOutcome:
+        """One consistent read; gap records made on the way travel with it (or, when a read
+        fails, wait in ``drain_pending`` for the caller: a gap is never thrown away)."""
+        out = await self._poll(link, take_results=take_results)
+        out.items[:0] = self.drain_pending()
+        return out
+
+    async def _poll(self, link: RegisterLink, *, take_results: bool = True) -> PollOutcome:
         out = PollOutcome()
         header = await self._read_header(link)
         received_at = utcnow()
@@ -189,7 +203,15 @@ class RingReader:
         blocks: dict[int, list[int]] = {}
         for cycle in cycles:
             address = int(ring.slot_address(cycle % self._mod))
-            blocks[cycle] = await self._read(link, address, int(ring.length))
+            try:
+                blocks[cycle] = await self._read(link, address, int(ring.length))
+            except ExceptionReply as exc:
+                # slot by slot: keep what can be read; this one (and any after it) is read
+                # again at the next poll, as ``seen`` stops before it
+                out.unread += 1
+                log.debug("%s: slot of cycle %d not read: %s", self.station, cycle, exc)
+        if cycles and not blocks and out.unread:
+            raise ExceptionReply(6, f"{self.station}: no slot could be read")
         cal_regs: list[int] | None = None
         cal = self.spec.calibration
         if cal is not None and self.cal_seen is None and cc1 == 0:
@@ -207,7 +229,7 @@ class RingReader:
                 log.debug("%s: counter moved back during the read (%d -> %d)", self.station,
                           c1, c2)
             else:
-                self._accept_results(blocks, u1, u2, depth, received_at, out)
+                self._accept_results(blocks, cycles, u2, depth, received_at, out)
         if cal_regs is not None and self._cal_counter_span is not None:
             cc2 = self.spec.decode_calibration_counter(
                 self._slice(header2, self._cal_counter_span)
@@ -261,15 +283,17 @@ class RingReader:
         )
         log.warning("%s: %s", self.station, detail)
         state = out.state or StationState.ONLINE  # restate the current state, with the gap
-        out.items.append(StationStatus(station=self.station, at=at, state=state, detail=detail))
+        self._pending.append(
+            StationStatus(station=self.station, at=at, state=state, detail=detail)
+        )
         # the loss itself, on record: the journal keeps it in its gaps table
-        out.items.append(GapEvent(station=self.station, at=at, first=lo, last=hi, source="ring",
+        self._pending.append(GapEvent(station=self.station, at=at, first=lo, last=hi, source="ring",
                                   detail=detail, line=self.context.line))
 
     def _accept_results(
         self,
         blocks: dict[int, list[int]],
-        c1: int,
+        cycles: list[int],
         c2: int,
         depth: int,
         received_at: datetime,
@@ -277,7 +301,10 @@ class RingReader:
     ) -> None:
         first_contact, self._first_contact = self._first_contact, False
         advance = True
-        for cycle in sorted(blocks):
+        for cycle in sorted(cycles):
+            if cycle not in blocks:  # its read failed: read again next poll, from here on
+                advance = False
+                continue
             if c2 >= cycle + depth:
                 # its slot may have been rewritten while we read: the next poll reports the gap
                 advance = False
@@ -588,21 +615,25 @@ async def _poll_one(
     try:
         outcome = await reader.poll(link, take_results=outbox.accepting)
     except ExceptionReply as exc:
+        await _flush(outbox, reader)
         health.count(f"exception_{exc.code:02d}")
         health.error()
         log.debug("%s: %s; retrying next poll", target.station, exc)
         return  # the station is there and will answer again; nothing to report
     except NoAnswer as exc:
+        await _flush(outbox, reader)
         health.count("no_answer")
         # a late answer would land on the next request: start that one on a fresh link
         link.close()
         await _emit(outbox, health.failed(str(exc)))
         return
     except LinkLost as exc:
+        await _flush(outbox, reader)
         link.close()
         await _emit(outbox, health.failed(str(exc)))
         return
     except ProtocolError as exc:
+        await _flush(outbox, reader)
         health.count("protocol_error")
         link.close()
         await _emit(outbox, health.failed(str(exc), state=StationState.FAULT))
@@ -620,6 +651,8 @@ async def _poll_one(
         health.count("torn", outcome.torn)
     if outcome.missed:
         health.count("missed", outcome.missed)
+    if outcome.unread:
+        health.count("slot_unread", outcome.unread)
     items.extend(outcome.items)
     if items:
         await outbox.put(items)
@@ -629,6 +662,13 @@ async def _poll_one(
             await link.write(ack[0], ack[1], reader.device_id)
         except (ExceptionReply, NoAnswer) as exc:
             log.warning("%s: acknowledge failed: %s", target.station, exc)
+
+
+async def _flush(outbox: Outbox, reader: RingReader) -> None:
+    """Hand out the gap records a failed poll noted before it failed."""
+    pending = reader.drain_pending()
+    if pending:
+        await outbox.put(pending)
 
 
 async def _emit(outbox: Outbox, status: Item | None) -> None:

@@ -12,10 +12,11 @@ from typing import Any
 
 import pytest
 
+from gateway.drivers.base import LinkLost
 from gateway.drivers.modbus import RingReader
-from gateway.records import Rejected, StationStatus, TestResult
+from gateway.records import GapEvent, Rejected, StationStatus, TestResult
 from tests.gateway.drivers import station_image
-from tests.gateway.drivers.station_image import StationImage, ctx, spec
+from tests.gateway.drivers.station_image import StationImage, busy, ctx, spec
 
 pytestmark = pytest.mark.timeout(10)
 
@@ -118,3 +119,50 @@ async def test_station_reset_rereads_its_ring() -> None:
     out = await r.poll(image)
     assert cycles(out.items) == [1]
     assert [i for i in out.items if isinstance(i, Rejected)] == []
+
+
+async def test_gap_is_kept_when_a_later_read_of_the_poll_fails() -> None:
+    image, r = Image16(), RingReader("T1", "t", spec16(), ctx())
+    image.publish(1)
+    await r.poll(image)
+    for c in range(2, 15):  # 13 new cycles, the ring holds 8: cycles 2..6 lost
+        image.publish(c)
+
+    def fail_second_header(img: StationImage, address: int, count: int) -> bool:
+        if address == 0 and len(img.reads) > 2:
+            img.fail_next.append(LinkLost("cable pulled"))
+            return True
+        return False
+
+    image.hooks.append(fail_second_header)
+    with pytest.raises(LinkLost):
+        await r.poll(image)
+    gaps = [i for i in r.drain_pending() if isinstance(i, GapEvent)]
+    assert [(g.first, g.last, g.source) for g in gaps] == [(2, 6, "ring")]
+    # the next poll reads the slots again; the gap is not reported twice
+    out = await r.poll(image)
+    assert cycles(out.items) == list(range(7, 15))
+    assert not [i for i in out.items if isinstance(i, GapEvent)]
+
+
+async def test_a_slot_that_cannot_be_read_does_not_lose_the_others() -> None:
+    image, r = Image16(), RingReader("T1", "t", spec16(), ctx())
+    image.publish(1)
+    await r.poll(image)
+    for c in (2, 3, 4):
+        image.publish(c)
+    refused = {100 + 32 * 3}  # the slot of cycle 3 (BASE + STRIDE * 3)
+
+    real_read = image.read
+
+    async def read(function: int, address: int, count: int, device_id: int) -> list[int]:
+        if address in refused:
+            refused.clear()
+            raise busy()
+        return await real_read(function, address, count, device_id)
+
+    image.read = read  # type: ignore[method-assign]
+    out = await r.poll(image)
+    assert cycles(out.items) == [2, 4] and out.unread == 1
+    out = await r.poll(image)  # 3 is read now; 4 again (the journal ignores the repeat)
+    assert cycles(out.items) == [3, 4]
