@@ -493,11 +493,11 @@ class PymodbusLink:
 
         if self._client is None:
             raise LinkLost(f"{self.name}: not connected")
-        call = (
-            self._client.read_input_registers
-            if function == 4
-            else self._client.read_holding_registers
-        )
+        call = {
+            1: self._client.read_coils,
+            2: self._client.read_discrete_inputs,
+            4: self._client.read_input_registers,
+        }.get(function, self._client.read_holding_registers)
         what = f"{self.name} device {device_id} fc{function} {address}+{count}"
         async with self.lock:
             try:
@@ -515,20 +515,33 @@ class PymodbusLink:
         if reply.isError():
             code = int(getattr(reply, "exception_code", 0) or 0)
             raise ExceptionReply(code, what)
+        if function in (1, 2):
+            return [int(b) for b in reply.bits[:count]]
         return list(reply.registers)
 
     async def write(self, address: int, values: list[int], device_id: int) -> None:
-        from pymodbus.exceptions import ModbusException
-
+        """Function 6 for one register (what most stations expect), 16 for more."""
         if self._client is None:
             raise LinkLost(f"{self.name}: not connected")
-        what = f"{self.name} device {device_id} write {address}+{len(values)}"
+        if len(values) == 1:
+            call = self._client.write_register(address, values[0], device_id=device_id)
+        else:
+            call = self._client.write_registers(address, values, device_id=device_id)
+        await self._write(call, f"{self.name} device {device_id} write {address}+{len(values)}")
+
+    async def write_coil(self, address: int, value: bool, device_id: int) -> None:
+        """Function 5: set or clear one coil (a "new result" flag, an acknowledge bit)."""
+        if self._client is None:
+            raise LinkLost(f"{self.name}: not connected")
+        call = self._client.write_coil(address, value, device_id=device_id)
+        await self._write(call, f"{self.name} device {device_id} coil {address}")
+
+    async def _write(self, call: Any, what: str) -> None:
+        from pymodbus.exceptions import ModbusException
+
         async with self.lock:
             try:
-                reply = await within(
-                    self._client.write_registers(address, values, device_id=device_id),
-                    self.timeout + 0.5,
-                )
+                reply = await within(call, self.timeout + 0.5)
             except (ModbusException, TimeoutError) as exc:
                 raise NoAnswer(f"{what}: {exc or 'timeout'}") from exc
         if reply.isError():
