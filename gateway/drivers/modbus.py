@@ -18,7 +18,6 @@ import asyncio
 import contextlib
 import logging
 from collections.abc import Sequence
-from dataclasses import dataclass, field
 from datetime import datetime
 from typing import TYPE_CHECKING, Any, Protocol
 
@@ -35,7 +34,10 @@ from gateway.drivers.base import (
     utcnow,
 )
 from gateway.drivers.lines import split_host_port
+from gateway.drivers.modbus_latest import LatestReader
+from gateway.drivers.modbus_outcome import PollOutcome
 from gateway.errors import DecodeError, ProtocolError, TransportError
+from gateway.profiles.model import BlockSpec
 from gateway.profiles.registers import decode_registers
 from gateway.records import (
     CalibrationEvent,
@@ -93,19 +95,6 @@ def plan_reads(spans: Sequence[tuple[int, int]]) -> list[tuple[int, int]]:
                 continue
         out.append([address, count])
     return [(a, n) for a, n in out]
-
-
-@dataclass
-class PollOutcome:
-    """What one poll brought: items to journal plus numbers for health and tests."""
-
-    items: list[Item] = field(default_factory=list)
-    state: StationState | None = None
-    counter: int = 0
-    accepted: int = 0
-    torn: int = 0
-    missed: int = 0
-    unread: int = 0  # slots whose read failed this poll (read again at the next)
 
 
 class RingReader:
@@ -578,11 +567,21 @@ async def run_modbus_bus(
             stopbits=opts.get("stopbits", getattr(spec, "stopbits", 1)),
             name=first.endpoint,
         )
-    readers = {}
+    readers: dict[str, RingReader | LatestReader] = {}
     for t in targets:
         t.health.offline_after = pacing.offline_after
         mspec = t.profile.modbus
         assert mspec is not None
+        if mspec.latest is not None:
+            ring = mspec.result
+            block = BlockSpec(ring.counter_address, ring.counter_type, ring.base, ring.length,
+                              ring.head_guard, ring.tail_guard, ring.fields, ring.word_order,
+                              ring.byte_order)
+            readers[t.station] = LatestReader(
+                t.station, mspec, block, mspec.latest, t.context,
+                resume_cycle=t.resume_cycle, device_id=t.options.get("device_id"),
+            )
+            continue
         readers[t.station] = RingReader(
             t.station,
             t.profile.label,
@@ -620,7 +619,7 @@ async def run_modbus_bus(
 
 
 async def _poll_one(
-    target: StationTarget, reader: RingReader, link: Any, outbox: Outbox
+    target: StationTarget, reader: RingReader | LatestReader, link: Any, outbox: Outbox
 ) -> None:
     health = target.health
     loop = asyncio.get_running_loop()
@@ -677,7 +676,7 @@ async def _poll_one(
             log.warning("%s: acknowledge failed: %s", target.station, exc)
 
 
-async def _flush(outbox: Outbox, reader: RingReader) -> None:
+async def _flush(outbox: Outbox, reader: RingReader | LatestReader) -> None:
     """Hand out the gap records a failed poll noted before it failed."""
     pending = reader.drain_pending()
     if pending:

@@ -15,8 +15,8 @@ from collections.abc import Sequence
 from datetime import datetime
 from typing import TYPE_CHECKING, Protocol
 
-from gateway.drivers.base import utcnow
-from gateway.drivers.modbus import PollOutcome
+from gateway.drivers.base import Item, utcnow
+from gateway.drivers.modbus_outcome import PollOutcome
 from gateway.profiles.registers import decode_registers, encode_value
 from gateway.records import (
     CalibrationEvent,
@@ -89,8 +89,17 @@ class LatestReader:
             return bool(values[0])
         return bool(values[0] >> flag.bit & 1)
 
-    async def poll(self, link: BitLink) -> PollOutcome:
+    def pending_ack(self) -> None:
+        """Acknowledges are written inside ``poll`` (right after the block is taken)."""
+        return None
+
+    def drain_pending(self) -> list[Item]:
+        return []
+
+    async def poll(self, link: BitLink, *, take_results: bool = True) -> PollOutcome:
         out = PollOutcome()
+        if not take_results:
+            return out  # the journal is full: the station keeps its block (and its flag)
         if self.rule.detect == "flag" and not await self._flag_set(link):
             return out
         regs = await link.read(self.spec.function, self.rule.address, self.rule.length,

@@ -17,11 +17,12 @@ A write happens only through ``ack`` entries: never otherwise.
 
 from __future__ import annotations
 
-from typing import Literal
+from collections.abc import Callable
+from typing import Literal, NoReturn
 
-from pydantic import BaseModel, ConfigDict, Field, model_validator
+from pydantic import BaseModel, ConfigDict, Field, ValidationError, model_validator
 
-__all__ = ["AckAction", "FlagSource", "LatestRule"]
+__all__ = ["AckAction", "FlagSource", "LatestRule", "apply_latest"]
 
 
 class _Strict(BaseModel):
@@ -80,3 +81,34 @@ class LatestRule(_Strict):
     @property
     def cycle_registers(self) -> int:
         return 2 if self.cycle_type == "uint32" else 1
+
+
+def apply_latest(modbus: dict[str, object], fail: Callable[[str, str, object], NoReturn]
+                 ) -> LatestRule | None:
+    """Validate ``[modbus.latest]`` and give ``[modbus.result]`` the one-slot ring it implies.
+
+    A last-result block is read by the ring machinery as a ring of depth 1 whose counter and
+    guards are the cycle inside the block, so the result table then needs only ``fields``.
+    ``fail(key, expected, got)`` is the loader's one-line error.
+    """
+    raw = modbus.pop("latest", None)
+    if raw is None:
+        return None
+    try:
+        rule = LatestRule.model_validate(raw)
+    except ValidationError as exc:
+        err = exc.errors()[0]
+        where = ".".join(str(p) for p in ("modbus", "latest", *err["loc"]))
+        fail(where, str(err["msg"]).removeprefix("Value error, "), err.get("input"))
+    result = modbus.get("result")
+    if not isinstance(result, dict):
+        fail("modbus.result", "a table with the block's fields", result)
+    for key in ("counter_address", "base", "stride", "depth", "length", "head_guard",
+                "tail_guard", "counter_type"):
+        if key in result:
+            fail(f"modbus.result.{key}", "no ring keys with [modbus.latest] (it gives them)",
+                 result[key])
+    result.update(counter_address=rule.address + rule.cycle_at, counter_type=rule.cycle_type,
+                  base=rule.address, length=rule.length, depth=1, head_guard=rule.cycle_at,
+                  tail_guard=rule.cycle_at)
+    return rule

@@ -7,18 +7,24 @@ The block is one lf-mbtcp result slot encoded with pymodbus's ``convert_to_regis
 from __future__ import annotations
 
 import asyncio
+from datetime import UTC, datetime
 from typing import Any
+from zoneinfo import ZoneInfo
 
 import pytest
+from pymodbus.client import AsyncModbusTcpClient
 from pymodbus.server import ModbusTcpServer
 from pymodbus.simulator import DataType, SimData, SimDevice
 
-from gateway.drivers.modbus import PymodbusLink
+from gateway.drivers.base import StationTarget
+from gateway.drivers.modbus import PymodbusLink, run_modbus_bus
 from gateway.drivers.modbus_latest import LatestReader
+from gateway.profiles import StationContext, load_profile
 from gateway.profiles.modbus_schema import AckAction, FlagSource, LatestRule
 from gateway.profiles.model import BlockSpec
 from gateway.records import GapEvent, TestResult
 from tests.gateway.drivers.station_image import ctx, slot, spec
+from tests.integration.test_drivers_real_peers import FAST, Collect, running, until
 
 pytestmark = [pytest.mark.integration, pytest.mark.timeout(30)]
 
@@ -114,4 +120,48 @@ async def test_reader_never_writes_without_ack_entries() -> None:
         assert station.writes == []
     finally:
         link.close()
+        await server.shutdown()
+
+
+def _badc(value: float) -> list[int]:
+    """float32 with the bytes of each word swapped (BADC), from pymodbus's own encoder."""
+    words = AsyncModbusTcpClient.convert_to_registers(
+        value, AsyncModbusTcpClient.DATATYPE.FLOAT32, word_order="big")
+    return [((w & 0xFF) << 8) | (w >> 8) for w in words]
+
+
+async def test_lf_mblast_profile_through_the_bus_loop() -> None:
+    dt = AsyncModbusTcpClient.DATATYPE
+    regs = [0] * 200
+    regs[0:16] = [
+        *AsyncModbusTcpClient.convert_to_registers(4294967295, dt.UINT32, word_order="big"),
+        0x2026, 0x1203, 0x1405, 0x0009,  # packed BCD, local time
+        0x0100 | 0x0008 | 1,  # verdict 1 (pass) in bits 0..2, reason 1 and a reserved bit
+        2, *_badc(0.85), *_badc(12.5), 200, 30, 50, 80,
+    ]
+    station = Station(1, flag=True)
+    station.regs[:] = regs
+    server, link = await station.serve()
+    link.close()
+    port = server.transport.sockets[0].getsockname()[1]  # type: ignore[attr-defined]
+    try:
+        t = StationTarget(
+            station="S1", endpoint=f"tcp://127.0.0.1:{port}", profile=load_profile("lf-mblast"),
+            context=StationContext(station="S1", line="L1", timezone="UTC", programs={}),
+            poll_interval_s=0.02, timeout_s=0.5,
+        )
+        out = Collect()
+        async with running(run_modbus_bus([t], out, FAST)):
+            await until(lambda: bool(out.of(TestResult)) and bool(station.writes))
+            await asyncio.sleep(0.1)  # more polls: the flag is 0 now, nothing is taken again
+        [r] = out.of(TestResult)
+        assert r.cycle == 4294967295 and r.verdict == "pass" and r.program == "2"
+        # 14:05:09 in Europe/Berlin (CET, UTC+1 in December), converted by zoneinfo
+        want = datetime(2026, 12, 3, 14, 5, 9, tzinfo=ZoneInfo("Europe/Berlin"))
+        assert r.ended_at == want.astimezone(UTC)
+        assert r.leak_rate_sccm == pytest.approx(0.85, rel=1e-6)  # float32 precision
+        assert r.pressure_loss_pa == pytest.approx(12.5)
+        assert r.reject_limit_sccm == pytest.approx(2.0) and r.test_s == pytest.approx(8.0)
+        assert [(fc, a) for fc, a, _ in station.writes] == [(5, 0)]
+    finally:
         await server.shutdown()

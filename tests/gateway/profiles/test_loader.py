@@ -29,7 +29,8 @@ def _fails(path: Path, key: str, expected: str) -> str:
 
 
 def test_builtins_load() -> None:
-    assert builtin_profiles() == ["lf-delim", "lf-kv", "lf-mbinput", "lf-mbrtu", "lf-mbtcp",
+    assert builtin_profiles() == ["lf-delim", "lf-kv", "lf-mbinput", "lf-mblast", "lf-mbrtu",
+                                  "lf-mbtcp",
                                   "lf-noclock", "lf-print", "lf-semi"]
     for name in builtin_profiles():
         p = load_profile(name)
