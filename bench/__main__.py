@@ -1,7 +1,7 @@
 """``python -m bench [--quick] [--json] [--only NAME ...]``: every benchmark with its baseline.
 
 Prints one JSON document (keys: ingest, import_rate, modbus_poll, mqtt_latency,
-dashboard_queries, rss_mb; each with its inputs beside its figures); progress goes to
+dashboard_queries, rss_mb, chaos; each with its inputs beside its figures); progress goes to
 stderr. ``--json`` prints it compact on one line (for tools); without it, indented. A
 benchmark that cannot run here says why under ``missing`` instead of failing the run.
 """
@@ -21,7 +21,8 @@ from datetime import UTC, datetime, timedelta
 from pathlib import Path
 from typing import Any
 
-NAMES = ("ingest", "import_rate", "modbus_poll", "mqtt_latency", "dashboard_queries", "rss_mb")
+NAMES = ("ingest", "import_rate", "modbus_poll", "mqtt_latency", "dashboard_queries", "rss_mb",
+         "chaos")
 
 
 def _log(msg: str) -> None:
@@ -39,6 +40,12 @@ def bench_ingest(quick: bool) -> dict[str, Any]:
     from bench.ingest import run
 
     return run(records=50_000 if quick else 200_000, batch=500)
+
+
+def bench_chaos(quick: bool) -> dict[str, Any]:
+    from bench.chaos import run
+
+    return run(wall_s=45.0 if quick else 150.0)
 
 
 def bench_import(quick: bool) -> dict[str, Any]:
@@ -178,6 +185,7 @@ def main(argv: list[str] | None = None) -> int:
     runners: dict[str, Callable[[], dict[str, Any]]] = {
         "ingest": lambda: bench_ingest(args.quick),
         "import_rate": lambda: bench_import(args.quick),
+        "chaos": lambda: bench_chaos(args.quick),
         "modbus_poll": lambda: bench_modbus(args.quick, shared),
         "mqtt_latency": lambda: bench_mqtt(args.quick),
         "dashboard_queries": lambda: bench_queries(args.quick),

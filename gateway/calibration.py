@@ -37,7 +37,21 @@ def sccm_to_m3s(sccm: float) -> float:
 
 def _positive(name: str, value: float) -> None:
     if not math.isfinite(value) or value <= 0:
-        raise ValueError(f"{name} must be a positive finite number, got {value!r}")
+        raise ValueError(f"{_WORDS.get(name, name)} must be a positive finite number, got "
+                         f"{_g(value)}")
+
+
+#: the words a person reads in an error, for the canonical field names
+_WORDS = {
+    "master_loss_pa": "master loss", "standard_loss_pa": "standard loss",
+    "standard_sccm": "leak standard's flow", "span_pa": "span",
+    "test_time_s": "test time", "volume_m3": "volume",
+}  # fmt: skip
+
+
+def _g(value: object) -> str:
+    """A number with sensible digits (344.7378646584 -> 344.74)."""
+    return f"{value:.5g}" if isinstance(value, float) else repr(value)
 
 
 @dataclass(frozen=True, slots=True)
@@ -51,12 +65,13 @@ class Calibration:
     def __post_init__(self) -> None:
         for name in ("master_loss_pa", "standard_loss_pa"):
             if not math.isfinite(getattr(self, name)):
-                raise ValueError(f"{name} must be finite")
+                raise ValueError(f"the {_WORDS[name]} must be a finite number")
         _positive("standard_sccm", self.standard_sccm)
         if self.standard_loss_pa <= self.master_loss_pa:
             raise ValueError(
-                "standard_loss_pa must exceed master_loss_pa: with the leak standard open the "
-                f"master part must lose more (got {self.standard_loss_pa} <= {self.master_loss_pa})"
+                "with the leak standard open the master part must lose more than without it "
+                f"(standard loss {_g(self.standard_loss_pa)} Pa, master loss "
+                f"{_g(self.master_loss_pa)} Pa): check the standard is open and connected"
             )
 
     @property

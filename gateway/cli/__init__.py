@@ -12,9 +12,11 @@ from __future__ import annotations
 import argparse
 import importlib
 import pkgutil
+import re
 import sys
 from collections.abc import Sequence
 from types import ModuleType
+from typing import Any
 
 from gateway import __version__
 from gateway.errors import LeakfleetError
@@ -30,8 +32,18 @@ def _command_modules() -> list[ModuleType]:
     return sorted(modules, key=lambda m: (getattr(m, "ORDER", 50), m.__name__))
 
 
+class Parser(argparse.ArgumentParser):
+    """An ArgumentParser that takes "-5C", "-0.3psi" or "-2e-3" as a value, not an option:
+    plants quote temperatures and offsets below zero with their units (no option of ours
+    starts with a digit, so nothing is lost)."""
+
+    def __init__(self, *args: Any, **kwargs: Any) -> None:
+        super().__init__(*args, **kwargs)
+        self._negative_number_matcher = re.compile(r"^-\.?\d")
+
+
 def build_parser() -> argparse.ArgumentParser:
-    parser = argparse.ArgumentParser(
+    parser = Parser(
         prog="leakfleet",
         description=(
             "Collect pressure-decay leak-test results and calibrations from a fleet of stations "

@@ -540,6 +540,29 @@ class Report:
         return {"schema": SCHEMA, "kind": self.kind, "filters": self.filters, "result": self.result}
 
 
+def _known_ids(store: Any, args: argparse.Namespace) -> Any:
+    """A --station or --line the store has never seen is a typo, not "no tests": say so,
+    with the close ones."""
+    import difflib
+
+    for option, column in (("station", "station"), ("line", "line")):
+        wanted = getattr(args, option, None)
+        stations = getattr(store, "stations", None)
+        if not wanted or not callable(stations):
+            continue
+        frame = stations()
+        if frame is None or column not in frame or frame.empty:
+            continue
+        known = sorted({str(v) for v in frame[column].dropna()})
+        if wanted not in known:
+            close = difflib.get_close_matches(wanted, known, n=3, cutoff=0.5)
+            hint = f"; did you mean {', '.join(close)}?" if close else ""
+            raise ValueError(f"--{option} {wanted!r}: no such {option} in the store "
+                             f"({len(known)} known: {', '.join(known[:8])}"
+                             f"{' ...' if len(known) > 8 else ''}){hint}")
+    return store
+
+
 def build_report(kind: str, args: argparse.Namespace, store: Any | None = None) -> Report:
     """Compute one report; ``store`` (any object with the QueryStore methods) or --store URL."""
     builders: dict[str, Callable[[argparse.Namespace, Callable[[], Any]], Report]] = {
@@ -559,9 +582,9 @@ def build_report(kind: str, args: argparse.Namespace, store: Any | None = None) 
 
     def get_store() -> Any:
         if store is not None:
-            return store
+            return _known_ids(store, args)
         if not opened:
-            opened.append(_open_store(_store_url(args)))
+            opened.append(_known_ids(_open_store(_store_url(args)), args))
         return opened[0]
 
     try:

@@ -46,6 +46,11 @@ def register(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
     parser.add_argument(
         "--run-dir", type=Path, help="directory for the pty symlinks (default: the scenario's)"
     )
+    parser.add_argument(
+        "--free-ports", action="store_true",
+        help="let the system pick free TCP ports instead of the scenario's fixed ones (the "
+        "endpoints are printed at start)",
+    )
     parser.set_defaults(func=_run)
     # `leakfleet sim backfill ...`; plain `leakfleet sim --scenario ...` runs the plant as before
     from gateway.cli import sim_backfill, sim_study
@@ -70,6 +75,8 @@ def _run(args: argparse.Namespace) -> int:
         scenario = dataclasses.replace(scenario, run_dir=args.run_dir)
     if args.faults:
         scenario = scenario.with_faults(True)
+    if args.free_ports:
+        scenario = scenario.with_free_ports()
     return asyncio.run(_serve(scenario, args.speed, args.seconds, args.truth))
 
 
@@ -97,7 +104,10 @@ async def _serve(scenario: object, speed: float, seconds: float | None, truth: P
             with contextlib.suppress(TimeoutError):
                 await asyncio.wait_for(stop.wait(), seconds)
     except OSError as exc:
-        raise LeakfleetError(f"cannot start the stations of {scenario.source}: {exc}") from None
+        hint = ("; another plant may be running (stop it, or add --free-ports and point the "
+                "gateway at the endpoints printed)") if "in use" in str(exc) else ""
+        raise LeakfleetError(f"cannot start the stations of {scenario.source}: {exc}{hint}"
+                             ) from None
     finally:
         for sig in (signal.SIGINT, signal.SIGTERM):
             loop.remove_signal_handler(sig)

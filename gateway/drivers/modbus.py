@@ -194,13 +194,15 @@ class RingReader:
             address = int(ring.slot_address(cycle % self._mod))
             try:
                 blocks[cycle] = await self._read(link, address, int(ring.length))
-            except ExceptionReply as exc:
-                # slot by slot: keep what can be read; this one (and any after it) is read
-                # again at the next poll, as ``seen`` stops before it
+            except ProtocolError as exc:
+                # read what can be read: the slots before this one still count, the rest
+                # wait for the next poll (a poll is not all-or-nothing)
+                if not blocks:
+                    raise
+                log.debug("%s: slot of cycle %d not read (%s); %d read this poll",
+                          self.station, cycle % self._mod, exc, len(blocks))
                 out.unread += 1
-                log.debug("%s: slot of cycle %d not read: %s", self.station, cycle, exc)
-        if cycles and not blocks and out.unread:
-            raise ExceptionReply(6, f"{self.station}: no slot could be read")
+                break
         cal_regs: list[int] | None = None
         cal = self.spec.calibration
         if cal is not None and self.cal_seen is None and cc1 == 0:
@@ -210,7 +212,12 @@ class RingReader:
         if not blocks and cal_regs is None:
             return out
 
-        header2 = await self._read_header(link)
+        try:
+            header2 = await self._read_header(link)
+        except (ProtocolError, TransportError):
+            if any(isinstance(i, GapEvent) for i in self._pending):
+                return out  # the gap found before the failure stays on record
+            raise
         c2 = self.spec.decode_counter(self._slice(header2, self._counter_span))
         if blocks:
             u2 = self._unwrap(c2)

@@ -52,6 +52,12 @@ from gateway.store.journal import KINDS, Kind
 __all__ = ["MqttClient", "MqttOptions", "make_mqtt", "parse_mqtt_url", "topic_for"]
 
 log = logging.getLogger(__name__)
+#: publishes awaiting their PUBACK at once: a backlog of thousands goes out in steps of this
+MAX_INFLIGHT = 20
+#: the MQTT library's own chatter ("There are N pending publish calls") stays out of the
+#: user's log unless it is an error
+_LIBRARY_LOG = logging.getLogger("gateway.sinks.mqtt.library")
+_LIBRARY_LOG.setLevel(logging.ERROR)
 
 PASSWORD_ENV = "LEAKFLEET_MQTT_PASSWORD"
 _KEYS = (
@@ -183,6 +189,7 @@ class MqttClient:
             (opts.topic_prefix, _segment(ctx.site), "gateway", _segment(ctx.gateway_id), "state")
         )
         self._client: Any = None
+        self._inflight = asyncio.Semaphore(MAX_INFLIGHT)
         self._stack: contextlib.AsyncExitStack | None = None
         self._password: str | None = None
         self._tls_context: ssl.SSLContext | None = None
@@ -234,7 +241,8 @@ class MqttClient:
             clean_session=None if self.opts.v5 else True,
             keepalive=self.opts.keepalive_s,
             timeout=self.timeout_s,
-            logger=logging.getLogger("gateway.sinks.mqtt.paho"),
+            logger=_LIBRARY_LOG,
+            max_inflight_messages=MAX_INFLIGHT,
         )
         stack = contextlib.AsyncExitStack()
         try:
@@ -265,7 +273,8 @@ class MqttClient:
         if self._client is None:
             raise SinkUnavailable(f"not connected to {self.describe()}")
         try:
-            await self._client.publish(topic, payload, qos=1, retain=retain)
+            async with self._inflight:  # a backlog goes out MAX_INFLIGHT at a time
+                await self._client.publish(topic, payload, qos=1, retain=retain)
         except aiomqtt.MqttError as exc:
             raise SinkUnavailable(f"publish to {self.describe()} failed: {exc}") from None
 

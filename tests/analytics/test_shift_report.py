@@ -278,4 +278,4 @@ def test_bad_shift_in_config_is_one_line(
     code = main(["report", "shift", "--config", str(config), "--date", "2026-01-14",
                  "--shift", "night"])  # fmt: skip
     err = capsys.readouterr().err
-    assert code == 2 and "plant.toml: shifts.early: expected a local start time" in err
+    assert code == 2 and "plant.toml: shifts.early: expected a start time" in err

@@ -61,3 +61,20 @@ async def test_a_payload_over_the_limit_is_parked_not_retried(
     assert "over the broker's limit" in parked["reason"]
     assert main(["dead-letters", "--store", f"sqlite:///{journal.path}", "list"]) == 0
     assert big.record_id in capsys.readouterr().out
+
+
+async def test_a_large_backlog_goes_out_quietly(
+    mosquitto: MosquittoServer, journal: Journal, caplog: pytest.LogCaptureFixture
+) -> None:
+    """3 000 records waiting: the sink publishes a bounded number at a time and the MQTT
+    library's 'pending publish calls' chatter stays out of the log."""
+    import logging
+
+    caplog.set_level(logging.DEBUG)
+    backlog = [result("L1-S1", c) for c in range(1, 3001)]
+    journal.write(backlog)
+    fwd = make_mqtt("mqtt-bl", {"url": mosquitto.url, "batch_size": 500,
+                                "client_id": "gw-bl"}, ctx(gateway_id="gw-bl"))
+    async with forwarding(fwd, journal):
+        await until(lambda: unsent(journal, "mqtt-bl") == 0, 60, "the backlog sent")
+    assert not [r for r in caplog.records if "pending publish" in r.getMessage()]

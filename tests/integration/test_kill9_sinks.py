@@ -60,7 +60,8 @@ url = "{influxdb.url(influx_db)}"
         names = [s.name for s in plant.scenario.stations]
 
         def results(msgs: list[tuple[str, bytes, bool]]) -> int:
-            return sum(t.endswith("/result") for t, _, _ in msgs)
+            """Distinct results on the broker (a re-send after the kill is one result)."""
+            return len({json.loads(p)["record_id"] for t, p, _ in msgs if t.endswith("/result")})
 
         async with MqttLog(mosquitto, f"leakfleet/{site}/#", client_id=f"sub-{site}") as sub:
             gw = Gateway(cfg, tmp_path / "gateway.log")

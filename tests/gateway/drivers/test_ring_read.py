@@ -307,3 +307,29 @@ async def test_a_counter_that_goes_back_is_still_a_reset() -> None:
         image.publish(c)
     out = await r.poll(image)
     assert results(out.items) == [1, 2, 3]  # the reset station's ring is read again
+
+
+async def test_a_failed_slot_read_keeps_the_slots_before_it() -> None:
+    """A poll is not all-or-nothing: slots read before a refused one are taken now, the
+    rest at the next poll, nothing lost or doubled."""
+    from tests.gateway.drivers.station_image import busy
+
+    class Flaky(StationImage):
+        fail_at: int | None = None
+
+        async def read(self, function: int, address: int, count: int,
+                       device_id: int) -> list[int]:
+            if address == self.fail_at:
+                self.fail_at = None
+                raise busy()
+            return await super().read(function, address, count, device_id)
+
+    image, r = Flaky(), reader()
+    for c in range(1, 6):
+        image.publish(c)
+    image.fail_at = BASE + STRIDE * 4  # cycle 4's slot refuses once
+    first = await r.poll(image)
+    assert results(first.items) == [1, 2, 3]
+    second = await r.poll(image)
+    assert results(second.items) == [4, 5]
+    assert first.missed == second.missed == 0
