@@ -17,6 +17,7 @@ from typing import TYPE_CHECKING, Protocol
 
 from gateway.drivers.base import Item, utcnow
 from gateway.drivers.modbus_outcome import PollOutcome
+from gateway.errors import ProtocolError, TransportError
 from gateway.profiles.registers import decode_registers, encode_value
 from gateway.records import (
     CalibrationEvent,
@@ -72,6 +73,7 @@ class LatestReader:
         self._mod = 1 << (16 * rule.cycle_registers)
         self._candidate: list[int] | None = None  # change mode: a block seen once
         self._last_block: list[int] | None = None
+        self._ack_due: int | None = None  # a taken cycle whose acknowledge did not go through
 
     def _cycle(self, regs: Sequence[int]) -> int:
         at, width = self.rule.cycle_at, self.rule.cycle_registers
@@ -100,6 +102,8 @@ class LatestReader:
         out = PollOutcome()
         if not take_results:
             return out  # the journal is full: the station keeps its block (and its flag)
+        if self._ack_due is not None:
+            await self._acknowledge(link, self._ack_due)
         if self.rule.detect == "flag" and not await self._flag_set(link):
             return out
         regs = await link.read(self.spec.function, self.rule.address, self.rule.length,
@@ -155,6 +159,18 @@ class LatestReader:
                             cycle, self.context, at)
 
     async def _acknowledge(self, link: BitLink, cycle: int) -> None:
+        """Write the acknowledge; on failure keep it due, so the taken record is not lost
+        with the poll and the station is acknowledged at the next poll."""
+        self._ack_due = cycle if self.rule.ack else None
+        try:
+            await self._write_ack(link, cycle)
+        except (ProtocolError, TransportError) as exc:
+            log.warning("%s: acknowledge of cycle %d failed (%s); retried next poll",
+                        self.station, cycle, exc)
+            return
+        self._ack_due = None
+
+    async def _write_ack(self, link: BitLink, cycle: int) -> None:
         for act in self.rule.ack:
             value = 0 if act.value == "clear" else cycle if act.value == "cycle" else act.value
             assert isinstance(value, int)
