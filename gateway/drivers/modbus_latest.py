@@ -108,6 +108,10 @@ class LatestReader:
             return out
         regs = await link.read(self.spec.function, self.rule.address, self.rule.length,
                                self.device_id)
+        if self.rule.bits is not None:  # coils / discrete inputs as one more word
+            src = self.rule.bits
+            bits = await link.read(src.function, src.address, src.count, self.device_id)
+            regs = [*regs, sum(1 << i for i, b in enumerate(bits[: src.count]) if b)]
         received_at = utcnow()
         cycle = self._cycle(regs)
         out.counter = cycle

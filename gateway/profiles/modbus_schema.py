@@ -22,7 +22,7 @@ from typing import Literal, NoReturn
 
 from pydantic import BaseModel, ConfigDict, Field, ValidationError, model_validator
 
-__all__ = ["AckAction", "FlagSource", "LatestRule", "apply_latest"]
+__all__ = ["AckAction", "BitsSource", "FlagSource", "LatestRule", "apply_latest"]
 
 
 class _Strict(BaseModel):
@@ -35,6 +35,15 @@ class FlagSource(_Strict):
     function: Literal[1, 2, 3, 4]
     address: int = Field(ge=0, le=65535)
     bit: int = Field(default=0, ge=0, le=15, description="bit of the register (functions 3, 4)")
+
+
+class BitsSource(_Strict):
+    """Coils (1) or discrete inputs (2) read with the block and packed into one more word
+    after it (input ``i`` is bit ``i``), so fields take them with ``at``, ``bit`` or ``mask``."""
+
+    function: Literal[1, 2]
+    address: int = Field(ge=0, le=65535)
+    count: int = Field(ge=1, le=16)
 
 
 class AckAction(_Strict):
@@ -66,6 +75,7 @@ class LatestRule(_Strict):
     byte_order: Literal["big", "little"] = "big"
     flag: FlagSource | None = None
     ack: tuple[AckAction, ...] = ()
+    bits: BitsSource | None = None
     record: Literal["result", "calibration"] = "result"
 
     @model_validator(mode="after")
@@ -77,6 +87,11 @@ class LatestRule(_Strict):
         if (self.detect == "flag") != (self.flag is not None):
             raise ValueError('a "flag" table is required with detect = "flag", and only then')
         return self
+
+    @property
+    def words(self) -> int:
+        """Words a record is decoded from: the block, plus one packing ``bits`` if given."""
+        return self.length + (1 if self.bits is not None else 0)
 
     @property
     def cycle_registers(self) -> int:
@@ -109,6 +124,6 @@ def apply_latest(modbus: dict[str, object], fail: Callable[[str, str, object], N
             fail(f"modbus.result.{key}", "no ring keys with [modbus.latest] (it gives them)",
                  result[key])
     result.update(counter_address=rule.address + rule.cycle_at, counter_type=rule.cycle_type,
-                  base=rule.address, length=rule.length, depth=1, head_guard=rule.cycle_at,
+                  base=rule.address, length=rule.words, depth=1, head_guard=rule.cycle_at,
                   tail_guard=rule.cycle_at)
     return rule

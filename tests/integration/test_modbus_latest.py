@@ -165,3 +165,46 @@ async def test_lf_mblast_profile_through_the_bus_loop() -> None:
         assert [(fc, a) for fc, a, _ in station.writes] == [(5, 0)]
     finally:
         await server.shutdown()
+
+
+def _dcba(value: int) -> list[int]:
+    """int32 low word first with each word's bytes swapped (DCBA), from pymodbus's encoder."""
+    words = AsyncModbusTcpClient.convert_to_registers(
+        value, AsyncModbusTcpClient.DATATYPE.INT32, word_order="little")
+    return [((w & 0xFF) << 8) | (w >> 8) for w in words]
+
+
+async def test_lf_mbnoclk_change_detected_with_verdict_from_discrete_inputs() -> None:
+    regs = [*_dcba(70001), 3, *_dcba(850), *_dcba(125)] + [0] * 20
+    inputs = [False, True, False]  # DI0 fail, DI1 gross, DI2 no abort -> gross
+    hr = [SimData(0, count=len(regs), values=regs, datatype=DataType.REGISTERS)]
+    di = [SimData(0, count=3, values=inputs, datatype=DataType.BITS)]
+    writes: list[Any] = []
+
+    async def action(function_code: int, start_address: int, address: int, count: int,
+                     registers: list[int], set_values: Any) -> None:
+        if set_values is not None:
+            writes.append(function_code)
+
+    device = SimDevice(id=1, simdata=(di, di, hr, hr), action=action)
+    server = ModbusTcpServer(device, address=("127.0.0.1", 0))
+    await server.serve_forever(background=True)
+    port = server.transport.sockets[0].getsockname()[1]  # type: ignore[attr-defined]
+    try:
+        t = StationTarget(
+            station="S1", endpoint=f"tcp://127.0.0.1:{port}", profile=load_profile("lf-mbnoclk"),
+            context=StationContext(station="S1", line="L1", timezone="UTC", programs={}),
+            poll_interval_s=0.02, timeout_s=0.5,
+        )
+        out = Collect()
+        async with running(run_modbus_bus([t], out, FAST)):
+            await until(lambda: bool(out.of(TestResult)))
+            await asyncio.sleep(0.1)  # the block stays the same: not taken again
+        [r] = out.of(TestResult)
+        assert r.cycle == 70001 and r.program == "3" and r.verdict == "gross"
+        assert r.leak_rate_sccm == pytest.approx(0.85)  # 850 x 0.001
+        assert r.pressure_loss_pa == pytest.approx(12.5)  # 125 x 0.1
+        assert r.time_source == "gateway"
+        assert writes == []  # no ack listed: never a write
+    finally:
+        await server.shutdown()
