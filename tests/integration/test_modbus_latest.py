@@ -208,3 +208,4 @@ async def test_lf_mbnoclk_change_detected_with_verdict_from_discrete_inputs() ->
         assert writes == []  # no ack listed: never a write
     finally:
         await server.shutdown()
+

@@ -79,3 +79,35 @@ async def test_a_constant_acknowledge_is_written_as_given() -> None:
                       ack=(AckAction(function=6, address=7, value=0x55AA),))
     await reader(rule).poll(link)
     assert link.writes == [(7, [0x55AA])]
+
+
+class Queue(Link):
+    """Presents the oldest queued record; a write of its cycle moves on to the next."""
+
+    def __init__(self, cycles: list[int]) -> None:
+        super().__init__([slot(c) for c in cycles])
+        self.cycles = cycles
+
+    async def read(self, function: int, address: int, count: int, device_id: int) -> list[int]:
+        return self.images[0]
+
+    async def write(self, address: int, values: list[int], device_id: int) -> None:
+        await super().write(address, values, device_id)
+        if len(self.images) > 1 and values == [self.cycles[0] % 65536]:
+            self.images.pop(0)
+            self.cycles.pop(0)
+
+
+async def test_counter_queue_across_the_16_bit_wrap_each_record_once() -> None:
+    # a 16-bit cycle: the low word of the slot's u32 cycle (offset 1), queue 65534, 65535, 0
+    link = Queue([65534, 65535, 65536, 65539])  # 65536 -> 0; 65539 -> 3: cycles 1, 2 dropped
+    rule = LatestRule(detect="counter", address=0, length=30, cycle_at=1, cycle_type="uint16",
+                      ack=(AckAction(function=6, address=100, value="cycle"),))
+    block16 = BlockSpec(1, "uint16", 0, 30, 1, 29, spec().result.fields)
+    r = LatestReader("T1", spec(), block16, rule, ctx())
+    got: list[Any] = []
+    for _ in range(6):
+        got += (await r.poll(link)).items
+    assert [i.cycle % 65536 for i in got if isinstance(i, TestResult)] == [65534, 65535, 0, 3]
+    gaps = [i for i in got if type(i).__name__ == "GapEvent"]
+    assert [(g.first, g.last) for g in gaps] == [(1, 2)]
