@@ -31,6 +31,7 @@ __all__ = [
     "StationMetrics",
     "exposition",
     "for_station",
+    "kept_aside",
     "poll_latency",
     "records_received",
     "records_rejected",
@@ -59,6 +60,11 @@ _stored = Counter(
 _rejected = Counter(
     "leakfleet_records_rejected", "Station input quarantined with a reason",
     ["station"], registry=REGISTRY,
+)
+_kept_aside = Counter(
+    "leakfleet_records_kept_aside",
+    "Journal findings per station: conflict (a re-send that differs), gap (lost cycles)",
+    ["station", "what"], registry=REGISTRY,
 )
 _station_errors = Counter(
     "leakfleet_station_errors", "Failed polls, reads or connections per station",
@@ -106,6 +112,11 @@ def records_stored(station: str, kind: str, n: int = 1) -> None:
 
 def records_rejected(station: str, n: int = 1) -> None:
     _rejected.labels(station).inc(n)
+
+
+def kept_aside(station: str, what: str, n: int = 1) -> None:
+    """A conflicting re-send or a recorded gap, counted per station."""
+    _kept_aside.labels(station, what).inc(n)
 
 
 def station_error(station: str, n: int = 1) -> None:

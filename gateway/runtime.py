@@ -45,7 +45,7 @@ from gateway.garbage import GarbageLimiter
 from gateway.health import Backoff, ClockWatch
 from gateway.records import CalibrationEvent, Rejected, StationState, StationStatus, TestResult
 from gateway.sinks import REGISTRY, Attachable, Forwarder, SinkContext, SinkFactory
-from gateway.store.guard import JournalGone, JournalLock, spill, take_back
+from gateway.store.guard import JournalGone, JournalLock, cap_quarantine, spill, take_back
 
 __all__ = [
     "Forwarder",
@@ -310,6 +310,14 @@ class JournalWriter:
         if getattr(stats, "conflicts", 0):
             log.warning("%d re-sent record(s) differ from the stored ones; kept in the "
                         "journal's conflicts table (leakfleet alarms list)", stats.conflicts)
+            for station in sorted(set(stats.conflict_stations)):
+                n = stats.conflict_stations.count(station)
+                metrics.kept_aside(station, "conflict", n)
+                # a status event, journalled with the next batch: the journal says it too
+                self._pending.append(StationStatus(
+                    station, utcnow(), StationState.ONLINE,
+                    f"conflict: {n} re-sent record(s) differ from the stored ones (kept in "
+                    "the conflicts table)"))
         for (station, kind), count in stored.items():
             m = metrics.for_station(station)
             (m.rejected if kind == "rejected" else m.stored[kind]).inc(count)
@@ -619,6 +627,7 @@ class Runtime:
                 )  # fmt: skip
             else:
                 prune_task = None
+            cap_task = tg.create_task(_cap_quarantine_forever(writer), name="quarantine bound")
             alarm_task = tg.create_task(
                 _alarms_forever(cfg.store, [f.name for f in self.forwarders]),
                 name="alarm rules",
@@ -651,6 +660,7 @@ class Runtime:
             if prune_task is not None:
                 prune_task.cancel()
             alarm_task.cancel()
+            cap_task.cancel()
             await writer.close()
             await writer_task
             sink_stop.set()
@@ -682,6 +692,19 @@ async def _prune_forever(writer: JournalWriter, retention_s: float, sinks: list[
             if n:
                 log.info("journal retention: removed %d row(s) older than %s", n,
                          cutoff.isoformat(timespec="seconds"))  # fmt: skip
+        await asyncio.sleep(PRUNE_INTERVAL_S)
+
+
+async def _cap_quarantine_forever(writer: JournalWriter) -> None:
+    """Hourly: keep the quarantine within its bound (its share of the disk), on record."""
+    while True:
+        try:
+            removed = await writer.call(cap_quarantine)
+        except StoreError as exc:
+            log.warning("quarantine bound: not applied, will retry: %s", exc)
+        else:
+            if removed:
+                log.warning("quarantine bound: removed the %d oldest rows", removed)
         await asyncio.sleep(PRUNE_INTERVAL_S)
 
 

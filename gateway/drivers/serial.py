@@ -88,23 +88,25 @@ class LineHandler:
         """One streamed line, or one whole answer, through the profile's parser."""
         first = self.line_no + 1
         self.line_no += len(lines)
-        for i, line in enumerate(lines):
-            if line.overlong:
-                limit = _spec(self.target).max_line
-                return [
-                    self.reject(
-                        self.text(line.data),
+        limit = _spec(self.target).max_line
+        # an overlong line is quarantined on its own; the rest of an answer still counts
+        cut = [
+            self.reject(self.text(line.data),
                         f"line longer than {limit} bytes (cut there, the rest skipped)",
-                        received_at,
-                        first + i,
-                    )
-                ]
+                        received_at, first + i)
+            for i, line in enumerate(lines) if line.overlong
+        ]  # fmt: skip
+        if cut:
+            lines = [line for line in lines if not line.overlong]
+            if not lines:
+                return list(cut)
         texts = [self.text(line.data) for line in lines]
         try:
-            return list(self._parser.parse(texts, first, received_at))
+            return [*cut, *self._parser.parse(texts, first, received_at)]
         except Exception as exc:  # a parser bug must not stop the station; keep the input
             log.exception("%s: parser failed on line %d", self.target.station, first)
-            return [self.reject("\n".join(texts), f"parser error: {exc!r}", received_at, first)]
+            return [*cut, self.reject("\n".join(texts), f"parser error: {exc!r}", received_at,
+                                      first)]
 
 
 async def run_stream_station(

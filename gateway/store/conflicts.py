@@ -47,7 +47,7 @@ _COMPARED = {
 
 
 def find_conflicts(conn: sqlite3.Connection, table: str, columns: Sequence[str],
-                   rows: Sequence[tuple[Any, ...]]) -> int:
+                   rows: Sequence[tuple[Any, ...]], stations: list[str] | None = None) -> int:
     """Compare ``rows`` (``(record_id, *columns)``, just offered to ``table``) with what the
     table holds under the same ids; store every disagreement. Returns how many were found.
     Runs inside the caller's transaction."""
@@ -77,6 +77,8 @@ def find_conflicts(conn: sqlite3.Connection, table: str, columns: Sequence[str],
                  f"re-sent with other values: {shown}", have[-1], row[at["raw"]], new),
             )
             found += cur.rowcount
+            if cur.rowcount and stations is not None:
+                stations.append(str(row[at["station"]]))
     return found
 
 

@@ -25,7 +25,10 @@ from typing import Any
 
 from gateway.errors import ConfigError, LeakfleetError
 
-__all__ = ["JournalGone", "JournalLock", "spill", "spill_path", "take_back"]
+__all__ = [
+    "QUARANTINE_MAX_ROWS", "JournalGone", "JournalLock", "cap_quarantine", "spill", "spill_path",
+    "take_back",
+]
 
 
 class JournalGone(LeakfleetError):
@@ -122,3 +125,33 @@ def take_back(journal: Any, path: Path) -> int:
             fh.write("\n".join(bad) + "\n")
     spilled.unlink()
     return len(records)
+
+
+#: quarantine rows kept at most (the rate limit keeps 100 a minute per station with full text;
+#: this bounds the table's share of the disk over months of a noisy line)
+QUARANTINE_MAX_ROWS = 500_000
+
+
+def cap_quarantine(journal: Any, max_rows: int = QUARANTINE_MAX_ROWS) -> int:
+    """Remove the oldest quarantine rows beyond ``max_rows``; each station whose rows went
+    gets one row saying how many, so the removal is on record. Returns rows removed."""
+    from gateway.records import Rejected
+
+    (count,) = journal._query("SELECT COUNT(*) FROM quarantine", (), "counting quarantine")[0]
+    excess = int(count) - max_rows
+    if excess <= 0:
+        return 0
+    (edge,) = journal._query("SELECT seq FROM quarantine ORDER BY seq LIMIT 1 OFFSET ?",
+                             (excess - 1,), "reading quarantine")[0]
+    per_station = journal._query("SELECT station, profile, COUNT(*) FROM quarantine "
+                                 "WHERE seq <= ? GROUP BY station", (edge,),
+                                 "reading quarantine")
+    journal._execute_write("DELETE FROM quarantine WHERE seq <= ?", (edge,),
+                           "bounding the quarantine")
+    now = datetime.now(UTC)
+    notes = [Rejected(station=st, profile=prof, raw="", received_at=now,
+                      reason=(f"quarantine bound: the {n} oldest unreadable input(s) of this "
+                              f"station removed to keep at most {max_rows} rows"))
+             for st, prof, n in per_station]
+    journal.write(notes)
+    return excess

@@ -83,6 +83,7 @@ class WriteStats:
     quarantined: int = 0
     conflicts: int = 0  # repeats of a stored key with other values (kept in ``conflicts``)
     gaps: int = 0  # ranges of lost cycles recorded (reported by readers, or skipped numbers)
+    conflict_stations: tuple[str, ...] = ()  # the station of each conflict
 
 
 def quarantine_id(item: Rejected) -> str:
@@ -316,14 +317,16 @@ class Journal:
                     inserted += stored_gaps
                     found_gaps += stored_gaps
                 clashes = 0
+                clash_at: list[str] = []
                 if results and new < len(results):  # some were repeats: true ones, or not?
-                    clashes += find_conflicts(conn, "results", RESULT_COLUMNS, results)
+                    clashes += find_conflicts(conn, "results", RESULT_COLUMNS, results,
+                                              clash_at)
                 if calibrations:
                     new_cal = conn.executemany(_INSERT_CALIBRATION, calibrations).rowcount
                     inserted += new_cal
                     if new_cal < len(calibrations):
                         clashes += find_conflicts(conn, "calibrations", CALIBRATION_COLUMNS,
-                                                  calibrations)
+                                                  calibrations, clash_at)
                 if statuses:
                     inserted += conn.executemany(_INSERT_STATUS, statuses).rowcount
                 if rejected:
@@ -338,7 +341,7 @@ class Journal:
                 self._rollback()
                 raise
         return WriteStats(inserted, total - inserted - quarantined - clashes, quarantined,
-                          clashes, found_gaps)
+                          clashes, found_gaps, tuple(clash_at))
 
     def _rollback(self) -> None:
         self._last_cycle.clear()  # it may hold cycles of the batch that is undone

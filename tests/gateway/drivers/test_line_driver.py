@@ -281,3 +281,17 @@ async def test_a_read_error_between_requests_is_a_link_failure() -> None:
                     "mock")  # type: ignore[arg-type]
     with pytest.raises(TransportError, match="read failed"):
         await link.drain_input(0.0)
+
+
+def test_an_overlong_line_inside_an_answer_loses_only_itself() -> None:
+    from datetime import UTC, datetime
+
+    from gateway.drivers.serial import LineHandler
+
+    handler = LineHandler(target())
+    lines = [RawLine(x) for x in kv_answer(7).split(b"\r\n") if x and x != b"END"]
+    lines.insert(3, RawLine(b"NOTE=" + b"x" * 300, overlong=True))
+    items = handler.parse(lines, datetime(2026, 12, 2, 7, tzinfo=UTC))
+    rejected = [i for i in items if isinstance(i, Rejected)]
+    assert len(rejected) == 1 and "line longer than" in rejected[0].reason
+    assert cycles(items) == [7]  # the answer itself is kept
