@@ -18,7 +18,6 @@ import asyncio
 import contextlib
 import logging
 from collections.abc import Sequence
-from dataclasses import dataclass, field
 from datetime import datetime
 from typing import TYPE_CHECKING, Any, Protocol
 
@@ -35,7 +34,11 @@ from gateway.drivers.base import (
     utcnow,
 )
 from gateway.drivers.lines import split_host_port
-from gateway.errors import ProtocolError, TransportError
+from gateway.drivers.modbus_latest import LatestReader
+from gateway.drivers.modbus_outcome import PollOutcome
+from gateway.errors import DecodeError, ProtocolError, TransportError
+from gateway.profiles.model import BlockSpec
+from gateway.profiles.registers import decode_registers
 from gateway.records import (
     CalibrationEvent,
     GapEvent,
@@ -94,18 +97,6 @@ def plan_reads(spans: Sequence[tuple[int, int]]) -> list[tuple[int, int]]:
     return [(a, n) for a, n in out]
 
 
-@dataclass
-class PollOutcome:
-    """What one poll brought: items to journal plus numbers for health and tests."""
-
-    items: list[Item] = field(default_factory=list)
-    state: StationState | None = None
-    counter: int = 0
-    accepted: int = 0
-    torn: int = 0
-    missed: int = 0
-
-
 class RingReader:
     """Consistent reads of one station's result ring and calibration block."""
 
@@ -142,6 +133,8 @@ class RingReader:
         # the station's counter wraps (65535 -> 0, or at 2^32): cycles are handled here as
         # unwrapped integers and turned back into the station's numbers at its registers
         self._mod = 2 ** (16 * int(ring.counter_registers))
+        self._first_contact = False  # reading what the ring held before we knew its counter
+        self._pending: list[Item] = []  # gap records not yet handed out
 
     def _unwrap(self, counter: int) -> int | None:
         """The counter as an unwrapped cycle after ``seen``; None when it went back (reset)."""
@@ -163,7 +156,19 @@ class RingReader:
         return int(ack.address), list(ack.encode(self.seen % self._mod, self.spec.word_order))
 
     # -- the poll ---------------------------------------------------------------------------
+    def drain_pending(self) -> list[Item]:
+        """Gap records noted this poll, handed out even when a later read of the poll failed."""
+        pending, self._pending = self._pending, []
+        return pending
+
     async def poll(self, link: RegisterLink, *, take_results: bool = True) -> PollOutcome:
+        """One consistent read; gap records made on the way travel with it (or, when a read
+        fails, wait in ``drain_pending`` for the caller: a gap is never thrown away)."""
+        out = await self._poll(link, take_results=take_results)
+        out.items[:0] = self.drain_pending()
+        return out
+
+    async def _poll(self, link: RegisterLink, *, take_results: bool = True) -> PollOutcome:
         out = PollOutcome()
         header = await self._read_header(link)
         received_at = utcnow()
@@ -196,10 +201,13 @@ class RingReader:
                     raise
                 log.debug("%s: slot of cycle %d not read (%s); %d read this poll",
                           self.station, cycle % self._mod, exc, len(blocks))
+                out.unread += 1
                 break
         cal_regs: list[int] | None = None
         cal = self.spec.calibration
-        if cal is not None and cc1 > 0 and cc1 != self.cal_seen:
+        if cal is not None and self.cal_seen is None and cc1 == 0:
+            self.cal_seen = 0  # no calibration yet; the one numbered 0 after a wrap is new
+        if cal is not None and cc1 != self.cal_seen:
             cal_regs = await self._read(link, int(cal.address), int(cal.length))
         if not blocks and cal_regs is None:
             return out
@@ -207,7 +215,7 @@ class RingReader:
         try:
             header2 = await self._read_header(link)
         except (ProtocolError, TransportError):
-            if any(isinstance(i, GapEvent) for i in out.items):
+            if any(isinstance(i, GapEvent) for i in self._pending):
                 return out  # the gap found before the failure stays on record
             raise
         c2 = self.spec.decode_counter(self._slice(header2, self._counter_span))
@@ -217,7 +225,7 @@ class RingReader:
                 log.debug("%s: counter moved back during the read (%d -> %d)", self.station,
                           c1, c2)
             else:
-                self._accept_results(blocks, u1, u2, depth, received_at, out)
+                self._accept_results(blocks, cycles, u2, depth, received_at, out)
         if cal_regs is not None and self._cal_counter_span is not None:
             cc2 = self.spec.decode_calibration_counter(
                 self._slice(header2, self._cal_counter_span)
@@ -237,6 +245,7 @@ class RingReader:
             if c1 <= 0:
                 return []
             u1 = c1
+            self._first_contact = True
         elif u1 is None:
             log.warning(
                 "%s: result counter went back from %d to %d (station reset?); rereading its ring",
@@ -245,6 +254,7 @@ class RingReader:
             self.seen = max(0, c1 - depth)
             self._torn.clear()
             u1 = c1
+            self._first_contact = True
         if u1 <= self.seen and not self._resumed:
             return []
         first = max(self.seen + 1, u1 - depth + 1)
@@ -255,6 +265,7 @@ class RingReader:
             # after a restart, read the whole ring once: a cycle torn at the moment the last
             # run stopped is read now, and repeats are ignored by the journal
             self._resumed = False
+            self._first_contact = True  # slots never written since are skipped, not torn
             first = max(1, u1 - depth + 1)
         return list(range(first, u1 + 1))
 
@@ -268,27 +279,41 @@ class RingReader:
         )
         log.warning("%s: %s", self.station, detail)
         state = out.state or StationState.ONLINE  # restate the current state, with the gap
-        out.items.append(StationStatus(station=self.station, at=at, state=state, detail=detail))
+        self._pending.append(
+            StationStatus(station=self.station, at=at, state=state, detail=detail)
+        )
         # the loss itself, on record: the journal keeps it in its gaps table
-        out.items.append(GapEvent(station=self.station, at=at, first=lo, last=hi, source="ring",
+        self._pending.append(GapEvent(station=self.station, at=at, first=lo, last=hi, source="ring",
                                   detail=detail, line=self.context.line))
 
     def _accept_results(
         self,
         blocks: dict[int, list[int]],
-        c1: int,
+        cycles: list[int],
         c2: int,
         depth: int,
         received_at: datetime,
         out: PollOutcome,
     ) -> None:
+        first_contact, self._first_contact = self._first_contact, False
         advance = True
-        for cycle in sorted(blocks):
+        for cycle in sorted(cycles):
+            if cycle not in blocks:  # its read failed: read again next poll, from here on
+                advance = False
+                continue
             if c2 >= cycle + depth:
                 # its slot may have been rewritten while we read: the next poll reports the gap
                 advance = False
+                self._first_contact = first_contact
                 continue
-            decoded = self.spec.decode_result(blocks[cycle], cycle % self._mod, self.context,
+            regs = blocks[cycle]
+            if first_contact and (not any(regs) or self._holds_other_cycle(regs, cycle)):
+                # first contact, restart or reset: a slot never written (all zero) or still
+                # holding an older cycle is nothing to take and nothing lost, not a torn block
+                if advance:
+                    self.seen = cycle
+                continue
+            decoded = self.spec.decode_result(regs, cycle % self._mod, self.context,
                                               received_at)
             if isinstance(decoded, TestResult):
                 out.items.append(decoded)
@@ -308,6 +333,20 @@ class RingReader:
                 out.items.append(decoded)  # consistent but undecodable: bad data, quarantine
             if advance:
                 self.seen = cycle
+
+    def _holds_other_cycle(self, regs: list[int], cycle: int) -> bool:
+        """Both guards agree on a cycle other than ``cycle``: a complete older block."""
+        ring = self.spec.result
+        width = int(ring.counter_registers)
+        try:
+            head, tail = (
+                decode_registers(regs[at : at + width], ring.counter_type,
+                                 word_order=ring.word_order, byte_order=ring.byte_order)
+                for at in (int(ring.head_guard), int(ring.tail_guard))
+            )
+        except DecodeError:
+            return False
+        return head == tail and head != cycle % self._mod
 
     def _accept_calibration(
         self, regs: list[int], cc1: int, cc2: int, received_at: datetime, out: PollOutcome
@@ -450,11 +489,11 @@ class PymodbusLink:
 
         if self._client is None:
             raise LinkLost(f"{self.name}: not connected")
-        call = (
-            self._client.read_input_registers
-            if function == 4
-            else self._client.read_holding_registers
-        )
+        call = {
+            1: self._client.read_coils,
+            2: self._client.read_discrete_inputs,
+            4: self._client.read_input_registers,
+        }.get(function, self._client.read_holding_registers)
         what = f"{self.name} device {device_id} fc{function} {address}+{count}"
         async with self.lock:
             try:
@@ -472,20 +511,33 @@ class PymodbusLink:
         if reply.isError():
             code = int(getattr(reply, "exception_code", 0) or 0)
             raise ExceptionReply(code, what)
+        if function in (1, 2):
+            return [int(b) for b in reply.bits[:count]]
         return list(reply.registers)
 
     async def write(self, address: int, values: list[int], device_id: int) -> None:
-        from pymodbus.exceptions import ModbusException
-
+        """Function 6 for one register (what most stations expect), 16 for more."""
         if self._client is None:
             raise LinkLost(f"{self.name}: not connected")
-        what = f"{self.name} device {device_id} write {address}+{len(values)}"
+        if len(values) == 1:
+            call = self._client.write_register(address, values[0], device_id=device_id)
+        else:
+            call = self._client.write_registers(address, values, device_id=device_id)
+        await self._write(call, f"{self.name} device {device_id} write {address}+{len(values)}")
+
+    async def write_coil(self, address: int, value: bool, device_id: int) -> None:
+        """Function 5: set or clear one coil (a "new result" flag, an acknowledge bit)."""
+        if self._client is None:
+            raise LinkLost(f"{self.name}: not connected")
+        call = self._client.write_coil(address, value, device_id=device_id)
+        await self._write(call, f"{self.name} device {device_id} coil {address}")
+
+    async def _write(self, call: Any, what: str) -> None:
+        from pymodbus.exceptions import ModbusException
+
         async with self.lock:
             try:
-                reply = await within(
-                    self._client.write_registers(address, values, device_id=device_id),
-                    self.timeout + 0.5,
-                )
+                reply = await within(call, self.timeout + 0.5)
             except (ModbusException, TimeoutError) as exc:
                 raise NoAnswer(f"{what}: {exc or 'timeout'}") from exc
         if reply.isError():
@@ -522,11 +574,21 @@ async def run_modbus_bus(
             stopbits=opts.get("stopbits", getattr(spec, "stopbits", 1)),
             name=first.endpoint,
         )
-    readers = {}
+    readers: dict[str, RingReader | LatestReader] = {}
     for t in targets:
         t.health.offline_after = pacing.offline_after
         mspec = t.profile.modbus
         assert mspec is not None
+        if mspec.latest is not None:
+            ring = mspec.result
+            block = BlockSpec(ring.counter_address, ring.counter_type, ring.base, ring.length,
+                              ring.head_guard, ring.tail_guard, ring.fields, ring.word_order,
+                              ring.byte_order)
+            readers[t.station] = LatestReader(
+                t.station, mspec, block, mspec.latest, t.context,
+                resume_cycle=t.resume_cycle, device_id=t.options.get("device_id"),
+            )
+            continue
         readers[t.station] = RingReader(
             t.station,
             t.profile.label,
@@ -564,7 +626,7 @@ async def run_modbus_bus(
 
 
 async def _poll_one(
-    target: StationTarget, reader: RingReader, link: Any, outbox: Outbox
+    target: StationTarget, reader: RingReader | LatestReader, link: Any, outbox: Outbox
 ) -> None:
     health = target.health
     loop = asyncio.get_running_loop()
@@ -572,21 +634,25 @@ async def _poll_one(
     try:
         outcome = await reader.poll(link, take_results=outbox.accepting)
     except ExceptionReply as exc:
+        await _flush(outbox, reader)
         health.count(f"exception_{exc.code:02d}")
         health.error()
         log.debug("%s: %s; retrying next poll", target.station, exc)
         return  # the station is there and will answer again; nothing to report
     except NoAnswer as exc:
+        await _flush(outbox, reader)
         health.count("no_answer")
         # a late answer would land on the next request: start that one on a fresh link
         link.close()
         await _emit(outbox, health.failed(str(exc)))
         return
     except LinkLost as exc:
+        await _flush(outbox, reader)
         link.close()
         await _emit(outbox, health.failed(str(exc)))
         return
     except ProtocolError as exc:
+        await _flush(outbox, reader)
         health.count("protocol_error")
         link.close()
         await _emit(outbox, health.failed(str(exc), state=StationState.FAULT))
@@ -604,6 +670,8 @@ async def _poll_one(
         health.count("torn", outcome.torn)
     if outcome.missed:
         health.count("missed", outcome.missed)
+    if outcome.unread:
+        health.count("slot_unread", outcome.unread)
     items.extend(outcome.items)
     if items:
         await outbox.put(items)
@@ -613,6 +681,13 @@ async def _poll_one(
             await link.write(ack[0], ack[1], reader.device_id)
         except (ExceptionReply, NoAnswer) as exc:
             log.warning("%s: acknowledge failed: %s", target.station, exc)
+
+
+async def _flush(outbox: Outbox, reader: RingReader | LatestReader) -> None:
+    """Hand out the gap records a failed poll noted before it failed."""
+    pending = reader.drain_pending()
+    if pending:
+        await outbox.put(pending)
 
 
 async def _emit(outbox: Outbox, status: Item | None) -> None:

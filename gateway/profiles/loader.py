@@ -21,6 +21,7 @@ from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 
 from gateway.errors import ConfigError, DecodeError, UnitError
 from gateway.profiles.checks import CHECKS
+from gateway.profiles.modbus_schema import apply_latest
 from gateway.profiles.model import (
     CAL_FIELDS,
     RESULT_FIELDS,
@@ -695,6 +696,7 @@ def _check_layout(r: _Reader, path: str, length: int, guards: Sequence[tuple[str
 
 def _modbus(r: _Reader, doc: dict[str, Any], label: str, ref_c: float) -> ModbusSpec:
     m = r.sub(doc, "modbus", "")
+    latest = apply_latest(m, r.fail)  # a last-result block: [modbus.result] gets a 1-slot ring
     r.table(m, "modbus", ("framer", "device_id", "function", "poll_interval_s", "timeout_s",
                           "word_order", "byte_order", "baudrate", "bytesize", "parity",
                           "stopbits", "string_encoding", "state", "result", "calibration",
@@ -768,9 +770,12 @@ def _modbus(r: _Reader, doc: dict[str, Any], label: str, ref_c: float) -> Modbus
     tail = r.integer(rs, "tail_guard", path, lo=0)
     fields = _fields(r, r.sub(rs, "fields", path), f"{path}.fields", "result", registers=True,
                      word_order=rwo, byte_order=rbo)
-    _check_layout(r, path, length, [("head_guard", head, width), ("tail_guard", tail, width)],
-                  fields)
-    regions.append((f"{path}.counter_address", counter_address, width))
+    guards = [("head_guard", head, width)]
+    if latest is None:  # a last-result block has one cycle, standing for both guards
+        guards.append(("tail_guard", tail, width))
+    _check_layout(r, path, length, guards, fields)
+    if latest is None:  # a last-result block's counter lies inside the block
+        regions.append((f"{path}.counter_address", counter_address, width))
     regions.append((f"{path}.base", base, base + stride * (depth - 1) + length - base))
     result = RingSpec(counter_address, counter_type, base, stride, depth, length, head, tail,
                       fields, rwo, rbo)
@@ -827,7 +832,7 @@ def _modbus(r: _Reader, doc: dict[str, Any], label: str, ref_c: float) -> Modbus
         baudrate=r.integer(m, "baudrate", "modbus", 19200, lo=50, hi=4_000_000),
         bytesize=r.integer(m, "bytesize", "modbus", 8, lo=5, hi=8),
         parity=r.string(m, "parity", "modbus", "N", ("N", "E", "O", "M", "S")),
-        stopbits=stopbits, string_encoding=encoding, leak_reference_c=ref_c,
+        stopbits=stopbits, string_encoding=encoding, leak_reference_c=ref_c, latest=latest,
     )
 
 

@@ -18,6 +18,7 @@ from gateway.records import CalibrationEvent, Rejected, StationState, TestResult
 
 if TYPE_CHECKING:
     from gateway.profiles.lines import SerialParser
+    from gateway.profiles.modbus_schema import LatestRule
 
 __all__ = [
     "CAL_FIELDS",
@@ -356,6 +357,7 @@ class ModbusSpec:
     stopbits: float = 1
     string_encoding: str = "ascii"
     leak_reference_c: float = 0.0
+    latest: LatestRule | None = None  # a single last-result block instead of a ring
 
     def decode_counter(self, regs: Sequence[int]) -> int:
         """The result counter from its registers as read (DecodeError if they are not words)."""

@@ -29,8 +29,8 @@ def _fails(path: Path, key: str, expected: str) -> str:
 
 
 def test_builtins_load() -> None:
-    assert builtin_profiles() == ["lf-delim", "lf-kv", "lf-mbinput", "lf-mbrtu", "lf-mbtcp",
-                                  "lf-noclock", "lf-print", "lf-semi"]
+    assert builtin_profiles() == ["lf-delim", "lf-kv", "lf-mbinput", "lf-mblast", "lf-mbnoclk",
+                                  "lf-mbrtu", "lf-mbtcp", "lf-noclock", "lf-print", "lf-semi"]
     for name in builtin_profiles():
         p = load_profile(name)
         # lf-kv 1.1: answers with keys no field maps are rejected (unknown_keys = "reject")
