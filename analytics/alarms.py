@@ -39,6 +39,7 @@ __all__ = [
     "forecast_errors",
     "link_conditions",
     "reject_conditions",
+    "reject_streak",
     "transitions",
 ]
 
@@ -212,6 +213,17 @@ def _drift(station: str, program: str, g: pd.DataFrame, maintenance: Sequence[da
     return out
 
 
+def reject_streak(verdicts: Sequence[str]) -> int:
+    """Rejects (and gross leaks) in a row at the newest end; aborted tests neither break nor
+    extend a streak, since they judged nothing."""
+    streak = 0
+    for v in reversed([v for v in verdicts if v != "aborted"]):
+        if v not in ("reject", "gross"):
+            break
+        streak += 1
+    return streak
+
+
 def reject_conditions(station: str, verdicts: Sequence[str], times: Sequence[datetime],
                       rules: AlarmRules) -> list[Condition]:
     """A streak of rejects, or too many rejects among the newest tests (aborted ones left out).
@@ -222,12 +234,7 @@ def reject_conditions(station: str, verdicts: Sequence[str], times: Sequence[dat
     out: list[Condition] = []
     if not pairs:
         return out
-    streak = 0
-    for v, _ in reversed(pairs):
-        if v in ("reject", "gross"):
-            streak += 1
-        else:
-            break
+    streak = reject_streak([v for v, _ in pairs])
     if streak >= rules.reject_streak:
         since = pairs[len(pairs) - streak][1]
         out.append(Condition(f"reject-streak:{station}", "reject-streak", station, "alarm",

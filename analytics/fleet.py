@@ -24,6 +24,7 @@ from analytics.alarms import (
     calibration_conditions,
     link_conditions,
     reject_conditions,
+    reject_streak,
 )
 
 __all__ = [
@@ -93,17 +94,6 @@ def typical_interval(times: Sequence[datetime] | pd.Series, minimum: int = 3) ->
     if gaps.size == 0:
         return None
     return timedelta(seconds=float(np.median(gaps)))
-
-
-def reject_streak(verdicts: Sequence[str]) -> int:
-    """Rejects (and gross leaks) in a row at the newest end; aborted tests neither break nor
-    extend a streak, since they judged nothing."""
-    streak = 0
-    for v in reversed([v for v in verdicts if v != "aborted"]):
-        if v not in ("reject", "gross"):
-            break
-        streak += 1
-    return streak
 
 
 def station_conditions(

@@ -72,20 +72,27 @@ def fleet_conditions(
     return out
 
 
-def _conflict_counts(store: Any, now: datetime) -> dict[str, int]:
-    """Conflicting re-sends per station over the last day (SQLite journals keep them)."""
-    path = getattr(store, "path", None)
-    if path is None:
-        return {}
+def _journal_rows(store: Any, sql: str, since: datetime) -> list[tuple[Any, ...]]:
+    """Rows of a journal-only table (conflicts, gaps) since ``since``; none for a store that
+    is not a SQLite journal (InfluxDB keeps no such tables)."""
     import sqlite3
 
+    from gateway.store._sqlite import to_us
+
+    path = getattr(store, "path", None)
+    if path is None:
+        return []
     try:
         with sqlite3.connect(f"file:{path}?mode=ro", uri=True) as conn:
-            rows = conn.execute(
-                "SELECT station, COUNT(*) FROM conflicts WHERE detected_at >= ? GROUP BY station",
-                (int((now - timedelta(days=1)).timestamp() * 1e6),)).fetchall()
+            return conn.execute(sql, (to_us(since),)).fetchall()
     except sqlite3.Error:
-        return {}
+        return []
+
+
+def _conflict_counts(store: Any, now: datetime) -> dict[str, int]:
+    """Conflicting re-sends per station over the last day."""
+    rows = _journal_rows(store, "SELECT station, COUNT(*) FROM conflicts WHERE detected_at >= ? "
+                         "GROUP BY station", now - timedelta(days=1))
     return {str(s): int(n) for s, n in rows}
 
 
@@ -118,21 +125,12 @@ def evaluate(journal: Any, store: Any, now: datetime | None = None,
 
 
 def _recent_gaps(store: Any, now: datetime) -> dict[str, list[tuple[int, int, datetime]]]:
-    """Gaps recorded over the last day, per station (SQLite journals keep them)."""
-    path = getattr(store, "path", None)
-    if path is None:
-        return {}
-    import sqlite3
-
+    """Gaps recorded over the last day, per station."""
     from gateway.store._sqlite import from_us
 
-    try:
-        with sqlite3.connect(f"file:{path}?mode=ro", uri=True) as conn:
-            rows = conn.execute("SELECT station, first, last, at FROM gaps WHERE at >= ?",
-                                (int((now - timedelta(days=1)).timestamp() * 1e6),)).fetchall()
-    except sqlite3.Error:
-        return {}
     out: dict[str, list[tuple[int, int, datetime]]] = {}
-    for station, first, last, at in rows:
+    for station, first, last, at in _journal_rows(
+            store, "SELECT station, first, last, at FROM gaps WHERE at >= ?",
+            now - timedelta(days=1)):
         out.setdefault(str(station), []).append((int(first), int(last), from_us(at)))
     return out
