@@ -27,6 +27,9 @@ Layout::
     poll_interval = "1 s"; timeout = "2 s"    # default: the profile's
     timezone = "Europe/Berlin"; programs = { 1 = "HX-210" }
     overrides = { device_id = 7, baudrate = 9600 }
+    parameters = { "HX-210" = { reject_limit = "2 sccm" } }   # what the station does not
+                                        #   send; also top-level [parameters."HX-210"] and "*"
+                                        #   for defaults (gateway.config_params)
 
 Durations are a number of seconds or text with a unit (``"250 ms"``). Endpoints are
 ``tcp://host:port`` (serial device servers, Modbus TCP), a tty path or a pyserial URL
@@ -45,8 +48,10 @@ from pathlib import Path
 from typing import TYPE_CHECKING, Any
 from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 
+from gateway.config_params import parse_parameters, station_parameters
 from gateway.drivers.base import Pacing
 from gateway.errors import ConfigError, UnitError
+from gateway.programs import ProgramParams
 
 if TYPE_CHECKING:
     from gateway.profiles import Profile
@@ -85,6 +90,8 @@ class StationConfig:
     timezone: str
     programs: Mapping[int, str]
     overrides: Mapping[str, Any]
+    # the plant's values for what the station does not send (gateway.config_params)
+    program_params: Mapping[str, ProgramParams] = field(default_factory=dict)
 
 
 @dataclass(frozen=True)
@@ -220,9 +227,9 @@ class _Reader:
 
 
 _TOP = ("site", "gateway_id", "timezone", "store", "profile_dirs", "shifts", "standards",
-        "runtime", "metrics", "sinks", "stations")
+        "runtime", "metrics", "sinks", "parameters", "stations")
 _STATION = ("id", "line", "profile", "endpoint", "poll_interval", "timeout", "timezone",
-            "programs", "overrides")
+            "programs", "overrides", "parameters")
 _RUNTIME = ("batch_size", "max_delay", "queue_size", "max_pending", "reconnect_initial",
             "reconnect_max", "offline_after", "line_gap", "retention")
 
@@ -288,11 +295,13 @@ def parse_config(
     sinks_raw = r.table(doc.get("sinks", {}), "sinks")
     sinks = {name: r.table(t, f"sinks.{name}") for name, t in sinks_raw.items()}
 
+    sheet = parse_parameters(doc.get("parameters", {}), "parameters", r.fail)
+
     raw_stations = doc.get("stations")
     if not isinstance(raw_stations, list) or not raw_stations:
         raise r.fail("stations", "at least one [[stations]] table", raw_stations)
     stations = tuple(
-        _station(r, r.table(s, f"stations[{i}]"), i, timezone, dirs)
+        _station(r, r.table(s, f"stations[{i}]"), i, timezone, dirs, sheet)
         for i, s in enumerate(raw_stations)
     )
     _check_buses(r, stations)
@@ -384,7 +393,8 @@ def _metrics(r: _Reader, t: dict[str, Any]) -> MetricsConfig:
 
 
 def _station(
-    r: _Reader, t: dict[str, Any], i: int, zone: str, dirs: Sequence[Path]
+    r: _Reader, t: dict[str, Any], i: int, zone: str, dirs: Sequence[Path],
+    sheet: Mapping[str, ProgramParams],
 ) -> StationConfig:
     sid = t.get("id")
     clean = isinstance(sid, str) and sid.isprintable()
@@ -443,6 +453,9 @@ def _station(
         timezone=r.zone(r.text(t, "timezone", p, default=zone), p + "timezone"),
         programs=programs,
         overrides=dict(overrides),
+        program_params=station_parameters(
+            sheet, parse_parameters(t.get("parameters", {}), p + "parameters", r.fail)
+        ),
     )
 
 

@@ -433,7 +433,7 @@ def build_targets(config: GatewayConfig, resume: Mapping[str, int]) -> list[Stat
         ctx = StationContext(
             station=st.id, line=st.line, timezone=st.timezone, programs=dict(st.programs),
             # the plant's parameters for values the station does not send
-            program_params=dict(getattr(st, "program_params", None) or {}),
+            program_params=dict(st.program_params),
         )
         targets.append(
             StationTarget(

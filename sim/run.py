@@ -23,7 +23,7 @@ from types import TracebackType
 from typing import Any
 from zoneinfo import ZoneInfo
 
-from sim.scenario import Scenario, Station
+from sim.scenario import STREAM_TYPES, Scenario, Station
 from sim.servers import (
     DelimServer,
     Endpoint,
@@ -32,6 +32,7 @@ from sim.servers import (
     ModbusTcpStationServer,
     StationServer,
 )
+from sim.servers.modbus_more import MbInputServer, MbLastServer, MbNoClockServer
 from sim.station import StationModel, start_time
 from sim.truth import TruthLog
 
@@ -148,16 +149,21 @@ class Plant:
         rng = random.Random(f"{self.scenario.seed}:{station.name}:wire")
         faults = station.faults if self.scenario.faults_enabled else type(station.faults)()
         run_dir = self.scenario.run_dir
-        if station.type == "lf-delim":
+        tz = ZoneInfo(self.scenario.timezone)
+        if station.type in STREAM_TYPES:
             assert station.port is not None
-            return DelimServer(
-                station.name, station.port, ZoneInfo(self.scenario.timezone), self.truth, rng
-            )
+            return DelimServer(station.name, station.port, tz, self.truth, rng, kind=station.type)
         if station.type == "lf-mbtcp":
             assert station.port is not None
             return ModbusTcpStationServer(
                 station.name, station.port, station.device_id, faults, self.truth, rng
             )
+        more = {"lf-mbinput": MbInputServer, "lf-mblast": MbLastServer,
+                "lf-mbnoclk": MbNoClockServer}.get(station.type)
+        if more is not None:
+            assert station.port is not None
+            return more(station.name, station.port, station.device_id, faults, self.truth, rng,
+                        tz)
         link = run_dir / f"{station.tty or station.name}.tty"
         if station.type == "lf-kv":
             return KvServer(station.name, station.serial, link, faults, self.truth, rng)

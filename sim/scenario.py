@@ -24,6 +24,7 @@ from gateway.units import Kind, parse_quantity
 
 __all__ = [
     "STATION_TYPES",
+    "STREAM_TYPES",
     "Faults",
     "LeakStandard",
     "Population",
@@ -35,13 +36,20 @@ __all__ = [
     "loads_scenario",
 ]
 
-StationType = Literal["lf-delim", "lf-kv", "lf-mbtcp", "lf-mbrtu"]
-STATION_TYPES: tuple[str, ...] = ("lf-delim", "lf-kv", "lf-mbtcp", "lf-mbrtu")
-TCP_TYPES = ("lf-delim", "lf-mbtcp")
-LINE_TYPES = ("lf-delim", "lf-kv")
-MODBUS_TYPES = ("lf-mbtcp", "lf-mbrtu")
+StationType = Literal["lf-delim", "lf-kv", "lf-mbtcp", "lf-mbrtu", "lf-semi", "lf-noclock",
+                      "lf-mbinput", "lf-mblast", "lf-mbnoclk"]
+STATION_TYPES: tuple[str, ...] = ("lf-delim", "lf-kv", "lf-mbtcp", "lf-mbrtu", "lf-semi",
+                                  "lf-noclock", "lf-mbinput", "lf-mblast", "lf-mbnoclk")
+#: streaming line stations behind a serial device server: a line goes to whoever listens
+STREAM_TYPES = ("lf-delim", "lf-semi", "lf-noclock")
+TCP_TYPES = (*STREAM_TYPES, "lf-mbtcp", "lf-mbinput", "lf-mblast", "lf-mbnoclk")
+LINE_TYPES = (*STREAM_TYPES, "lf-kv")
+MODBUS_TYPES = ("lf-mbtcp", "lf-mbrtu", "lf-mbinput", "lf-mblast", "lf-mbnoclk")
+#: Modbus types whose records sit in a guarded ring (a torn write is detectable there)
+RING_TYPES = ("lf-mbtcp", "lf-mbrtu", "lf-mbinput")
 # longest part id each type can carry (register string blocks are fixed)
-PART_ID_MAX = {"lf-delim": 32, "lf-kv": 32, "lf-mbtcp": 16, "lf-mbrtu": 8}
+PART_ID_MAX = {"lf-delim": 32, "lf-kv": 32, "lf-mbtcp": 16, "lf-mbrtu": 8, "lf-semi": 32,
+               "lf-noclock": 64, "lf-mbinput": 8, "lf-mblast": 64, "lf-mbnoclk": 64}
 DEFAULT_DEVICE_ID = {"lf-mbtcp": 1, "lf-mbrtu": 7}
 
 
@@ -138,6 +146,7 @@ class Station:
     pause_s: tuple[float, float] = (60.0, 600.0)
     min_cycle_s: float = 20.0  # shortest cycle, result to result (clamp, vent, unload)
     faults: Faults = field(default_factory=Faults)
+    first_cycle: int = 1  # the cycle number of the first result (near a counter's wrap to try it)
 
 
 @dataclass(frozen=True, slots=True)
@@ -608,6 +617,7 @@ def _station(r: _Reader, lines: Mapping[str, str], programs: Mapping[str, Progra
         pause_probability=r.fraction("pause_probability", d.pause_probability),
         pause_s=r.pair("pause", d.pause_s, "time"),
         min_cycle_s=r.quantity("min_cycle", "time", f"{d.min_cycle_s} s"),
+        first_cycle=r.integer("first_cycle", 1, minimum=1),
     )
     if station.device_id > 247:
         raise r.fail("device_id", "a Modbus device id 1..247")
@@ -654,7 +664,9 @@ def _faults(r: _Reader, kind: str) -> Faults:
             "modbus_exception",
             f"modbus_exception/torn only on Modbus stations ({', '.join(MODBUS_TYPES)})",
         )
-    if kind == "lf-delim" and faults.slow_probability:
+    if kind not in RING_TYPES and faults.torn_probability:
+        raise r.fail("torn", f"torn blocks only on ring stations ({', '.join(RING_TYPES)})")
+    if kind in STREAM_TYPES and faults.slow_probability:
         raise r.fail(
             "slow", "slow answers only on stations that answer requests (lf-kv, lf-mbtcp, lf-mbrtu)"
         )

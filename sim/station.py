@@ -167,7 +167,8 @@ class StationModel:
         )
         self.epoch = start.timestamp()
         self.numbers = sorted(station.programs)
-        self.state = _State(t=self.epoch, programs={n: _ProgramState() for n in self.numbers})
+        self.state = _State(t=self.epoch, programs={n: _ProgramState() for n in self.numbers},
+                            cycle=station.first_cycle - 1)
 
     # -- helpers ---------------------------------------------------------------------------
     def _program(self, number: int) -> Program:

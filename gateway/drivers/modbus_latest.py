@@ -115,6 +115,11 @@ class LatestReader:
         received_at = utcnow()
         cycle = self._cycle(regs)
         out.counter = cycle
+        if not any(regs[: self.rule.length]):
+            # a block of zeros was never written (a station just powered up, or one that
+            # clears its block): no record, whatever the detection rule
+            self._candidate = None
+            return out
         if self.rule.detect == "change":
             if regs == self._last_block:
                 self._candidate = None

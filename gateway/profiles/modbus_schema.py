@@ -12,6 +12,10 @@ block is new, and what it must write back, differs by station, so each is stated
 - ``detect = "change"``: nothing but the block itself. A changed block is taken only when two
   consecutive reads agree (the station may be writing it during the first).
 
+Under every rule a block of zeros is no record: it was never written (a station just powered
+up, or one that clears its block after the acknowledge). At first contact the block the
+station holds is taken once, unless its cycle is the newest one already journalled.
+
 A write happens only through ``ack`` entries: never otherwise.
 """
 

@@ -1,4 +1,5 @@
-"""lf-delim: one line per record streamed to every TCP client, as a serial device server does."""
+"""Streaming line stations (lf-delim, lf-semi, lf-noclock): one line per record to every TCP
+client, as a serial device server does. The types differ only in how a record becomes a line."""
 
 from __future__ import annotations
 
@@ -6,13 +7,39 @@ import asyncio
 import contextlib
 import logging
 import random
+from collections.abc import Callable
 from zoneinfo import ZoneInfo
 
-from sim.formats import delim_calibration, delim_result
+from sim.formats import Encoded, delim_calibration, delim_result
+from sim.formats_serial import (
+    noclock_calibration,
+    noclock_result,
+    semi_calibration,
+    semi_result,
+)
 from sim.servers.base import Endpoint, TruthSink, garbage_bytes, truncate
-from sim.station import Activity, SimResult
+from sim.station import Activity, SimCalibration, SimResult
 
-__all__ = ["DelimServer"]
+__all__ = ["STREAM_TYPES", "DelimServer", "encoder_for"]
+
+Encoder = Callable[[SimResult | SimCalibration], Encoded]
+
+
+def encoder_for(kind: str, tz: ZoneInfo) -> Encoder:
+    """How a streaming station of ``kind`` turns a record into a line."""
+    def delim(rec: SimResult | SimCalibration) -> Encoded:
+        return delim_result(rec, tz) if isinstance(rec, SimResult) else delim_calibration(rec, tz)
+
+    def semi(rec: SimResult | SimCalibration) -> Encoded:
+        return semi_result(rec, tz) if isinstance(rec, SimResult) else semi_calibration(rec, tz)
+
+    def noclock(rec: SimResult | SimCalibration) -> Encoded:
+        return noclock_result(rec) if isinstance(rec, SimResult) else noclock_calibration(rec)
+
+    return {"lf-delim": delim, "lf-semi": semi, "lf-noclock": noclock}[kind]
+
+
+STREAM_TYPES = ("lf-delim", "lf-semi", "lf-noclock")
 
 log = logging.getLogger(__name__)
 _EOL = b"\r\n"
@@ -20,17 +47,21 @@ _WRITE_TIMEOUT_S = 2.0
 
 
 class DelimServer:
-    """Streams ``R;``/``C;`` lines; lines sent while nobody listens are lost, as on a real line."""
+    """Streams one line per record; lines sent while nobody listens are lost, as on a real
+    line. ``kind`` picks the line format (lf-delim by default)."""
 
     def __init__(
-        self, station: str, port: int, tz: ZoneInfo, truth: TruthSink, rng: random.Random
+        self, station: str, port: int, tz: ZoneInfo, truth: TruthSink, rng: random.Random,
+        kind: str = "lf-delim",
     ) -> None:
         self.station = station
         self.port = port
         self.tz = tz
         self.truth = truth
         self.rng = rng
-        self.endpoint = Endpoint(station, "lf-delim", "tcp", "127.0.0.1", port)
+        self.kind = kind
+        self._encode = encoder_for(kind, tz)
+        self.endpoint = Endpoint(station, kind, "tcp", "127.0.0.1", port)
         self._server: asyncio.Server | None = None
         self._clients: set[asyncio.StreamWriter] = set()
         self._closed = asyncio.Event()
@@ -38,7 +69,7 @@ class DelimServer:
     async def start(self) -> None:
         self._server = await asyncio.start_server(self._client, "127.0.0.1", self.port)
         self.port = self._server.sockets[0].getsockname()[1]
-        self.endpoint = Endpoint(self.station, "lf-delim", "tcp", "127.0.0.1", self.port)
+        self.endpoint = Endpoint(self.station, self.kind, "tcp", "127.0.0.1", self.port)
 
     async def _client(self, reader: asyncio.StreamReader, writer: asyncio.StreamWriter) -> None:
         self._clients.add(writer)
@@ -61,12 +92,7 @@ class DelimServer:
                 writer.close()
 
     async def publish(self, activity: Activity) -> None:
-        record = activity.record
-        encoded = (
-            delim_result(record, self.tz)
-            if isinstance(record, SimResult)
-            else delim_calibration(record, self.tz)
-        )
+        encoded = self._encode(activity.record)
         line: bytes = encoded.payload
         listeners = len(self._clients)
         if activity.garbage:

@@ -24,7 +24,8 @@ from datetime import UTC, datetime, timedelta
 from pathlib import Path
 from typing import Any
 
-__all__ = ["Report", "compare", "config_for_plant", "expected", "read_journal", "station_types"]
+__all__ = ["NO_CLOCK", "SHEET_TYPES", "Report", "compare", "config_for_plant", "expected",
+           "program_sheet", "read_journal", "station_types"]
 
 _EPOCH = datetime(1970, 1, 1, tzinfo=UTC)
 _TIMES = ("ended_at", "received_at", "at")
@@ -51,7 +52,18 @@ def read_journal(path: Path) -> dict[str, list[dict[str, Any]]]:
     return out
 
 
-def _key(kind: str, station: str, fields: Mapping[str, Any]) -> tuple[Any, ...]:
+#: types with no clock: a record's time is the gateway's, so a result is known by its cycle
+NO_CLOCK = ("lf-noclock", "lf-mbnoclk")
+#: streaming types: a line reaches only the clients connected when it is sent
+STREAMED = ("lf-delim", "lf-semi", "lf-noclock")
+
+
+def _key(kind: str, station: str, fields: Mapping[str, Any], clockless: bool = False,
+         nth: int = 0) -> tuple[Any, ...]:
+    if clockless:
+        if kind == "result":
+            return ("result", station, int(fields["cycle"]))
+        return ("calibration", station, fields["program"], nth)
     ended = fields["ended_at"]
     if isinstance(ended, str):
         ended = datetime.fromisoformat(ended.replace("Z", "+00:00"))
@@ -62,7 +74,9 @@ def _key(kind: str, station: str, fields: Mapping[str, Any]) -> tuple[Any, ...]:
 
 def expected(entry: Mapping[str, Any], station_type: str) -> bool:
     """Could a correct gateway have received this truth entry?"""
-    if station_type == "lf-delim":
+    if entry.get("unread"):
+        return False  # kept where the type's profile does not read (e.g. no calibration block)
+    if station_type in STREAMED:
         # a streamed line reaches only the clients connected at that moment
         return bool(entry.get("listeners")) and entry.get("fault") != "truncated"
     return True
@@ -140,11 +154,26 @@ def compare(
     required = truth if required is None else list(required)
     report = Report()
     rows: dict[tuple[Any, ...], list[dict[str, Any]]] = {}
+    nth: dict[tuple[str, str], int] = {}
+
+    def key_of(kind: str, station: str, fields: Mapping[str, Any]) -> tuple[Any, ...]:
+        clockless = types.get(station) in NO_CLOCK
+        n = 0
+        if clockless and kind == "calibration":
+            n = nth.get((station, fields["program"]), 0)
+            nth[(station, fields["program"])] = n + 1
+        return _key(kind, station, fields, clockless, n)
+
     for kind, table in (("result", "results"), ("calibration", "calibrations")):
         for row in journal.get(table, []):
-            rows.setdefault(_key(kind, row["station"], row), []).append(row)
-    sent = {_key(e["kind"], e["station"], e["reported"])
-            for e in truth if e["kind"] in ("result", "calibration")}
+            rows.setdefault(key_of(kind, row["station"], row), []).append(row)
+    nth.clear()
+    # a clockless calibration is known by its place among those the gateway could hear
+    keys = {id(e): key_of(e["kind"], e["station"], e["reported"]) for e in truth
+            if e["kind"] in ("result", "calibration") and not e.get("unread")
+            and (types.get(e["station"]) not in NO_CLOCK
+                 or expected(e, types.get(e["station"], "")))}
+    sent = set(keys.values())
 
     for e in required:
         if e["kind"] not in ("result", "calibration"):
@@ -152,7 +181,7 @@ def compare(
         if not expected(e, types.get(e["station"], "")):
             continue
         report.expected += 1
-        found = rows.get(_key(e["kind"], e["station"], e["reported"]), [])
+        found = rows.get(keys[id(e)], [])
         if not found:
             report.missing.append(dict(e))
             continue
@@ -177,7 +206,7 @@ def compare(
         hit = [i for i, q in enumerate(quarantine)
                if q["station"] == g["station"] and text in q["raw"].replace("\r\n", "\n")]
         explained.update(hit)
-        if types.get(g["station"]) == "lf-delim" and not g.get("listeners"):
+        if types.get(g["station"]) in STREAMED and not g.get("listeners"):
             continue  # nobody could have heard it
         if id(g) not in must:
             continue
@@ -200,8 +229,24 @@ def _as_time(key: str, value: Any) -> Any:
     return value
 
 
-_PROFILE_FOR_TYPE = {"lf-delim": "lf-delim", "lf-kv": "lf-kv", "lf-mbtcp": "lf-mbtcp",
-                     "lf-mbrtu": "lf-mbrtu"}
+_PROFILE_FOR_TYPE = {t: t for t in ("lf-delim", "lf-kv", "lf-mbtcp", "lf-mbrtu", "lf-semi",
+                                     "lf-noclock", "lf-mbinput", "lf-mblast", "lf-mbnoclk")}
+#: types that send a program number (the station's programs table names it)
+_NUMBERED = ("lf-mbtcp", "lf-mbrtu", "lf-semi", "lf-mbinput", "lf-mblast", "lf-mbnoclk")
+#: types that send no reject limit or times: the plant's program sheet supplies them
+SHEET_TYPES = ("lf-semi", "lf-noclock")
+
+
+def program_sheet(scenario: Any) -> str:
+    """``[parameters."<program>"]`` tables with the scenario's program values."""
+    out = []
+    for name, p in scenario.programs.items():
+        out += [f'[parameters."{name}"]', f'reject_limit = "{p.reject_limit_sccm!r} sccm"']
+        if p.lower_limit_sccm is not None:
+            out.append(f'lower_limit = "{p.lower_limit_sccm!r} sccm"')
+        out += [f'fill = "{p.fill_s!r} s"', f'stabilise = "{p.stabilise_s!r} s"',
+                f'test = "{p.test_s!r} s"', ""]
+    return "\n".join(out)
 
 
 def config_for_plant(
@@ -220,6 +265,8 @@ def config_for_plant(
         f'site = "{sc.site}"', 'gateway_id = "test-gw"', f'timezone = "{sc.timezone}"',
         f'store = "{store}"', "", "[runtime]", runtime, "",
     ]
+    if any(st.type in SHEET_TYPES for st in sc.stations):
+        lines.append(program_sheet(sc))
     for st in sc.stations:
         ep = plant.endpoints[st.name]
         endpoint = f"tcp://{ep.host}:{ep.port}" if ep.transport == "tcp" else str(ep.path)
@@ -227,12 +274,13 @@ def config_for_plant(
             "[[stations]]", f'id = "{st.name}"', f'line = "{st.line}"',
             f'profile = "{_PROFILE_FOR_TYPE[st.type]}"', f'endpoint = "{endpoint}"',
         ]
-        if st.type != "lf-delim":
+        if st.type not in STREAMED:
             lines.append(f'timeout = "{timeout}"')
             lines.append(f'poll_interval = "{poll.get(st.type, "0.05 s")}"')
-        if st.type in ("lf-mbtcp", "lf-mbrtu"):
+        if st.type in _NUMBERED:
             progs = ", ".join(f'{n} = "{name}"' for n, name in st.programs.items())
             lines.append(f"programs = {{ {progs} }}")
+        if st.type in ("lf-mbtcp", "lf-mbrtu"):
             lines.append(f"overrides = {{ device_id = {st.device_id} }}")
         lines.append("")
     return "\n".join(lines)

@@ -61,6 +61,20 @@ async def test_change_needs_two_equal_reads_and_a_half_written_block_is_not_take
     assert got == [4, 5]  # each once; the half-written image never became a record
 
 
+async def test_a_block_never_written_is_no_record() -> None:
+    # first contact with a station just powered up: its block is all zeros until the first
+    # result; two equal reads of it must not make a record of cycle 0
+    link = Link([[0] * 30, [0] * 30, [0] * 30, slot(1), slot(1), slot(1)])
+    r = reader(LatestRule(detect="change", address=0, length=30, cycle_at=0,
+                          cycle_type="uint32"))
+    got: list[int] = []
+    for _ in range(6):
+        out = await r.poll(link)
+        got += cycles(out.items)
+        assert not [i for i in out.items if not isinstance(i, TestResult)]
+    assert got == [1]
+
+
 async def test_counter_ack_that_fails_is_retried_and_the_record_kept() -> None:
     link = Link([slot(9)])
     link.refuse_writes = 1
