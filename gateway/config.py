@@ -67,14 +67,16 @@ __all__ = [
 ]
 
 DEFAULT_STORE = "sqlite:///./leakfleet.db"
-SHIPPED = ("demo",)
-_OVERRIDES = {"device_id": int, "baudrate": int, "bytesize": int, "parity": str, "stopbits": float}
+SHIPPED = ("demo", "annex")
+_OVERRIDES = {"device_id": int, "baudrate": int, "bytesize": int, "parity": str, "stopbits": float,
+              "address": int}
 _OVERRIDE_RANGES: dict[str, tuple[Any, str]] = {
     "device_id": (lambda v: 0 <= v <= 255, "a Modbus device id from 0 to 255 (247 on RS-485)"),
     "baudrate": (lambda v: 50 <= v <= 4_000_000, "a baud rate from 50 to 4000000"),
     "bytesize": (lambda v: 5 <= v <= 8, "5, 6, 7 or 8 data bits"),
     "parity": (lambda v: v in ("N", "E", "O", "M", "S"), "N, E, O, M or S"),
     "stopbits": (lambda v: v in (1, 1.5, 2), "1, 1.5 or 2 stop bits"),
+    "address": (lambda v: 0 <= v <= 255, "a station address on its serial line from 0 to 255"),
 }
 
 
@@ -442,6 +444,11 @@ def _station(
         if not allowed(v):
             raise r.fail(f"{p}overrides.{k}", what, v)
 
+    serial = profile.serial
+    if (serial is not None and any(req.addressed for req in serial.requests)
+            and "address" not in overrides):
+        raise r.fail(f"{p}overrides.address", f"the station's address (profile {profile.label} "
+                     "asks each station by its address), e.g. overrides = { address = 1 }")
     return StationConfig(
         id=sid,
         line=line,
@@ -485,6 +492,39 @@ def _check_endpoint(r: _Reader, endpoint: str, key: str, profile: Profile) -> No
             raise r.fail(key, "tcp://host:port or a tty path for a Modbus RTU station", endpoint)
 
 
+def _addressed(st: StationConfig) -> bool:
+    spec = st.profile.serial
+    return (spec is not None and spec.mode == "request"
+            and all(req.addressed for req in spec.requests))
+
+
+def _check_serial_bus(r: _Reader, endpoint: str, group: Sequence[StationConfig]) -> None:
+    """Serial stations share a line only when every query names an address (RS-485 style),
+    each station has its own address and all use the same line settings."""
+    names = ", ".join(s.id for s in group)
+    lone = next((s for s in group if not _addressed(s)), None)
+    if lone is not None:
+        raise r.fail(
+            f"stations[{lone.id}].endpoint",
+            f"an endpoint of its own (a serial station whose queries name no {{address}} "
+            f"cannot share {endpoint} with {names})",
+        )
+    addresses = [s.overrides.get("address") for s in group]
+    if len(set(addresses)) != len(addresses):
+        raise r.fail(f"stations[{group[1].id}].overrides.address",
+                     f"distinct station addresses on the shared line {endpoint} ({names})",
+                     addresses)
+    settings = set()
+    for s in group:
+        spec = s.profile.serial
+        assert spec is not None
+        settings.add(tuple(s.overrides.get(k, getattr(spec, k))
+                           for k in ("baudrate", "bytesize", "parity", "stopbits")))
+    if len(settings) > 1:
+        raise r.fail(f"stations[{group[1].id}].profile",
+                     f"the same baud rate, data bits, parity and stop bits on {endpoint}")
+
+
 def _check_buses(r: _Reader, stations: Sequence[StationConfig]) -> None:
     seen: dict[str, StationConfig] = {}
     on_bus: dict[str, list[StationConfig]] = {}
@@ -498,10 +538,8 @@ def _check_buses(r: _Reader, stations: Sequence[StationConfig]) -> None:
             continue
         names = ", ".join(s.id for s in group)
         if any(s.profile.modbus is None for s in group):
-            raise r.fail(
-                f"stations[{group[1].id}].endpoint",
-                f"an endpoint of its own (a serial station cannot share {endpoint} with {names})",
-            )
+            _check_serial_bus(r, endpoint, group)
+            continue
         specs = [s.profile.modbus for s in group if s.profile.modbus is not None]
         ids = [s.overrides.get("device_id", m.device_id) for s, m in zip(group, specs, strict=True)]
         if len(set(ids)) != len(ids):

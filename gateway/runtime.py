@@ -434,6 +434,7 @@ def build_targets(config: GatewayConfig, resume: Mapping[str, int]) -> list[Stat
             station=st.id, line=st.line, timezone=st.timezone, programs=dict(st.programs),
             # the plant's parameters for values the station does not send
             program_params=dict(st.program_params),
+            address=st.overrides.get("address"),
         )
         targets.append(
             StationTarget(
@@ -522,7 +523,7 @@ def _bus_runner(
     stations: list[StationTarget], outbox: Outbox, pacing: Pacing, phase: float = 0.0
 ) -> Callable[[], Awaitable[None]]:
     from gateway.drivers.modbus import run_modbus_bus
-    from gateway.drivers.serial import run_request_station, run_stream_station
+    from gateway.drivers.serial import run_request_bus, run_stream_station
 
     first = stations[0]
     if first.profile.transport == "modbus":
@@ -531,8 +532,8 @@ def _bus_runner(
     if first.profile.serial.mode == "stream":
         return lambda: run_stream_station(first, outbox, pacing)
 
-    # config validation allows one serial station per line (profiles carry no addresses)
-    return lambda: run_request_station(first, outbox, pacing)
+    # several stations share a line only when their queries name addresses (config checks)
+    return lambda: run_request_bus(stations, outbox, pacing)
 
 
 async def _supervise(

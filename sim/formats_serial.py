@@ -23,6 +23,9 @@ __all__ = [
     "semi_calibration",
     "semi_result",
     "semi_text",
+    "ticket_calibration",
+    "ticket_frame",
+    "ticket_result",
 ]
 
 # ---- lf-semi ------------------------------------------------------------------------------
@@ -153,3 +156,81 @@ def noclock_calibration(c: SimCalibration) -> Encoded:
     }
     resolution = {"master_loss_pa": 0.1, "standard_loss_pa": 0.1, "standard_sccm": 0.01}
     return Encoded(_crc_line(payload), reported, resolution)
+
+
+# ---- lf-ticket ----------------------------------------------------------------------------
+STX, ETX, NAK = "\x02", "\x03", "\x15"
+TICKET_VERDICT = {Verdict.PASS: "PASS", Verdict.REJECT: "FAIL", Verdict.GROSS: "GROSS",
+                  Verdict.ABORTED: "ABORT"}
+
+
+def ticket_frame(lines: list[str]) -> bytes:
+    """STX, the lines, ETX and the XOR of every byte after STX up to ETX as two hex digits.
+
+    The XOR block check is what ``gateway.profiles.checks.xor8`` names; the sim computes it
+    with ``functools.reduce`` over the same bytes the way the frame is written on the wire.
+    """
+    body = "\r\n".join(lines) + "\r\n" + ETX
+    bcc = 0
+    for byte in body.encode("ascii"):
+        bcc ^= byte
+    return (STX + body + f"{bcc:02X}\r\n").encode("ascii")
+
+
+def _ticket_time(t: datetime, tz: ZoneInfo) -> tuple[list[str], datetime]:
+    local = _seconds(t).astimezone(tz)
+    return [f"DATE {local:%d/%m/%y}", f"TIME {local:%H:%M:%S}"], local
+
+
+def ticket_result(r: SimResult, tz: ZoneInfo, address: int) -> Encoded:
+    """A test ticket: address, kind, number, date and time (day first, local), program, part,
+    test pressure (bar), loss (Pa), leak and reject limit (sccm), result; ``----`` for a
+    reading the test does not have."""
+    stamp, local = _ticket_time(r.station_time, tz)
+    measured = r.verdict in (Verdict.PASS, Verdict.REJECT)
+    bar = from_canonical(r.test_pressure_pa, "bar", "pressure")
+    lines = [
+        f"ADR {address:02d}", "KIND TEST", f"NO {r.cycle:06d}", *stamp, f"PROG {r.program}",
+        f"PART {r.part_id or '----'}",
+        f"PRESS {_fixed(bar, 3)}",
+        f"LOSS {_fixed(r.pressure_loss_pa, 1) if measured else '----'}",
+        f"LEAK {_fixed(r.leak_rate_sccm, 3) if measured else '----'}",
+        f"LIMIT {_fixed(r.reject_limit_sccm, 3)}",
+        f"RESULT {TICKET_VERDICT[r.verdict]}",
+    ]
+    reported = {
+        "cycle": r.cycle,
+        "ended_at": _iso(local),
+        "program": r.program,
+        "part_id": r.part_id or None,
+        "verdict": r.verdict.value,
+        "test_pressure_pa": to_canonical(float(_fixed(bar, 3)), "bar", "pressure"),
+        "pressure_loss_pa": float(_fixed(r.pressure_loss_pa, 1)) if measured else None,
+        "leak_rate_sccm": float(_fixed(r.leak_rate_sccm, 3)) if measured else None,
+        "reject_limit_sccm": float(_fixed(r.reject_limit_sccm, 3)),
+    }
+    resolution = {"ended_at": 1.0, "test_pressure_pa": 100.0, "pressure_loss_pa": 0.1,
+                  "leak_rate_sccm": 0.001, "reject_limit_sccm": 0.001}
+    return Encoded(ticket_frame(lines), reported, resolution)
+
+
+def ticket_calibration(c: SimCalibration, tz: ZoneInfo, address: int) -> Encoded:
+    """A calibration ticket: master and standard loss (Pa), the standard's nominal flow (sccm)
+    and the station's judgement."""
+    stamp, local = _ticket_time(c.station_time, tz)
+    lines = [
+        f"ADR {address:02d}", "KIND CAL", *stamp, f"PROG {c.program}",
+        f"MASTER {_fixed(c.master_loss_pa, 1)}", f"STD {_fixed(c.standard_loss_pa, 1)}",
+        f"NOMINAL {_fixed(c.standard_sccm, 3)}", f"RESULT {'OK' if c.passed else 'FAIL'}",
+    ]
+    reported = {
+        "ended_at": _iso(local),
+        "program": c.program,
+        "master_loss_pa": float(_fixed(c.master_loss_pa, 1)),
+        "standard_loss_pa": float(_fixed(c.standard_loss_pa, 1)),
+        "standard_sccm": float(_fixed(c.standard_sccm, 3)),
+        "passed": c.passed,
+    }
+    resolution = {"ended_at": 1.0, "master_loss_pa": 0.1, "standard_loss_pa": 0.1,
+                  "standard_sccm": 0.001}
+    return Encoded(ticket_frame(lines), reported, resolution)

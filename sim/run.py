@@ -33,6 +33,7 @@ from sim.servers import (
     StationServer,
 )
 from sim.servers.modbus_more import MbInputServer, MbLastServer, MbNoClockServer
+from sim.servers.ticket import TicketLine, TicketStation
 from sim.station import StationModel, start_time
 from sim.truth import TruthLog
 
@@ -86,6 +87,7 @@ class Plant:
         self.endpoints: dict[str, Endpoint] = {}
         self.models: dict[str, StationModel] = {}
         self._servers: dict[str, StationServer] = {}
+        self._lines: dict[str, TicketLine] = {}  # shared lines of addressed stations
         self._stack = contextlib.AsyncExitStack()
         self._tasks: list[asyncio.Task[None]] = []
         self.clock: SimClock | None = None
@@ -158,6 +160,13 @@ class Plant:
             return ModbusTcpStationServer(
                 station.name, station.port, station.device_id, faults, self.truth, rng
             )
+        if station.type == "lf-ticket":
+            assert station.port is not None and station.bus is not None
+            line = self._lines.get(station.bus)
+            if line is None:
+                line = self._lines[station.bus] = TicketLine(station.bus, station.port,
+                                                             self.truth, rng)
+            return TicketStation(station.name, line, station.address, tz)
         more = {"lf-mbinput": MbInputServer, "lf-mblast": MbLastServer,
                 "lf-mbnoclk": MbNoClockServer}.get(station.type)
         if more is not None:

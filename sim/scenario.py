@@ -37,19 +37,23 @@ __all__ = [
 ]
 
 StationType = Literal["lf-delim", "lf-kv", "lf-mbtcp", "lf-mbrtu", "lf-semi", "lf-noclock",
-                      "lf-mbinput", "lf-mblast", "lf-mbnoclk"]
+                      "lf-mbinput", "lf-mblast", "lf-mbnoclk", "lf-ticket"]
 STATION_TYPES: tuple[str, ...] = ("lf-delim", "lf-kv", "lf-mbtcp", "lf-mbrtu", "lf-semi",
-                                  "lf-noclock", "lf-mbinput", "lf-mblast", "lf-mbnoclk")
+                                  "lf-noclock", "lf-mbinput", "lf-mblast", "lf-mbnoclk",
+                                  "lf-ticket")
 #: streaming line stations behind a serial device server: a line goes to whoever listens
 STREAM_TYPES = ("lf-delim", "lf-semi", "lf-noclock")
-TCP_TYPES = (*STREAM_TYPES, "lf-mbtcp", "lf-mbinput", "lf-mblast", "lf-mbnoclk")
-LINE_TYPES = (*STREAM_TYPES, "lf-kv")
+TCP_TYPES = (*STREAM_TYPES, "lf-mbtcp", "lf-mbinput", "lf-mblast", "lf-mbnoclk", "lf-ticket")
+LINE_TYPES = (*STREAM_TYPES, "lf-kv", "lf-ticket")
+#: types whose stations share one line, each answering to its own address
+BUS_TYPES = ("lf-ticket",)
 MODBUS_TYPES = ("lf-mbtcp", "lf-mbrtu", "lf-mbinput", "lf-mblast", "lf-mbnoclk")
 #: Modbus types whose records sit in a guarded ring (a torn write is detectable there)
 RING_TYPES = ("lf-mbtcp", "lf-mbrtu", "lf-mbinput")
 # longest part id each type can carry (register string blocks are fixed)
 PART_ID_MAX = {"lf-delim": 32, "lf-kv": 32, "lf-mbtcp": 16, "lf-mbrtu": 8, "lf-semi": 32,
-               "lf-noclock": 64, "lf-mbinput": 8, "lf-mblast": 64, "lf-mbnoclk": 64}
+               "lf-noclock": 64, "lf-mbinput": 8, "lf-mblast": 64, "lf-mbnoclk": 64,
+               "lf-ticket": 32}
 DEFAULT_DEVICE_ID = {"lf-mbtcp": 1, "lf-mbrtu": 7}
 
 
@@ -147,6 +151,8 @@ class Station:
     min_cycle_s: float = 20.0  # shortest cycle, result to result (clamp, vent, unload)
     faults: Faults = field(default_factory=Faults)
     first_cycle: int = 1  # the cycle number of the first result (near a counter's wrap to try it)
+    bus: str | None = None  # addressed types: the shared line's name (stations on it share a port)
+    address: int = 1  # addressed types: the station's address on its line
 
 
 @dataclass(frozen=True, slots=True)
@@ -438,23 +444,29 @@ def _build(data: dict[str, Any], source: str) -> Scenario:
         raise ConfigError(f"{source}: key 'stations': expected an array of [[stations]] tables")
     stations: list[Station] = []
     seen_endpoints: set[object] = set()
+    buses: dict[str, Station] = {}  # the first station of each shared line
     for index, raw in enumerate(stations_raw):
         reader = _Reader(source, raw, f"stations[{index}]")
         station = _station(reader, lines, programs)
         if station.name in {s.name for s in stations}:
             raise reader.fail("name", "a station name used only once")
         endpoint = ("port", station.port) if station.port else ("tty", station.tty)
+        if station.bus is not None and station.bus in buses:
+            first = buses[station.bus]
+            if station.port != first.port or station.type != first.type:
+                raise reader.fail("port", f"port {first.port} and type {first.type}, as "
+                                  f"{first.name} on line {station.bus!r}")
+            if any(s.bus == station.bus and s.address == station.address for s in stations):
+                raise reader.fail("address", f"an address of its own on line {station.bus!r}")
+            stations.append(_with_faults(source, faults_tables, station))
+            continue
+        if station.bus is not None:
+            buses[station.bus] = station
         if station.port != 0 and endpoint in seen_endpoints:
             which = reader.key("port" if station.port else "tty")
             raise ConfigError(f"{source}: key '{which}': used by two stations")
         seen_endpoints.add(endpoint)
-        if faults_tables.has(station.name):
-            faults = _faults(
-                _Reader(source, faults_tables.raw(station.name), f"faults.{station.name}"),
-                station.type,
-            )
-            station = dataclasses.replace(station, faults=faults)
-        stations.append(station)
+        stations.append(_with_faults(source, faults_tables, station))
     for name in faults_tables.table:
         if name not in {s.name for s in stations}:
             raise ConfigError(f"{source}: key 'faults.{name}': no station of that name")
@@ -555,6 +567,14 @@ def _program(name: str, r: _Reader, populations: Mapping[str, Population]) -> Pr
     return program
 
 
+def _with_faults(source: str, tables: _Reader, station: Station) -> Station:
+    if not tables.has(station.name):
+        return station
+    faults = _faults(_Reader(source, tables.raw(station.name), f"faults.{station.name}"),
+                     station.type)
+    return dataclasses.replace(station, faults=faults)
+
+
 def _station(r: _Reader, lines: Mapping[str, str], programs: Mapping[str, Program]) -> Station:
     name = r.text("name")
     line = r.text("line")
@@ -618,7 +638,11 @@ def _station(r: _Reader, lines: Mapping[str, str], programs: Mapping[str, Progra
         pause_s=r.pair("pause", d.pause_s, "time"),
         min_cycle_s=r.quantity("min_cycle", "time", f"{d.min_cycle_s} s"),
         first_cycle=r.integer("first_cycle", 1, minimum=1),
+        bus=r.text("bus", name) if kind in BUS_TYPES else None,
+        address=r.integer("address", 1, minimum=0) if kind in BUS_TYPES else 1,
     )
+    if station.address > 99:
+        raise r.fail("address", "a station address 0..99 (two digits on the line)")
     if station.device_id > 247:
         raise r.fail("device_id", "a Modbus device id 1..247")
     r.done()
@@ -666,7 +690,7 @@ def _faults(r: _Reader, kind: str) -> Faults:
         )
     if kind not in RING_TYPES and faults.torn_probability:
         raise r.fail("torn", f"torn blocks only on ring stations ({', '.join(RING_TYPES)})")
-    if kind in STREAM_TYPES and faults.slow_probability:
+    if kind in (*STREAM_TYPES, *BUS_TYPES) and faults.slow_probability:
         raise r.fail(
             "slow", "slow answers only on stations that answer requests (lf-kv, lf-mbtcp, lf-mbrtu)"
         )

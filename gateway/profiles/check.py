@@ -46,6 +46,9 @@ def check_text(profile: Profile, data: bytes, ctx: StationContext, received_at: 
     parser = spec.parser(ctx)
     lines = _split_lines(data, spec.terminator)
     out: list[Entry] = []
+    if spec.frame is not None:
+        return _frames(parser, lines, spec.frame.start.encode("latin-1"),
+                       spec.frame.end.encode("latin-1"), received_at)
     if spec.mode == "stream":
         for i, line in enumerate(lines, start=1):
             out += [Entry(i, f"line {i}", item) for item in parser.parse([line], i, received_at)]
@@ -67,6 +70,31 @@ def check_text(profile: Profile, data: bytes, ctx: StationContext, received_at: 
             answer = []
     if answer:
         out += _answer(parser, answer, start, received_at, unterminated=request.end_line)
+    return out
+
+
+def _frames(parser: Any, lines: list[bytes], stx: bytes, etx: bytes, received_at: datetime
+            ) -> list[Entry]:
+    """Framed records (either mode): from a line starting with the start byte to the line
+    holding the end byte; a line outside a frame (an empty marker, noise) goes alone."""
+    out: list[Entry] = []
+    frame: list[bytes] = []
+    start = 0
+    for i, line in enumerate(lines, start=1):
+        if line.startswith(stx):
+            if frame:  # a frame cut short by the next one
+                out += _answer(parser, frame, start, received_at)
+            frame, start = [], i
+        if not frame and not line.startswith(stx):
+            if line.strip():
+                out += _answer(parser, [line], i, received_at)
+            continue
+        frame.append(line)
+        if etx in line:
+            out += _answer(parser, frame, start, received_at)
+            frame = []
+    if frame:
+        out += _answer(parser, frame, start, received_at)
     return out
 
 

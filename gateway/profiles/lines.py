@@ -239,6 +239,7 @@ class SerialParser:
         self._plans = tuple(_Plan(k, ctx, spec.leak_reference_c) for k in spec.dialect.kinds)
         self._empty = frozenset(r.empty for r in spec.requests if r.empty is not None)
         self._block = spec.dialect.kind == "keyvalue" and spec.dialect.pair_separator is None
+        self._frame = spec.frame
 
     def _decode(self, item: str | bytes) -> str:
         if isinstance(item, str):
@@ -307,6 +308,8 @@ class SerialParser:
         lines = list(lines)
         if not lines:
             return []
+        if self._frame is not None:
+            return self._parse_frame(lines, first_line_no, received_at)
         if self._block:
             return self._parse_block(lines, first_line_no, received_at)
         out: list[Parsed] = []
@@ -364,9 +367,10 @@ class SerialParser:
         except FieldError as exc:
             return [reject(self.ctx, self.label, raw, str(exc), received_at, line_no)]
 
-    def _parse_block(self, lines: list[str | bytes], first: int,
-                     received_at: datetime) -> list[Parsed]:
-        raw = "\n".join(self._raw_of(x) for x in lines)
+    def _parse_block(self, lines: Sequence[str | bytes], first: int,
+                     received_at: datetime, raw: str | None = None) -> list[Parsed]:
+        if raw is None:
+            raw = "\n".join(self._raw_of(x) for x in lines)
         try:
             texts = []
             for i, item in enumerate(lines):
@@ -381,8 +385,33 @@ class SerialParser:
         except FieldError as exc:
             return [reject(self.ctx, self.label, raw, str(exc), received_at, first)]
 
+    def _parse_frame(self, lines: list[str | bytes], first: int,
+                     received_at: datetime) -> list[Parsed]:
+        """A framed record: check start, end and block check, then parse the lines inside."""
+        raw = "\n".join(self._raw_of(x) for x in lines)
+        try:
+            texts = [self._decode(x) for x in lines]
+            if len(texts) == 1 and self._is_empty_marker(texts[0]):
+                return []
+            inner = unframe(texts, self.spec)
+            return self._parse_block(inner, first, received_at, raw=raw)
+        except FieldError as exc:
+            return [reject(self.ctx, self.label, raw, str(exc), received_at, first)]
+
+    def _address_check(self, pairs: dict[str, str]) -> None:
+        key, want = self.spec.address_field, self.ctx.address
+        if key is None:
+            return
+        got = pairs.pop(key, None)
+        if got is None:
+            raise FieldError(f"no {key} (the station address) in the answer")
+        if want is not None and (not got.strip().isdigit() or int(got) != want):
+            raise FieldError(f"answer from station address {got.strip()!r}, this station is "
+                             f"{want}: not taken (another station on the line answered)")
+
     def _from_raw(self, pairs: dict[str, str], raw: str, line_no: int,
                   received_at: datetime) -> Parsed:
+        self._address_check(pairs)
         for plan in self._plans:
             kind = plan.kind
             if kind.when is None or kind.when.holds(pairs):
@@ -406,3 +435,43 @@ class SerialParser:
             elif kind.pattern is not None:
                 wants.append(f"the {kind.record} pattern")
         return "matches no line kind; expected " + " or ".join(wants)
+
+
+def unframe(texts: Sequence[str], spec: SerialSpec) -> list[str]:
+    """The lines inside a frame, once its start and end bytes and its block check are right.
+
+    ``texts`` are the frame's lines without their terminators, as received. The check covers
+    every byte after the start byte up to and including the end byte, line ends included
+    (rebuilt with the profile's terminator), and is written as hex digits after the end byte.
+    """
+    frame = spec.frame
+    assert frame is not None
+    if not texts or not texts[0].startswith(frame.start):
+        raise FieldError(f"frame: the first line does not start with {_show(frame.start)}")
+    last = texts[-1]
+    cut = last.find(frame.end)
+    if cut < 0:
+        raise FieldError(f"frame: no {_show(frame.end)} (end of frame) in the last line")
+    if len(texts) > frame.max_lines:
+        raise FieldError(f"frame: {len(texts)} lines, max_lines is {frame.max_lines}")
+    eol = spec.terminator.decode("latin-1")
+    body = [texts[0][1:], *texts[1:-1], last[:cut]]
+    if frame.check is not None:
+        fn, digits = CHECKS[frame.check]
+        value = last[cut + 1:].strip()
+        covered = (eol.join(body) + frame.end).encode(spec.encoding, "replace")
+        if len(value) != digits or not all(c in "0123456789abcdefABCDEF" for c in value):
+            raise FieldError(f"block check ({frame.check}): {value[:8]!r} after "
+                             f"{_show(frame.end)} is not {digits} hex digits")
+        computed = fn(covered)
+        if int(value, 16) != computed:
+            raise FieldError(f"block check ({frame.check}): the frame says {value.upper()}, "
+                             f"its bytes give {computed:0{digits}X}")
+    elif last[cut + 1:].strip():
+        raise FieldError(f"frame: text after {_show(frame.end)} and no check configured")
+    return [line for line in body if line.strip()]
+
+
+def _show(char: str) -> str:
+    names = {"\x02": "STX", "\x03": "ETX", "\x01": "SOH", "\x04": "EOT", "\x17": "ETB"}
+    return names.get(char, repr(char))

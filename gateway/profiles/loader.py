@@ -31,6 +31,7 @@ from gateway.profiles.model import (
     Dialect,
     FieldSpec,
     FixedColumn,
+    FrameSpec,
     LineCheck,
     LineKind,
     ModbusSpec,
@@ -581,7 +582,10 @@ def _line_kind(r: _Reader, data: Any, record: str, dialect: str,
 def _serial(r: _Reader, doc: dict[str, Any], label: str, ref_c: float) -> SerialSpec:
     s = r.sub(doc, "serial", "")
     r.table(s, "serial", ("mode", "baudrate", "bytesize", "parity", "stopbits", "encoding",
-                          "terminator", "max_line", "request_gap_s", "requests", "checksum"))
+                          "terminator", "max_line", "request_gap_s", "requests", "checksum",
+                          "frame", "address_field"))
+    frame = _frame(r, s)
+    address_field = r.string(s, "address_field", "serial", None, nonempty=True)
     checksum = None
     if "checksum" in s:
         c = r.sub(s, "checksum", "serial")
@@ -624,9 +628,14 @@ def _serial(r: _Reader, doc: dict[str, Any], label: str, ref_c: float) -> Serial
             query_bytes = query.encode("latin-1")
         except UnicodeEncodeError:
             r.fail(f"{where}.query", "characters U+0000..U+00FF (sent as single bytes)", query)
+        _query_template(r, query, f"{where}.query")
         end_line = r.string(req, "end_line", where, None)
         lines = r.integer(req, "lines", where, None, lo=1, hi=1000)
-        if (end_line is None) == (lines is None):
+        if frame is not None:
+            if end_line is not None or lines is not None:
+                r.fail(f"{where}.end_line", "no end_line or lines: a framed answer ends with "
+                       "its end byte ([serial].frame)")
+        elif (end_line is None) == (lines is None):
             r.fail(f"{where}.end_line", "exactly one of end_line (answer ends with this line) "
                    "or lines (fixed line count)")
         requests.append(RequestSpec(
@@ -644,9 +653,14 @@ def _serial(r: _Reader, doc: dict[str, Any], label: str, ref_c: float) -> Serial
     pair_sep = r.string(d, "pair_separator", "dialect", None)
     if pair_sep is not None and kind != "keyvalue":
         r.fail("dialect.pair_separator", "only with kind = \"keyvalue\"", pair_sep)
-    if kind == "keyvalue" and pair_sep is None and mode != "request":
+    if kind == "keyvalue" and pair_sep is None and mode != "request" and frame is None:
         r.fail("dialect.pair_separator", "a pair separator for key=value lines in stream mode "
-               "(answer blocks need mode = \"request\")")
+               "(answer blocks need mode = \"request\" or a [serial].frame)")
+    if frame is not None and (kind != "keyvalue" or pair_sep is not None):
+        r.fail("serial.frame", "dialect kind = \"keyvalue\" with one pair per line (a framed "
+               "record is a block of key/value lines)")
+    if address_field is not None and kind != "keyvalue":
+        r.fail("serial.address_field", "only with dialect kind = \"keyvalue\"", address_field)
     strip = r.boolean(d, "strip", "dialect", True)
     unknown = r.string(d, "unknown_keys", "dialect", "ignore", choices=("ignore", "reject"))
     if "unknown_keys" in d and kind != "keyvalue":
@@ -672,7 +686,40 @@ def _serial(r: _Reader, doc: dict[str, Any], label: str, ref_c: float) -> Serial
                                       pair_separator=pair_sep, strip=strip,
                                       unknown_keys=unknown),
                       profile_label=label, leak_reference_c=ref_c, request_gap_s=gap,
-                      checksum=checksum)
+                      checksum=checksum, frame=frame, address_field=address_field)
+
+
+def _frame(r: _Reader, s: Mapping[str, Any]) -> FrameSpec | None:
+    if "frame" not in s:
+        return None
+    f = r.sub(s, "frame", "serial")
+    r.table(f, "serial.frame", ("start", "end", "check", "max_lines"))
+    start = r.string(f, "start", "serial.frame")
+    end = r.string(f, "end", "serial.frame")
+    for key, value in (("start", start), ("end", end)):
+        if len(value) != 1 or ord(value) > 0xFF:
+            r.fail(f"serial.frame.{key}", 'one byte, e.g. "\\u0002" (STX) or "\\u0003" (ETX)',
+                   value)
+    if start == end:
+        r.fail("serial.frame.end", "a byte other than the start byte", end)
+    check = r.string(f, "check", "serial.frame", None, choices=tuple(CHECKS))
+    max_lines = r.integer(f, "max_lines", "serial.frame", 64, lo=1, hi=1000)
+    return FrameSpec(start=start, end=end, check=check, max_lines=max_lines)
+
+
+def _query_template(r: _Reader, query: str, path: str) -> None:
+    """A query may name the station's address: ``{address}``, ``{address:02d}``; nothing else
+    in braces (write ``{{`` for a literal brace)."""
+    import string
+
+    try:
+        names = [name for _, name, _, _ in string.Formatter().parse(query) if name is not None]
+        query.format(address=1)
+    except (ValueError, KeyError, IndexError) as exc:
+        r.fail(path, "text with at most {address} filled in (e.g. \"#{address:02d}T\\r\"; "
+               f"{{{{ for a brace): {exc}", query)
+    if any(n != "address" for n in names):
+        r.fail(path, "no field but {address} in braces ({{ for a literal brace)", query)
 
 
 def _check_layout(r: _Reader, path: str, length: int, guards: Sequence[tuple[str, int, int]],

@@ -28,6 +28,7 @@ __all__ = [
     "Condition",
     "FieldSpec",
     "FixedColumn",
+    "FrameSpec",
     "LineCheck",
     "LineKind",
     "ModbusSpec",
@@ -104,6 +105,7 @@ class StationContext:
     programs: Mapping[int, str] = field(default_factory=dict)
     program_params: Mapping[str, ProgramParams] = field(default_factory=dict)
     default_program: str = DEFAULT_PROGRAM
+    address: int | None = None  # the station's address on a shared line (config overrides)
 
 
 @dataclass(frozen=True, slots=True)
@@ -248,6 +250,32 @@ class RequestSpec:
     timeout_s: float = 2.0
     empty: str | None = None  # an answer consisting of just this line means "nothing yet"
 
+    @property
+    def addressed(self) -> bool:
+        """The query names the station's address (``{address}``): one line, several stations."""
+        return b"{address" in self.query
+
+    def query_for(self, address: int | None) -> bytes:
+        """The bytes to send to the station at ``address`` (the loader checked the template)."""
+        if not self.addressed:
+            return self.query
+        return self.query.decode("latin-1").format(address=address or 0).encode("latin-1")
+
+
+@dataclass(frozen=True, slots=True)
+class FrameSpec:
+    """A record framed by start and end bytes over several lines, with a block check.
+
+    On the wire: ``<start><line>CRLF<line>CRLF...<end><check hex digits>CRLF``. The check
+    covers every byte after ``start`` up to and including ``end`` (line ends included), the
+    usual convention for a block check character.
+    """
+
+    start: str  # one character, e.g. "\x02" (STX)
+    end: str  # one character, e.g. "\x03" (ETX)
+    check: str | None = None  # a name in gateway.profiles.checks.CHECKS
+    max_lines: int = 64
+
 
 @dataclass(frozen=True, slots=True)
 class LineCheck:
@@ -273,6 +301,8 @@ class SerialSpec:
     leak_reference_c: float = 0.0
     request_gap_s: float = 0.0
     checksum: LineCheck | None = None
+    frame: FrameSpec | None = None
+    address_field: str | None = None  # the answer's key that echoes the station address
 
     def parser(self, ctx: StationContext) -> SerialParser:
         from gateway.profiles.lines import SerialParser

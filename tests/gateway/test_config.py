@@ -67,6 +67,31 @@ def test_demo_config_matches_the_simulator_demo() -> None:
             assert gw.overrides.get("device_id", gw.profile.modbus.device_id) == st.device_id
 
 
+def test_annex_config_matches_the_simulator_annex() -> None:
+    from sim.scenario import load_scenario
+
+    config = load_config("annex")
+    scenario = load_scenario("annex")
+    assert config.site == scenario.site and config.timezone == scenario.timezone
+    by_id = {s.id: s for s in config.stations}
+    assert set(by_id) == {s.name for s in scenario.stations}
+    for st in scenario.stations:
+        gw = by_id[st.name]
+        assert gw.profile.name == st.type and gw.line == st.line
+        assert gw.endpoint == f"tcp://127.0.0.1:{st.port}"
+        if st.type == "lf-ticket":
+            assert gw.overrides["address"] == st.address
+        if st.type not in ("lf-noclock", "lf-ticket"):  # these send program names
+            assert dict(gw.programs) == dict(st.programs)
+        for name in st.programs.values():  # the program sheet matches the simulated programs
+            program, sheet = scenario.programs[name], gw.program_params[name]
+            assert sheet.reject_limit_sccm == pytest.approx(program.reject_limit_sccm)
+            assert sheet.lower_limit_sccm == (None if program.lower_limit_sccm is None
+                                              else pytest.approx(program.lower_limit_sccm))
+            assert (sheet.fill_s, sheet.stabilise_s, sheet.test_s) == (
+                program.fill_s, program.stabilise_s, program.test_s)
+
+
 def test_good_config_with_defaults(tmp_path: Path) -> None:
     config = load_config(write(tmp_path, GOOD))
     assert config.store == DEFAULT_STORE

@@ -230,7 +230,8 @@ def _as_time(key: str, value: Any) -> Any:
 
 
 _PROFILE_FOR_TYPE = {t: t for t in ("lf-delim", "lf-kv", "lf-mbtcp", "lf-mbrtu", "lf-semi",
-                                     "lf-noclock", "lf-mbinput", "lf-mblast", "lf-mbnoclk")}
+                                     "lf-noclock", "lf-mbinput", "lf-mblast", "lf-mbnoclk",
+                                     "lf-ticket")}
 #: types that send a program number (the station's programs table names it)
 _NUMBERED = ("lf-mbtcp", "lf-mbrtu", "lf-semi", "lf-mbinput", "lf-mblast", "lf-mbnoclk")
 #: types that send no reject limit or times: the plant's program sheet supplies them
@@ -282,6 +283,8 @@ def config_for_plant(
             lines.append(f"programs = {{ {progs} }}")
         if st.type in ("lf-mbtcp", "lf-mbrtu"):
             lines.append(f"overrides = {{ device_id = {st.device_id} }}")
+        if st.type == "lf-ticket":
+            lines.append(f"overrides = {{ address = {st.address} }}")
         lines.append("")
     return "\n".join(lines)
 

@@ -42,6 +42,20 @@ EXPECTED = {
         (2, "rejected", "torn block"), (3, "result", 1044), (4, "rejected", "unknown code '9'"),
         (1, "calibration", "HX-210"),
     ]),
+    # the ticket sample: two stations' tickets, an empty answer (NAK), a calibration ticket
+    # and a ticket whose block check is wrong (a digit changed in transit)
+    "lf-ticket": ("lf-ticket.txt", [
+        (1, "result", 4711), (14, "result", 815), (27, "note", None),
+        (28, "calibration", "HX-210"), (38, "rejected", "block check (xor8): the frame says"),
+    ]),
+    "lf-mblast": ("lf-mblast.json", [
+        (1, "result", 4294967294), (2, "result", 4294967295), (3, "result", 0),
+        (4, "result", 1), (5, "result", 2),
+    ]),
+    "lf-mbnoclk": ("lf-mbnoclk.json", [
+        (1, "result", 812), (2, "result", 813), (3, "result", 814), (4, "result", 815),
+        (5, "result", 816),
+    ]),
     "lf-mbrtu": ("lf-mbrtu.json", [
         (0, "note", None), (0, "note", None), (0, "note", None), (1, "result", 12),
         (2, "result", 13), (3, "rejected", "has 20 registers, expected 25"),
