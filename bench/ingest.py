@@ -25,6 +25,8 @@ from datetime import UTC, datetime, timedelta
 from pathlib import Path
 from typing import Any
 
+from gateway.profiles.decoders import serial_parser
+
 PROFILE = "lf-delim"
 _VERDICTS = ["ACC"] * 96 + ["REJ"] * 3 + ["GRS", "ABT"]
 
@@ -66,7 +68,8 @@ def run(records: int, batch: int) -> dict[str, Any]:
     lines = make_lines(records)
     stations = sorted({s for s, _ in lines})
     parsers = {
-        s: profile.serial.parser(StationContext(station=s, line="L1", timezone="Europe/Berlin"))
+        s: serial_parser(profile.serial,
+                         StationContext(station=s, line="L1", timezone="Europe/Berlin"))
         for s in stations
     }
     received = datetime(2026, 11, 2, 6, tzinfo=UTC)

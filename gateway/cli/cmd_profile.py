@@ -43,7 +43,10 @@ def register(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
         help="parse a captured sample with a profile",
         description=(
             "Parse SAMPLE with PROFILE and print each canonical record and each rejected "
-            "line with its line number and reason, then a summary. SAMPLE is the station's "
+            "line with its line number and reason, then a summary. Beside each value: the raw "
+            "text or registers it came from and what the profile applied (decimal mark, "
+            "scale, unit, code table, bits), or that the plant's config supplied it. "
+            "SAMPLE is the station's "
             "text output (serial profiles) or a register dump in JSON (Modbus profiles, "
             "format in gateway/profiles/README.md). Exit code 0 when the sample was parsed "
             "(even with rejects), 2 for an invalid profile or unreadable sample."
@@ -58,6 +61,11 @@ def register(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
                    help="station time zone for timestamps without an offset (default UTC)")
     p.add_argument("--program", action="append", default=[], metavar="N=NAME",
                    help="Modbus program number to name, e.g. --program 1=HX-210 (repeatable)")
+    p.add_argument("--address", type=int, default=None, metavar="N",
+                   help="the station's address on a shared line: answers naming another "
+                        "address are rejected, as the gateway does")
+    p.add_argument("--brief", dest="origins", action="store_false",
+                   help="values only, without where each came from")
     _dirs(p)
     p.set_defaults(func=_check)
 
@@ -139,7 +147,8 @@ def _check(args: argparse.Namespace) -> int:
         data = Path(args.sample).read_bytes()
     except OSError as exc:
         raise ConfigError(f"{args.sample}: cannot read sample: {exc.strerror or exc}") from None
-    ctx = StationContext(args.station, args.line, args.timezone, _programs(args.program))
+    ctx = StationContext(args.station, args.line, args.timezone, _programs(args.program),
+                         address=args.address)
     entries = check_sample(profile, data, ctx, datetime.now(UTC), args.sample)
     counts = {"result": 0, "calibration": 0, "rejected": 0}
     for e in entries:
@@ -155,7 +164,8 @@ def _check(args: argparse.Namespace) -> int:
                 {"line_no": e.line_no, "where": e.where,
                  "kind": "rejected" if isinstance(e.item, Rejected)
                  else (e.item.kind if e.item is not None else "note"),
-                 "record": None if e.item is None else e.item.to_dict(), "note": e.note}
+                 "record": None if e.item is None else e.item.to_dict(), "note": e.note,
+                 "origins": {o.field: o.to_dict() for o in e.origins}}
                 for e in entries
             ],
             "summary": {"results": counts["result"], "calibrations": counts["calibration"],
@@ -177,9 +187,15 @@ def _check(args: argparse.Namespace) -> int:
             data_ = e.item.to_dict()
             print(f"{e.where:<{where_w}}  {e.item.kind:<11}  id {e.item.record_id}")
             names = [k for k in data_ if k not in _SKIP and data_[k] not in (None, "")]
-            key_w = max(len(k) for k in names)
-            for k in names:
-                print(f"{'':<{where_w}}  {'':<11}  {k:<{key_w}}  {_fmt(data_[k])}")
+            origins = {o.field: o for o in e.origins}
+            absent = [k for k in origins if k not in names and k in data_]
+            key_w = max(len(k) for k in [*names, *absent])
+            val_w = max((len(_fmt(data_[k])) for k in names), default=1)
+            for k in [*names, *absent]:
+                value = _fmt(data_[k]) if k in names else "(absent)"
+                o = origins.get(k)
+                tail = f"  <- {o.raw}  [{o.applied}]" if o is not None and args.origins else ""
+                print(f"{'':<{where_w}}  {'':<11}  {k:<{key_w}}  {value:<{val_w}}{tail}")
     print()
     print(f"summary: {counts['result']} results, {counts['calibration']} calibrations, "
           f"{counts['rejected']} rejected")

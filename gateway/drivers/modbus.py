@@ -37,6 +37,7 @@ from gateway.drivers.lines import split_host_port
 from gateway.drivers.modbus_latest import LatestReader
 from gateway.drivers.modbus_outcome import PollOutcome
 from gateway.errors import DecodeError, ProtocolError, TransportError
+from gateway.profiles.decoders import ModbusDecoder, ack_registers
 from gateway.profiles.model import BlockSpec
 from gateway.profiles.registers import decode_registers
 from gateway.records import (
@@ -114,6 +115,7 @@ class RingReader:
         self.station = station
         self.profile_label = profile_label
         self.spec = spec
+        self._decoder = ModbusDecoder(spec)
         self.context = context
         self.device_id = spec.device_id if device_id is None else device_id
         self.function = spec.function
@@ -153,7 +155,7 @@ class RingReader:
         if ack is None or self.seen is None or self.seen == self._acked or self.seen <= 0:
             return None
         self._acked = self.seen
-        return int(ack.address), list(ack.encode(self.seen % self._mod, self.spec.word_order))
+        return int(ack.address), ack_registers(ack, self.seen % self._mod, self.spec.word_order)
 
     # -- the poll ---------------------------------------------------------------------------
     def drain_pending(self) -> list[Item]:
@@ -173,11 +175,11 @@ class RingReader:
         header = await self._read_header(link)
         received_at = utcnow()
         if self._state_span is not None:
-            out.state = self.spec.decode_state(self._slice(header, self._state_span))
-        c1 = self.spec.decode_counter(self._slice(header, self._counter_span))
+            out.state = self._decoder.decode_state(self._slice(header, self._state_span))
+        c1 = self._decoder.decode_counter(self._slice(header, self._counter_span))
         out.counter = c1
         cc1 = (
-            self.spec.decode_calibration_counter(self._slice(header, self._cal_counter_span))
+            self._decoder.decode_calibration_counter(self._slice(header, self._cal_counter_span))
             if self._cal_counter_span is not None
             else 0
         )
@@ -218,7 +220,7 @@ class RingReader:
             if any(isinstance(i, GapEvent) for i in self._pending):
                 return out  # the gap found before the failure stays on record
             raise
-        c2 = self.spec.decode_counter(self._slice(header2, self._counter_span))
+        c2 = self._decoder.decode_counter(self._slice(header2, self._counter_span))
         if blocks:
             u2 = self._unwrap(c2)
             if u1 is None or u2 is None or u2 < u1:
@@ -227,7 +229,7 @@ class RingReader:
             else:
                 self._accept_results(blocks, cycles, u2, depth, received_at, out)
         if cal_regs is not None and self._cal_counter_span is not None:
-            cc2 = self.spec.decode_calibration_counter(
+            cc2 = self._decoder.decode_calibration_counter(
                 self._slice(header2, self._cal_counter_span)
             )
             self._accept_calibration(cal_regs, cc1, cc2, received_at, out)
@@ -313,7 +315,7 @@ class RingReader:
                 if advance:
                     self.seen = cycle
                 continue
-            decoded = self.spec.decode_result(regs, cycle % self._mod, self.context,
+            decoded = self._decoder.decode_result(regs, cycle % self._mod, self.context,
                                               received_at)
             if isinstance(decoded, TestResult):
                 out.items.append(decoded)
@@ -354,7 +356,7 @@ class RingReader:
         if cc2 != cc1:
             log.debug("%s: calibration counter moved during the read", self.station)
             return
-        decoded = self.spec.decode_calibration(regs, cc1, self.context, received_at)
+        decoded = self._decoder.decode_calibration(regs, cc1, self.context, received_at)
         if isinstance(decoded, CalibrationEvent):
             out.items.append(decoded)
         elif isinstance(decoded, Rejected) and _is_torn(decoded):

@@ -18,6 +18,7 @@ from typing import TYPE_CHECKING, Any
 from gateway.drivers.base import Item, Outbox, Pacing, StationTarget, sleep_for, utcnow
 from gateway.drivers.lines import LineLink, RawLine, open_line_link
 from gateway.errors import TransportError
+from gateway.profiles.decoders import serial_parser
 from gateway.records import GapEvent, Rejected, StationState, TestResult
 
 if TYPE_CHECKING:
@@ -67,7 +68,7 @@ class LineHandler:
     _parser: Any = field(default=None, init=False)
 
     def __post_init__(self) -> None:
-        self._parser = _spec(self.target).parser(self.target.context)
+        self._parser = serial_parser(_spec(self.target), self.target.context)
 
     @property
     def _encoding(self) -> str:

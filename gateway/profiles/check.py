@@ -6,14 +6,18 @@ Pure: takes the sample's bytes/JSON document, returns what the gateway would mak
 from __future__ import annotations
 
 import json
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from datetime import datetime
 from typing import Any
 
 from gateway.errors import ConfigError, DecodeError
-from gateway.profiles.model import Parsed, Profile, StationContext
+from gateway.profiles.decoders import ModbusDecoder, serial_parser
+from gateway.profiles.explain import FieldOrigin, explain_fields
+from gateway.profiles.model import FieldSpec, Parsed, Profile, SerialSpec, StationContext
 from gateway.profiles.normalise import reject
 from gateway.profiles.registers import registers_hex
+from gateway.records import Rejected
 
 __all__ = ["Entry", "check_registers", "check_sample", "check_text"]
 
@@ -26,6 +30,32 @@ class Entry:
     where: str
     item: Parsed | None = None
     note: str = ""  # counters and state (no record)
+    origins: tuple[FieldOrigin, ...] = ()  # where each value of an accepted record came from
+
+
+def _origins(fields: Sequence[FieldSpec], item: Parsed, *, raw: Mapping[str, str] | None = None,
+             registers: Sequence[int] | None = None) -> tuple[FieldOrigin, ...]:
+    if isinstance(item, Rejected):
+        return ()
+    values = item.to_dict()
+    return tuple(explain_fields(fields, values, dict(item.supplied), raw=raw,
+                                registers=registers))
+
+
+def _kind_fields(spec: SerialSpec, record: str) -> tuple[FieldSpec, ...]:
+    return next((k.fields for k in spec.dialect.kinds if k.record == record), ())
+
+
+def _line_entries(parser: Any, spec: SerialSpec, lines: list[bytes], start: int,
+                  items: list[Parsed]) -> list[Entry]:
+    out = []
+    for item in items:
+        origins: tuple[FieldOrigin, ...] = ()
+        if not isinstance(item, Rejected):
+            raw = parser.raw_fields(lines, item.kind)
+            origins = _origins(_kind_fields(spec, item.kind), item, raw=raw)
+        out.append(Entry(start, f"line {start}", item, origins=origins))
+    return out
 
 
 def _split_lines(data: bytes, terminator: bytes) -> list[bytes]:
@@ -43,7 +73,7 @@ def check_text(profile: Profile, data: bytes, ctx: StationContext, received_at: 
     """Stream mode: every line alone. Request mode: answers end at END (or every N lines)."""
     spec = profile.serial
     assert spec is not None
-    parser = spec.parser(ctx)
+    parser = serial_parser(spec, ctx)
     lines = _split_lines(data, spec.terminator)
     out: list[Entry] = []
     if spec.frame is not None:
@@ -51,7 +81,7 @@ def check_text(profile: Profile, data: bytes, ctx: StationContext, received_at: 
                        spec.frame.end.encode("latin-1"), received_at)
     if spec.mode == "stream":
         for i, line in enumerate(lines, start=1):
-            out += [Entry(i, f"line {i}", item) for item in parser.parse([line], i, received_at)]
+            out += _line_entries(parser, spec, [line], i, parser.parse([line], i, received_at))
         return out
     request = spec.requests[0]
     start = 0
@@ -108,7 +138,7 @@ def _answer(parser: Any, answer: list[bytes], start: int, received_at: datetime,
     items = parser.parse(answer, start, received_at)
     if not items:
         return [Entry(start, f"line {start}", None, "empty answer")]
-    return [Entry(start, f"line {start}", item) for item in items]
+    return _line_entries(parser, parser.spec, answer, start, items)
 
 
 def _regs(value: Any, where: str, file: str) -> list[int]:
@@ -124,6 +154,7 @@ def check_registers(profile: Profile, doc: Any, ctx: StationContext, received_at
     """A register dump (see README): counters, state, result slots, calibration blocks."""
     spec = profile.modbus
     assert spec is not None
+    decoder = ModbusDecoder(spec)
     if not isinstance(doc, dict):
         raise ConfigError(f"{file}: expected a JSON object with results/calibrations arrays")
     known = ("profile", "comment", "counter", "calibration_counter", "state", "results",
@@ -140,12 +171,12 @@ def check_registers(profile: Profile, doc: Any, ctx: StationContext, received_at
             out.append(Entry(0, label, None, f"cannot decode: {exc}"))
 
     if "state" in doc:
-        value_note("state", lambda r: spec.decode_state(r) or "unknown code",
+        value_note("state", lambda r: decoder.decode_state(r) or "unknown code",
                    _regs(doc["state"], "state", file))
     if "counter" in doc:
-        value_note("counter", spec.decode_counter, _regs(doc["counter"], "counter", file))
+        value_note("counter", decoder.decode_counter, _regs(doc["counter"], "counter", file))
     if "calibration_counter" in doc:
-        value_note("calibration counter", spec.decode_calibration_counter,
+        value_note("calibration counter", decoder.decode_calibration_counter,
                    _regs(doc["calibration_counter"], "calibration_counter", file))
     for section, key in (("results", "cycle"), ("calibrations", "counter")):
         items = doc.get(section, [])
@@ -163,12 +194,15 @@ def check_registers(profile: Profile, doc: Any, ctx: StationContext, received_at
                 raise ConfigError(f"{file}: {where}.{key}: expected a non-negative integer")
             regs = _regs(entry.get("registers"), f"{where}.registers", file)
             if section == "results":
-                item: Parsed = spec.decode_result(regs, expected, ctx, received_at)
+                item: Parsed = decoder.decode_result(regs, expected, ctx, received_at)
+                fields = spec.result.fields
             else:
-                item = spec.decode_calibration(regs, expected, ctx, received_at)
+                item = decoder.decode_calibration(regs, expected, ctx, received_at)
+                fields = spec.calibration.fields if spec.calibration is not None else ()
             if hasattr(item, "line_no") and item.line_no is None:  # Rejected: say which entry
                 item = reject(ctx, item.profile, item.raw, item.reason, received_at, i)
-            out.append(Entry(i, f"{where} {key} {expected}", item))
+            out.append(Entry(i, f"{where} {key} {expected}", item,
+                             origins=_origins(fields, item, registers=regs)))
     return out
 
 

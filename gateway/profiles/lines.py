@@ -390,6 +390,10 @@ class SerialParser:
         """A framed record: check start, end and block check, then parse the lines inside."""
         raw = "\n".join(self._raw_of(x) for x in lines)
         try:
+            for i, item in enumerate(lines):
+                if len(item) > self.spec.max_line:
+                    raise FieldError(f"line {first + i} is {len(item)} characters long, "
+                                     f"max_line is {self.spec.max_line}")
             texts = [self._decode(x) for x in lines]
             if len(texts) == 1 and self._is_empty_marker(texts[0]):
                 return []
@@ -397,6 +401,27 @@ class SerialParser:
             return self._parse_block(inner, first, received_at, raw=raw)
         except FieldError as exc:
             return [reject(self.ctx, self.label, raw, str(exc), received_at, first)]
+
+    def raw_fields(self, lines: Sequence[str | bytes], record: str) -> dict[str, str]:
+        """The raw fields (columns, keys, groups) an accepted ``record`` was made from, for
+        ``profile check``; {} when they cannot be told (the parse itself is the judge)."""
+        try:
+            texts = [self._decode(x) for x in lines]
+            if self._frame is not None:
+                texts = unframe(texts, self.spec)
+            if self.spec.checksum is not None:
+                texts = [self._checked(t) for t in texts]
+            if self.spec.dialect.kind == "keyvalue":
+                return _pairs(self.spec, [t for t in texts if t.strip()], 1)
+            for plan in self._plans:
+                if plan.kind.record == record:
+                    try:
+                        return split_fields(self.spec, plan.kind, texts[0])
+                    except _NoMatch:
+                        continue
+        except FieldError:
+            pass
+        return {}
 
     def _address_check(self, pairs: dict[str, str]) -> None:
         key, want = self.spec.address_field, self.ctx.address

@@ -1,23 +1,22 @@
 """Frozen profile objects: what the loader builds from TOML and what drivers consume.
 
 A profile says how one station type talks (serial line or Modbus register map) and how each raw
-field becomes a canonical field. The objects here are data plus small pure methods; parsing
-lives in ``lines`` and ``normalise``, register codecs in ``registers``.
+field becomes a canonical field. The objects here are plain data: they import none of the
+parsing code. ``decoders`` compiles them into parsers and decoders (built on ``lines``,
+``normalise`` and ``registers``), so the imports run one way only.
 """
 
 from __future__ import annotations
 
 import re
-from collections.abc import Mapping, Sequence
+from collections.abc import Mapping
 from dataclasses import dataclass, field
-from datetime import datetime
 from typing import TYPE_CHECKING, Any, Literal
 
 from gateway.programs import ProgramParams
 from gateway.records import CalibrationEvent, Rejected, StationState, TestResult
 
 if TYPE_CHECKING:
-    from gateway.profiles.lines import SerialParser
     from gateway.profiles.modbus_schema import LatestRule
 
 __all__ = [
@@ -304,11 +303,6 @@ class SerialSpec:
     frame: FrameSpec | None = None
     address_field: str | None = None  # the answer's key that echoes the station address
 
-    def parser(self, ctx: StationContext) -> SerialParser:
-        from gateway.profiles.lines import SerialParser
-
-        return SerialParser(self, ctx)
-
 
 @dataclass(frozen=True, slots=True)
 class RingSpec:
@@ -360,11 +354,6 @@ class AckSpec:
     address: int
     type: str
 
-    def encode(self, cycle: int, word_order: Literal["big", "little"] = "big") -> list[int]:
-        from gateway.profiles.registers import encode_value
-
-        return encode_value(cycle, self.type, word_order=word_order)
-
 
 @dataclass(frozen=True)
 class ModbusSpec:
@@ -388,73 +377,6 @@ class ModbusSpec:
     string_encoding: str = "ascii"
     leak_reference_c: float = 0.0
     latest: LatestRule | None = None  # a single last-result block instead of a ring
-
-    def decode_counter(self, regs: Sequence[int]) -> int:
-        """The result counter from its registers as read (DecodeError if they are not words)."""
-        return self._counter(regs, self.result.counter_type)
-
-    def decode_calibration_counter(self, regs: Sequence[int]) -> int:
-        if self.calibration is None:
-            raise ValueError("this profile has no calibration block")
-        return self._counter(regs, self.calibration.counter_type)
-
-    def _counter(self, regs: Sequence[int], type_name: str) -> int:
-        from gateway.profiles.registers import decode_registers
-
-        value = decode_registers(
-            list(regs), type_name, word_order=self.word_order, byte_order=self.byte_order
-        )
-        assert isinstance(value, int)
-        return value
-
-    def decode_state(self, regs: Sequence[int]) -> StationState | None:
-        """The station state, or None when the register holds a code the profile does not map."""
-        if self.state is None:
-            return None
-        from gateway.errors import DecodeError
-        from gateway.profiles.registers import decode_registers
-
-        try:
-            value = decode_registers(
-                list(regs),
-                self.state.type,
-                word_order=self.state.word_order,
-                byte_order=self.state.byte_order,
-            )
-        except DecodeError:
-            return None
-        return self.state_map.get(value) if isinstance(value, int) else None
-
-    def decode_result(
-        self,
-        regs: Sequence[int],
-        expected_cycle: int,
-        ctx: StationContext,
-        received_at: datetime,
-    ) -> TestResult | Rejected:
-        from gateway.profiles.normalise import decode_block
-
-        address = self.result.slot_address(expected_cycle)
-        out = decode_block(self, "result", self.result, address, regs, expected_cycle, ctx,
-                           received_at)
-        assert not isinstance(out, CalibrationEvent)
-        return out
-
-    def decode_calibration(
-        self,
-        regs: Sequence[int],
-        expected_counter: int,
-        ctx: StationContext,
-        received_at: datetime,
-    ) -> CalibrationEvent | Rejected:
-        from gateway.profiles.normalise import decode_block
-
-        if self.calibration is None:
-            raise ValueError("this profile has no calibration block")
-        out = decode_block(self, "calibration", self.calibration, self.calibration.address,
-                           regs, expected_counter, ctx, received_at)
-        assert not isinstance(out, TestResult)
-        return out
 
 
 @dataclass(frozen=True)

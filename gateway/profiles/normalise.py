@@ -10,19 +10,23 @@ import math
 import re
 from collections.abc import Callable, Mapping, Sequence
 from datetime import UTC, datetime, tzinfo
-from typing import TYPE_CHECKING, Any
+from typing import Any
 from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 
 from gateway.calibration import Calibration
 from gateway.errors import DecodeError, UnitError
-from gateway.profiles.model import FieldSpec, Parsed, StationContext
+from gateway.profiles.model import (
+    BlockSpec,
+    FieldSpec,
+    ModbusSpec,
+    Parsed,
+    RingSpec,
+    StationContext,
+)
 from gateway.profiles.registers import decode_registers, registers_hex
 from gateway.programs import complete
 from gateway.records import CalibrationEvent, Rejected, TestResult, Verdict
 from gateway.units import same_value, to_canonical, to_canonical_fn
-
-if TYPE_CHECKING:
-    from gateway.profiles.model import BlockSpec, ModbusSpec, RingSpec
 
 __all__ = ["FieldError", "TextConverter", "build_record", "compile_text_field",
            "convert_register", "convert_text", "decode_block", "make_record", "reject"]

@@ -15,6 +15,7 @@ import pytest
 
 from gateway.config import load_config
 from gateway.errors import ConfigError
+from gateway.profiles.decoders import serial_parser
 from gateway.records import TestResult
 from gateway.runtime import build_targets
 
@@ -50,7 +51,7 @@ def _parse(tmp_path: Path, text: str, line: bytes) -> TestResult:
     cfg.write_text(textwrap.dedent(text))
     target = build_targets(load_config(cfg), {})[0]
     assert target.profile.serial is not None
-    parser = target.profile.serial.parser(target.context)
+    parser = serial_parser(target.profile.serial, target.context)
     [out] = parser.parse([line], 1, datetime(2026, 12, 3, 13, 5, 10, tzinfo=UTC))
     assert isinstance(out, TestResult), out
     return out

@@ -12,6 +12,7 @@ from pathlib import Path
 import pytest
 
 from gateway.profiles import StationContext, load_profile, parse_profile
+from gateway.profiles.decoders import serial_parser
 from gateway.programs import STATION_DEFAULTS, ProgramParams, complete
 from gateway.records import (
     CalibrationEvent,
@@ -133,7 +134,7 @@ def _parse(line: str, ctx: StationContext) -> TestResult | Rejected:
 
     profile = parse_profile(tomllib.loads(SEMI), "semi-test.toml")
     assert profile.serial is not None
-    (item,) = profile.serial.parser(ctx).parse([line], 1, NOW)
+    (item,) = serial_parser(profile.serial, ctx).parse([line], 1, NOW)
     assert isinstance(item, (TestResult, Rejected))
     return item
 
@@ -155,7 +156,7 @@ def test_a_station_without_clock_or_limits_through_a_profile() -> None:
 
 def test_builtin_profiles_keep_rejecting_empty_values_they_always_send() -> None:
     ctx = StationContext("L1-S1", "L1", "Europe/Berlin")
-    parser = load_profile("lf-delim").serial.parser(ctx)  # type: ignore[union-attr]
+    parser = serial_parser(load_profile("lf-delim").serial, ctx)  # type: ignore[union-attr]
     line = ("R;1042;2026-12-02 07:15:09;HX-210;HX210-004711;ACC;;41.8;0.213;2.000;-1.000;"
             "3.0;8.0;10.0;22.41")
     (item,) = parser.parse([line], 1, NOW)

@@ -535,3 +535,84 @@ def mbinput_blocks(n: int, seed: int, good_share: float = 0.4) -> Iterator[Block
         else:
             regs = regs[: rng.randrange(0, 23)]
         yield Block(regs, cycle, False, why)
+
+
+_TICKET_CODES = {"pass": "PASS", "reject": "FAIL", "gross": "GROSS", "aborted": "ABORT"}
+
+
+@dataclass(frozen=True)
+class Answer:
+    lines: list[str]
+    good: bool
+    values: dict[str, Any]
+    why: str = ""
+
+
+def _ticket(body_lines: list[str], check: str | None = None) -> list[str]:
+    """STX, the lines, ETX and the XOR of the bytes after STX up to ETX (the usual BCC,
+    common practice), as the lines a reader gets (terminators removed)."""
+    body = "\r\n".join(body_lines) + "\r\n\x03"
+    bcc = 0
+    for ch in body.encode("latin-1"):
+        bcc ^= ch
+    text = "\x02" + body + (check if check is not None else f"{bcc:02X}")
+    return text.split("\r\n")
+
+
+def ticket_answers(n: int, seed: int, address: int = 1,
+                   good_share: float = 0.4) -> Iterator[Answer]:
+    """lf-ticket answers (gateway/profiles/builtin/lf-ticket.toml): framed KEY value tickets
+    from chosen values; bad ones with one mutation each (wrong check, no STX, no ETX, another
+    station's address, unknown key, key twice, junk number, impossible date, control
+    character, unknown result code)."""
+    rng = random.Random(seed)
+    for i in range(n):
+        verdict = rng.choice(list(_TICKET_CODES))
+        reading = verdict in ("pass", "reject")
+        when = _T0 + timedelta(seconds=rng.randrange(3 * 10**7))
+        leak = round(rng.uniform(-0.9, 9.0), 3)
+        loss = round(rng.uniform(-2, 400), 1)
+        bar = round(rng.uniform(0.5, 8.0), 3)
+        body = [f"ADR {address:02d}", "KIND TEST", f"NO {i + 1:06d}",
+                f"DATE {when:%d/%m/%y}", f"TIME {when:%H:%M:%S}", "PROG HX-210",
+                f"PART P{i:07d}", f"PRESS {bar:.3f}",
+                f"LOSS {loss:.1f}" if reading else "LOSS ----",
+                f"LEAK {leak:.3f}" if reading else "LEAK ----",
+                "LIMIT 2.000", f"RESULT {_TICKET_CODES[verdict]}"]
+        values = {"cycle": i + 1, "verdict": verdict, "program": "HX-210",
+                  "local_ended": when, "part_id": f"P{i:07d}",
+                  "test_pressure_pa": bar * 1e5,  # 1 bar = 100 000 Pa (SI brochure, 9th ed.)
+                  "pressure_loss_pa": loss if reading else None,
+                  "leak_rate_sccm": leak if reading else None, "reject_limit_sccm": 2.0}
+        if rng.random() < good_share:
+            yield Answer(_ticket(body), True, values)
+            continue
+        why = rng.choice(["check", "stx", "etx", "address", "key", "twice", "number", "date",
+                          "control", "code"])
+        lines = _ticket(body)
+        if why == "check":
+            good = lines[-1][-2:]
+            lines = _ticket(body, "00" if good != "00" else "01")
+        elif why == "stx":
+            lines[0] = lines[0][1:]
+        elif why == "etx":
+            lines = lines[:-1]
+        elif why == "address":
+            lines = _ticket([f"ADR {address + 1:02d}", *body[1:]])
+        elif why == "key":
+            lines = _ticket([*body, "COLOUR red"])
+        elif why == "twice":
+            lines = _ticket([*body, "NO 000001"])
+        elif why == "number":
+            lines = _ticket([*body[:7], f"PRESS {rng.choice(['1..2', 'abc', '-', '1e'])}",
+                             *body[8:]])
+        elif why == "date":
+            lines = _ticket([*body[:3], f"DATE {rng.choice(['31/02/26', '00/01/26', 'x'])}",
+                             *body[4:]])
+        elif why == "control":
+            at = rng.randrange(1, len(body))
+            lines = _ticket([*body[:at], body[at] + chr(rng.choice([0, 1, 7, 27, 127])),
+                             *body[at + 1:]])
+        else:
+            lines = _ticket([*body[:-1], "RESULT MAYBE"])
+        yield Answer(lines, False, {}, why)

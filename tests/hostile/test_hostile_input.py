@@ -19,6 +19,7 @@ from typing import Any
 import pytest
 
 from gateway.profiles import StationContext, builtin_profiles, load_profile
+from gateway.profiles.decoders import ModbusDecoder, serial_parser
 from gateway.records import CalibrationEvent, Rejected, TestResult
 from tests.hostile.reference import (
     blocks,
@@ -30,6 +31,7 @@ from tests.hostile.reference import (
     print_lines,
     reference_values,
     semi_lines,
+    ticket_answers,
 )
 
 N = 100_000
@@ -84,7 +86,7 @@ class Tally:
 
 
 def _lf_delim() -> Tally:
-    parser = load_profile("lf-delim").serial.parser(CTX)  # type: ignore[union-attr]
+    parser = serial_parser(load_profile("lf-delim").serial, CTX)  # type: ignore[union-attr]
     tally = Tally()
     for no, line in enumerate(delim_lines(N - N // 10, seed=11), 1):
         tally.check(parser.parse([line.text], no, RECEIVED), line.good, line.values,
@@ -95,7 +97,7 @@ def _lf_delim() -> Tally:
 
 
 def _lf_print() -> Tally:
-    parser = load_profile("lf-print").serial.parser(CTX)  # type: ignore[union-attr]
+    parser = serial_parser(load_profile("lf-print").serial, CTX)  # type: ignore[union-attr]
     tally = Tally()
     for no, line in enumerate(print_lines(N - N // 10, seed=21), 1):
         tally.check(parser.parse([line.text], no, RECEIVED), line.good, line.values,
@@ -106,7 +108,7 @@ def _lf_print() -> Tally:
 
 
 def _lines(name: str, lines: Any, seed: int, ctx: StationContext = CTX) -> Tally:
-    parser = load_profile(name).serial.parser(ctx)  # type: ignore[union-attr]
+    parser = serial_parser(load_profile(name).serial, ctx)  # type: ignore[union-attr]
     tally = Tally()
     for no, line in enumerate(lines(N - N // 10, seed=seed), 1):
         tally.check(parser.parse([line.text], no, RECEIVED), line.good, line.values,
@@ -121,13 +123,25 @@ def _lf_mbinput() -> Tally:
     assert spec is not None
     tally = Tally()
     for b in mbinput_blocks(N, seed=71):
-        out = spec.decode_result(b.regs, b.cycle, CTX, RECEIVED)
+        out = ModbusDecoder(spec).decode_result(b.regs, b.cycle, CTX, RECEIVED)
         tally.check([out], b.good, b.values or {}, f"block ({'good' if b.good else b.why})")
     return tally
 
 
+def _lf_ticket() -> Tally:
+    ctx = StationContext("H1", "L1", "UTC", {}, address=1)
+    parser = serial_parser(load_profile("lf-ticket").serial, ctx)  # type: ignore[union-attr]
+    tally = Tally()
+    for no, a in enumerate(ticket_answers(N - N // 10, seed=81), 1):
+        tally.check(parser.parse(a.lines, no, RECEIVED), a.good, a.values,
+                    f"ticket ({a.why}) {a.lines!r}")
+    for no, text in enumerate(noise(N // 10, seed=82), 1):
+        tally.check(parser.parse([text, text[::-1]], no, RECEIVED), False, {}, f"noise {text!r}")
+    return tally
+
+
 def _lf_kv() -> Tally:
-    parser = load_profile("lf-kv").serial.parser(CTX)  # type: ignore[union-attr]
+    parser = serial_parser(load_profile("lf-kv").serial, CTX)  # type: ignore[union-attr]
     tally = Tally()
     for no, (lines, good, ref, why) in enumerate(kv_answers(N - N // 10, seed=31), 1):
         tally.check(parser.parse(lines, no, RECEIVED), good, ref, f"answer ({why}) {lines!r}")
@@ -141,7 +155,7 @@ def _modbus(name: str) -> Tally:
     assert spec is not None
     tally = Tally()
     for b in blocks(spec, spec.result, CTX, N, seed=41, good_share=0.15):
-        out = spec.decode_result(b.regs, b.cycle, CTX, RECEIVED)
+        out = ModbusDecoder(spec).decode_result(b.regs, b.cycle, CTX, RECEIVED)
         ref = reference_values(spec.result, b.regs, CTX) if b.good else {}
         tally.check([out], b.good, ref, f"block ({b.why}) {b.regs!r}")
     return tally
@@ -151,7 +165,7 @@ def _run(name: str) -> Tally:
     runner = {"lf-delim": _lf_delim, "lf-print": _lf_print, "lf-kv": _lf_kv,
               "lf-semi": lambda: _lines("lf-semi", semi_lines, 51),
               "lf-noclock": lambda: _lines("lf-noclock", noclock_lines, 61),
-              "lf-mbinput": _lf_mbinput}.get(name)
+              "lf-mbinput": _lf_mbinput, "lf-ticket": _lf_ticket}.get(name)
     tally = runner() if runner is not None else _modbus(name)
     tally.problems = tally.problems[:15] + [f"... {len(tally.problems)} in all"] * bool(
         tally.problems)
@@ -159,7 +173,7 @@ def _run(name: str) -> Tally:
 
 
 PROFILES = ["lf-delim", "lf-print", "lf-kv", "lf-mbtcp", "lf-mbrtu", "lf-semi", "lf-noclock",
-            "lf-mbinput"]
+            "lf-mbinput", "lf-ticket"]
 
 
 @pytest.fixture(scope="module")

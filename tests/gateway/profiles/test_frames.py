@@ -18,6 +18,7 @@ from gateway.drivers.lines import RawLine
 from gateway.drivers.serial import _Frames
 from gateway.errors import ConfigError
 from gateway.profiles import StationContext, load_profile, parse_profile
+from gateway.profiles.decoders import serial_parser
 from gateway.records import CalibrationEvent, Rejected, TestResult
 
 AT = datetime(2026, 12, 3, 13, 0, tzinfo=UTC)
@@ -44,7 +45,7 @@ def parse(lines: list[bytes], address: int | None = 1) -> list[object]:
     ctx = StationContext("S", "L", "Europe/Berlin", address=address)
     spec = load_profile("lf-ticket").serial
     assert spec is not None
-    return list(spec.parser(ctx).parse(lines, 1, AT))
+    return list(serial_parser(spec, ctx).parse(lines, 1, AT))
 
 
 def test_a_good_ticket_is_one_record_with_absent_readings() -> None:

@@ -8,6 +8,7 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from gateway.profiles import StationContext, builtin_profiles, load_profile
+from gateway.profiles.decoders import ModbusDecoder, serial_parser
 from gateway.records import CalibrationEvent, Rejected, TestResult
 from tests.gateway.profiles.conftest import RECEIVED
 
@@ -28,14 +29,14 @@ def _ok(items: Sequence[object]) -> None:
 @given(data=st.lists(st.binary(max_size=300), min_size=1, max_size=20))
 def test_random_bytes(data: list[bytes]) -> None:
     for profile in SERIAL:
-        _ok(profile.serial.parser(CTX).parse(data, 1, RECEIVED))  # type: ignore[union-attr]
+        _ok(serial_parser(profile.serial, CTX).parse(data, 1, RECEIVED))  # type: ignore[union-attr]
 
 
 @FAST
 @given(text=st.lists(st.text(max_size=200), min_size=1, max_size=20))
 def test_random_text(text: list[str]) -> None:
     for profile in SERIAL:
-        _ok(profile.serial.parser(CTX).parse(text, 1, RECEIVED))  # type: ignore[union-attr]
+        _ok(serial_parser(profile.serial, CTX).parse(text, 1, RECEIVED))  # type: ignore[union-attr]
 
 
 @FAST
@@ -43,7 +44,7 @@ def test_random_text(text: list[str]) -> None:
                                         "-1", "1e308", "nan", "HX-210", "0.0", "99999999999"]),
                        max_size=18))
 def test_delimited_field_soup(fields: list[str]) -> None:
-    parser = load_profile("lf-delim").serial.parser(CTX)  # type: ignore[union-attr]
+    parser = serial_parser(load_profile("lf-delim").serial, CTX)  # type: ignore[union-attr]
     _ok(parser.parse([";".join(fields)], 1, RECEIVED))
 
 
@@ -54,13 +55,13 @@ def test_delimited_field_soup(fields: list[str]) -> None:
                                                  "2026-12-02T06:15:09Z", "GOOD", "zz"])),
                       max_size=25))
 def test_keyvalue_soup(pairs: list[tuple[str, str]]) -> None:
-    parser = load_profile("lf-kv").serial.parser(CTX)  # type: ignore[union-attr]
+    parser = serial_parser(load_profile("lf-kv").serial, CTX)  # type: ignore[union-attr]
     _ok(parser.parse([f"{k}={v}" for k, v in pairs], 1, RECEIVED))
 
 
 def test_huge_line() -> None:
     for profile in SERIAL:
-        items = profile.serial.parser(CTX).parse(["R;" * 500_000], 1, RECEIVED)  # type: ignore[union-attr]
+        items = serial_parser(profile.serial, CTX).parse(["R;" * 500_000], 1, RECEIVED)  # type: ignore[union-attr]
         assert len(items) == 1 and isinstance(items[0], Rejected)
         assert "max_line" in items[0].reason
 
@@ -71,9 +72,9 @@ def test_random_register_blocks(regs: list[int], cycle: int) -> None:
     for profile in MODBUS:
         m = profile.modbus
         assert m is not None
-        _ok([m.decode_result(regs, cycle, CTX, RECEIVED)])
+        _ok([ModbusDecoder(m).decode_result(regs, cycle, CTX, RECEIVED)])
         if m.calibration is not None:
-            _ok([m.decode_calibration(regs, cycle, CTX, RECEIVED)])
+            _ok([ModbusDecoder(m).decode_calibration(regs, cycle, CTX, RECEIVED)])
 
 
 @FAST
@@ -87,8 +88,8 @@ def test_random_blocks_with_valid_guards(regs: list[int]) -> None:
         guard = [5, 0] if m.result.counter_registers == 2 else [5]
         block[m.result.head_guard : m.result.head_guard + len(guard)] = guard
         block[m.result.tail_guard : m.result.tail_guard + len(guard)] = guard
-        cycle = m.decode_counter(guard)
-        _ok([m.decode_result(block, cycle, CTX, RECEIVED)])
+        cycle = ModbusDecoder(m).decode_counter(guard)
+        _ok([ModbusDecoder(m).decode_result(block, cycle, CTX, RECEIVED)])
 
 
 @FAST
@@ -97,4 +98,4 @@ def test_non_word_registers(regs: list[object]) -> None:
     for profile in MODBUS:
         m = profile.modbus
         assert m is not None
-        _ok([m.decode_result(regs, 1, CTX, RECEIVED)])  # type: ignore[arg-type]
+        _ok([ModbusDecoder(m).decode_result(regs, 1, CTX, RECEIVED)])  # type: ignore[arg-type]

@@ -19,6 +19,7 @@ from gateway.errors import ConfigError
 from gateway.profiles import StationContext, load_profile, parse_profile
 from gateway.profiles.check import check_sample, check_text
 from gateway.profiles.checks import CHECKS, crc16_modbus, lrc8, xor8
+from gateway.profiles.decoders import ModbusDecoder
 from gateway.profiles.model import NumberText
 from gateway.records import Rejected, TestResult
 
@@ -227,14 +228,15 @@ def test_packed_bcd_clock_and_masked_fields() -> None:
     regs[16:18] = [0x3F80, 0]  # float32 1.0, big-endian words (IEEE 754)
     regs[18] = 0b10  # pass
     spec = profile.modbus  # type: ignore[attr-defined]
-    record = spec.decode_result(regs, 7, StationContext("S1", "L1", programs={2: "HX-210"}), NOW)
+    record = ModbusDecoder(spec).decode_result(
+        regs, 7, StationContext("S1", "L1", programs={2: "HX-210"}), NOW)
     assert isinstance(record, TestResult), record
     # 0x2026 0x1203 0x1405 0x0009: packed BCD for 2026-12-03 14:05:09
     assert record.ended_at == datetime(2026, 12, 3, 14, 5, 9, tzinfo=UTC)
     assert record.program == "HX-210"  # the high byte of 0x0203
     assert record.leak_rate_sccm == 1.0 and record.pressure_loss_pa == 1.0
     regs[2] = 0x12A3  # not BCD
-    bad = spec.decode_result(regs, 7, StationContext("S1", "L1"), NOW)
+    bad = ModbusDecoder(spec).decode_result(regs, 7, StationContext("S1", "L1"), NOW)
     assert isinstance(bad, Rejected) and "not a date and time" in bad.reason
 
 
@@ -246,7 +248,7 @@ def test_no_verdict_bit_set_is_rejected_with_the_word() -> None:
     assert spec is not None
     regs = [5, 2026, 12, 3, 14, 5, 9, *([0] * 16), 5]
     regs[18] = 0x3001  # valid, heater, door: no verdict bit
-    out = spec.decode_result(regs, 5, StationContext("S1", "L1"), NOW)
+    out = ModbusDecoder(spec).decode_result(regs, 5, StationContext("S1", "L1"), NOW)
     assert isinstance(out, Rejected) and "no verdict bit set in 0x3001" in out.reason
 
 

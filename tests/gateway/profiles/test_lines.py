@@ -9,6 +9,7 @@ import pint
 import pytest
 
 from gateway.profiles import StationContext, load_profile
+from gateway.profiles.decoders import serial_parser
 from gateway.records import CalibrationEvent, Rejected, TestResult, Verdict
 from tests.gateway.profiles.conftest import RECEIVED
 
@@ -52,7 +53,7 @@ def _one(items: Sequence[object]) -> object:
 
 
 def test_delimited_result(ctx: StationContext) -> None:
-    parser = load_profile("lf-delim").serial.parser(ctx)  # type: ignore[union-attr]
+    parser = serial_parser(load_profile("lf-delim").serial, ctx)  # type: ignore[union-attr]
     r = _one(parser.parse([DELIM_R], 7, RECEIVED))
     assert isinstance(r, TestResult)
     # Europe/Berlin is UTC+1 in December: 07:15:09 local = 06:15:09Z.
@@ -68,7 +69,7 @@ def test_delimited_result(ctx: StationContext) -> None:
 
 
 def test_delimited_calibration_derives_sensitivity(ctx: StationContext) -> None:
-    parser = load_profile("lf-delim").serial.parser(ctx)  # type: ignore[union-attr]
+    parser = serial_parser(load_profile("lf-delim").serial, ctx)  # type: ignore[union-attr]
     c = _one(parser.parse([DELIM_C], 1, RECEIVED))
     assert isinstance(c, CalibrationEvent)
     assert c.ratio == 6.163  # sent by the station, kept as sent
@@ -78,7 +79,7 @@ def test_delimited_calibration_derives_sensitivity(ctx: StationContext) -> None:
 
 
 def test_failing_calibration_without_span_is_kept_and_explained(ctx: StationContext) -> None:
-    parser = load_profile("lf-delim").serial.parser(ctx)  # type: ignore[union-attr]
+    parser = serial_parser(load_profile("lf-delim").serial, ctx)  # type: ignore[union-attr]
     c = _one(parser.parse(["C;2026-12-02 06:00:41;HX-210;41.2;39.8;3.000;350.0;0.966;OK"], 1,
                           RECEIVED))
     assert isinstance(c, CalibrationEvent)
@@ -87,7 +88,7 @@ def test_failing_calibration_without_span_is_kept_and_explained(ctx: StationCont
 
 
 def test_keyvalue_units_from_fields(ctx: StationContext) -> None:
-    parser = load_profile("lf-kv").serial.parser(ctx)  # type: ignore[union-attr]
+    parser = serial_parser(load_profile("lf-kv").serial, ctx)  # type: ignore[union-attr]
     r = _one(parser.parse(KV_RES, 3, RECEIVED))
     assert isinstance(r, TestResult)
     assert r.ended_at == datetime(2026, 12, 2, 6, 15, 9, tzinfo=UTC)  # Z wins over the zone
@@ -104,7 +105,7 @@ def test_keyvalue_units_from_fields(ctx: StationContext) -> None:
 
 
 def test_keyvalue_empty_answer_and_unknown(ctx: StationContext) -> None:
-    parser = load_profile("lf-kv").serial.parser(ctx)  # type: ignore[union-attr]
+    parser = serial_parser(load_profile("lf-kv").serial, ctx)  # type: ignore[union-attr]
     assert parser.parse(["NONE"], 1, RECEIVED) == []
     rej = _one(parser.parse(["ERR=UNKNOWN"], 4, RECEIVED))
     assert isinstance(rej, Rejected) and rej.line_no == 4
@@ -116,7 +117,7 @@ def test_keyvalue_empty_answer_and_unknown(ctx: StationContext) -> None:
 def test_keyvalue_noise_with_the_separator_is_not_taken_for_data(ctx: StationContext) -> None:
     """lf-kv rejects an answer carrying a key no field maps (unknown_keys = "reject"): line
     noise that happens to contain "=" would otherwise ride along inside a stored record."""
-    parser = load_profile("lf-kv").serial.parser(ctx)  # type: ignore[union-attr]
+    parser = serial_parser(load_profile("lf-kv").serial, ctx)  # type: ignore[union-attr]
     noisy = ["'}_hp\\xc9'=4\\xf6-", *KV_RES]
     rej = _one(parser.parse(noisy, 20, RECEIVED))
     assert isinstance(rej, Rejected) and "no field maps" in rej.reason, rej
@@ -152,7 +153,7 @@ passed = { from = "ok", codes = { y = true, n = false } }
 """
     profile = parse_profile(tomllib.loads(text), "kv-line.toml")
     ctx = StationContext("X", "L2")
-    c = _one(profile.serial.parser(ctx).parse(  # type: ignore[union-attr]
+    c = _one(serial_parser(profile.serial, ctx).parse(  # type: ignore[union-attr]
         ["t=1764656441,p=MV-44,m=0.5,s=2.5,q=2,r=1.38,ok=y"], 1, RECEIVED))
     assert isinstance(c, CalibrationEvent)
     assert c.ended_at == datetime.fromtimestamp(1764656441, UTC)
@@ -161,7 +162,7 @@ passed = { from = "ok", codes = { y = true, n = false } }
 
 
 def test_fixed_width_and_regex(ctx: StationContext) -> None:
-    parser = load_profile("lf-print").serial.parser(ctx)  # type: ignore[union-attr]
+    parser = serial_parser(load_profile("lf-print").serial, ctx)  # type: ignore[union-attr]
     row = ("R 0001042 02.12.26 07:15:09 HX-210   HX210-004711   P  350.02   41.8  0.213  2.000"
            "  3.0  8.0 10.0")
     r = _one(parser.parse([row], 1, RECEIVED))
@@ -195,7 +196,7 @@ def test_fixed_width_and_regex(ctx: StationContext) -> None:
     ],
 )
 def test_bad_lines_rejected_with_reason(ctx: StationContext, line: str, reason: str) -> None:
-    parser = load_profile("lf-delim").serial.parser(ctx)  # type: ignore[union-attr]
+    parser = serial_parser(load_profile("lf-delim").serial, ctx)  # type: ignore[union-attr]
     rej = _one(parser.parse([line], 12, RECEIVED))
     assert isinstance(rej, Rejected)
     assert reason in rej.reason
@@ -203,7 +204,7 @@ def test_bad_lines_rejected_with_reason(ctx: StationContext, line: str, reason: 
 
 
 def test_bytes_wrong_encoding_and_too_long(ctx: StationContext) -> None:
-    parser = load_profile("lf-delim").serial.parser(ctx)  # type: ignore[union-attr]
+    parser = serial_parser(load_profile("lf-delim").serial, ctx)  # type: ignore[union-attr]
     rej = _one(parser.parse(["R;1042;é".encode()], 1, RECEIVED))
     assert isinstance(rej, Rejected) and "not valid ascii: byte 0xc3 at position 7" in rej.reason
     assert rej.raw == "52 3b 31 30 34 32 3b c3 a9"
@@ -216,11 +217,11 @@ def test_bytes_wrong_encoding_and_too_long(ctx: StationContext) -> None:
 
 def test_station_timezone_and_dst(ctx: StationContext) -> None:
     summer = DELIM_R.replace("2026-12-02", "2026-07-02")
-    parser = load_profile("lf-delim").serial.parser(ctx)  # type: ignore[union-attr]
+    parser = serial_parser(load_profile("lf-delim").serial, ctx)  # type: ignore[union-attr]
     r = _one(parser.parse([summer], 1, RECEIVED))
     assert isinstance(r, TestResult)
     assert r.ended_at == datetime(2026, 7, 2, 5, 15, 9, tzinfo=UTC)  # CEST = UTC+2
     bad = StationContext("S", "L", "Mars/Olympus")
-    rej = _one(load_profile("lf-delim").serial.parser(bad).parse(  # type: ignore[union-attr]
+    rej = _one(serial_parser(load_profile("lf-delim").serial, bad).parse(  # type: ignore[union-attr]
         [DELIM_R], 1, RECEIVED))
     assert isinstance(rej, Rejected) and "unknown time zone 'Mars/Olympus'" in rej.reason

@@ -9,6 +9,7 @@ import pytest
 
 from gateway.errors import ConfigError
 from gateway.profiles import builtin_dir, builtin_profiles, load_profile
+from gateway.profiles.decoders import ack_registers
 
 
 def _edit(tmp_path: Path, base: str, old: str, new: str, name: str | None = None) -> Path:
@@ -30,7 +31,8 @@ def _fails(path: Path, key: str, expected: str) -> str:
 
 def test_builtins_load() -> None:
     assert builtin_profiles() == ["lf-delim", "lf-kv", "lf-mbinput", "lf-mblast", "lf-mbnoclk",
-                                  "lf-mbrtu", "lf-mbtcp", "lf-noclock", "lf-print", "lf-semi"]
+                                  "lf-mbrtu", "lf-mbtcp", "lf-noclock", "lf-print", "lf-semi",
+                                  "lf-ticket"]
     for name in builtin_profiles():
         p = load_profile(name)
         # lf-kv 1.1: answers with keys no field maps are rejected (unknown_keys = "reject")
@@ -181,7 +183,7 @@ def test_acknowledge_disabled_unless_enabled(tmp_path: Path) -> None:
                  "[modbus.acknowledge]\nenabled = true\naddress = 10\ntype = \"uint16\"\n\n"
                  "[modbus.state]")
     ack = load_profile(path).modbus.acknowledge  # type: ignore[union-attr]
-    assert ack is not None and ack.address == 10 and ack.encode(7) == [7]
+    assert ack is not None and ack.address == 10 and ack_registers(ack, 7) == [7]
     # input-register data (lf-mbrtu reads function 4) acknowledge in a holding register
     path = _edit(tmp_path, "lf-mbrtu", "[modbus.state]",
                  "[modbus.acknowledge]\nenabled = true\naddress = 10\n\n[modbus.state]")

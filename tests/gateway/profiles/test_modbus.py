@@ -9,6 +9,7 @@ import pint
 import pytest
 
 from gateway.profiles import StationContext, load_profile
+from gateway.profiles.decoders import ModbusDecoder
 from gateway.profiles.registers import encode_value
 from gateway.records import CalibrationEvent, Rejected, StationState, TestResult, Verdict
 from tests.gateway.profiles.blocks import encode_block
@@ -29,7 +30,7 @@ def test_tcp_slot(ctx: StationContext) -> None:
     assert m is not None
     assert m.result.slot_address(1042) == 100 + 32 * (1042 % 8)
     regs = encode_block(m.result, 1042, TCP)
-    r = m.decode_result(regs, 1042, ctx, RECEIVED)
+    r = ModbusDecoder(m).decode_result(regs, 1042, ctx, RECEIVED)
     assert isinstance(r, TestResult)
     assert r.cycle == 1042 and r.ended_at == datetime(2026, 12, 2, 6, 15, 9, tzinfo=UTC)
     assert r.program == "HX-210" and r.verdict == Verdict.REJECT
@@ -45,7 +46,8 @@ def test_tcp_slot(ctx: StationContext) -> None:
 def test_tcp_unknown_program_number_is_kept_as_number(ctx: StationContext) -> None:
     m = load_profile("lf-mbtcp").modbus
     assert m is not None
-    r = m.decode_result(encode_block(m.result, 9, {**TCP, "program": 17}), 9, ctx, RECEIVED)
+    r = ModbusDecoder(m).decode_result(encode_block(m.result, 9, {**TCP, "program": 17}), 9, ctx,
+                                       RECEIVED)
     assert isinstance(r, TestResult) and r.program == "17"
 
 
@@ -54,7 +56,7 @@ def test_rtu_slot_scaled_integers(ctx: StationContext) -> None:
     assert m is not None
     regs = encode_block(m.result, 12, RTU)
     assert regs[0:2] == [12, 0]  # CDAB: low word first
-    r = m.decode_result(regs, 12, ctx, RECEIVED)
+    r = ModbusDecoder(m).decode_result(regs, 12, ctx, RECEIVED)
     assert isinstance(r, TestResult)
     assert r.verdict == Verdict.GROSS
     assert r.test_pressure_pa == pytest.approx(137_900)
@@ -72,30 +74,31 @@ def test_torn_and_short_blocks(ctx: StationContext) -> None:
     assert m is not None
     regs = encode_block(m.result, 1042, TCP)
     torn = regs[:28] + encode_value(1034, "uint32")
-    rej = m.decode_result(torn, 1042, ctx, RECEIVED)
+    rej = ModbusDecoder(m).decode_result(torn, 1042, ctx, RECEIVED)
     assert isinstance(rej, Rejected)
     assert rej.reason == "torn block: head guard 1042, tail guard 1034, expected cycle 1042"
-    rej = m.decode_result(regs, 1050, ctx, RECEIVED)
+    rej = ModbusDecoder(m).decode_result(regs, 1050, ctx, RECEIVED)
     assert isinstance(rej, Rejected) and "expected cycle 1050" in rej.reason
-    rej = m.decode_result(regs[:10], 1042, ctx, RECEIVED)
+    rej = ModbusDecoder(m).decode_result(regs[:10], 1042, ctx, RECEIVED)
     assert isinstance(rej, Rejected) and "has 10 registers, expected 30" in rej.reason
-    rej = m.decode_result([*regs[:5], -3, *regs[6:]], 1042, ctx, RECEIVED)
+    rej = ModbusDecoder(m).decode_result([*regs[:5], -3, *regs[6:]], 1042, ctx, RECEIVED)
     assert isinstance(rej, Rejected) and "register +5 is -3" in rej.reason
 
 
 def test_nan_where_not_allowed_and_bad_codes(ctx: StationContext) -> None:
     m = load_profile("lf-mbtcp").modbus
     assert m is not None
-    rej = m.decode_result(encode_block(m.result, 1, {**TCP, "leak_rate_sccm": math.nan}), 1, ctx,
-                          RECEIVED)
+    rej = ModbusDecoder(m).decode_result(
+        encode_block(m.result, 1, {**TCP, "leak_rate_sccm": math.nan}), 1, ctx, RECEIVED)
     assert isinstance(rej, Rejected) and rej.reason.startswith("leak_rate_sccm (register +10 "
                                                                "float32): is NaN")
-    rej = m.decode_result(encode_block(m.result, 1, {**TCP, "verdict": 7}), 1, ctx, RECEIVED)
+    rej = ModbusDecoder(m).decode_result(encode_block(m.result, 1, {**TCP, "verdict": 7}), 1, ctx,
+                                         RECEIVED)
     assert isinstance(rej, Rejected)
     assert "unknown code '7'; expected one of 1, 2, 3, 4" in rej.reason
     regs = encode_block(m.result, 1, TCP)
     regs[20] = 0xC3A4  # UTF-8 "ä" in a part id the profile says is ASCII
-    rej = m.decode_result(regs, 1, ctx, RECEIVED)
+    rej = ModbusDecoder(m).decode_result(regs, 1, ctx, RECEIVED)
     assert isinstance(rej, Rejected) and "part_id" in rej.reason and "not valid ascii" in rej.reason
 
 
@@ -112,7 +115,7 @@ def test_calibration_block(ctx: StationContext, name: str) -> None:
                    standard_sccm=200, standard_ref_pressure_pa=1379)
         master, standard, flow = 38.5, 37.0, None
     regs = encode_block(m.calibration, 3, raw)
-    c = m.decode_calibration(regs, 3, ctx, RECEIVED)
+    c = ModbusDecoder(m).decode_calibration(regs, 3, ctx, RECEIVED)
     assert isinstance(c, CalibrationEvent) and c.program == "HX-230"
     assert (c.master_loss_pa, c.standard_loss_pa) == pytest.approx((master, standard))
     assert c.ratio == pytest.approx(standard / master)
@@ -120,7 +123,7 @@ def test_calibration_block(ctx: StationContext, name: str) -> None:
         assert c.passed and c.sensitivity == pytest.approx(flow / (standard - master))
     else:
         assert not c.passed and c.sensitivity is None and "no span" in c.reason
-    rej = m.decode_calibration(regs, 4, ctx, RECEIVED)
+    rej = ModbusDecoder(m).decode_calibration(regs, 4, ctx, RECEIVED)
     assert isinstance(rej, Rejected) and "expected calibration counter 4" in rej.reason
 
 
@@ -128,14 +131,14 @@ def test_counters_and_state() -> None:
     tcp = load_profile("lf-mbtcp").modbus
     rtu = load_profile("lf-mbrtu").modbus
     assert tcp is not None and rtu is not None
-    assert tcp.decode_counter([0x0001, 0x0002]) == 0x00010002
-    assert rtu.decode_counter([0x0002, 0x0001]) == 0x00010002
-    assert rtu.decode_calibration_counter([5, 0]) == 5
+    assert ModbusDecoder(tcp).decode_counter([0x0001, 0x0002]) == 0x00010002
+    assert ModbusDecoder(rtu).decode_counter([0x0002, 0x0001]) == 0x00010002
+    assert ModbusDecoder(rtu).decode_calibration_counter([5, 0]) == 5
     assert tcp.state is not None and (tcp.state.at, tcp.state.width) == (0, 1)
-    assert tcp.decode_state([5]) == StationState.CALIBRATING
-    assert tcp.decode_state([2]) == StationState.TESTING
-    assert tcp.decode_state([6]) is None
-    assert rtu.decode_state([3]) == StationState.FAULT
+    assert ModbusDecoder(tcp).decode_state([5]) == StationState.CALIBRATING
+    assert ModbusDecoder(tcp).decode_state([2]) == StationState.TESTING
+    assert ModbusDecoder(tcp).decode_state([6]) is None
+    assert ModbusDecoder(rtu).decode_state([3]) == StationState.FAULT
     assert tcp.acknowledge is None and rtu.acknowledge is None
     assert (tcp.framer, tcp.device_id, tcp.function) == ("tcp", 1, 3)
     assert (rtu.framer, rtu.device_id, rtu.function, rtu.baudrate) == ("rtu", 7, 4, 19200)

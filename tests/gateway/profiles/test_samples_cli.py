@@ -165,3 +165,37 @@ def test_list_shows_the_good_profiles_and_names_the_bad_ones(
     assert code == 1 and "lf-delim" in out and "lf-semi" in out
     assert "broken.toml: not valid TOML" in err
     assert "set name = 'my-station'" in err and "Traceback" not in err
+
+
+def test_check_shows_where_each_value_came_from(capsys: pytest.CaptureFixture[str]) -> None:
+    # an integrator sees the raw text behind a value and what the profile did to it
+    rc = main(["profile", "check", "lf-semi", str(SAMPLES / "lf-semi.txt"), "--program",
+               "2=HX-210", "--timezone", "Europe/Berlin", "--json"])
+    assert rc == 0
+    doc = json.loads(capsys.readouterr().out)
+    first = next(e for e in doc["entries"] if e["kind"] == "result")
+    origins = first["origins"]
+    assert origins["test_pressure_pa"] == {
+        "raw": "pressure='2.000,5'", "applied": "decimal ','; thousands '.' dropped; unit mbar"}
+    assert origins["ended_at"]["raw"] == "date+time='03.12.26 14:05:09'"
+    assert origins["verdict"]["applied"] == "code table → pass"
+    assert origins["program"]["applied"] == "program number → station's programs"
+    rc = main(["profile", "check", "lf-mbinput", str(SAMPLES / "lf-mbinput.json"), "--json"])
+    doc = json.loads(capsys.readouterr().out)
+    first = next(e for e in doc["entries"] if e["kind"] == "result")
+    assert first["origins"]["pressure_loss_pa"]["raw"] == "@14: 0000 04E0"
+    assert "× 0.01" in first["origins"]["pressure_loss_pa"]["applied"]
+    rc = main(["profile", "check", "lf-noclock", str(SAMPLES / "lf-noclock.txt"), "--json"])
+    doc = json.loads(capsys.readouterr().out)
+    first = next(e for e in doc["entries"] if e["kind"] == "result")
+    assert "receive time" in first["origins"]["ended_at"]["applied"]
+
+
+def test_check_with_an_address_rejects_a_neighbours_ticket(
+        capsys: pytest.CaptureFixture[str]) -> None:
+    rc = main(["profile", "check", "lf-ticket", str(SAMPLES / "lf-ticket.txt"), "--address", "1",
+               "--json"])
+    assert rc == 0
+    doc = json.loads(capsys.readouterr().out)
+    reasons = [e["record"]["reason"] for e in doc["entries"] if e["kind"] == "rejected"]
+    assert any("station address '02', this station is 1" in r for r in reasons)

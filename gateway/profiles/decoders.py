@@ -1,0 +1,92 @@
+"""The working side of a profile: parsers and decoders compiled from its plain model.
+
+``model`` holds what the loader read (plain, frozen data, no behaviour that reaches the
+parsing code); this module turns it into the objects drivers and ``profile check`` use. The
+imports run one way only: model <- registers/normalise/lines <- decoders.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from datetime import datetime
+from typing import Literal
+
+from gateway.errors import DecodeError
+from gateway.profiles.lines import SerialParser
+from gateway.profiles.model import (
+    AckSpec,
+    CalibrationEvent,
+    ModbusSpec,
+    SerialSpec,
+    StationContext,
+    TestResult,
+)
+from gateway.profiles.normalise import decode_block
+from gateway.profiles.registers import decode_registers, encode_value
+from gateway.records import Rejected, StationState
+
+__all__ = ["ModbusDecoder", "ack_registers", "serial_parser"]
+
+
+def serial_parser(spec: SerialSpec, ctx: StationContext) -> SerialParser:
+    """A station's line/answer parser (its per-field converters are built once, here)."""
+    return SerialParser(spec, ctx)
+
+
+def ack_registers(ack: AckSpec, cycle: int,
+                  word_order: Literal["big", "little"] = "big") -> list[int]:
+    """The registers that acknowledge ``cycle`` (written only when the profile asks)."""
+    return encode_value(cycle, ack.type, word_order=word_order)
+
+
+class ModbusDecoder:
+    """Counters, state, result slots and calibration blocks of one Modbus profile."""
+
+    def __init__(self, spec: ModbusSpec) -> None:
+        self.spec = spec
+
+    def decode_counter(self, regs: Sequence[int]) -> int:
+        """The result counter from its registers as read (DecodeError if they are not words)."""
+        return self._counter(regs, self.spec.result.counter_type)
+
+    def decode_calibration_counter(self, regs: Sequence[int]) -> int:
+        if self.spec.calibration is None:
+            raise ValueError("this profile has no calibration block")
+        return self._counter(regs, self.spec.calibration.counter_type)
+
+    def _counter(self, regs: Sequence[int], type_name: str) -> int:
+        value = decode_registers(list(regs), type_name, word_order=self.spec.word_order,
+                                 byte_order=self.spec.byte_order)
+        assert isinstance(value, int)
+        return value
+
+    def decode_state(self, regs: Sequence[int]) -> StationState | None:
+        """The station state, or None when the register holds a code the profile does not map."""
+        state = self.spec.state
+        if state is None:
+            return None
+        try:
+            value = decode_registers(list(regs), state.type, word_order=state.word_order,
+                                     byte_order=state.byte_order)
+        except DecodeError:
+            return None
+        return self.spec.state_map.get(value) if isinstance(value, int) else None
+
+    def decode_result(self, regs: Sequence[int], expected_cycle: int, ctx: StationContext,
+                      received_at: datetime) -> TestResult | Rejected:
+        address = self.spec.result.slot_address(expected_cycle)
+        out = decode_block(self.spec, "result", self.spec.result, address, regs,
+                           expected_cycle, ctx, received_at)
+        assert not isinstance(out, CalibrationEvent)
+        return out
+
+    def decode_calibration(self, regs: Sequence[int], expected_counter: int,
+                           ctx: StationContext, received_at: datetime
+                           ) -> CalibrationEvent | Rejected:
+        block = self.spec.calibration
+        if block is None:
+            raise ValueError("this profile has no calibration block")
+        out = decode_block(self.spec, "calibration", block, block.address, regs,
+                           expected_counter, ctx, received_at)
+        assert not isinstance(out, TestResult)
+        return out
