@@ -49,6 +49,7 @@ from typing import TYPE_CHECKING, Any
 from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 
 from gateway.config_params import parse_parameters, station_parameters
+from gateway.config_schema import check_config_document
 from gateway.drivers.base import Pacing
 from gateway.errors import ConfigError, UnitError
 from gateway.programs import ProgramParams
@@ -266,6 +267,7 @@ def parse_config(
     store: str | None = None,
     profile_dirs: Sequence[Path] = (),
 ) -> GatewayConfig:
+    check_config_document(doc, file)  # types, choices, ranges (gateway.config_schema)
     r = _Reader(file)
     r.known(doc, "", _TOP)
     site = r.text(doc, "site")

@@ -31,6 +31,15 @@ def register(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
     p.add_argument("--json", action="store_true", help="print one JSON document")
     p.set_defaults(func=_list)
 
+    p = cmds.add_parser(
+        "schema", help="print the JSON Schema of profile files (or of the gateway config)",
+        description="Print the JSON Schema the loader checks files against, for editors that "
+        "complete and check TOML as it is typed (e.g. a first line '#:schema "
+        "schemas/profile.schema.json'). The repository ships both under schemas/.")
+    p.add_argument("--config", action="store_true",
+                   help="the gateway config's schema instead of the profiles'")
+    p.set_defaults(func=_schema)
+
     p = cmds.add_parser("show", help="print a profile's TOML and where it comes from",
                         description="Print a profile file (built-in name, name in --profiles "
                         "DIR, or a path).")
@@ -73,6 +82,18 @@ def register(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
 def _dirs(p: argparse.ArgumentParser) -> None:
     p.add_argument("--profiles", action="append", default=[], metavar="DIR", type=Path,
                    help="directory with more profile files (repeatable)")
+
+
+def _schema(args: argparse.Namespace) -> int:
+    if args.config:
+        from gateway.config_schema import config_json_schema
+
+        print(json.dumps(config_json_schema(), indent=2, ensure_ascii=False))
+    else:
+        from gateway.profiles.schema import profile_json_schema
+
+        print(json.dumps(profile_json_schema(), indent=2, ensure_ascii=False))
+    return 0
 
 
 def _list(args: argparse.Namespace) -> int:

@@ -44,6 +44,7 @@ from gateway.profiles.model import (
     ValueKind,
 )
 from gateway.profiles.registers import NUMERIC_TYPES, parse_type
+from gateway.profiles.schema import check_document
 from gateway.records import StationState, Verdict
 from gateway.units import normalise_unit, parse_quantity
 
@@ -884,7 +885,11 @@ def _modbus(r: _Reader, doc: dict[str, Any], label: str, ref_c: float) -> Modbus
 
 
 def parse_profile(doc: dict[str, Any], file: str) -> Profile:
-    """Validate a parsed TOML document and build the Profile (``file`` names it in errors)."""
+    """Validate a parsed TOML document and build the Profile (``file`` names it in errors).
+
+    First the document's shape (``schema.ProfileDocument``: types, choices, ranges), then what
+    depends on several keys (units, layouts, line kinds) here."""
+    check_document(doc, file)
     r = _Reader(file)
     meta = r.sub(doc, "profile", "")
     r.table(meta, "profile", ("name", "version", "description", "transport", "leak_reference_c"))
