@@ -122,6 +122,8 @@ class Faults:
     exception_code: int = 6  # 04 device failure, 06 device busy
     torn_probability: float = 0.0  # per result/calibration, counter first then the block in halves
     torn_gap_s: float = 0.3  # wall-clock gap between the halves
+    reset_after: int = 0  # results after which the station is power-cycled once (0 = never):
+    #                       its counter starts again from 1 and what it kept in RAM is gone
 
     @property
     def any(self) -> bool:
@@ -675,6 +677,7 @@ def _faults(r: _Reader, kind: str) -> Faults:
         exception_code=exc.integer("code", d.exception_code, minimum=1),
         torn_probability=torn.fraction("probability"),
         torn_gap_s=torn.quantity("gap", "time", f"{d.torn_gap_s} s", positive=True),
+        reset_after=r.integer("reset_after", 0, minimum=0),
     )
     for sub in (slow, exc, torn):
         sub.done()

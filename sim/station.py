@@ -95,6 +95,7 @@ class Activity:
     truncated: bool = False
     duplicate: bool = False
     torn: bool = False
+    reset: bool = False  # the station was power-cycled just before this record (counter at 1)
 
 
 @dataclass(frozen=True, slots=True)
@@ -138,6 +139,7 @@ class _ProgramState:
 class _State:
     t: float
     cycle: int = 0
+    results: int = 0  # results so far (a reset does not count them again)
     calibrations: int = 0
     seal_cycles: int = 0
     program_index: int = 0
@@ -395,7 +397,11 @@ class StationModel:
         ):
             part.retested = True
             s.retest = part
+        reset = bool(self.faults.reset_after) and s.results == self.faults.reset_after
+        if reset:
+            s.cycle = 0  # power-cycled: the counter starts again
         s.cycle += 1
+        s.results += 1
         s.seal_cycles += 1
         ps.cycles_since_calibration += 1
         s.batch_count += 1
@@ -442,6 +448,7 @@ class StationModel:
             publish_at=ended,
             record=record,
             ends_at=ends,
+            reset=reset,
             **self._record_faults(),
         )
 

@@ -29,6 +29,8 @@ from pymodbus.simulator import DataType, SimData, SimDevice
 from sim.formats import Encoded
 from sim.formats_registers import (
     MBINPUT_ACK,
+    MBINPUT_BASE,
+    MBINPUT_SLOT,
     mbinput_result,
     mbinput_slot_address,
     mblast_result,
@@ -203,6 +205,9 @@ class MbInputServer(_TcpTables):
                                  door=self.rng.random() < 0.1)
         address = mbinput_slot_address(record.cycle)
         regs: list[int] = encoded.payload
+        if activity.reset:
+            # power-cycled: the ring lived in RAM; the counter starts again at this record
+            await self.write_regs(_INPUT_REGS, 0, [0] * (MBINPUT_BASE + 4 * MBINPUT_SLOT))
         if activity.torn:
             # a careless firmware: the counter first, then the slot in two halves (the guards
             # at both ends of the slot disagree in between)
