@@ -137,11 +137,22 @@ def normalise_unit(unit: str, kind: Kind) -> str:
     """Canonical spelling of ``unit`` for ``kind``, or a UnitError listing the known ones."""
     key = _key(unit)
     aliases = _ALIASES[kind]
-    if key in aliases:
-        return aliases[key]
-    if key.replace("*", "") in aliases:
-        return aliases[key.replace("*", "")]
-    raise UnitError(f"unknown {kind} unit {unit!r}; known: {', '.join(known_units(kind))}")
+    canonical = aliases.get(key) or aliases.get(key.replace("*", ""))
+    if canonical is None:
+        raise UnitError(f"unknown {kind} unit {unit!r}; known: {', '.join(known_units(kind))}")
+    _check_prefix_case(unit.strip(), canonical)
+    return canonical
+
+
+def _check_prefix_case(text: str, canonical: str) -> None:
+    """Spellings are matched without regard to case (old displays print "MBAR", "KPA"), except
+    where the case of a metric prefix is the meaning: "mPa" (milli) is not "MPa" (mega). A
+    spelling in mixed case whose first letter is m/M against the canonical's is refused."""
+    if text.islower() or text.isupper() or not text[:1] or not canonical[:1]:
+        return
+    if text[0] in "mM" and canonical[0] in "mM" and text[0] != canonical[0]:
+        raise UnitError(f"{text!r}: the case of a metric prefix matters (m = milli, M = mega); "
+                        f"write {canonical!r}")
 
 
 def to_canonical(value: float, unit: str, kind: Kind, *, reference_c: float = 0.0) -> float:
