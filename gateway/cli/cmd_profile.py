@@ -32,6 +32,26 @@ def register(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
     p.set_defaults(func=_list)
 
     p = cmds.add_parser(
+        "draft", help="propose a starting profile from a serial capture",
+        description="Read a serial capture (from 'leakfleet capture' or any terminal log) and "
+        "write a commented TOML profile with what can be read off the bytes: line end, check "
+        "values or STX/ETX frames, separator or key/value pairs, header row, decimal mark, "
+        "date and time formats, which lines are results and which calibrations, the verdict "
+        "codes, the cycle counter, part ids, units in the data. What a capture cannot tell "
+        "(which number is the leak rate, in which unit; the query of a station that must be "
+        "asked) is marked CHOICE for you to fill in. Then run 'leakfleet profile check' on "
+        "the same capture. Fixed-width printouts are not drafted (no separator to find).")
+    p.add_argument("capture", metavar="CAPTURE", help="the capture file")
+    p.add_argument("-o", "--out", type=Path, metavar="FILE",
+                   help="write the draft here (default: print it)")
+    p.add_argument("--force", action="store_true", help="overwrite --out if it exists")
+    p.add_argument("--name", default="my-station",
+                   help="profile name (lower-case letters, digits, '.', '_', '-')")
+    p.add_argument("--json", action="store_true",
+                   help="print the draft, its notes and the choices left as one JSON document")
+    p.set_defaults(func=_draft)
+
+    p = cmds.add_parser(
         "schema", help="print the JSON Schema of profile files (or of the gateway config)",
         description="Print the JSON Schema the loader checks files against, for editors that "
         "complete and check TOML as it is typed (e.g. a first line '#:schema "
@@ -82,6 +102,45 @@ def register(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
 def _dirs(p: argparse.ArgumentParser) -> None:
     p.add_argument("--profiles", action="append", default=[], metavar="DIR", type=Path,
                    help="directory with more profile files (repeatable)")
+
+
+def _draft(args: argparse.Namespace) -> int:
+    import re
+
+    from gateway.workbench.draft import draft_profile
+
+    if not re.fullmatch(r"[a-z0-9][a-z0-9._-]*", args.name):
+        raise ValueError(f"--name: expected lower-case letters, digits, '.', '_' or '-', got "
+                         f"{args.name!r}")
+    try:
+        data = Path(args.capture).read_bytes()
+    except OSError as exc:
+        raise ValueError(f"{args.capture}: cannot read the capture: {exc.strerror or exc}"
+                         ) from None
+    try:
+        draft = draft_profile(data, args.name)
+    except ValueError as exc:
+        raise ValueError(f"{args.capture}: {exc}") from None
+    if args.out is not None:
+        if args.out.exists() and not args.force:
+            raise ValueError(f"--out: {args.out} exists (use --force to overwrite)")
+        args.out.write_text(draft.toml, encoding="utf-8")
+    if args.json:
+        print(json.dumps({**draft.to_json(), "out": str(args.out) if args.out else None},
+                         indent=2))
+        return 0
+    if args.out is None:
+        print(draft.toml, end="")
+    stream = sys.stderr if args.out is None else sys.stdout
+    print("\nfound:", file=stream)
+    for note in draft.notes:
+        print(f"  - {note}", file=stream)
+    print("left to you (CHOICE in the file):", file=stream)
+    for choice in draft.choices:
+        print(f"  - {choice}", file=stream)
+    where = args.out or "THE-DRAFT.toml"
+    print(f"next: leakfleet profile check {where} {args.capture}", file=stream)
+    return 0
 
 
 def _schema(args: argparse.Namespace) -> int:
