@@ -82,7 +82,25 @@ def register(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
         ),
     )
     p.add_argument("profile", metavar="PROFILE", help="profile name or path to a .toml file")
-    p.add_argument("sample", metavar="SAMPLE", help="captured sample file")
+    p.add_argument("sample", metavar="SAMPLE", nargs="?",
+                   help="captured sample file (or --endpoint for a live station)")
+    p.add_argument("--endpoint", metavar="URL",
+                   help="read a live station instead: tcp://host:port (serial device server "
+                        "or Modbus TCP), a tty path or socket://host:port; read-only unless "
+                        "--allow-writes")
+    p.add_argument("--records", type=int, default=5, metavar="N",
+                   help="with --endpoint: stop after N records (default 5)")
+    p.add_argument("--seconds", type=float, default=60.0, metavar="S",
+                   help="with --endpoint: give up after S seconds (default 60)")
+    p.add_argument("--timeout", type=float, default=2.0, metavar="S",
+                   help="with --endpoint: how long one answer may take (default 2)")
+    p.add_argument("--poll", type=float, default=0.5, metavar="S",
+                   help="with --endpoint: time between polls (default 0.5)")
+    p.add_argument("--device-id", type=int, default=None, metavar="N",
+                   help="with --endpoint: the Modbus device id, if not the profile's")
+    p.add_argument("--allow-writes", action="store_true",
+                   help="with --endpoint: let the profile's acknowledge writes happen (off by "
+                        "default: a check never writes to a station)")
     p.add_argument("--json", action="store_true", help="print one JSON document")
     p.add_argument("--station", default="SAMPLE", help="station id to put on records")
     p.add_argument("--line", default="L1", help="production line to put on records")
@@ -222,14 +240,23 @@ def _check(args: argparse.Namespace) -> int:
         except (ZoneInfoNotFoundError, ValueError):
             raise ValueError(f"--timezone: expected an IANA time zone, got {args.timezone!r}"
                              ) from None
+    if (args.sample is None) == (args.endpoint is None):
+        raise ValueError("give a SAMPLE file or --endpoint URL (one of the two)")
     profile = load_profile(args.profile, args.profiles)
-    try:
-        data = Path(args.sample).read_bytes()
-    except OSError as exc:
-        raise ConfigError(f"{args.sample}: cannot read sample: {exc.strerror or exc}") from None
     ctx = StationContext(args.station, args.line, args.timezone, _programs(args.program),
                          address=args.address)
-    entries = check_sample(profile, data, ctx, datetime.now(UTC), args.sample)
+    if args.endpoint is not None:
+        from gateway.cli.profile_live import check_endpoint
+
+        entries = check_endpoint(args, profile, ctx)
+        args.sample = args.endpoint
+    else:
+        try:
+            data = Path(args.sample).read_bytes()
+        except OSError as exc:
+            raise ConfigError(f"{args.sample}: cannot read sample: {exc.strerror or exc}"
+                              ) from None
+        entries = check_sample(profile, data, ctx, datetime.now(UTC), args.sample)
     counts = {"result": 0, "calibration": 0, "rejected": 0}
     for e in entries:
         if isinstance(e.item, Rejected):

@@ -215,4 +215,8 @@ def check_sample(profile: Profile, data: bytes, ctx: StationContext, received_at
         doc = json.loads(data.decode("utf-8"))
     except (UnicodeDecodeError, json.JSONDecodeError) as exc:
         raise ConfigError(f"{file}: expected a register dump in JSON ({exc})") from None
+    from gateway.profiles.check_image import check_image, is_image
+
+    if is_image(doc):  # what 'leakfleet probe modbus --dump' wrote
+        return check_image(profile, doc, ctx, received_at, file)
     return check_registers(profile, doc, ctx, received_at, file)
