@@ -24,13 +24,14 @@ class Counter:
     table: str
     address: int
     width: int  # registers: 1 or 2
-    order: str  # "" for one register; "ABCD" (high word first) or "CDAB"
+    order: str  # "" or "BA" (bytes swapped) for one register; ABCD, CDAB, BADC or DCBA
     values: tuple[int, ...]
     steps: int  # how many times it advanced
 
     @property
     def label(self) -> str:
-        kind = "uint16" if self.width == 1 else f"uint32 {self.order}"
+        kind = (f"uint16{' bytes swapped' if self.order else ''}" if self.width == 1
+                else f"uint32 {self.order}")
         return f"{self.table} {self.address} ({kind})"
 
 
@@ -62,6 +63,10 @@ def _steps(values: Sequence[int], modulus: int, max_step: int) -> int | None:
             return None
         steps += 1
     return steps
+
+
+def _swap(word: int) -> int:
+    return ((word & 0xFF) << 8) | (word >> 8)
 
 
 def changed_runs(keys: Sequence[Key], gap: int = 2) -> list[tuple[str, int, int]]:
@@ -118,20 +123,28 @@ def watch_report(snapshots: Sequence[Snapshot], max_step: int = 5) -> WatchRepor
         series = _series(snapshots, (table, address))
         if series is None or table in ("coils", "discrete"):
             continue
-        steps = _steps(series, 1 << 16, max_step)
-        if steps and steps >= 1:
-            counters.append(Counter(table, address, 1, "", tuple(series), steps))
-        for other, order in ((address + 1, "ABCD"), (address - 1, "CDAB")):
-            pair = _series(snapshots, (table, other))
-            if pair is None:
-                continue
-            hi, lo = (series, pair) if order == "ABCD" else (pair, series)
-            joined = [(h << 16) | low for h, low in zip(hi, lo, strict=True)]
-            at = address if order == "ABCD" else other
-            if any(h for h in hi) and (n32 := _steps(joined, 1 << 32, max_step)):
-                counters.append(Counter(table, at, 2, order, tuple(joined), n32))
-    # the best counter: steps most often (one step per station cycle), lowest address
-    counters.sort(key=lambda c: (-c.steps, c.width, c.address))
+        for swapped in (False, True):  # bytes low first in each word: "BA", BADC, DCBA
+            words = [_swap(v) for v in series] if swapped else series
+            steps = _steps(words, 1 << 16, max_step)
+            if steps and steps >= 1:
+                counters.append(Counter(table, address, 1, "BA" if swapped else "",
+                                        tuple(words), steps))
+            for other, order in ((address + 1, "BADC" if swapped else "ABCD"),
+                                 (address - 1, "DCBA" if swapped else "CDAB")):
+                pair = _series(snapshots, (table, other))
+                if pair is None:
+                    continue
+                if swapped:
+                    pair = [_swap(v) for v in pair]
+                hi, lo = (words, pair) if order in ("ABCD", "BADC") else (pair, words)
+                joined = [(h << 16) | low for h, low in zip(hi, lo, strict=True)]
+                at = address if order in ("ABCD", "BADC") else other
+                if any(h for h in hi) and (n32 := _steps(joined, 1 << 32, max_step)):
+                    counters.append(Counter(table, at, 2, order, tuple(joined), n32))
+    # the best counter: steps most often (one step per station cycle), then plain byte order
+    # (a swapped reading of a word that steps by one steps by 256), one word, lowest address
+    counters.sort(key=lambda c: (-c.steps, "BA" in c.order or c.order in ("BADC", "DCBA"),
+                                 c.width, c.address))
     blocks: list[tuple[str, int, int]] = []
     ring = None
     notes: list[str] = []

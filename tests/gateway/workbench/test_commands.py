@@ -143,3 +143,40 @@ async def test_capture_a_streaming_station_and_check_it(tmp_path: Path) -> None:
 
 def test_float_helper_is_big_endian() -> None:
     assert struct.unpack(">HH", struct.pack(">f", 1.0)) == (0x3F80, 0)
+
+
+async def test_probe_finds_the_annex_modbus_layouts(tmp_path: Path) -> None:
+    """lf-mbinput (sim/README.md): uint16 counter at input 0 that wraps, 4 slots of 24 from 10,
+    test pressure float32 with the low word first (CDAB) in mbar at slot offset 12;
+    lf-mbnoclk: a block at holding 0..6 rewritten by every result, cycle uint32 DCBA at 0."""
+    # 60x with a poll every 0.5 s: about one station cycle per poll, as a person probing a
+    # real station every few seconds sees it
+    async with running_plant("annex", tmp_path, speed=60) as plant:
+        # probing starts once the station has results (a counter jumping from 0 to 65530 on
+        # power-up is no step)
+        await plant.wait_for(lambda t: sum(e["station"] == "L3-S3" for e in t) >= 2, timeout=30)
+        ep = plant.endpoints["L3-S3"]
+        rc, out, err = await _leakfleet(
+            "probe", "modbus", f"tcp://{ep.host}:{ep.port}", "--device", "1", "--table",
+            "input", "--range", "0-120", "--watch", "8", "--interval", "0.5", "--json")
+        assert rc == 0, err
+        report = json.loads(out)
+        watch = report["watch"]
+        found = [(c["table"], c["address"]) for c in watch["counters"]]
+        assert found[0] == ("input", 0), found
+        assert watch["ring"] is None or watch["ring"][1] == 24
+        pairs = report["tables"]["input"]["pairs"]
+        # 20 psi = 1378.95 mbar (pint: Quantity(20, "psi").to("mbar")): MV-44's test pressure
+        pressures = [p["float32"] for p in pairs if p["order"] == "CDAB"
+                     and (p["address"] - 10) % 24 == 12 and 1300 < p["float32"] < 1450]
+        assert pressures
+
+        ep = plant.endpoints["L3-S5"]
+        rc, out, err = await _leakfleet(
+            "probe", "modbus", f"tcp://{ep.host}:{ep.port}", "--device", "1", "--table",
+            "holding", "--range", "0-20", "--watch", "6", "--interval", "0.6", "--json")
+        assert rc == 0, err
+        watch = json.loads(out)["watch"]
+        assert watch["counters"] and watch["counters"][0]["address"] in (0, 1)
+        assert watch["counters"][0]["order"] in ("BA", "DCBA")  # bytes low first (DCBA)
+        assert any(block[1] <= 6 for block in watch["blocks"]), watch  # the block at 0..6
