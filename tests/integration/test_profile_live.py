@@ -83,6 +83,29 @@ async def test_live_checks_of_the_annex_types(tmp_path: Path) -> None:
             truth = {e["reported"]["cycle"] for e in plant.entries(station, "result")}
             assert got and {e["record"]["cycle"] for e in got} <= truth, (station, got)
 
+    # silence: a port that accepts and never says anything; and garbage: noise, no records
+    async def mute(reader: asyncio.StreamReader, writer: asyncio.StreamWriter) -> None:
+        await reader.read()
+
+    async def noisy(reader: asyncio.StreamReader, writer: asyncio.StreamWriter) -> None:
+        writer.write(bytes(range(256)) * 8)
+        await writer.drain()
+        await reader.read()
+
+    for handler, expect in ((mute, "the station sent nothing"), (noisy, None)):
+        server = await asyncio.start_server(handler, "127.0.0.1", 0)
+        port = server.sockets[0].getsockname()[1]
+        try:
+            rc, out, err = await _cli("lf-semi", "--endpoint", f"tcp://127.0.0.1:{port}",
+                                      "--seconds", "3", "--json")
+        finally:
+            server.close()
+        assert "Traceback" not in err
+        if expect is not None:
+            assert rc == 2 and expect in err and err.count("\n") == 1, err
+        else:  # noise is quarantined as rejected lines, never taken as records
+            assert rc == 0 and json.loads(out)["summary"]["results"] == 0, (out, err)
+
     rc, out, err = await _cli("lf-semi", "--endpoint", "tcp://127.0.0.1:9", "--seconds", "2")
     assert rc == 2 and "cannot open tcp://127.0.0.1:9" in err, err
     assert "Traceback" not in err
