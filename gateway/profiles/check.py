@@ -6,40 +6,18 @@ Pure: takes the sample's bytes/JSON document, returns what the gateway would mak
 from __future__ import annotations
 
 import json
-from collections.abc import Mapping, Sequence
-from dataclasses import dataclass
 from datetime import datetime
 from typing import Any
 
 from gateway.errors import ConfigError, DecodeError
 from gateway.profiles.decoders import ModbusDecoder, serial_parser
-from gateway.profiles.explain import FieldOrigin, explain_fields
+from gateway.profiles.entries import Entry, FieldOrigin, _origins
 from gateway.profiles.model import FieldSpec, Parsed, Profile, SerialSpec, StationContext
 from gateway.profiles.normalise import reject
 from gateway.profiles.registers import registers_hex
 from gateway.records import Rejected
 
 __all__ = ["Entry", "check_registers", "check_sample", "check_text"]
-
-
-@dataclass(frozen=True, slots=True)
-class Entry:
-    """One outcome: where in the sample it came from, and the record, rejection or value."""
-
-    line_no: int
-    where: str
-    item: Parsed | None = None
-    note: str = ""  # counters and state (no record)
-    origins: tuple[FieldOrigin, ...] = ()  # where each value of an accepted record came from
-
-
-def _origins(fields: Sequence[FieldSpec], item: Parsed, *, raw: Mapping[str, str] | None = None,
-             registers: Sequence[int] | None = None) -> tuple[FieldOrigin, ...]:
-    if isinstance(item, Rejected):
-        return ()
-    values = item.to_dict()
-    return tuple(explain_fields(fields, values, dict(item.supplied), raw=raw,
-                                registers=registers))
 
 
 def _kind_fields(spec: SerialSpec, record: str) -> tuple[FieldSpec, ...]:

@@ -15,6 +15,7 @@ from typing import Any
 
 from gateway.errors import ConfigError, DecodeError
 from gateway.profiles.decoders import ModbusDecoder
+from gateway.profiles.entries import Entry, _origins
 from gateway.profiles.model import Parsed, Profile, StationContext
 
 __all__ = ["check_image", "is_image"]
@@ -28,7 +29,6 @@ def is_image(doc: Any) -> bool:
 
 def check_image(profile: Profile, doc: dict[str, Any], ctx: StationContext,
                 received_at: datetime, file: str = "sample") -> list[Any]:
-    from gateway.profiles.check import Entry, _origins
     from gateway.workbench.dump import dump_from_json
 
     spec = profile.modbus
