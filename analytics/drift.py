@@ -234,6 +234,9 @@ class HealthConfig:
     """Limits and chart settings for calibration health (per plant; same for every station)."""
 
     min_ratio: float | None = None
+    # the span must stand this many σ of the master loss clear of it (None: not checked);
+    # unlike the ratio it stays meaningful when the master loss is near or below zero
+    min_window: float | None = 10.0
     master_loss_limit_pa: float | None = None
     baseline_points: int = 10
     ewma_lambda: float = 0.2
@@ -249,7 +252,7 @@ class Alarm(ResultMixin):
     station: str
     program: str
     at: datetime | None
-    kind: Literal["ewma", "cusum", "ratio", "failed", "projection"]
+    kind: Literal["ewma", "cusum", "ratio", "window", "failed", "projection"]
     series: str
     message: str
 
@@ -340,7 +343,16 @@ def _series_health(station: str, program: str, g: pd.DataFrame, cfg: HealthConfi
                 )
     reasons = g["reason"].fillna("").astype(str).tolist() if "reason" in g else [""] * len(g)
     ratios = pd.to_numeric(g["ratio"], errors="coerce").to_numpy(dtype=float)
-    for ts, ok, reason, ratio in zip(times, passed, reasons, ratios, strict=True):
+    masters = g["master_loss_pa"].to_numpy(dtype=float)
+    spans = g["standard_loss_pa"].to_numpy(dtype=float) - masters
+    # σ of the master loss from its moving ranges (MR̄/1.128, NIST/SEMATECH e-Handbook
+    # 6.3.2.2), the scatter a good part's loss has between calibrations
+    noise = float(np.mean(np.abs(np.diff(masters)))) / 1.128 if len(masters) >= 3 else 0.0
+    for ts, ok, reason, ratio, span in zip(times, passed, reasons, ratios, spans, strict=True):
+        if cfg.min_window is not None and noise > 0 and span / noise < cfg.min_window:
+            alarms.append(Alarm(station, program, ts, "window", "standard_loss_pa",
+                                f"span {span:.3g} Pa is {span / noise:.1f} σ of the master loss "
+                                f"(σ {noise:.3g} Pa), under {cfg.min_window:g}"))
         if ok is False:
             why = f": {reason}" if reason else ""
             alarms.append(

@@ -178,6 +178,7 @@ class GrrReport(ResultMixin):
     variance_components: dict[str, float]
     range_flags: list[str]
     note: str
+    resolution: float | None = None  # apparent resolution of the readings (rule of tens)
 
 
 def _layout(
@@ -258,6 +259,22 @@ def _finish(
     )
     if ndc < 5:
         verdict += f"; ndc {ndc} < 5"
+    # the rule of tens (AIAG MSA 4th ed., "discrimination"): the readings must resolve at
+    # least a tenth of the spread they are judged against; coarser readings hide the
+    # repeatability (often EV = 0 from identical repeats) and flatter every figure above
+    resolution = data_resolution(cube)
+    against = tolerance if tolerance else 6.0 * tv
+    resolution_note = ""
+    if resolution is not None and against > 0 and resolution > against / 10.0:
+        resolution_note = (f"readings resolve {resolution:.4g}, more than a tenth of the "
+                           f"{'tolerance' if tolerance else 'study spread (6 TV)'} "
+                           f"{against:.4g}: too coarse to judge the gauge")
+    if ev == 0.0:
+        resolution_note = resolution_note or (
+            "repeats never differ: the repeatability is below the readings' resolution"
+            + (f" ({resolution:.4g})" if resolution is not None else ""))
+    if resolution_note:
+        verdict = f"not assessable: {resolution_note} (use finer readings)"
     ranges = cube.max(axis=2) - cube.min(axis=2)
     flags = []
     if r in _D4:
@@ -296,7 +313,29 @@ def _finish(
         },
         range_flags=flags,
         note=note,
+        resolution=resolution,
     )
+
+
+def _f_ratio(num: float, den: float) -> float:
+    """An F ratio; with no scatter left to test against (quantised readings) it is infinite
+    when the effect is there and undefined (NaN) when it is not."""
+    if den > 1e-300:
+        return num / den
+    return math.inf if num > 1e-300 else math.nan
+
+
+def _f_p(f: float, df1: int, df2: int) -> float:
+    return float(stats.f.sf(f, df1, df2)) if math.isfinite(f) else (0.0 if f > 0 else math.nan)
+
+
+def data_resolution(values: np.ndarray) -> float | None:
+    """The readings' apparent resolution: the smallest step between distinct values (None
+    when all readings are equal)."""
+    distinct = np.unique(np.round(values.ravel(), 12))
+    if len(distinct) < 2:
+        return None
+    return float(np.diff(distinct).min())
 
 
 def grr_anova(
@@ -318,8 +357,13 @@ def grr_anova(
     ss_op = p * r * float(((op_means - grand) ** 2).sum())
     ss_part = o * r * float(((part_means - grand) ** 2).sum())
     ss_cells = r * float(((cell - grand) ** 2).sum())
-    ss_int = ss_cells - ss_op - ss_part
     ss_err = float(((cube - cell[:, :, None]) ** 2).sum())
+    # sums of squares that differ from zero only by rounding (repeats that never differ,
+    # an interaction that is exactly none) are zero, not a 1e-17 that becomes a huge ndc
+    noise = 1e-12 * max(float(((cube - grand) ** 2).sum()), 1e-300)
+    ss_int = ss_cells - ss_op - ss_part
+    ss_op, ss_part, ss_int, ss_err = (x if abs(x) > noise else 0.0
+                                      for x in (ss_op, ss_part, ss_int, ss_err))
     df_op, df_part, df_int, df_err = o - 1, p - 1, (o - 1) * (p - 1), o * p * (r - 1)
     ms_op, ms_part = ss_op / df_op, ss_part / df_part
     ms_int, ms_err = ss_int / df_int, ss_err / df_err
@@ -330,12 +374,10 @@ def grr_anova(
     # mean square; otherwise against the interaction mean square (AIAG MSA 4th ed.).
     df_res, ms_res = df_int + df_err, (ss_int + ss_err) / (df_int + df_err)
     df_den, ms_den = (df_res, ms_res) if pooled else (df_int, ms_int)
-    f_op, f_part = ms_op / ms_den, ms_part / ms_den
+    f_op, f_part = _f_ratio(ms_op, ms_den), _f_ratio(ms_part, ms_den)
     table = [
-        AnovaRow(
-            "part", df_part, ss_part, ms_part, f_part, float(stats.f.sf(f_part, df_part, df_den))
-        ),
-        AnovaRow("operator", df_op, ss_op, ms_op, f_op, float(stats.f.sf(f_op, df_op, df_den))),
+        AnovaRow("part", df_part, ss_part, ms_part, f_part, _f_p(f_part, df_part, df_den)),
+        AnovaRow("operator", df_op, ss_op, ms_op, f_op, _f_p(f_op, df_op, df_den)),
     ]
     if pooled:
         table.append(

@@ -80,11 +80,20 @@ class Calibration:
         return self.standard_loss_pa - self.master_loss_pa
 
     @property
-    def ratio(self) -> float:
-        """standard_loss / master_loss: the window between a good part and a leaking one."""
-        if self.master_loss_pa == 0:
-            return math.inf
+    def ratio(self) -> float | None:
+        """standard_loss / master_loss, or None when the master loss is not above zero: the
+        ratio is undefined there (one rule in records, reports and the simulator); judge such
+        a calibration by ``window`` instead."""
+        if self.master_loss_pa <= 0:
+            return None
         return self.standard_loss_pa / self.master_loss_pa
+
+    def window(self, loss_noise_pa: float) -> float:
+        """The span in units of the loss noise (σ of a master-part loss): how far a leak of the
+        standard's size stands out of the scatter of a good part. Meaningful also when the
+        master loss is near or below zero, where the ratio is not."""
+        _positive("loss_noise_pa", loss_noise_pa)
+        return self.span_pa / loss_noise_pa
 
     @property
     def sensitivity(self) -> float:

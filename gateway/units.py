@@ -1,9 +1,17 @@
 """Units for pressure, leak rate, volume, time and temperature.
 
-Canonical units: Pa, sccm (standard cm³/min at 0 °C and 101.325 kPa), m³, s, °C. Leak rates in
-pV-throughput units (mbar·L/s, Pa·m³/s, Torr·L/s) are taken at the reference temperature, so
-1 Pa·m³/s = 6e7/101325 sccm whatever the reference; only the standard-volume units (sccm, sccs,
-slm) change value between the 0 °C and 20 °C bases.
+Canonical units: Pa, sccm (standard cm³/min at 0 °C and 101.325 kPa), m³, s, °C.
+
+One convention for every leak unit: a leak rate is an amount of gas per time, and a value is
+on a basis, the reference temperature (0 or 20 °C) at which its gas volume is counted. For
+standard-volume units (sccm, sccs, slm) that is the temperature of the standard volume; for
+pV-throughput units (mbar·L/s, Pa·m³/s, Torr·L/s) it is the temperature of the gas whose p·V is
+counted, since a throughput is an amount of gas only at a stated temperature (ISO 3529-1,
+vacuum vocabulary: throughput is pV flow at a specified temperature). So on either basis
+1 Pa·m³/s = 6e7/101325 sccm (the pV at P_std is the standard volume, at the same
+temperature), and moving a value from the 20 °C to the 0 °C basis multiplies every leak unit
+by 273.15/293.15 alike. ``calc convert --from-reference/--to-reference`` and a profile's
+``leak_reference_c`` follow this one rule.
 """
 
 from __future__ import annotations
@@ -85,8 +93,8 @@ _FACTORS: dict[Kind, dict[str, float]] = {
     "temperature": {"C": 1.0, "K": 1.0},  # handled as offsets below
 }
 
-# Units whose value depends on the reference temperature of "standard" volume.
-_STANDARD_VOLUME_UNITS = {"sccm", "sccs", "slm"}
+# Every leak unit is on a basis (see the module docstring): all change with the reference.
+_STANDARD_VOLUME_UNITS = frozenset(_FACTORS["leak"])
 
 _ALIASES: dict[Kind, dict[str, str]] = {
     "pressure": {

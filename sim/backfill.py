@@ -18,7 +18,6 @@ gateway re-reading the same cycles would be de-duplicated.
 from __future__ import annotations
 
 import hashlib
-import math
 import sqlite3
 from collections.abc import Callable
 from dataclasses import dataclass
@@ -31,6 +30,7 @@ import numpy as np
 from gateway.calibration import expected_loss_pa
 from gateway.store.summaries import fold_results, rebuild_summaries
 from sim.scenario import Population, Program, Scenario, Station, load_scenario
+from sim.station import WINDOW_MIN
 
 __all__ = ["BackfillStats", "backfill", "journal_path"]
 
@@ -215,15 +215,19 @@ class _StationStream:
         rng = self.rng
         master = round(master_pa + float(rng.normal(0, 0.2)), 1)
         standard = round(master + span_pa * float(rng.normal(1.0, 0.01)), 1)
-        ratio = standard / master if master > 0 else math.inf
-        passed = ratio >= p.ratio_min
+        # the ratio is undefined with no positive master loss: then the span is judged
+        # against the loss noise (0.2 Pa here), as the live stations do (sim.station)
+        ratio = standard / master if master > 0 else None
+        passed = (ratio >= p.ratio_min if ratio is not None
+                  else standard - master >= WINDOW_MIN * 0.2)
+        why = (f"ratio {ratio:.2f} below {p.ratio_min:g}" if ratio is not None
+               else f"span under {WINDOW_MIN:g} × the loss noise")
         sens = p.standard.flow_sccm / (standard - master)
         return (
             _record_id("calibration", self.st.name, p.name, _iso_us(end)), self.st.name,
             self.st.line, end, end + 200_000, p.name, master, standard, p.standard.flow_sccm,
-            p.standard.reference_pressure_pa, round(ratio, 4), sens, int(passed),
-            "" if passed else f"ratio {ratio:.2f} below {p.ratio_min:g}", "", self.profile,
-            "station", None,
+            p.standard.reference_pressure_pa, None if ratio is None else round(ratio, 4), sens,
+            int(passed), "" if passed else why, "", self.profile, "station", None,
         )  # fmt: skip
 
 

@@ -134,7 +134,7 @@ def delim_result(r: SimResult, tz: ZoneInfo) -> Encoded:
 def delim_calibration(c: SimCalibration, tz: ZoneInfo) -> Encoded:
     """``C;...`` line (without the line end)."""
     local = _seconds(c.station_time).astimezone(tz)
-    ratio = c.ratio if math.isfinite(c.ratio) else 999.999
+    ratio = c.ratio
     fields = [
         "C",
         local.strftime("%Y-%m-%d %H:%M:%S"),
@@ -143,7 +143,7 @@ def delim_calibration(c: SimCalibration, tz: ZoneInfo) -> Encoded:
         _fixed(c.standard_loss_pa, 1),
         _fixed(c.standard_sccm, 3),
         _fixed(from_canonical(c.standard_ref_pressure_pa, "kPa", "pressure"), 1),
-        _fixed(ratio, 3),
+        "" if ratio is None else _fixed(ratio, 3),
         "OK" if c.passed else "NG",
     ]
     master, standard, flow = float(fields[3]), float(fields[4]), float(fields[5])
@@ -154,7 +154,7 @@ def delim_calibration(c: SimCalibration, tz: ZoneInfo) -> Encoded:
         "standard_loss_pa": standard,
         "standard_sccm": flow,
         "standard_ref_pressure_pa": _back(fields[6], "kPa", "pressure"),
-        "ratio": float(fields[7]),
+        "ratio": float(fields[7]) if fields[7] else None,
         "sensitivity": _sensitivity(flow, master, standard),
         "passed": c.passed,
     }

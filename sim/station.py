@@ -25,7 +25,11 @@ from gateway.records import Verdict
 from sim.physics import TestConditions, fill_pressure_pa, laminar_flow, simulate_test
 from sim.scenario import Faults, Population, Program, Scenario, Station
 
-__all__ = ["Activity", "Ambient", "SimCalibration", "SimResult", "StationModel"]
+__all__ = ["WINDOW_MIN", "Activity", "Ambient", "SimCalibration", "SimResult", "StationModel"]
+
+#: the smallest span, in loss-noise σ, a calibration with no positive master loss passes with
+#: (common practice: a standard's signal well clear of a good part's scatter)
+WINDOW_MIN = 10.0
 
 VENT_S = 1.5
 MASTER_LOAD_S = 8.0
@@ -74,7 +78,7 @@ class SimCalibration:
     standard_loss_pa: float
     standard_sccm: float
     standard_ref_pressure_pa: float
-    ratio: float
+    ratio: float | None  # None: undefined (master loss not above zero)
     sensitivity: float
     passed: bool
     reason: str
@@ -265,8 +269,13 @@ class StationModel:
             self.rng.gauss(0, MASTER_OFFSET_SD_K),
         )
         ended = t_fill2 + program.fill_s + program.stabilise_s + program.test_s
-        ratio = standard / master if master > 0 else math.inf
-        passed = standard > master and ratio >= program.ratio_min
+        # the ratio is undefined when the master loss is not above zero (gateway.calibration):
+        # then the window is judged by the span against the loss noise instead
+        ratio = standard / master if master > 0 else None
+        if ratio is not None:
+            passed = standard > master and ratio >= program.ratio_min
+        else:
+            passed = standard - master >= WINDOW_MIN * max(self.station.noise_pa, 1e-9)
         if passed:
             cal = Calibration(master, standard, std.flow_sccm)
             ps.calibration = cal
@@ -278,7 +287,9 @@ class StationModel:
         else:
             span = standard - master
             sensitivity = std.flow_sccm / span if span > 0 else 0.0
-            reason = f"ratio {ratio:.3f} below minimum {program.ratio_min:.3f}"
+            reason = (f"ratio {ratio:.3f} below minimum {program.ratio_min:.3f}"
+                      if ratio is not None else
+                      f"span {standard - master:.1f} Pa under {WINDOW_MIN:g} × the loss noise")
             # maintenance replaces the worn seal, then the station calibrates once more
             s.seal_cycles = 0
             s.failed_calibrations += 1

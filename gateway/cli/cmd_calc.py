@@ -9,6 +9,8 @@ from typing import Any
 ORDER = 80
 
 _REF_HELP = "reference temperature of standard volume: 0 (default) or 20 °C"
+#: the gas temperature when none is given: a part at room temperature (common practice)
+ROOM_C = 20.0
 
 
 def register(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
@@ -57,7 +59,8 @@ def register(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
         "--pressure",
         help="test pressure (gauge), e.g. 10psi; used to check the loss is < 10 %% of it",
     )
-    p.add_argument("--gas-temperature", help="gas temperature if not the reference, e.g. 25C")
+    p.add_argument("--gas-temperature",
+                   help="temperature of the gas in the part, e.g. 25C (default 20 °C, room)")
     p.add_argument("--unit", default="Pa", help="unit to print the loss in (default Pa)")
     _common(p)
     p.set_defaults(func=_decay)
@@ -70,7 +73,8 @@ def register(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
     p.add_argument("--volume", required=True, help="test volume, e.g. 120cc")
     p.add_argument("--leak", required=True, help="leak rate to detect, e.g. 5sccm")
     p.add_argument("--loss", required=True, help="pressure loss wanted, e.g. 0.1psi")
-    p.add_argument("--gas-temperature", help="gas temperature if not the reference, e.g. 25C")
+    p.add_argument("--gas-temperature",
+                   help="temperature of the gas in the part, e.g. 25C (default 20 °C, room)")
     _common(p)
     p.set_defaults(func=_test_time)
 
@@ -86,13 +90,13 @@ def register(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
         "--from-reference",
         type=float,
         default=0.0,
-        help="reference °C of FROM (0 or 20, sccm/sccs/slm only)",
+        help="reference °C of FROM: 0 or 20, the basis of every leak unit (gateway/units.py)",
     )
     p.add_argument(
         "--to-reference",
         type=float,
         default=0.0,
-        help="reference °C of TO (0 or 20, sccm/sccs/slm only)",
+        help="reference °C of TO: 0 or 20, the basis of every leak unit (gateway/units.py)",
     )
     p.add_argument("--json", action="store_true", help="print one JSON object")
     p.set_defaults(func=_convert)
@@ -139,11 +143,28 @@ def _leak_rate(args: argparse.Namespace) -> int:
         "sensitivity_sccm_per_pa": cal.sensitivity,
         "reference_c": args.reference,
     }
+    ratio = "undefined (master loss ≤ 0)" if cal.ratio is None else f"{cal.ratio:.3g}"
     line = (
-        f"leak rate {shown:.6g} {unit}  (calibration: ratio {cal.ratio:.3g}, "
+        f"leak rate {shown:.6g} {unit}  (calibration: ratio {ratio}, "
         f"sensitivity {cal.sensitivity:.4g} sccm/Pa, span {cal.span_pa:.4g} Pa)"
     )
     return _emit(args, data, line)
+
+
+def _gas_c(args: argparse.Namespace) -> float:
+    """The gas temperature: given, or room temperature (20 °C), never silently 0 °C."""
+    if args.gas_temperature:
+        return _q(args.gas_temperature, "temperature")
+    return ROOM_C
+
+
+def _leak_fields(leak: float, reference_c: float, gas_c: float) -> dict[str, Any]:
+    from gateway.units import sccm_to
+
+    # the leak in canonical sccm (0 °C, 101.325 kPa) and as given (on the --reference basis)
+    return {"leak_sccm": leak, "leak_sccm_reference_c": 0.0,
+            "leak_as_given_sccm": sccm_to(leak, "sccm", reference_c=reference_c),
+            "reference_c": reference_c, "gas_temperature_c": gas_c}
 
 
 def _decay(args: argparse.Namespace) -> int:
@@ -151,10 +172,11 @@ def _decay(args: argparse.Namespace) -> int:
     from gateway.units import from_canonical, normalise_unit
 
     volume = _q(args.volume, "volume")
-    leak = _q(args.leak, "leak", args.reference)
+    leak = _q(args.leak, "leak", args.reference)  # canonical: converted to the 0 °C basis once
     t = _q(args.test_time, "time")
-    gas_c = _q(args.gas_temperature, "temperature") if args.gas_temperature else None
-    loss = expected_loss_pa(volume, leak, t, reference_c=args.reference, gas_temperature_c=gas_c)
+    gas_c = _gas_c(args)
+    # the leak is on the 0 °C basis now: the gas temperature term is applied once, here
+    loss = expected_loss_pa(volume, leak, t, reference_c=0.0, gas_temperature_c=gas_c)
     unit = normalise_unit(args.unit, "pressure")
     shown = from_canonical(loss, unit, "pressure")
     data: dict[str, Any] = {
@@ -162,11 +184,10 @@ def _decay(args: argparse.Namespace) -> int:
         "loss": shown,
         "unit": unit,
         "volume_m3": volume,
-        "leak_sccm": leak,
+        **_leak_fields(leak, args.reference, gas_c),
         "test_time_s": t,
-        "reference_c": args.reference,
     }
-    line = f"expected loss {shown:.6g} {unit} over {t:g} s"
+    line = f"expected loss {shown:.6g} {unit} over {t:g} s (gas at {gas_c:g} °C)"
     if args.pressure:
         p = _q(args.pressure, "pressure")
         data["test_pressure_pa"] = p
@@ -184,18 +205,18 @@ def _test_time(args: argparse.Namespace) -> int:
     from gateway.calibration import test_time_for_loss
 
     volume = _q(args.volume, "volume")
-    leak = _q(args.leak, "leak", args.reference)
+    leak = _q(args.leak, "leak", args.reference)  # canonical: the 0 °C basis
     loss = _q(args.loss, "pressure")
-    gas_c = _q(args.gas_temperature, "temperature") if args.gas_temperature else None
-    t = test_time_for_loss(volume, leak, loss, reference_c=args.reference, gas_temperature_c=gas_c)
+    gas_c = _gas_c(args)
+    t = test_time_for_loss(volume, leak, loss, reference_c=0.0, gas_temperature_c=gas_c)
     data = {
         "test_time_s": t,
         "volume_m3": volume,
-        "leak_sccm": leak,
+        **_leak_fields(leak, args.reference, gas_c),
         "loss_pa": loss,
-        "reference_c": args.reference,
     }
-    return _emit(args, data, f"test time {t:.4g} s for {loss:.4g} Pa of loss")
+    return _emit(args, data, f"test time {t:.4g} s for {loss:.4g} Pa of loss "
+                             f"(gas at {gas_c:g} °C)")
 
 
 def _convert(args: argparse.Namespace) -> int:
