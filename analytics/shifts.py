@@ -135,20 +135,17 @@ class ShiftCalendar:
         return [name for name, _, _ in self._parsed]
 
     def shift_of(self, at: datetime) -> tuple[date, str] | None:
-        """(production date, shift name) for an aware timestamp, or None outside all shifts."""
+        """(production date, shift name) for an aware timestamp, or None outside all shifts.
+
+        Decided by the shifts' windows (``window``), so a timestamp is in a shift exactly when
+        it lies inside that shift's window, also around the clock changes: a boundary at a
+        wall time that happens twice (the repeated hour in autumn) is its first occurrence."""
         if at.tzinfo is None or at.utcoffset() is None:
             raise ValueError(f"shift_of needs a timezone-aware timestamp, got {at.isoformat()}")
-        local = at.astimezone(self.tz)
-        minute = local.hour * 60 + local.minute
-        for name, start, end in self._parsed:
-            a, b = _minutes(start), _minutes(end)
-            if a < b:
-                if a <= minute < b:
-                    return local.date(), name
-            elif minute >= a:
-                return local.date(), name
-            elif minute < b:
-                return local.date() - timedelta(days=1), name
+        instant = at.astimezone(UTC)
+        for w in self.windows_between(instant, instant + timedelta(microseconds=1)):
+            if w.start <= instant < w.end:
+                return w.shift_date, w.shift
         return None
 
     def window(self, shift_date: date, shift: str) -> ShiftWindow:
@@ -180,25 +177,26 @@ class ShiftCalendar:
         return sorted(out, key=lambda w: w.start)
 
     def assign(self, timestamps: pd.Series) -> pd.DataFrame:
-        """Vectorised ``shift_of``: columns ``shift_date`` (date or None) and ``shift``."""
+        """Vectorised ``shift_of``: columns ``shift_date`` (date or None) and ``shift``; the
+        same windows decide, so both always agree with ``window``."""
         ts = pd.to_datetime(timestamps, utc=True)
-        local = ts.dt.tz_convert(self.timezone)
-        minute = (local.dt.hour * 60 + local.dt.minute).to_numpy()
-        local_date = local.dt.date.to_numpy()
         shift = np.full(len(ts), None, dtype=object)
         shift_date = np.full(len(ts), None, dtype=object)
-        previous_date = (local - pd.Timedelta(days=1)).dt.date.to_numpy()
-        for name, start, end in self._parsed:
-            a, b = _minutes(start), _minutes(end)
-            if a < b:
-                same = (minute >= a) & (minute < b)
-                before = np.zeros(len(ts), dtype=bool)
-            else:
-                same = minute >= a
-                before = minute < b
-            shift[same | before] = name
-            shift_date[same] = local_date[same]
-            shift_date[before] = previous_date[before]
+        known = ts.notna().to_numpy()
+        if known.any():
+            first, last = ts[known].min(), ts[known].max()
+            wins = self.windows_between(first.to_pydatetime(),
+                                        last.to_pydatetime() + timedelta(microseconds=1))
+            starts = pd.DatetimeIndex([w.start for w in wins]).as_unit("ns").asi8
+            ends = pd.DatetimeIndex([w.end for w in wins]).as_unit("ns").asi8
+            ns = pd.DatetimeIndex(ts).as_unit("ns").asi8
+            pos = np.searchsorted(starts, ns, side="right") - 1
+            inside = known & (pos >= 0)
+            inside[inside] &= ns[inside] < ends[pos[inside]]
+            names = np.array([w.shift for w in wins], dtype=object)
+            dates = np.array([w.shift_date for w in wins], dtype=object)
+            shift[inside] = names[pos[inside]]
+            shift_date[inside] = dates[pos[inside]]
         return pd.DataFrame({"shift_date": shift_date, "shift": shift}, index=timestamps.index)
 
     def labels(self, timestamps: pd.Series) -> pd.Series:

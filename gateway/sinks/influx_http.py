@@ -1,7 +1,7 @@
 """InfluxDB URLs and the v1 HTTP API (``/ping``, ``/write``, ``/query``), shared by the sink and
 the query store. Blocking stdlib ``urllib``: callers on the event loop use ``asyncio.to_thread``.
 
-URLs (DESIGN.md):
+URLs (the forms below):
     influxdb://[user@]host:8086/database[?rp=autogen&tls=true]    v1 API; password from
                                                                   LEAKFLEET_INFLUX_PASSWORD
     influxdb2://host:8086?org=ORG&bucket=BUCKET[&tls=true]        token from LEAKFLEET_INFLUX_TOKEN

@@ -17,7 +17,7 @@ from analytics.master import qualify_master
 
 pytestmark = pytest.mark.timeout(60)
 
-# Pressure-decay law (DESIGN.md; ASTM E2930 ideal-gas basis): loss ∝ leak × test time, so a
+# Pressure-decay law (ASTM E2930 ideal-gas basis; docs/sources.md): loss ∝ leak × test time, so a
 # sensitivity S0 sccm/Pa at t0 becomes S0·t0/t. %GRR = 6σ_leak/tolerance (AIAG MSA 4th ed.).
 
 

@@ -24,7 +24,7 @@ pytestmark = pytest.mark.timeout(60)
 
 
 def test_ppm_matches_published_values_and_scipy() -> None:
-    # REFERENCES.md / NIST e-Handbook 6.1.6: ppm above = 1e6·(1 − Φ(3·Cpu));
+    # docs/sources.md / NIST e-Handbook 6.1.6: ppm above = 1e6·(1 − Φ(3·Cpu));
     # Cpu 1.0 → 1349.9 ppm, 1.33 → 33.0 ppm. Φ from scipy.stats.norm.
     assert ppm_above(1.0) == pytest.approx(1349.9, abs=0.05)
     assert ppm_above(1.33) == pytest.approx(33.0, abs=0.05)

@@ -224,7 +224,7 @@ async def test_modbus_rtu_registers_decode_to_the_truth(tmp_path: Path) -> None:
     assert regs[6] * 100 == rep["test_pressure_pa"]  # mbar
     assert num(regs[7:9], dt.INT32, word_order="little") / 100 == rep["pressure_loss_pa"]
     leak = num(regs[9:11], dt.INT32, word_order="little")
-    # 1 mbar·L/s = 59.2154 sccm (REFERENCES.md unit facts)
+    # 1 mbar·L/s = 59.2154 sccm (docs/sources.md, unit facts)
     assert int(leak) * 1e-5 * 59.2154 == pytest.approx(rep["leak_rate_sccm"], abs=1e-5)
     assert num(regs[18:19], dt.INT16) / 10 == rep["temperature_c"]
     swapped = [((r & 0xFF) << 8) | (r >> 8) for r in regs[19:23]]  # low byte first on this type

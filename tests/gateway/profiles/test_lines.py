@@ -73,7 +73,8 @@ def test_delimited_calibration_derives_sensitivity(ctx: StationContext) -> None:
     c = _one(parser.parse([DELIM_C], 1, RECEIVED))
     assert isinstance(c, CalibrationEvent)
     assert c.ratio == 6.163  # sent by the station, kept as sent
-    # sensitivity = standard / (standard_loss - master_loss) (DESIGN.md calibration formula)
+    # sensitivity = standard / (standard_loss - master_loss): two-point calibration (common
+    # practice; docs/sources.md)
     assert c.sensitivity == pytest.approx(3.0 / (237.9 - 38.6))
     assert c.passed is True and c.standard_ref_pressure_pa == pytest.approx(350_000)
 
