@@ -4,7 +4,6 @@ client, as a serial device server does. The types differ only in how a record be
 from __future__ import annotations
 
 import asyncio
-import contextlib
 import logging
 import random
 from collections.abc import Callable
@@ -17,7 +16,7 @@ from sim.formats_serial import (
     semi_calibration,
     semi_result,
 )
-from sim.servers.base import Endpoint, TruthSink, garbage_bytes, truncate
+from sim.servers.base import Endpoint, TcpPort, TruthSink, garbage_bytes, truncate
 from sim.station import Activity, SimCalibration, SimResult
 
 __all__ = ["STREAM_TYPES", "DelimServer", "encoder_for"]
@@ -46,7 +45,7 @@ _EOL = b"\r\n"
 _WRITE_TIMEOUT_S = 2.0
 
 
-class DelimServer:
+class DelimServer(TcpPort):
     """Streams one line per record; lines sent while nobody listens are lost, as on a real
     line. ``kind`` picks the line format (lf-delim by default)."""
 
@@ -62,13 +61,10 @@ class DelimServer:
         self.kind = kind
         self._encode = encoder_for(kind, tz)
         self.endpoint = Endpoint(station, kind, "tcp", "127.0.0.1", port)
-        self._server: asyncio.Server | None = None
-        self._clients: set[asyncio.StreamWriter] = set()
-        self._closed = asyncio.Event()
+        self._port_init(port)
 
     async def start(self) -> None:
-        self._server = await asyncio.start_server(self._client, "127.0.0.1", self.port)
-        self.port = self._server.sockets[0].getsockname()[1]
+        await self._open()
         self.endpoint = Endpoint(self.station, self.kind, "tcp", "127.0.0.1", self.port)
 
     async def _client(self, reader: asyncio.StreamReader, writer: asyncio.StreamWriter) -> None:
@@ -121,27 +117,3 @@ class DelimServer:
 
     async def set_state(self, state: str) -> None:
         return None  # a streaming station has no status to poll
-
-    async def set_link(self, up: bool) -> None:
-        if up and self._server is None:
-            self._server = await asyncio.start_server(self._client, "127.0.0.1", self.port)
-        elif not up and self._server is not None:
-            await self._shutdown()
-
-    async def _shutdown(self) -> None:
-        server, self._server = self._server, None
-        if server is not None:
-            server.close()
-        for writer in list(self._clients):
-            writer.close()
-        self._clients.clear()
-        if server is not None:
-            with contextlib.suppress(TimeoutError):
-                await asyncio.wait_for(server.wait_closed(), 2.0)
-
-    async def serve(self) -> None:
-        await self._closed.wait()
-
-    async def close(self) -> None:
-        await self._shutdown()
-        self._closed.set()

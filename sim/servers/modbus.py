@@ -37,10 +37,21 @@ from sim.servers.base import Endpoint, TruthSink
 from sim.servers.pty import PtyPair, open_pty
 from sim.station import Activity, SimResult
 
-__all__ = ["ModbusRtuServer", "ModbusTcpStationServer"]
+__all__ = ["ModbusRtuServer", "ModbusTcpStationServer", "listen_tcp"]
 
 log = logging.getLogger(__name__)
 logging.getLogger("pymodbus").setLevel(logging.CRITICAL)  # its own per-frame chatter is not ours
+
+
+async def listen_tcp(device: SimDevice, port: int) -> tuple[ModbusTcpServer, int]:
+    """A pymodbus TCP server for ``device`` on 127.0.0.1:``port`` (0: a free port), running."""
+    server = ModbusTcpServer(device, address=("127.0.0.1", port))
+    await server.serve_forever(background=True)
+    if port == 0:
+        sockets = getattr(server.transport, "sockets", None)
+        if sockets:
+            port = sockets[0].getsockname()[1]
+    return server, port
 
 
 class _ModbusStation:
@@ -170,14 +181,7 @@ class ModbusTcpStationServer(_ModbusStation):
         self.endpoint = Endpoint(station, self.kind, "tcp", "127.0.0.1", port)
 
     async def _listen(self) -> None:
-        server = ModbusTcpServer(self._device(), address=("127.0.0.1", self.port))
-        await server.serve_forever(background=True)
-        if self.port == 0:
-            transport = server.transport
-            sockets = getattr(transport, "sockets", None)
-            if sockets:
-                self.port = sockets[0].getsockname()[1]
-        self._server = server
+        self._server, self.port = await listen_tcp(self._device(), self.port)
         await self._restore()
 
     async def start(self) -> None:

@@ -39,6 +39,7 @@ from sim.formats_registers import (
 )
 from sim.scenario import Faults
 from sim.servers.base import Endpoint, TruthSink
+from sim.servers.modbus import listen_tcp
 from sim.station import Activity, SimResult
 
 __all__ = ["MbInputServer", "MbLastServer", "MbNoClockServer"]
@@ -135,13 +136,7 @@ class _TcpTables:
 
     # -- lifecycle ------------------------------------------------------------------------------
     async def _listen(self) -> None:
-        server = ModbusTcpServer(self._device(), address=("127.0.0.1", self.port))
-        await server.serve_forever(background=True)
-        if self.port == 0:
-            sockets = getattr(server.transport, "sockets", None)
-            if sockets:
-                self.port = sockets[0].getsockname()[1]
-        self._server = server
+        self._server, self.port = await listen_tcp(self._device(), self.port)
         await self._restore()
 
     async def start(self) -> None:

@@ -21,7 +21,7 @@ from zoneinfo import ZoneInfo
 
 from sim.formats import Encoded
 from sim.formats_serial import NAK, ticket_calibration, ticket_result
-from sim.servers.base import Endpoint, TruthSink, garbage_bytes
+from sim.servers.base import Endpoint, TcpPort, TruthSink, garbage_bytes
 from sim.station import Activity, SimResult
 
 __all__ = ["TicketLine", "TicketStation"]
@@ -41,7 +41,7 @@ class _Drop:
     corrupt_next: bool = False
 
 
-class TicketLine:
+class TicketLine(TcpPort):
     """The shared line: one TCP port, several addressed stations."""
 
     def __init__(self, name: str, port: int, truth: TruthSink, rng: random.Random) -> None:
@@ -50,9 +50,7 @@ class TicketLine:
         self.truth = truth
         self.rng = rng
         self.drops: dict[int, _Drop] = {}
-        self._server: asyncio.Server | None = None
-        self._clients: set[asyncio.StreamWriter] = set()
-        self._closed = asyncio.Event()
+        self._port_init(port)
         self._started = False
         self.queries = 0
 
@@ -65,8 +63,7 @@ class TicketLine:
         if self._started:
             return
         self._started = True
-        self._server = await asyncio.start_server(self._client, "127.0.0.1", self.port)
-        self.port = self._server.sockets[0].getsockname()[1]
+        await self._open()
 
     async def _client(self, reader: asyncio.StreamReader, writer: asyncio.StreamWriter) -> None:
         self._clients.add(writer)
@@ -127,31 +124,6 @@ class TicketLine:
             drop.calibration = encoded.payload
         self.truth.record(activity, encoded.reported, encoded.resolution, fault=None,
                           raw=encoded.payload.decode("ascii"), address=address)
-
-    async def set_link(self, up: bool) -> None:
-        if up and self._server is None:
-            self._server = await asyncio.start_server(self._client, "127.0.0.1", self.port)
-        elif not up and self._server is not None:
-            await self._shutdown()
-
-    async def _shutdown(self) -> None:
-        server, self._server = self._server, None
-        if server is not None:
-            server.close()
-        for writer in list(self._clients):
-            writer.close()
-        self._clients.clear()
-        if server is not None:
-            with contextlib.suppress(TimeoutError):
-                await asyncio.wait_for(server.wait_closed(), 2.0)
-
-    async def serve(self) -> None:
-        await self._closed.wait()
-
-    async def close(self) -> None:
-        if not self._closed.is_set():
-            await self._shutdown()
-            self._closed.set()
 
 
 def _corrupt(ticket: bytes, rng: random.Random) -> bytes:
