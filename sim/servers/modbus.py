@@ -16,6 +16,7 @@ import logging
 import os
 import random
 from pathlib import Path
+from typing import Any
 
 from pymodbus.constants import ExcCodes
 from pymodbus.framer import FramerType
@@ -37,7 +38,7 @@ from sim.servers.base import Endpoint, TruthSink
 from sim.servers.pty import PtyPair, open_pty
 from sim.station import Activity, SimResult
 
-__all__ = ["ModbusRtuServer", "ModbusTcpStationServer", "listen_tcp"]
+__all__ = ["ModbusRtuServer", "ModbusTcpStationServer", "TcpLifecycle", "listen_tcp"]
 
 log = logging.getLogger(__name__)
 logging.getLogger("pymodbus").setLevel(logging.CRITICAL)  # its own per-frame chatter is not ours
@@ -52,6 +53,46 @@ async def listen_tcp(device: SimDevice, port: int) -> tuple[ModbusTcpServer, int
         if sockets:
             port = sockets[0].getsockname()[1]
     return server, port
+
+
+class TcpLifecycle:
+    """Start, drop and restore a Modbus TCP station's server; the station's register image
+    (``_restore``) outlives a dropped link. Needs ``_device``, ``_restore``, ``port``,
+    ``station``, ``kind``, ``endpoint``, ``_server`` and ``_closed`` from the class."""
+
+    port: int
+    station: str
+    kind: str
+    endpoint: Endpoint
+    _server: Any
+    _closed: asyncio.Event
+
+    def _device(self) -> SimDevice:
+        raise NotImplementedError
+
+    async def _restore(self) -> None:
+        raise NotImplementedError
+
+    async def _listen(self) -> None:
+        self._server, self.port = await listen_tcp(self._device(), self.port)
+        await self._restore()
+
+    async def start(self) -> None:
+        await self._listen()
+        self.endpoint = Endpoint(self.station, self.kind, "tcp", "127.0.0.1", self.port)
+
+    async def set_link(self, up: bool) -> None:
+        if up and self._server is None:
+            await self._listen()
+        elif not up and self._server is not None:
+            server, self._server = self._server, None
+            await server.shutdown()
+
+    async def _stop(self) -> None:
+        if self._server is not None:
+            server, self._server = self._server, None
+            await server.shutdown()
+        self._closed.set()
 
 
 class _ModbusStation:
@@ -161,7 +202,7 @@ class _ModbusStation:
         await self._closed.wait()
 
 
-class ModbusTcpStationServer(_ModbusStation):
+class ModbusTcpStationServer(_ModbusStation, TcpLifecycle):
     """lf-mbtcp on 127.0.0.1:<port>, holding registers, device id from the scenario (1)."""
 
     kind = "lf-mbtcp"
@@ -180,26 +221,8 @@ class ModbusTcpStationServer(_ModbusStation):
         self.port = port
         self.endpoint = Endpoint(station, self.kind, "tcp", "127.0.0.1", port)
 
-    async def _listen(self) -> None:
-        self._server, self.port = await listen_tcp(self._device(), self.port)
-        await self._restore()
-
-    async def start(self) -> None:
-        await self._listen()
-        self.endpoint = Endpoint(self.station, self.kind, "tcp", "127.0.0.1", self.port)
-
-    async def set_link(self, up: bool) -> None:
-        if up and self._server is None:
-            await self._listen()
-        elif not up and self._server is not None:
-            server, self._server = self._server, None
-            await server.shutdown()
-
     async def close(self) -> None:
-        if self._server is not None:
-            server, self._server = self._server, None
-            await server.shutdown()
-        self._closed.set()
+        await self._stop()
 
 
 class ModbusRtuServer(_ModbusStation):

@@ -39,7 +39,7 @@ from sim.formats_registers import (
 )
 from sim.scenario import Faults
 from sim.servers.base import Endpoint, TruthSink
-from sim.servers.modbus import listen_tcp
+from sim.servers.modbus import TcpLifecycle
 from sim.station import Activity, SimResult
 
 __all__ = ["MbInputServer", "MbLastServer", "MbNoClockServer"]
@@ -49,7 +49,7 @@ _SIZE = 200  # registers (and bit words) in each table
 _COILS, _INPUTS, _HOLDING, _INPUT_REGS = 1, 2, 3, 4
 
 
-class _TcpTables:
+class _TcpTables(TcpLifecycle):
     """A Modbus TCP station with all four tables; subclasses decide what to publish."""
 
     kind = ""
@@ -134,23 +134,7 @@ class _TcpTables:
         for table, bits in self.bits.items():
             await self._store(table, 0, bits)
 
-    # -- lifecycle ------------------------------------------------------------------------------
-    async def _listen(self) -> None:
-        self._server, self.port = await listen_tcp(self._device(), self.port)
-        await self._restore()
-
-    async def start(self) -> None:
-        await self._listen()
-        self.endpoint = Endpoint(self.station, self.kind, "tcp", "127.0.0.1", self.port)
-
-    async def set_link(self, up: bool) -> None:
-        if up and self._server is None:
-            await self._listen()
-        elif not up and self._server is not None:
-            server, self._server = self._server, None
-            # what a peer wrote is part of the station's state: keep it across the restart
-            await server.shutdown()
-
+    # -- lifecycle (TcpLifecycle: start, set_link) ---------------------------------------------
     async def set_state(self, state: str) -> None:
         return None  # these types publish no state register
 
@@ -160,10 +144,7 @@ class _TcpTables:
     async def close(self) -> None:
         for task in list(self._tasks):
             task.cancel()
-        if self._server is not None:
-            server, self._server = self._server, None
-            await server.shutdown()
-        self._closed.set()
+        await self._stop()
 
     def _record(self, activity: Activity, encoded: Encoded, address: int, **extra: object) -> None:
         self.truth.record(activity, encoded.reported, encoded.resolution, fault=None,
