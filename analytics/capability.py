@@ -189,7 +189,9 @@ class IndexEstimate(ResultMixin):
     upper: float | None
     confidence: float
     sigma: float | None
-    ppm_above: float | None
+    # normal-model ppm beyond this index's own limit: above the reject limit for Ppu/Cpu,
+    # below the lower limit for Ppl
+    ppm_beyond_limit: float | None
 
 
 @dataclass(frozen=True, slots=True)
@@ -235,7 +237,8 @@ def _clean(values: Sequence[float] | np.ndarray) -> np.ndarray:
 
 
 def _index(name: str, value: float, n: int, sigma: float, confidence: float) -> IndexEstimate:
-    """``ppm_above`` is the normal-model fraction beyond this index's own limit."""
+    """``ppm_beyond_limit``: the normal-model share beyond this index's own limit (the tail
+    beyond z = 3·index is the same on either side)."""
     lo, hi = bissell_interval(value, n, confidence)
     return IndexEstimate(name, value, lo, hi, confidence, sigma, ppm_above(value))
 

@@ -159,7 +159,7 @@ class GrrReport(ResultMixin):
     operators: int
     trials: int
     ev: float  # repeatability σ
-    av: float  # reproducibility σ (operator + interaction)
+    av: float  # reproducibility σ: sqrt(operator² + interaction²), as pct_av
     interaction: float  # part×operator σ (0 when pooled or average-range)
     grr: float
     pv: float
@@ -179,6 +179,8 @@ class GrrReport(ResultMixin):
     range_flags: list[str]
     note: str
     resolution: float | None = None  # apparent resolution of the readings (rule of tens)
+    operator: float = 0.0  # operator σ alone (av is operators and interaction together)
+    tolerance_convention: str = ""  # how %GRR of tolerance was taken (one- or two-sided)
 
 
 def _layout(
@@ -242,12 +244,28 @@ def _finish(
     interaction_p: float | None,
     pooled: bool | None,
     note: str,
+    one_sided_limit: float | None = None,
 ) -> GrrReport:
     o, p, r = cube.shape
-    grr = math.sqrt(ev**2 + av**2 + inter**2)
+    operator = av
+    av = math.sqrt(operator**2 + inter**2)  # reproducibility: operators and their interaction
+    grr = math.sqrt(ev**2 + av**2)
     tv = math.sqrt(grr**2 + pv**2)
     pct = (lambda s: 100.0 * s / tv) if tv > 0 else (lambda s: math.nan)
-    pct_tol = 100.0 * 6.0 * grr / tolerance if tolerance else None
+    convention = ""
+    pct_tol: float | None
+    if one_sided_limit is not None and not tolerance:
+        # one-sided limit: the tolerance is the distance from the process mean to the limit,
+        # compared with 3·σ_GRR (AIAG MSA 4th ed., one-sided specifications; from memory)
+        half = one_sided_limit - float(cube.mean())
+        pct_tol = 100.0 * 3.0 * grr / half if half > 0 else math.inf
+        tolerance = 2.0 * half if half > 0 else None
+        convention = ("one-sided: %GRR of tolerance = 3·σGRR / (reject limit − mean) "
+                      "(AIAG MSA 4th ed.)")
+    else:
+        pct_tol = 100.0 * 6.0 * grr / tolerance if tolerance else None
+        if tolerance:
+            convention = "two-sided: %GRR of tolerance = 6·σGRR / tolerance"
     ndc = math.floor(1.41 * pv / grr) if grr > 0 else 0
     worst = max(pct(grr), pct_tol or 0.0)
     verdict = (
@@ -295,7 +313,7 @@ def _finish(
         pv=pv,
         tv=tv,
         pct_ev=pct(ev),
-        pct_av=pct(math.sqrt(av**2 + inter**2)),
+        pct_av=pct(av),
         pct_grr=pct(grr),
         pct_pv=pct(pv),
         pct_grr_tolerance=pct_tol,
@@ -314,6 +332,8 @@ def _finish(
         range_flags=flags,
         note=note,
         resolution=resolution,
+        operator=operator,
+        tolerance_convention=convention,
     )
 
 
@@ -346,6 +366,7 @@ def grr_anova(
     value: str = "value",
     tolerance: float | None = None,
     pool_alpha: float = 0.25,
+    one_sided_limit: float | None = None,
 ) -> GrrReport:
     """Crossed gauge R&R by two-way ANOVA with interaction (AIAG MSA 4th ed.)."""
     cube, _, _ = _layout(df, part, operator, value)
@@ -409,6 +430,7 @@ def grr_anova(
         p_int,
         pooled,
         note,
+        one_sided_limit,
     )
 
 
@@ -419,6 +441,7 @@ def grr_average_range(
     operator: str = "operator",
     value: str = "value",
     tolerance: float | None = None,
+    one_sided_limit: float | None = None,
 ) -> GrrReport:
     """Crossed gauge R&R by the AIAG average-and-range method (K1, K2, K3 constants)."""
     cube, _, _ = _layout(df, part, operator, value)
@@ -442,4 +465,5 @@ def grr_average_range(
         f"R̄ = {r_bar:.4g}, X̄diff = {x_diff:.4g}, Rp = {rp:.4g}; K1 = {K1_TRIALS[r]}, "
         f"K2 = {K2_APPRAISERS[o]}, K3 = {K3_PARTS[p]} (AIAG MSA 4th ed.)"
     )
-    return _finish("average-range", cube, ev, av, 0.0, pv, tolerance, [], None, None, note)
+    return _finish("average-range", cube, ev, av, 0.0, pv, tolerance, [], None, None, note,
+                   one_sided_limit)

@@ -87,7 +87,7 @@ for i, station in enumerate(chosen):
         m1, m2, m3 = st.columns(3)
         m1.metric("Ppu", fmt(report.ppu.value))
         m2.metric("Cpu", fmt(report.cpu.value) if report.cpu else "–")
-        ppm = report.ppu.ppm_above
+        ppm = report.ppu.ppm_beyond_limit
         if report.recommended != "normal" and report.non_normal is not None:
             ppm = report.non_normal.ppm_above
         m3.metric("ppm above limit", "–" if ppm is None else f"{ppm:,.0f}",

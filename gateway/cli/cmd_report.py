@@ -870,7 +870,8 @@ def _capability(args: argparse.Namespace, get_store: Callable[[], Any]) -> Repor
             }
         )
         nn = cap.non_normal
-        model_ppm = cap.ppu.ppm_above if cap.recommended == "normal" or nn is None else nn.ppm_above
+        model_ppm = (cap.ppu.ppm_beyond_limit if cap.recommended == "normal" or nn is None
+                     else nn.ppm_above)
         rows.append(
             [
                 label,
@@ -881,7 +882,7 @@ def _capability(args: argparse.Namespace, get_store: Callable[[], Any]) -> Repor
                 f"{_num(cap.ppu.value, '.2f')} "
                 f"[{_num(cap.ppu.lower, '.2f')}, {_num(cap.ppu.upper, '.2f')}]",
                 _num(cap.cpu.value if cap.cpu else None, ".2f"),
-                _num(cap.ppu.ppm_above, ".1f"),
+                _num(cap.ppu.ppm_beyond_limit, ".1f"),
                 cap.recommended,
                 _num(model_ppm, ".1f"),
                 _pct(cap.guard_band_share),
@@ -1021,6 +1022,7 @@ def _grr(args: argparse.Namespace, get_store: Callable[[], Any]) -> Report:
 
     tolerance = _quantity(args.tolerance, "leak", "sccm", "--tolerance")
     filters: dict[str, Any] | None
+    one_sided = None
     if args.input:
         data = read_tidy_csv(args.input, {"part": str, "operator": str, "value": float})
         source, filters = f"file {args.input}", None
@@ -1030,10 +1032,12 @@ def _grr(args: argparse.Namespace, get_store: Callable[[], Any]) -> Report:
         data, source = _balanced_from_store(results)
         filters = f.to_dict()
         if tolerance is None:
-            tolerance = _tolerance(results)
-    reports = [grr_anova(data, tolerance=tolerance)]
+            # a leak test has one real limit, the reject limit (the lower limit is only a
+            # plausibility bound): without --tolerance it is taken one-sided
+            one_sided = _reject_limit(results)
+    reports = [grr_anova(data, tolerance=tolerance, one_sided_limit=one_sided)]
     try:
-        reports.append(grr_average_range(data, tolerance=tolerance))
+        reports.append(grr_average_range(data, tolerance=tolerance, one_sided_limit=one_sided))
     except ValueError as exc:
         source += f"; average-and-range skipped: {exc}"
     rows = [
@@ -1066,6 +1070,8 @@ def _grr(args: argparse.Namespace, get_store: Callable[[], Any]) -> Report:
         ],
     )
     text += "".join(f"\n  {r.method}: {r.note}" for r in reports)
+    if reports[0].tolerance_convention:
+        text += f"\n  tolerance: {reports[0].tolerance_convention}"
     for r in reports:
         text += "".join(f"\n  range check: {flag}" for flag in r.range_flags)
     result = {
@@ -1220,6 +1226,11 @@ def _latest_lower(results: pd.DataFrame) -> float | None:
         return None
     lower = results["lower_limit_sccm"].dropna()
     return float(lower.iloc[-1]) if len(lower) else None
+
+
+def _reject_limit(results: pd.DataFrame) -> float:
+    """The reject limit of the latest result."""
+    return float(results.sort_values("ended_at")["reject_limit_sccm"].iloc[-1])
 
 
 def _tolerance(results: pd.DataFrame) -> float:
@@ -1495,6 +1506,13 @@ def _standards(args: argparse.Namespace, get_store: Callable[[], Any]) -> Report
             for s in standards:
                 d = standard_drift(cals, s)
                 drift.append({"serial": s.serial, "station": s.station, **d.to_dict()})
+        from analytics.standard_use import pressure_mismatch
+
+        mismatches = pressure_mismatch(_store_results(get_store(), f), standards)
+        result |= {"pressure_mismatch": [m.to_dict() for m in mismatches]}
+        if mismatches:
+            text += "\n\nStandards used off their certificate pressure:"
+            text += "".join(f"\n  {m.station}  {m.message}" for m in mismatches)
         result |= {"overdue_calibrations": overdue_runs, "sensitivity_drift": drift}
         text += f"\n\nCalibrations run with an overdue standard: {len(overdue_runs)}"
         text += "".join(

@@ -37,7 +37,7 @@ def test_ppu_from_summary() -> None:
     # Ppu = (USL − mean)/(3 s) (NIST e-Handbook 6.1.6).
     r = capability_from_summary(n=100, mean=1.0, std=0.5, reject_limit=2.5)
     assert r.ppu.value == pytest.approx(1.0)
-    assert r.ppu.ppm_above == pytest.approx(1e6 * stats.norm.sf(3.0))
+    assert r.ppu.ppm_beyond_limit == pytest.approx(1e6 * stats.norm.sf(3.0))
 
 
 def test_bissell_interval() -> None:
@@ -123,3 +123,12 @@ def test_fixed_edges_and_counts_round_trip() -> None:
             (2.0, math.inf, 2)]  # fmt: skip
     h = histogram_from_counts(rows, reject_limit=2.0)
     assert h.edges == edges and h.counts == counts.tolist() and (h.under, h.over) == (1, 2)
+
+
+def test_ppl_names_the_tail_below_the_lower_limit() -> None:
+    # Ppl = (mean − LSL)/(3 s) (NIST e-Handbook 6.1.6); its ppm is the normal share below the
+    # lower limit, Φ((LSL − mean)/s) from scipy.stats.norm
+    r = capability_from_summary(n=200, mean=0.5, std=0.4, reject_limit=2.5, lower_limit=-0.3)
+    assert r.ppl is not None
+    assert r.ppl.value == pytest.approx((0.5 + 0.3) / (3 * 0.4))
+    assert r.ppl.ppm_beyond_limit == pytest.approx(1e6 * stats.norm.cdf((-0.3 - 0.5) / 0.4))

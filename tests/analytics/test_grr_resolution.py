@@ -55,3 +55,18 @@ def test_the_cli_never_shows_a_traceback(tmp_path: Path) -> None:
                          timeout=60)
     assert out.returncode == 0, out.stderr
     assert "Traceback" not in out.stderr and "not assessable" in out.stdout
+
+
+def test_one_sided_tolerance_and_av_with_the_interaction() -> None:
+    # AIAG MSA 4th ed. (one-sided specification, from memory): %GRR of tolerance =
+    # 3·σGRR / (USL − mean); the reproducibility includes the part×operator interaction
+    # (AIAG ANOVA method), and %AV is AV over TV
+    study = _study(0.0, noise=0.004)
+    report = grr_anova(study, one_sided_limit=2.0)
+    mean = float(study["value"].mean())
+    assert report.pct_grr_tolerance == pytest.approx(100 * 3 * report.grr / (2.0 - mean))
+    assert "one-sided" in report.tolerance_convention
+    assert report.av == pytest.approx((report.operator ** 2 + report.interaction ** 2) ** 0.5)
+    assert report.pct_av == pytest.approx(100 * report.av / report.tv)
+    two = grr_anova(study, tolerance=2.0)
+    assert two.pct_grr_tolerance == pytest.approx(100 * 6 * two.grr / 2.0)
