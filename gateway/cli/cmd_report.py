@@ -1103,9 +1103,19 @@ def _type1(args: argparse.Namespace, get_store: Callable[[], Any]) -> Report:
             raise ValueError(f"no results for part {args.part!r} in the selection")
         values = results["leak_rate_sccm"].to_numpy(dtype=float)
         reference = 0.0 if reference is None else reference
+        convention = ""
         if tolerance is None:
-            tolerance = _tolerance(results)
+            # one-sided: the reject limit is the only real limit, so the tolerance is twice
+            # the distance from the reference to it (the lower limit is a plausibility bound)
+            tolerance = 2.0 * (_reject_limit(results) - reference)
+            convention = ("one-sided: tolerance = 2 × (reject limit − reference); Cg and Cgk "
+                          "then judge the gauge against the one limit that exists")
+            if tolerance <= 0:
+                raise ValueError("the reference part reads at or above the reject limit: "
+                                 "give --tolerance")
         source, filters = f"part {args.part} from the store", f.to_dict()
+        if convention:
+            source += f"; {convention}"
     r = type1_study(values, reference, tolerance)
     text = table(
         ["n", "mean", "std", "reference", "bias", "bias p", "tolerance", "Cg", "Cgk", "capable"],
@@ -1231,14 +1241,6 @@ def _latest_lower(results: pd.DataFrame) -> float | None:
 def _reject_limit(results: pd.DataFrame) -> float:
     """The reject limit of the latest result."""
     return float(results.sort_values("ended_at")["reject_limit_sccm"].iloc[-1])
-
-
-def _tolerance(results: pd.DataFrame) -> float:
-    """Reject limit − lower limit of the latest result, or the reject limit alone."""
-    ordered = results.sort_values("ended_at")
-    limit = float(ordered["reject_limit_sccm"].iloc[-1])
-    lower = _latest_lower(ordered)
-    return limit - lower if lower is not None else limit
 
 
 def _master(args: argparse.Namespace, get_store: Callable[[], Any]) -> Report:
