@@ -391,12 +391,28 @@ def capability(
     guard_band: float | None = None,
     confidence: float = 0.95,
     alpha: float = 0.05,
+    groups: Sequence[object] | np.ndarray | None = None,
 ) -> CapabilityReport:
     """Full capability study of leak readings (in production order, for the within sigma).
 
     ``guard_band`` (same unit as the readings) defaults to 10 % of the tolerance (reject limit
-    minus lower limit, or the reject limit itself when there is no lower limit).
+    minus lower limit, or the reject limit itself when there is no lower limit). ``groups``
+    (one label per reading, e.g. the station) keeps the moving ranges of Cpu within each
+    station's own sequence: readings of several stations interleaved in time would otherwise
+    put the stations' differences into the "within" σ.
     """
+    if groups is not None:
+        labels = np.asarray(groups, dtype=object)
+        raw = np.asarray(values, dtype=float)
+        if labels.shape != raw.shape:
+            raise ValueError("groups needs one label per reading")
+        keep = np.isfinite(raw)
+        ranges = [np.abs(np.diff(raw[keep][labels[keep] == g]))
+                  for g in dict.fromkeys(labels[keep].tolist())]
+        within = np.concatenate([r for r in ranges if r.size]) if any(
+            r.size for r in ranges) else np.array([])
+    else:
+        within = None
     x = _clean(values)
     n = int(x.size)
     if n < 2:
@@ -409,8 +425,9 @@ def capability(
     band = guard_band if guard_band is not None else 0.1 * tolerance
     ppu = _index("Ppu", (reject_limit - mean) / (3.0 * std), n, std, confidence)
     cpu = None
-    if n >= 3:
-        mr_bar = float(np.abs(np.diff(x)).mean())
+    moving = np.abs(np.diff(x)) if within is None else within
+    if n >= 3 and moving.size:
+        mr_bar = float(moving.mean())
         if mr_bar > 0:
             sigma_within = mr_bar / D2_N2
             cpu = _index(

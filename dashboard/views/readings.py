@@ -76,8 +76,10 @@ for i, station in enumerate(chosen):
         try:
             if n <= _FULL_STUDY_ROWS:
                 rows = data.results(p.url, since, until, station=station, program=program)
-                values = rows.loc[rows["verdict"] != "aborted", "leak_rate_sccm"].to_numpy(float)
-                report = capability(values, reject, lower, guard_band=guard)
+                kept = rows.loc[rows["verdict"] != "aborted"]
+                values = kept["leak_rate_sccm"].to_numpy(float)
+                report = capability(values, reject, lower, guard_band=guard,
+                                    groups=kept["station"].astype(str).to_numpy())
             else:
                 report = capability_from_summary(n, float(s["mean"]), float(s["std"]), reject,
                                                  lower)  # fmt: skip

@@ -851,7 +851,9 @@ def _capability(args: argparse.Namespace, get_store: Callable[[], Any]) -> Repor
             notes.append(f"{label}: only {len(values)} reading(s), skipped")
             continue
         try:
-            cap = capability(values, limit, lower, guard_band=guard)
+            # the within σ of Cpu from each station's own sequence of readings
+            cap = capability(values, limit, lower, guard_band=guard,
+                             groups=g["station"].astype(str).to_numpy())
         except ValueError as exc:
             notes.append(f"{label}: {exc}")
             continue

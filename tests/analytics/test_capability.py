@@ -157,3 +157,20 @@ def test_skewed_leak_data_get_a_fitted_model_not_ppm_zero(name, draw, truth) -> 
     true_ppm = 1e6 * truth.sf(4.0)
     assert true_ppm / 5 < nn.ppm_above < true_ppm * 5, (nn.model, nn.ppm_above, true_ppm)
     assert r.observed_ppm_above is not None and "observed" in r.note
+
+
+def test_cpu_moving_ranges_stay_within_each_station() -> None:
+    # two stations with different offsets, readings interleaved in time: the within σ is the
+    # stations' own scatter (MR̄/1.128, NIST e-Handbook 6.3.2.2), not their difference
+    rng = np.random.default_rng(11)
+    a = rng.normal(0.0, 0.1, 300)
+    b = rng.normal(1.0, 0.1, 300)
+    x = np.empty(600)
+    x[0::2], x[1::2] = a, b
+    labels = np.array(["S1", "S2"] * 300)
+    pooled = capability(x, 3.0, groups=labels)
+    mr = np.concatenate([np.abs(np.diff(a)), np.abs(np.diff(b))]).mean()
+    assert pooled.cpu is not None and pooled.cpu.sigma == pytest.approx(mr / 1.128)
+    assert pooled.cpu.sigma == pytest.approx(0.1, rel=0.15)
+    mixed = capability(x, 3.0)  # ignoring the stations: σ inflated by their 1.0 offset
+    assert mixed.cpu is not None and mixed.cpu.sigma > 5 * pooled.cpu.sigma
