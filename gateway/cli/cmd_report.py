@@ -233,7 +233,8 @@ def register(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
     )
     p.add_argument("--parts", help="comma-separated candidate part ids (store mode)")
     p.add_argument(
-        "--std-factor", type=float, default=1.5, help="eligible std ≤ factor × tightest (1.5)"
+        "--alpha", type=float, default=0.05,
+        help="significance of the test that excludes a loosely repeating candidate (0.05)"
     )
     p.add_argument("--min-tests", type=int, default=3, help="readings needed per candidate (3)")
     p.set_defaults(func=_handler("master"))
@@ -1270,7 +1271,9 @@ def _master(args: argparse.Namespace, get_store: Callable[[], Any]) -> Report:
             raise ValueError(f"no results for parts {', '.join(ids)} in the selection")
         data = pd.DataFrame({"part": results["part_id"], "value": results["leak_rate_sccm"]})
         source, filters = f"{len(ids)} candidate part ids from the store", f.to_dict()
-    sel = qualify_master(data, std_factor=args.std_factor, min_tests=args.min_tests)
+    if not 0 < args.alpha < 1:
+        raise ValueError(f"--alpha: expected a probability between 0 and 1, got {args.alpha}")
+    sel = qualify_master(data, alpha=args.alpha, min_tests=args.min_tests)
     text = (
         f"Master-part qualification ({source}): chosen {sel.chosen or 'none'}\n"
         + table(

@@ -113,3 +113,30 @@ def test_moving_range_sigma_ignores_slow_drift() -> None:
     a = advise_test_time(creeping, 4.0, 0.05, 2.0, sigma_method="moving-range")
     assert a.sigma_loss_pa == pytest.approx(float(np.abs(np.diff(creeping)).mean()) / 1.128)
     assert a.sigma_loss_pa < advise_test_time(creeping, 4.0, 0.05, 2.0).sigma_loss_pa / 3
+
+
+def test_master_pick_finds_the_truly_lowest_part_most_of_the_time() -> None:
+    # candidates with close true means and equal scatter, 5 readings each: the truly lowest
+    # must be picked most of the time (a rule that discards candidates on a ratio of two
+    # small-sample standard deviations keeps only a few and misses it)
+    rng = np.random.default_rng(5)
+    truths = {"A": -0.40, "B": -0.36, "C": -0.33, "D": -0.30, "E": -0.25, "F": -0.20}
+    hits = 0
+    for _ in range(150):
+        rows = [{"part": p, "value": v} for p, m in truths.items()
+                for v in rng.normal(m, 0.03, 5)]
+        hits += qualify_master(pd.DataFrame(rows)).chosen == "A"
+    assert hits / 150 > 0.7
+
+
+def test_master_repeats_needed_match_a_power_calculation() -> None:
+    # n per group for a two-sided 5 % test with 80 % power (statsmodels NormalIndPower)
+    from statsmodels.stats.power import NormalIndPower
+
+    rows = [{"part": p, "value": m + d} for p, m in (("A", -0.40), ("B", -0.39))
+            for d in (-0.02, 0.0, 0.02, -0.01, 0.01)]
+    sel = qualify_master(pd.DataFrame(rows))
+    sigma = float(np.std([-0.02, 0.0, 0.02, -0.01, 0.01], ddof=1))
+    n = NormalIndPower().solve_power(effect_size=0.01 / sigma, alpha=0.05, power=0.8, ratio=1)
+    assert sel.repeats_needed == math.ceil(n)
+    assert sel.confidence is not None and sel.confidence < 0.95 and "readings per" in sel.note
