@@ -219,6 +219,9 @@ def register(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
         help="share of the loss variance growing with test time (white noise), 0..1 (default 0)",
     )
     p.add_argument("--max-test-time", help="longest acceptable test time, e.g. 30s")
+    p.add_argument("--test-pressure",
+                   help="with --input test_s,loss: the test pressure, e.g. 350kPa, to keep a "
+                        "reject-limit leak's loss under 10 %% of it")
     p.set_defaults(func=_handler("advise"))
 
     p = kinds.add_parser(
@@ -1141,6 +1144,32 @@ def _type1(args: argparse.Namespace, get_store: Callable[[], Any]) -> Report:
     return Report("type1", filters, {"source": source, **r.to_dict()}, text)
 
 
+def _advise_times(args: argparse.Namespace, test_s: float | None, sensitivity: float | None,
+                  reject: float | None, lower: float | None) -> Report:
+    """advise --input with columns test_s,loss: master tests at several test times."""
+    from analytics.advice_fit import advise_from_times
+
+    if test_s is None or sensitivity is None or reject is None:
+        raise ValueError("advise --input with test_s needs --test-time (of the calibration), "
+                         "--sensitivity and --reject-limit")
+    data = read_tidy_csv(args.input, {"test_s": float, "loss": float})
+    groups: dict[float, list[float]] = {}
+    for t, loss in zip(data["test_s"].tolist(), data["loss"].tolist(), strict=True):
+        groups.setdefault(float(t), []).append(float(loss))
+    tolerance = reject - lower if lower is not None else 2.0 * reject  # one-sided: 2·limit
+    pressure = _quantity(args.test_pressure, "pressure", "Pa", "--test-pressure")
+    a = advise_from_times(groups, test_s, sensitivity, tolerance, target_pct=args.target,
+                          reject_limit_sccm=reject, test_pressure_pa=pressure)
+    rows = [[f"{t:g}", _num(sig), n] for t, sig, n in zip(a.fit.times_s, a.fit.sigma_pa,
+                                                          a.fit.n, strict=True)]
+    text = (f"Test-time advice from master tests at {len(a.fit.times_s)} test times "
+            f"(file {args.input})\n" + table(["test s", "σ loss Pa", "n"], rows)
+            + f"\n  fit: {a.fit.model}; a = {a.fit.params['a']:.3g} Pa², "
+            f"b = {a.fit.params['b']:.3g} Pa²/s, c = {a.fit.params['c']:.3g} Pa²/s²"
+            + f"\n  {a.message}" + "".join(f"\n  assumes: {x}" for x in a.assumptions))
+    return Report("advise", None, {"source": f"file {args.input}", **a.to_dict()}, text)
+
+
 def _advise(args: argparse.Namespace, get_store: Callable[[], Any]) -> Report:
     from analytics import advise_test_time
 
@@ -1151,6 +1180,12 @@ def _advise(args: argparse.Namespace, get_store: Callable[[], Any]) -> Report:
     sensitivity = args.sensitivity
     filters: dict[str, Any] | None = None
     if args.input:
+        import csv as _csv
+
+        with open(args.input, newline="", encoding="utf-8") as fh:
+            header = next(_csv.reader(fh), [])
+        if "test_s" in header:  # master tests at several test times: the growth is measured
+            return _advise_times(args, test_s, sensitivity, reject, lower)
         losses = read_tidy_csv(args.input, {"loss": float})["loss"].to_numpy()
         if test_s is None or sensitivity is None or reject is None:
             raise ValueError("advise --input needs --test-time, --sensitivity and --reject-limit")
