@@ -136,3 +136,21 @@ def test_stable_calibrations_raise_no_chart_alarm() -> None:
     df = _calibrations(list(10 + rng.normal(0, 0.1, 25)))
     health = calibration_health(df, HealthConfig(master_loss_limit_pa=20.0))
     assert not [a for a in health.alarms if a.kind in ("ewma", "cusum", "projection")]
+
+
+def test_cusum_signals_a_one_sigma_shift_within_its_published_run_length() -> None:
+    # Tabular CUSUM with k = 0.5σ, h = 5σ: average run length about 10.4 samples for a 1σ
+    # shift in the mean and about 465 in control (Montgomery, Introduction to Statistical
+    # Quality Control, ARL table of the tabular CUSUM; values from memory). Data that really
+    # signal: every run starts shifted by 1σ.
+    rng = np.random.default_rng(20261203)
+    runs = []
+    for _ in range(2000):
+        chart = cusum_chart(rng.normal(1.0, 1.0, 200), 0.0, 1.0, k=0.5, h=5.0)
+        assert chart.signals, "a 1σ shift must signal within 200 samples"
+        runs.append(chart.signals[0] + 1)
+    assert float(np.mean(runs)) == pytest.approx(10.4, rel=0.08)
+    quiet = [cusum_chart(rng.normal(0.0, 1.0, 60), 0.0, 1.0, k=0.5, h=5.0).signals
+             for _ in range(300)]
+    # in control, a signal within 60 samples is rare (ARL ≈ 465: about 12 % of runs at most)
+    assert sum(bool(s) for s in quiet) / 300 < 0.2
