@@ -989,7 +989,16 @@ def _calibration(args: argparse.Namespace, get_store: Callable[[], Any]) -> Repo
         )
     else:
         text += "\n\nNo alarms."
-    return Report("calibration", f.to_dict(), health.to_dict(), text)
+    result = health.to_dict()
+    standards = _register(args) if getattr(args, "config", None) else []
+    if standards:
+        from analytics.standard_use import pressure_mismatch
+
+        mismatches = pressure_mismatch(_store_results(get_store(), f), standards)
+        result["standard_pressure"] = [m.to_dict() for m in mismatches]
+        text += "".join(f"\n\nLeak standard off its certificate pressure: {m.station}: "
+                        f"{m.message}" for m in mismatches)
+    return Report("calibration", f.to_dict(), result, text)
 
 
 def _balanced_from_store(results: pd.DataFrame) -> tuple[pd.DataFrame, str]:

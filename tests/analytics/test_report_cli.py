@@ -201,3 +201,18 @@ def test_standards_bad_date_names_line_and_column(
                     "LS-1,S1,5,50000,01.02.2025,2026-01-01\n")  # fmt: skip
     assert main(["report", "standards", "--standards", str(path), "--no-store"]) == 2
     assert "s.csv:2: column 'certificate_date': expected a date" in capsys.readouterr().err
+
+
+def test_calibration_report_flags_a_standard_off_its_certificate(tmp_path: Path) -> None:
+    # L1-S1's registered standard is certified at 500 kPa but the station tests at about
+    # 350 kPa: its flow there is far below nominal (laminar model, analytics/standard_use.py)
+    cfg = tmp_path / "plant.toml"
+    cfg.write_text('site = "T"\n[[standards]]\nserial = "LS-9"\nstation = "L1-S1"\n'
+                   'nominal = "3 sccm"\nreference_pressure = "500 kPa"\n'
+                   'certificate_date = 2026-01-01\ninterval_months = 12\n'
+                   '[[stations]]\nid = "L1-S1"\nline = "L1"\nprofile = "lf-delim"\n'
+                   'endpoint = "tcp://127.0.0.1:9"\n')
+    report = _run(["calibration", "--config", str(cfg)], store=demo_store())
+    flags = report.result["standard_pressure"]
+    assert flags and flags[0]["serial"] == "LS-9" and flags[0]["flow_factor"] < 0.8
+    assert "certificate pressure" in report.text
