@@ -98,18 +98,23 @@ class Condition(_Table):
     fields: int | None = Field(default=None, ge=1)
 
 
-class TextField(_Numbers):
-    """A canonical field made from raw text: ``{ from = "leak", unit = "sccm" }``."""
+class _Conversion(_Table):
+    """What turns a raw value into a canonical one, for text and register fields alike."""
 
-    from_: Names | None = Field(default=None, alias="from")
     unit: str | None = None
-    unit_from: str | None = None
     scale: float = 1.0
     offset: float = 0.0
     empty: Literal["none", "error"] | None = None
     codes: dict[str, str | bool] | None = None
     format: str | None = None
     timezone: str | None = None
+
+
+class TextField(_Numbers, _Conversion):
+    """A canonical field made from raw text: ``{ from = "leak", unit = "sccm" }``."""
+
+    from_: Names | None = Field(default=None, alias="from")
+    unit_from: str | None = None
     programs: bool = False
     value: str | float | None = None
 
@@ -128,7 +133,7 @@ class LineKind(_Table):
     fields: dict[str, str | TextField]
 
 
-class RegisterField(_Table):
+class RegisterField(_Conversion):
     """A canonical field made from registers: ``{ at = 4, type = "float32", unit = "kPa" }``."""
 
     at: int = Field(ge=0)
@@ -136,13 +141,6 @@ class RegisterField(_Table):
     word_order: Order | None = None
     byte_order: Order | None = None
     null: float | str | None = None
-    unit: str | None = None
-    scale: float = 1.0
-    offset: float = 0.0
-    empty: Literal["none", "error"] | None = None
-    codes: dict[str, str | bool] | None = None
-    format: str | None = None
-    timezone: str | None = None
     bit: int | None = Field(default=None, ge=0, le=31)
     mask: int | None = Field(default=None, ge=1)
     bits: dict[str, int] | None = None

@@ -38,10 +38,20 @@ from sim.servers.base import Endpoint, TruthSink
 from sim.servers.pty import PtyPair, open_pty
 from sim.station import Activity, SimResult
 
-__all__ = ["ModbusRtuServer", "ModbusTcpStationServer", "TcpLifecycle", "listen_tcp"]
+__all__ = ["ModbusRtuServer", "ModbusTcpStationServer", "TcpLifecycle", "listen_tcp",
+           "read_faults"]
 
 log = logging.getLogger(__name__)
 logging.getLogger("pymodbus").setLevel(logging.CRITICAL)  # its own per-frame chatter is not ours
+
+
+async def read_faults(faults: Faults, rng: random.Random) -> ExcCodes | None:
+    """A read's faults, drawn per request: an exception reply, or an answer that comes late."""
+    if faults.exception_probability and rng.random() < faults.exception_probability:
+        return ExcCodes(faults.exception_code)
+    if faults.slow_probability and rng.random() < faults.slow_probability:
+        await asyncio.sleep(faults.slow_delay_s)
+    return None
 
 
 async def listen_tcp(device: SimDevice, port: int) -> tuple[ModbusTcpServer, int]:
@@ -139,12 +149,7 @@ class _ModbusStation:
     ) -> ExcCodes | None:
         if set_values is not None:
             return None if self._own_write else ExcCodes.ILLEGAL_FUNCTION  # a reader never writes
-        f = self.faults
-        if f.exception_probability and self.rng.random() < f.exception_probability:
-            return ExcCodes(f.exception_code)
-        if f.slow_probability and self.rng.random() < f.slow_probability:
-            await asyncio.sleep(f.slow_delay_s)
-        return None
+        return await read_faults(self.faults, self.rng)
 
     async def _write(self, address: int, values: list[int]) -> None:
         self.image[address : address + len(values)] = values

@@ -39,7 +39,7 @@ from sim.formats_registers import (
 )
 from sim.scenario import Faults
 from sim.servers.base import Endpoint, TruthSink
-from sim.servers.modbus import TcpLifecycle
+from sim.servers.modbus import TcpLifecycle, read_faults
 from sim.station import Activity, SimResult
 
 __all__ = ["MbInputServer", "MbLastServer", "MbNoClockServer"]
@@ -92,12 +92,7 @@ class _TcpTables(TcpLifecycle):
             # the server stores the values right after this hook returns
             loop.call_soon(self.written, function_code, address, values)
             return None
-        f = self.faults
-        if f.exception_probability and self.rng.random() < f.exception_probability:
-            return ExcCodes(f.exception_code)
-        if f.slow_probability and self.rng.random() < f.slow_probability:
-            await asyncio.sleep(f.slow_delay_s)
-        return None
+        return await read_faults(self.faults, self.rng)
 
     def _device(self) -> SimDevice:
         def regs() -> list[SimData]:
