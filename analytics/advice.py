@@ -90,7 +90,9 @@ _ASSUMPTIONS = (
     "against the test pressure), so sensitivity ∝ 1/t; the master part's loss scatter is "
     "measurement noise {noise}; the master part's repeatability is the whole gauge variation "
     "(no operator effect, thermal transient after fill settled at every test time considered); "
-    "%GRR = 6·σ_leak / tolerance"
+    "%GRR = 6·σ_leak / tolerance. From one test time the growth of the noise is assumed, not "
+    "measured (part-temperature scatter grows it in proportion to t): master tests at two or "
+    "more test times measure it (analytics.advice_fit; report advise --input test_s,loss)"
 )
 
 
