@@ -302,6 +302,9 @@ class RingReader:
         for cycle in sorted(cycles):
             if cycle not in blocks:  # its read failed: read again next poll, from here on
                 advance = False
+                # still the first look at this slot: a never-written slot read next poll is
+                # skipped, not taken for a torn one
+                self._first_contact = first_contact
                 continue
             if c2 >= cycle + depth:
                 # its slot may have been rewritten while we read: the next poll reports the gap

@@ -333,3 +333,26 @@ async def test_a_failed_slot_read_keeps_the_slots_before_it() -> None:
     second = await r.poll(image)
     assert results(second.items) == [4, 5]
     assert first.missed == second.missed == 0
+
+
+async def test_a_never_written_slot_whose_first_read_failed_is_skipped_not_torn() -> None:
+    # first contact with a station whose ring holds only cycle 10: the slots of 3..9 were
+    # never written (zeros). The read of one of them fails (busy); when it is read again at
+    # the next poll it is still the first look at it: skipped, never quarantined as torn
+    image, r = StationImage(), reader()
+    image.publish(10)
+    target = BASE + STRIDE * (5 % DEPTH)
+    failed = []
+
+    async def read(function: int, address: int, count: int, device_id: int) -> list[int]:
+        if address == target and not failed:
+            failed.append(address)
+            raise busy()
+        return await StationImage.read(image, function, address, count, device_id)
+
+    image.read = read  # type: ignore[method-assign]
+    got: list[Any] = []
+    for _ in range(8):
+        got += (await r.poll(image)).items
+    assert failed and results(got) == [10]
+    assert not [i for i in got if isinstance(i, Rejected)], got
