@@ -149,8 +149,9 @@ class LatestReader:
         if ahead <= 1 or ahead > self._mod // 2:
             return  # the next cycle, a repeat, or a reset (counting again)
         first, last = (self.seen + 1) % self._mod, (cycle - 1) % self._mod
-        detail = (f"gap: {ahead - 1} cycle(s) {first}..{last} run while the station held an "
-                  "unacknowledged record")
+        why = ("came and went between two reads of the block" if self.rule.detect == "change"
+               else "ran while the station held an unacknowledged record")
+        detail = f"gap: {ahead - 1} cycle(s) {first}..{last} {why}"
         log.warning("%s: %s", self.station, detail)
         out.missed += ahead - 1
         out.items.append(StationStatus(station=self.station, at=at,
