@@ -337,7 +337,7 @@ class JournalForwarder:
 
     def _recovered(self) -> None:
         self.backoff.reset()
-        waiting = sum(n for n, _ in self.backlog.values())
+        waiting = sum(n for k, (n, _) in self.backlog.items() if k in self.client.kinds)
         log.info("sink %s: %s takes records again after %d failed attempt(s); "
                  "about %d record(s) were waiting", self.name, self.client.describe(),
                  self.failures, waiting)
