@@ -106,6 +106,9 @@ class Program:
     part_tau_s: float = 600.0
     fill_capacity_sccm: float = 4000.0
     fill_tolerance: float = 0.05  # gross when fill ends more than this fraction short
+    # relative part-to-part scatter (SD) of a part's internal volume: castings and mouldings
+    # differ; the station's calibration assumes the master part's volume
+    volume_scatter: float = 0.0
 
 
 @dataclass(frozen=True, slots=True)
@@ -554,6 +557,7 @@ def _program(name: str, r: _Reader, populations: Mapping[str, Population]) -> Pr
             "fill_capacity", "leak", f"{d.fill_capacity_sccm} sccm", positive=True
         ),
         fill_tolerance=r.fraction("fill_tolerance", d.fill_tolerance),
+        volume_scatter=r.number("volume_scatter", 0.0, minimum=0.0),
     )
     if lower is not None and lower >= program.reject_limit_sccm:
         raise r.fail("lower_limit", "a leak rate below the reject limit (usually negative)")

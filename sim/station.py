@@ -139,6 +139,7 @@ class _Part:
     true_leak_sccm: float
     kind: str  # good/reject/gross
     retested: bool = False
+    volume_factor: float = 1.0  # this part's volume against the program's (the master's)
 
 
 @dataclass
@@ -174,8 +175,10 @@ class StationModel:
         self.index = [s.name for s in scenario.stations].index(station.name) + 1
         self.rng = random.Random(f"{scenario.seed}:{station.name}")
         self.fault_rng = random.Random(f"{scenario.seed}:{station.name}:faults")
-        # curves draw their sample noise apart, so sending traces changes no result
+        # curves draw their sample noise apart, so sending traces changes no result; the same
+        # for parts' volume scatter, so a scenario without it keeps every result it had
         self.trace_rng = random.Random(f"{scenario.seed}:{station.name}:traces")
+        self.volume_rng = random.Random(f"{scenario.seed}:{station.name}:volumes")
         self.ambient = Ambient(
             scenario.ambient_mean_c,
             scenario.ambient_swing_k,
@@ -211,10 +214,11 @@ class StationModel:
         return (elapsed % every) < self.faults.link_drop_down_s
 
     def _conditions(
-        self, program: Program, t: float, leak: float, part_offset: float
+        self, program: Program, t: float, leak: float, part_offset: float,
+        volume_factor: float = 1.0,
     ) -> TestConditions:
         return TestConditions(
-            volume_m3=program.volume_m3,
+            volume_m3=program.volume_m3 * volume_factor,
             test_pressure_pa=program.test_pressure_pa,
             stabilise_s=program.stabilise_s,
             test_s=program.test_s,
@@ -230,10 +234,11 @@ class StationModel:
         )
 
     def _test(
-        self, program: Program, t: float, leak: float, part_offset: float
+        self, program: Program, t: float, leak: float, part_offset: float,
+        volume_factor: float = 1.0,
     ) -> tuple[TestOutcome, SimTrace | None]:
         """One test from the end of fill at ``t``, and its curve when the station sends one."""
-        c = self._conditions(program, t, leak, part_offset)
+        c = self._conditions(program, t, leak, part_offset, volume_factor)
         outcome = simulate_test(c, self.rng)
         if not self.station.trace_interval_s:
             return outcome, None
@@ -352,6 +357,13 @@ class StationModel:
         )
 
     def _new_part(self, program: Program, ps: _ProgramState) -> _Part:
+        part = self._drawn_part(program, ps)
+        if program.volume_scatter > 0:
+            part.volume_factor = max(0.5, 1.0 + self.volume_rng.gauss(0.0,
+                                                                      program.volume_scatter))
+        return part
+
+    def _drawn_part(self, program: Program, ps: _ProgramState) -> _Part:
         pop = self._population(program)
         ps.serial += 1
         part_id = program.part_id.format(n=ps.serial, s=self.index) if program.part_id else None
@@ -415,7 +427,7 @@ class StationModel:
         else:
             states += [(t_stab, "stabilise"), (t_test, "test")]
             ended = t_end
-            outcome, trace = self._test(program, t_stab, leak_total, offset)
+            outcome, trace = self._test(program, t_stab, leak_total, offset, part.volume_factor)
             loss = outcome.loss_pa
             pressure = outcome.pressure_at_test_start_pa
             leak = ps.calibration.leak_rate(loss)

@@ -22,7 +22,7 @@ from gateway.profiles.model import (
 )
 from gateway.profiles.normalise import reject
 from gateway.profiles.registers import registers_hex
-from gateway.records import Rejected
+from gateway.records import PressureTrace, Rejected
 
 __all__ = ["Entry", "check_registers", "check_sample", "check_text"]
 
@@ -36,7 +36,7 @@ def _line_entries(parser: Any, spec: SerialSpec, lines: list[bytes], start: int,
     out = []
     for item in items:
         origins: tuple[FieldOrigin, ...] = ()
-        if not isinstance(item, Rejected):
+        if not isinstance(item, Rejected | PressureTrace):
             raw = parser.raw_fields(lines, item.kind)
             origins = _origins(_kind_fields(spec, item.kind), item, raw=raw)
         out.append(Entry(start, f"line {start}", item, origins=origins))
