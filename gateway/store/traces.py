@@ -10,12 +10,12 @@ says so (``prune_traces``).
 from __future__ import annotations
 
 import json
+import sys
 import zlib
+from array import array
 from collections.abc import Sequence
 from datetime import datetime
 from typing import Any, Protocol
-
-import numpy as np
 
 from gateway.records import PressureTrace
 from gateway.store._sqlite import from_us, to_us
@@ -58,11 +58,20 @@ class _Journal(Protocol):
 
 
 def pack(values: Sequence[float]) -> bytes:
-    return zlib.compress(np.asarray(values, dtype="<f8").tobytes(), 6)
+    """Little-endian float64, zlib-compressed (the standard library's ``array``: no numpy on
+    the gateway's start-up path)."""
+    doubles = array("d", values)
+    if sys.byteorder == "big":
+        doubles.byteswap()
+    return zlib.compress(doubles.tobytes(), 6)
 
 
 def unpack(blob: bytes) -> tuple[float, ...]:
-    return tuple(np.frombuffer(zlib.decompress(blob), dtype="<f8").tolist())
+    doubles = array("d")
+    doubles.frombytes(zlib.decompress(blob))
+    if sys.byteorder == "big":
+        doubles.byteswap()
+    return tuple(doubles)
 
 
 def trace_row(t: PressureTrace) -> tuple[Any, ...]:
