@@ -6,7 +6,9 @@ means the block was being rewritten, and the newer curve is read at the next pol
 the station overwrote before the gateway got to them are a loss on record (a ``GapEvent`` with
 source "trace", numbered by the curve counter), never silence. At first contact the curve
 the station holds is taken only when its record was read in the same poll (it was journalled
-before otherwise, or is older than anything the gateway saw).
+before otherwise, or is older than anything the gateway saw). A result's curve whose result
+the gateway has not read yet (the station wrote both between the gateway's two reads) waits
+for it, up to ``WAIT_POLLS`` polls, so it takes its result's time.
 """
 
 from __future__ import annotations
@@ -39,6 +41,8 @@ log = logging.getLogger(__name__)
 
 #: registers per request (the Modbus limit for function 3/4 is 125)
 MAX_READ = 120
+#: polls a result's curve waits for its result to be read before it is taken untied
+WAIT_POLLS = 3
 
 
 class CurveReader:
@@ -57,6 +61,7 @@ class CurveReader:
         self._to_pa = sample_reader(self.block.samples.unit, self.block.samples.scale)
         self.last_result: TestResult | None = None
         self.last_calibration: CalibrationEvent | None = None
+        self._waited = 0
         header = {"cycle": self.block.cycle, "count": self.block.count}
         if self.block.role is not None:
             header["role"] = self.block.role
@@ -113,6 +118,10 @@ class CurveReader:
         if first_contact and values["cycle"] not in new_cycles:
             self.seen = counter
             return out
+        if self._ahead(values) and self._waited < WAIT_POLLS:
+            self._waited += 1
+            return out  # its result comes with the next poll's ring read
+        self._waited = 0
         if not 2 <= n <= self.block.samples.max:
             self.seen = counter
             out.append(reject(self.context, self.label, f"curve {counter}: {n} samples",
@@ -140,6 +149,17 @@ class CurveReader:
                               f"{' '.join(f'{w:04x}' for w in header_regs)}", str(exc),
                               received_at))
         return out
+
+    def _ahead(self, values: dict[str, int]) -> bool:
+        """A result's curve newer than the newest result read (cycles as the station counts)."""
+        if self.block.role is not None and self.block.role.codes is not None and \
+                self.block.role.codes.get(str(values.get("role"))) not in (None, "result"):
+            return False
+        last = self.last_result
+        if last is None:
+            return True
+        ahead = (values["cycle"] - last.cycle) % 2**32
+        return 0 < ahead < 2**31
 
     def _value(self, reg: TraceRegister, regs: list[int], lo: int) -> int:
         at = reg.address - lo

@@ -116,3 +116,21 @@ async def test_a_sample_count_outside_the_profile_is_quarantined() -> None:
     image.regs[TRACE_BASE + 5] = 4000  # more than samples.max = 1500
     (rej,) = await reader.poll(image, [result(2)])
     assert isinstance(rej, Rejected) and "trace sample count 4000 outside 2..1500" in rej.reason
+
+
+async def test_a_curve_read_before_its_result_waits_for_it_to_take_its_time() -> None:
+    """The station wrote result 8 and its curve between the gateway's ring read and curve
+    read: the curve waits for the result (read at the next poll) instead of going untied."""
+    assert SPEC is not None
+    image, reader = Image(), CurveReader(SPEC, CTX, 1)
+    image.put(1, 7, SAMPLES)
+    await reader.poll(image, [result(7)])
+    image.put(2, 8, SAMPLES)
+    assert await reader.poll(image, []) == []  # result 8 not read yet: the curve waits
+    (curve,) = await reader.poll(image, [result(8)])
+    assert isinstance(curve, PressureTrace) and curve.time_source == "station"
+    image.put(3, 9, SAMPLES)  # a result the gateway never reads: the curve goes untied
+    waits = [await reader.poll(image, []) for _ in range(3)]
+    assert waits == [[], [], []]
+    (late,) = await reader.poll(image, [])
+    assert isinstance(late, PressureTrace) and late.time_source == "gateway"
