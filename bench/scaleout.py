@@ -110,7 +110,7 @@ async def _run(gateways: int, stations: int, seconds: float, tmp: Path) -> dict[
             if proc.poll() is None:
                 proc.kill()
         farm.stop()
-        rows = influx.query("plant", "SELECT count(leak_rate_sccm) FROM leak_results")
+        rows = influx.query("plant", "SELECT count(cycle) FROM leak_results")
         ids = influx.query("plant", "SELECT record_id FROM leak_results")
         broker.stop()
         influx.stop()
