@@ -35,6 +35,7 @@ __all__ = [
     "Condition",
     "Transition",
     "calibration_conditions",
+    "clock_skew",
     "epochs",
     "forecast_errors",
     "link_conditions",
@@ -85,6 +86,7 @@ class AlarmRules:
     silent_min: timedelta = timedelta(minutes=5)
     garbage_per_10min: int = 20  # quarantined lines a station may send in 10 minutes
     backlog_age: timedelta = timedelta(minutes=5)  # a sink's oldest unsent record
+    clock_ahead: timedelta = timedelta(minutes=2)  # a station clock this far ahead is wrong
 
 
 def epochs(times: Sequence[datetime] | pd.Series, events: Iterable[datetime]) -> np.ndarray:
@@ -249,6 +251,31 @@ def reject_conditions(station: str, verdicts: Sequence[str], times: Sequence[dat
     return out
 
 
+def clock_skew(ended: Sequence[datetime | None], received: Sequence[datetime | None],
+               minimum: int = 5) -> timedelta | None:
+    """How far a station's clock runs ahead of the gateway's: the median of (end of test by
+    the station's clock − receipt by the gateway's) over recent results stamped by the station.
+
+    A result cannot be received before it ended, so a positive value is the clock's lead; a
+    negative one is its lag plus the reading delay (a polled station is read up to a poll
+    interval late). The median keeps a few late reads (after an outage) from moving it. None
+    with fewer than ``minimum`` results."""
+    pairs = [(e, r) for e, r in zip(ended, received, strict=True)
+             if e is not None and r is not None]
+    if len(pairs) < minimum:
+        return None
+    return timedelta(seconds=float(np.median([(e - r).total_seconds() for e, r in pairs])))
+
+
+def _span(d: timedelta) -> str:
+    seconds = abs(d.total_seconds())
+    if seconds < 120:
+        return f"{seconds:.0f} s"
+    if seconds < 7200:
+        return f"{seconds / 60:.0f} min"
+    return f"{seconds / 3600:.1f} h"
+
+
 def link_conditions(
     station: str,
     *,
@@ -259,12 +286,19 @@ def link_conditions(
     quarantined_10min: int,
     gaps: Sequence[tuple[int, int, datetime]] = (),
     conflicts: int = 0,
+    skew: timedelta | None = None,
     rules: AlarmRules,
     now: datetime,
 ) -> list[Condition]:
     """Offline or faulted, silent for longer than its cycle suggests, garbage on the line,
-    cycles lost (gaps) and conflicting re-sends."""
+    cycles lost (gaps), conflicting re-sends and a station clock running ahead."""
     out: list[Condition] = []
+    if skew is not None and skew > rules.clock_ahead:
+        out.append(Condition(f"clock:{station}", "clock", station, "warning", now,
+                             f"station clock {_span(skew)} ahead of the gateway's: its "
+                             "results are stamped in the future (set the station's clock)"))
+        if last_result is not None:
+            last_result -= skew  # judge silence on the gateway's clock
     if state in ("offline", "fault") and state_since is not None:
         out.append(Condition(f"link:{station}", "offline", station, "alarm", state_since,
                              f"station {state} for {_age(now, state_since)}"))

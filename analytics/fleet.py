@@ -108,6 +108,7 @@ def station_conditions(
     quarantined_10min: int,
     gaps: Sequence[tuple[int, int, datetime]] = (),
     conflicts: int = 0,
+    skew: timedelta | None = None,
     rules: AlarmRules,
     now: datetime,
 ) -> list[Condition]:
@@ -118,7 +119,7 @@ def station_conditions(
         station, state=state, state_since=state_since,
         last_result=max(times) if len(times) else None,
         typical_cycle=typical_interval(times), quarantined_10min=quarantined_10min,
-        gaps=gaps, conflicts=conflicts, rules=rules, now=now,
+        gaps=gaps, conflicts=conflicts, skew=skew, rules=rules, now=now,
     )  # fmt: skip
     return out
 

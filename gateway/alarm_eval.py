@@ -15,7 +15,7 @@ from typing import Any
 
 import pandas as pd
 
-from analytics.alarms import AlarmRules, Condition, sink_conditions, transitions
+from analytics.alarms import AlarmRules, Condition, clock_skew, sink_conditions, transitions
 from analytics.fleet import station_conditions
 
 __all__ = ["INTERVAL_S", "evaluate", "fleet_conditions", "station_inputs"]
@@ -34,10 +34,15 @@ def station_inputs(store: Any, station: str, now: datetime) -> dict[str, Any]:
     recent = store.results(None, None, station=station, limit=RECENT, newest_first=True)
     recent = recent.iloc[::-1]
     times = [t for t in (_when(x) for x in recent.get("ended_at", [])) if t is not None]
+    own = (recent[recent["time_source"] == "station"] if "time_source" in recent
+           else recent.iloc[0:0])
+    skew = clock_skew([_when(x) for x in own.get("ended_at", [])],
+                      [_when(x) for x in own.get("received_at", [])])
     return {
         "recent": recent,
         "verdicts": [str(v) for v in recent.get("verdict", [])],
         "times": times,
+        "skew": skew,
         "calibrations": store.calibration_series(station, None, now - CAL_HISTORY, None),
     }
 
@@ -67,7 +72,7 @@ def fleet_conditions(
             state=str(status.loc[station, "state"]) if known else None,
             state_since=_when(status.loc[station, "at"]) if known else None,
             quarantined_10min=int(bad.get(station, 0)), rules=rules, now=now,
-            conflicts=clashes.get(station, 0), gaps=lost.get(station, []),
+            conflicts=clashes.get(station, 0), gaps=lost.get(station, []), skew=inp["skew"],
         )  # fmt: skip
     return out
 

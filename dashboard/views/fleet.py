@@ -26,8 +26,8 @@ def _age(now: datetime, at: Any) -> str:
     if at is None or pd.isna(at):
         return "never"
     seconds = (now - pd.Timestamp(at).to_pydatetime()).total_seconds()
-    if seconds < -600:
-        return "ahead of now (a station clock ahead, or a simulated plant running fast)"
+    if seconds < -60:
+        return "stamped in the future (a station clock ahead, or a plant replayed fast)"
     seconds = max(0.0, seconds)
     if seconds < 120:
         return f"{seconds:.0f} s ago"

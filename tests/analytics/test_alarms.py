@@ -194,3 +194,40 @@ def test_maintenance_after_the_last_calibration_ends_the_old_epochs_drift() -> N
     assert any(c.rule == "calibration-drift" for c in before)
     after = calibration_conditions("S", cals, [now - timedelta(hours=1)], AlarmRules(), now)
     assert not any(c.rule == "calibration-drift" for c in after)
+
+
+def test_a_station_clock_running_ahead_is_a_condition_and_silence_is_judged_on_ours() -> None:
+    """A result cannot arrive before it ended: a station stamping its results 7 minutes after
+    the gateway received them has its clock ahead. The skew is the median (checked against
+    the standard library's ``statistics.median``), so a few late reads do not move it."""
+    import statistics
+
+    from analytics.alarms import clock_skew, link_conditions
+
+    now = datetime(2026, 12, 3, 12, tzinfo=UTC)
+    received = [now - timedelta(seconds=30 * i) for i in range(20)]
+    lead = [420.0 + (i % 3) for i in range(20)]
+    lead[3] = -3600.0  # one read an hour late (after an outage)
+    ended = [r + timedelta(seconds=s) for r, s in zip(received, lead, strict=True)]
+    skew = clock_skew(ended, received)
+    assert skew is not None
+    assert skew.total_seconds() == pytest.approx(statistics.median(lead))
+    assert clock_skew(ended[:4], received[:4]) is None  # too few to say
+    conds = link_conditions("L1-S3", state="online", state_since=None, last_result=max(ended),
+                            typical_cycle=timedelta(seconds=30), quarantined_10min=0,
+                            skew=skew, rules=AlarmRules(), now=now)
+    (clock,) = [c for c in conds if c.rule == "clock"]
+    assert clock.severity == "warning" and "7 min ahead" in clock.message
+    # its newest result is stamped 7 min in the future; on the gateway's clock it came 0 s
+    # ago, so the station is not silent; ten minutes later it is
+    assert not [c for c in conds if c.rule == "silent"]
+    later = link_conditions("L1-S3", state="online", state_since=None,
+                            last_result=max(ended), typical_cycle=timedelta(seconds=30),
+                            quarantined_10min=0, skew=skew, rules=AlarmRules(),
+                            now=now + timedelta(minutes=10))
+    assert [c.rule for c in later] == ["clock", "silent"]
+    behind = clock_skew([r - timedelta(seconds=40) for r in received], received)
+    assert behind is not None and not [
+        c for c in link_conditions("S", state="online", state_since=None, last_result=now,
+                                   typical_cycle=None, quarantined_10min=0, skew=behind,
+                                   rules=AlarmRules(), now=now) if c.rule == "clock"]
