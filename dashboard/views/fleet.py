@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import time
 from datetime import datetime, timedelta
 from typing import Any
 
@@ -110,8 +111,9 @@ def _tile(
         st.caption("No active alarms")
 
 
-def tiles(p: Page) -> None:
-    """The fleet overview, worst station first (also what the 5 s fragment redraws)."""
+def tiles(p: Page, kiosk_every: float | None = None) -> None:
+    """The fleet overview, worst station first (also what the 5 s fragment redraws). A kiosk
+    shows one line at a time, the next every ``kiosk_every`` seconds."""
     res = data.latest(p.url, "result").set_index("station")
     cals = data.latest(p.url, "calibration").set_index("station")
     hour = data.verdict_counts(p.url, p.now - timedelta(hours=1), p.now + timedelta(seconds=1))
@@ -128,7 +130,15 @@ def tiles(p: Page) -> None:
         f"{LEVELS[k][2]} {n} {LEVELS[k][1].lower()}" for k, n in counts.items() if n
     )
     st.caption(f"As of {p.local(p.now)} ({p.settings.timezone}) · {summary} · worst first")
-    for line, group in group_by_line(board).items():
+    by_line = dict(group_by_line(board))
+    if kiosk_every and by_line:
+        names = list(by_line)
+        shown_line = names[int(time.time() // kiosk_every) % len(names)]
+        others = [n for n in names if n != shown_line]
+        st.caption(f"Line {names.index(shown_line) + 1} of {len(names)}"
+                   + (f"; next every {kiosk_every:g} s: {', '.join(others)}" if others else ""))
+        by_line = {shown_line: by_line[shown_line]}
+    for line, group in by_line.items():
         st.subheader(f"Line {line}")
         cols = st.columns(3)
         for i, s in enumerate(group):
@@ -266,13 +276,30 @@ def maintenance(p: Page, station: str) -> None:
 
 
 p = page("Fleet, live", live=True)
+# a wall screen: ?kiosk=1 (optionally &every=30) hides the sidebar and shows one line at a
+# time, cycling through the lines; nothing to click
+_kiosk = st.query_params.get("kiosk") in ("1", "true", "yes")
+try:
+    _every = min(max(float(st.query_params.get("every", "20")), 5.0), 600.0)
+except ValueError:
+    _every = 20.0
+if _kiosk:
+    st.markdown(
+        "<style>[data-testid='stSidebar'], [data-testid='stSidebarCollapsedControl'], "
+        "[data-testid='stHeader'] {display: none;} .block-container {max-width: 100%; "
+        "padding-top: 1rem;} </style>",
+        unsafe_allow_html=True,
+    )
 
 
 @st.fragment(run_every="5s")
 def live() -> None:
-    tiles(refreshed(p))
+    tiles(refreshed(p), _every if _kiosk else None)
 
 
 live()
-alarm_list(p)
-detail(p)
+if not _kiosk:
+    st.caption("Wall screen: open this page with `?kiosk=1` (and `&every=30` for the "
+               "seconds per line) for no sidebar and one line at a time.")
+    alarm_list(p)
+    detail(p)

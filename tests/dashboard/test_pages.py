@@ -349,3 +349,31 @@ def test_a_rejects_curve_opens_from_a_link_beside_the_calibrations_curves(
                for c in at.caption)
     at.radio(key="traces_show").set_value("Rejects only").run()
     assert not at.exception
+
+
+def test_the_kiosk_view_shows_one_line_at_a_time_and_nothing_to_click(
+    demo_journal: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    """``?kiosk=1`` on the fleet page: the sidebar hidden, one line's tiles, which line is
+    shown and which come next, no station detail or alarm form."""
+    from streamlit.testing.v1 import AppTest
+
+    from tests.dashboard.conftest import APP
+
+    monkeypatch.setenv("LEAKFLEET_STORE", f"sqlite:///{demo_journal}")
+    monkeypatch.setenv("LEAKFLEET_CONFIG", "demo")
+    monkeypatch.setenv("LEAKFLEET_CLOCK", "data")
+    at = AppTest.from_file(APP, default_timeout=60)
+    at.query_params["kiosk"] = "1"
+    at.query_params["every"] = "30"
+    at.run()
+    assert not at.exception, [e.message for e in at.exception]
+    headings = [h.value for h in at.subheader]
+    assert [h for h in headings if h.startswith("Line ")] in (["Line L1"], ["Line L2"])
+    assert "Station detail" not in headings
+    assert any("Line 1 of 2" in c.value or "Line 2 of 2" in c.value for c in at.caption)
+    assert any("display: none" in m.value for m in at.markdown)
+    normal = AppTest.from_file(APP, default_timeout=60)
+    normal.run()
+    assert [h.value for h in normal.subheader if h.value.startswith("Line ")] == [
+        "Line L1", "Line L2"]
