@@ -371,9 +371,14 @@ def sink_backlogs(url: str) -> pd.DataFrame:
 
 @st.cache_data(ttl=HISTORY_TTL, show_spinner=False)
 def traces(url: str, station: str, role: str | None = None, limit: int = 50) -> list[Any]:
-    """A station's pressure traces, newest first (journals only; empty otherwise)."""
+    """A station's pressure traces, newest first (from the journal or from InfluxDB)."""
     if not url.startswith("sqlite:"):
-        return []
+        from gateway.store.influx_traces import influx_traces
+
+        try:
+            return influx_traces(_store(url), station, role=role, limit=limit)
+        except (LeakfleetError, OSError, ValueError) as exc:
+            raise StoreUnavailable(str(exc)) from exc
     from gateway.store import open_journal
     from gateway.store.traces import traces as read
 
@@ -407,7 +412,12 @@ def verdicts_of(url: str, station: str, curves: list[Any]) -> dict[str, str]:
 @st.cache_data(ttl=HISTORY_TTL, show_spinner=False)
 def trace_stations(url: str) -> list[str]:
     if not url.startswith("sqlite:"):
-        return []
+        from gateway.store.influx_traces import influx_trace_stations
+
+        try:
+            return influx_trace_stations(_store(url))
+        except (LeakfleetError, OSError) as exc:
+            raise StoreUnavailable(str(exc)) from exc
     from gateway.store import open_journal
 
     try:

@@ -62,6 +62,16 @@ async def test_curves_to_mqtt_and_influxdb(mosquitto: MosquittoServer, influxdb:
         assert row["samples"] == len(c.pressures_pa)
         assert tuple(float(v) for v in row["pressures_pa"].split(",")) == c.pressures_pa
         assert json.loads(row["phases"]) == [list(p) for p in c.phases]
+    # and a scale-out dashboard reads them back from InfluxDB as the same records
+    from gateway.store import open_store
+    from gateway.store.influx_traces import influx_trace_stations, influx_traces
+
+    store = open_store(influxdb.url(influx_db))
+    assert influx_trace_stations(store) == ["L1-S1"]
+    back = influx_traces(store, "L1-S1", limit=None)
+    assert sorted(back, key=lambda t: (t.cycle, t.role)) == sorted(
+        curves, key=lambda t: (t.cycle, t.role))
+    assert [t.role for t in influx_traces(store, "L1-S1", role="master")] == ["master"]
 
 
 async def test_curves_go_sooner_than_results_once_the_sinks_that_carry_them_have_them(
