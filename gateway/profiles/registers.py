@@ -67,19 +67,15 @@ def _check_registers(regs: Sequence[int]) -> None:
 
 
 def _to_bytes(regs: Sequence[int], word_order: Order, byte_order: Order) -> bytes:
+    """Registers as bytes: words in ``word_order``, each word's two bytes in ``byte_order``
+    (one ``struct`` call: this runs for every field of every record read)."""
     words = list(regs) if word_order == "big" else list(reversed(regs))
-    out = bytearray()
-    for word in words:
-        hi, lo = word >> 8, word & 0xFF
-        out += bytes((hi, lo)) if byte_order == "big" else bytes((lo, hi))
-    return bytes(out)
+    return struct.pack(f"{'>' if byte_order == 'big' else '<'}{len(words)}H", *words)
 
 
 def _from_bytes(data: bytes, word_order: Order, byte_order: Order) -> list[int]:
-    words = []
-    for i in range(0, len(data), 2):
-        a, b = data[i], data[i + 1]
-        words.append((a << 8 | b) if byte_order == "big" else (b << 8 | a))
+    words = list(struct.unpack(f"{'>' if byte_order == 'big' else '<'}{len(data) // 2}H",
+                               data[: len(data) // 2 * 2]))
     return words if word_order == "big" else list(reversed(words))
 
 
