@@ -7,10 +7,11 @@ back a ``Page`` with everything the page needs (store URL, stations, "now", unit
 
 from __future__ import annotations
 
+import dataclasses
 import os
 from dataclasses import dataclass
 from datetime import UTC, date, datetime, time, timedelta
-from zoneinfo import ZoneInfo
+from zoneinfo import ZoneInfo, available_timezones
 
 import pandas as pd
 import streamlit as st
@@ -53,19 +54,29 @@ _ROUND_HISTORY_S = 60
 
 @dataclass(frozen=True)
 class Page:
+    """A page's context. ``settings`` carries the time zone times are shown in (the viewer's
+    choice in the sidebar, the plant's by default); ``plant`` the plant's own, which decides
+    days and shifts ("today", "this shift", shift reports) whatever the viewer picked."""
+
     settings: Settings
     url: str
     stations: pd.DataFrame
     now: datetime
     units: Units
+    plant: Settings | None = None
+
+    @property
+    def plant_settings(self) -> Settings:
+        return self.plant if self.plant is not None else self.settings
 
     @property
     def tz(self) -> ZoneInfo:
-        return ZoneInfo(self.settings.timezone)
+        """The plant's zone: where a day and a shift begin."""
+        return ZoneInfo(self.plant_settings.timezone)
 
     @property
     def calendar(self) -> ShiftCalendar:
-        return self.settings.calendar
+        return self.plant_settings.calendar
 
     def local(self, at: datetime | pd.Timestamp | None) -> str:
         if at is None or pd.isna(at):
@@ -100,7 +111,12 @@ def sidebar(cfg: Settings) -> None:
     with st.sidebar:
         if cfg.site:
             st.markdown(f"**{cfg.site}**")
-        st.caption(f"Store: `{cfg.store_url}` · time zone {cfg.timezone}")
+        st.caption(f"Store: `{cfg.store_url}` · plant time zone {cfg.timezone}")
+        zones = [cfg.timezone, *(["UTC"] if cfg.timezone != "UTC" else []),
+                 *sorted(z for z in available_timezones() if z not in (cfg.timezone, "UTC"))]
+        st.selectbox("Times shown in", zones, key="lf_timezone",
+                     help="Every time on every page, table and chart in this zone, 24-hour "
+                          "clock. Days and shifts stay the plant's.")
         st.selectbox("Pressure unit", PRESSURE_UNITS, key="lf_pressure_unit")
         st.selectbox(
             "Leak-rate unit", LEAK_UNITS, key="lf_leak_unit",
@@ -139,13 +155,20 @@ def page(title: str, *, need_data: bool = True, live: bool = False) -> Page:
             "FILE`) or the demo (`leakfleet demo`) and results will appear here."
         )
         st.stop()
-    return Page(cfg, cfg.store_url, stations, now, units())
+    return Page(_shown(cfg), cfg.store_url, stations, now, units(), plant=cfg)
+
+
+def _shown(cfg: Settings) -> Settings:
+    """The settings with the viewer's display zone (the plant's unless picked otherwise)."""
+    zone = st.session_state.get("lf_timezone") or cfg.timezone
+    return cfg if zone == cfg.timezone else dataclasses.replace(cfg, timezone=zone)
 
 
 def refreshed(p: Page) -> Page:
     """The same page context with a fresh "now" and station list (for timed fragments)."""
     try:
-        return Page(p.settings, p.url, data.stations(p.url), _now(p.settings), p.units)
+        return Page(p.settings, p.url, data.stations(p.url), _now(p.settings), p.units,
+                    plant=p.plant)
     except data.StoreUnavailable as exc:
         st.error(f"The store cannot be read: {exc}")
         return p

@@ -66,7 +66,7 @@ elif total > _RETEST_ROWS:
             "parts across their retests.")  # fmt: skip
 else:
     report = derived.retest_report(
-        p.url, since, until, station, p.settings.timezone, p.settings.shifts
+        p.url, since, until, station, p.plant_settings.timezone, p.plant_settings.shifts
     )
     a, b, c, d = st.columns(4)
     a.metric("Parts", f"{report.parts:,}")

@@ -377,3 +377,30 @@ def test_the_kiosk_view_shows_one_line_at_a_time_and_nothing_to_click(
     normal.run()
     assert [h.value for h in normal.subheader if h.value.startswith("Line ")] == [
         "Line L1", "Line L2"]
+
+
+def test_times_follow_the_zone_picked_in_the_sidebar_while_days_stay_the_plants(
+    demo_journal: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    from datetime import datetime, timedelta
+
+    from streamlit.testing.v1 import AppTest
+
+    from tests.dashboard.conftest import APP
+
+    monkeypatch.setenv("LEAKFLEET_STORE", f"sqlite:///{demo_journal}")
+    monkeypatch.setenv("LEAKFLEET_CONFIG", "demo")
+    monkeypatch.setenv("LEAKFLEET_CLOCK", "data")
+    at = AppTest.from_file(APP, default_timeout=60)
+    at.run()
+    assert at.selectbox(key="lf_timezone").value == "Europe/Berlin"  # the plant's by default
+    plant = next(c.value for c in at.caption if c.value.startswith("As of "))
+    assert "(Europe/Berlin)" in plant
+    at.selectbox(key="lf_timezone").set_value("UTC").run()
+    assert not at.exception, [e.message for e in at.exception]
+    utc = next(c.value for c in at.caption if c.value.startswith("As of "))
+    assert "(UTC)" in utc
+    # the same instant, shown an hour apart (Berlin is UTC+1 in December), 24-hour clock
+    shown = {z: datetime.strptime(t.split("As of ")[1][:19], "%Y-%m-%d %H:%M:%S")
+             for z, t in (("Europe/Berlin", plant), ("UTC", utc))}
+    assert shown["Europe/Berlin"] - shown["UTC"] == timedelta(hours=1)
