@@ -10,6 +10,7 @@ import streamlit as st
 
 from dashboard import data
 from dashboard.common import page, pick, time_range
+from dashboard.export import to_xlsx
 
 p = page("Data")
 tab_records, tab_quarantine = st.tabs(["Records", "Quarantine"])
@@ -49,9 +50,13 @@ with tab_records:
             shown[col] = shown[col].dt.tz_convert(p.settings.timezone)
     st.dataframe(shown, hide_index=True, width="stretch", key="data_table")
     stem = f"leakfleet-{kind.replace(' ', '-')}"
-    d1, d2 = st.columns(2)
+    d1, d2, d3 = st.columns(3)
     d1.download_button("Download CSV", frame.to_csv(index=False).encode(), f"{stem}.csv",
                        "text/csv", key="data_csv")  # fmt: skip
+    d3.download_button("Download Excel", to_xlsx(shown, p.settings.timezone, kind),
+                       f"{stem}.xlsx",
+                       "application/vnd.openxmlformats-officedocument.spreadsheetml.sheet",
+                       key="data_xlsx")  # fmt: skip
     buf = io.BytesIO()
     frame.to_parquet(buf, index=False)
     d2.download_button("Download Parquet", buf.getvalue(), f"{stem}.parquet",

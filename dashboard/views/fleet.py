@@ -14,6 +14,7 @@ from analytics.fleet import LEVELS, Standing, group_by_line, rank, standing
 from dashboard import charts, data
 from dashboard.common import Page, page, refreshed
 from dashboard.display import fmt
+from dashboard.export import downloads
 
 # badge colours (Streamlit markdown): no emoji, so line PCs without emoji fonts show them too;
 # every colour comes with the level's word and shape (analytics.fleet.LEVELS), never alone
@@ -200,6 +201,8 @@ def detail(p: Page) -> None:
                      query_params={"station": station})
     st.dataframe(table, hide_index=True, width="stretch", key="fleet_latest_table",
                  column_config=config or None)
+    downloads(table.drop(columns=["curve"], errors="ignore"), f"leakfleet-{station}-latest",
+              p.settings.timezone, "fleet_latest")
     maintenance(p, station)
 
 

@@ -10,6 +10,7 @@ import streamlit as st
 from analytics import counts_to_shifts, pareto_from_counts, yield_from_counts
 from dashboard import charts, data
 from dashboard.common import page, pick, time_range
+from dashboard.export import downloads
 
 _GROUPS = {"Station": "station", "Line": "line", "Program": "program", "Shift": "shift"}
 
@@ -77,6 +78,8 @@ st.dataframe(
         for c in ("test_yield", "first_pass_yield", "final_yield")
     },
 )  # fmt: skip
+downloads(table.rename(columns={group: group_label}), f"leakfleet-yield-by-{group}",
+          p.settings.timezone, "yield_table")
 
 st.subheader("Trend")
 trend_by = None if group == "shift" else group
