@@ -12,6 +12,7 @@ import pytest
 
 from gateway.config import parse_config
 from gateway.runtime import Runtime
+from gateway.sinks.topics import slug
 from tests.sim.small_plant import BASE
 from tests.support.journal_check import config_for_plant
 from tests.support.servers import InfluxServer, MosquittoServer, MqttLog
@@ -47,7 +48,8 @@ poll_interval_s = 0.1
         config = parse_config(tomllib.loads(text), str(tmp_path / "gateway.toml"))
         runtime = Runtime(config)
         stop = asyncio.Event()
-        async with MqttLog(mosquitto, f"leakfleet/{config.site}/#", client_id="gw-e2e") as sub:
+        site_level = slug(config.site)  # topic levels are id slugs (docs/gateway-config.md)
+        async with MqttLog(mosquitto, f"leakfleet/{site_level}/#", client_id="gw-e2e") as sub:
             task = asyncio.create_task(runtime.run(stop))
             try:
                 await sub.wait_for(
