@@ -259,8 +259,16 @@ class MqttClient:
     async def connect(self) -> None:
         import aiomqtt
 
+        await self._open(aiomqtt.Will(self.state_topic, b"offline", qos=1, retain=True))
+        await self._publish(self.state_topic, b"online", retain=True)
+        for topic, payload in self.meta_messages():
+            await self._publish(topic, payload, retain=True)
+
+    async def _open(self, will: Any) -> None:
+        """Connect a fresh aiomqtt client with this last will (shared with Sparkplug)."""
+        import aiomqtt
+
         self._prepare()
-        will = aiomqtt.Will(self.state_topic, b"offline", qos=1, retain=True)
         client = aiomqtt.Client(
             self.opts.host,
             self.opts.port,
@@ -286,9 +294,6 @@ class MqttClient:
             await stack.aclose()
             raise SinkUnavailable(f"cannot connect to {self.describe()}: {exc}") from None
         self._client, self._stack = client, stack
-        await self._publish(self.state_topic, b"online", retain=True)
-        for topic, payload in self.meta_messages():
-            await self._publish(topic, payload, retain=True)
 
     def meta_messages(self) -> list[tuple[str, bytes]]:
         """Retained ``…/meta`` per station: the display names behind the slugged levels."""
