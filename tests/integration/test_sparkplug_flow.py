@@ -129,6 +129,10 @@ async def test_births_data_in_seq_death_and_rebirth(
             assert again[0].type == "NBIRTH" and again[0].payload.seq == 0
             assert again[0].metric(BD_SEQ).long_value == 0
             assert [m.payload.seq for m in again[1:4]] == [1, 2, 3]
+            last = next(r for r in reversed(results) if r.station == "L1-S1")
+            l1s1 = next(m for m in again[1:4] if m.device == "l1-s1")  # latest values in it
+            assert l1s1.metric("Result/record_id").string_value == last.record_id
+            assert l1s1.metric("Result/leak_rate").double_value == last.leak_rate_sccm
 
             # the gateway's connection dies: the broker publishes the will, NDEATH with bdSeq 0;
             # the forwarder reconnects with bdSeq 1 and new births, then new DDATA
