@@ -15,6 +15,7 @@ import itertools
 import socket
 from collections.abc import AsyncIterator
 from dataclasses import dataclass
+from pathlib import Path
 from typing import Any
 
 import pytest
@@ -25,7 +26,7 @@ from gateway.sinks.sparkplug.node import SparkplugClient, make_sparkplug
 from gateway.sinks.sparkplug.payload_pb2 import Payload
 from gateway.store.journal import Journal
 from tests.integration.sinks_data import STATIONS, ctx, forwarding, shift, until
-from tests.support.servers import HOST, MosquittoServer
+from tests.support.servers import HOST, MosquittoServer, MqttLog
 
 pytestmark = [pytest.mark.integration, pytest.mark.timeout(90)]
 
@@ -156,3 +157,49 @@ async def test_births_data_in_seq_death_and_rebirth(
         await until(lambda: any(m.type == "NDEATH" for m in seen[n:]), 15, "NDEATH on stop")
         assert next(m for m in seen[n:] if m.type == "NDEATH").metric(BD_SEQ).long_value == 1
     assert journal.backlog("spb")["result"][0] == 0
+
+
+FAST = {"batch_size": 20, "poll_interval_s": 0.05, "connect_timeout_s": 2, "send_timeout_s": 2,
+        "backoff_initial_s": 0.05, "backoff_max_s": 0.5, "drain_timeout_s": 3}
+
+
+def decoded(messages: list[tuple[str, bytes, bool]]) -> list[Msg]:
+    out = []
+    for topic, payload, _ in messages:
+        parts = topic.split("/")
+        out.append(Msg(topic, parts[2], parts[4] if len(parts) > 4 else None,
+                       Payload.FromString(payload)))
+    return out
+
+
+def record_ids(msgs: list[Msg]) -> set[str]:
+    return {m.string_value for msg in msgs if msg.type == "DDATA"
+            for m in msg.payload.metrics if m.name.endswith("/record_id")}
+
+
+async def test_broker_outage_delays_ddata_and_loses_none(tmp_path: Path,
+                                                          journal: Journal) -> None:
+    with MosquittoServer(tmp_path / "mqtt") as broker:
+        fwd = make_sparkplug("spb", {"url": broker.url, **FAST}, ctx(site="outage"))
+        async with (MqttLog(broker, "spBv1.0/#", client_id="spb-host") as sub,
+                    forwarding(fwd, journal)):
+            first = shift(1, 10)
+            journal.write(first)
+            want = {r.record_id for r in first}
+            await until(lambda: want <= record_ids(decoded(sub.messages)), 20, "first part")
+            broker.stop()  # the stations keep testing meanwhile
+            second = shift(11, 30)
+            journal.write(second)
+            await until(lambda: fwd.failures > 0, 20, "the sink to notice")
+            assert sum(n for n, _ in journal.backlog("spb").values()) > 0  # kept, not lost
+            broker.start()
+            want |= {r.record_id for r in second}
+            await until(lambda: want <= record_ids(decoded(sub.messages)), 30, "the backlog")
+    msgs = decoded(sub.messages)
+    assert record_ids(msgs) == want  # every record, nothing else
+    births = [i for i, m in enumerate(msgs) if m.type == "NBIRTH"]
+    # bdSeq moves on with every CONNECT, refused attempts during the outage included
+    bd = [msgs[i].metric(BD_SEQ).long_value for i in births]
+    assert bd[0] == 0 and len(bd) >= 2 and bd == sorted(set(bd))
+    for i in births:  # each session: its DBIRTHs before any DDATA
+        assert [m.type for m in msgs[i + 1:i + 4]] == ["DBIRTH"] * 3

