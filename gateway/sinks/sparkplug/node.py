@@ -6,8 +6,8 @@ id, see ``gateway.sinks.topics``). Topics are ``spBv1.0/<group>/<type>/<node>[/<
 
 On each connection attempt bdSeq moves on (0..255, wrapping) and goes in the NDEATH
 registered as the MQTT last will; once connected, NBIRTH (seq 0, bdSeq, ``Node
-Control/Rebirth``) and a DBIRTH per station (every metric with datatype and unit, display names as ``Properties/...``). Then a
-DDATA per journalled record, in journal order, each message's seq one more than the last
+Control/Rebirth``) and a DBIRTH per station (every metric with datatype and unit, display
+names as ``Properties/...``). Then a DDATA per journalled record, in journal order, each message's seq one more than the last
 (mod 256). An NCMD with ``Node Control/Rebirth`` = true repeats NBIRTH and the DBIRTHs. All
 at QoS 1: ``send`` returns when every PUBACK came, so the forwarder moves the cursor only over
 acknowledged records; an outage delays DDATA and never drops one (after a reconnect the
