@@ -4,15 +4,15 @@ The gateway is one edge node (``edge_node_id``, default: slug of ``gateway_id``)
 (``group_id``, default: slug of ``site``); every configured station is a device (slug of its
 id, see ``gateway.sinks.topics``). Topics are ``spBv1.0/<group>/<type>/<node>[/<device>]``.
 
-On each connection attempt bdSeq moves on (0..255, wrapping) and goes in the NDEATH
-registered as the MQTT last will; once connected, NBIRTH (seq 0, bdSeq, ``Node
-Control/Rebirth``) and a DBIRTH per station (every metric with datatype and unit, display
-names as ``Properties/...``). Then a DDATA per journalled record, in journal order, each message's seq one more than the last
-(mod 256). An NCMD with ``Node Control/Rebirth`` = true repeats NBIRTH and the DBIRTHs. All
-at QoS 1: ``send`` returns when every PUBACK came, so the forwarder moves the cursor only over
-acknowledged records; an outage delays DDATA and never drops one (after a reconnect the
-backlog follows the new births). A graceful stop publishes NDEATH itself (a clean DISCONNECT
-suppresses the will).
+On each connection attempt bdSeq moves on (0..255, wrapping) and goes in the NDEATH registered
+as the MQTT last will; once connected, NBIRTH (seq 0, bdSeq, ``Node Control/Rebirth``) and a
+DBIRTH per station (every metric with datatype and unit, display names as ``Properties/...``).
+Then a DDATA per journalled record, in journal order, each message's seq one more than the last
+(mod 256). An NCMD with ``Node Control/Rebirth`` = true repeats NBIRTH and the DBIRTHs. All at
+QoS 1: ``send`` returns when every PUBACK came, so the forwarder moves the cursor only over
+acknowledged records; an outage delays DDATA and never drops one (after a reconnect the backlog
+follows the new births). A graceful stop publishes NDEATH itself (a clean DISCONNECT suppresses
+the will).
 
     [sinks.plant-scada]
     type = "sparkplug"
