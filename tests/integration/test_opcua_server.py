@@ -205,3 +205,17 @@ def test_options_are_one_line_errors(tmp_path: Path) -> None:
     fwd = make_opcua("ua", {"allow_anonymous": True}, ctx())
     assert isinstance(fwd.client, OpcUaServer)
     assert fwd.client.opts.url == "opc.tcp://127.0.0.1:4840/leakfleet"  # loopback by default
+
+
+async def test_missing_certificate_is_a_config_error(tmp_path: Path) -> None:
+    """A certificate path that does not exist disables the sink with one clear line (the
+    runtime keeps the other sinks running), it is not retried forever."""
+    from gateway.errors import ConfigError
+
+    fwd = make_opcua("ua", {"url": f"opc.tcp://127.0.0.1:{free_port()}/x",
+                            "cert_file": str(tmp_path / "nope.der"),
+                            "key_file": str(tmp_path / "nope.pem"),
+                            "trusted_clients_dir": str(tmp_path)}, ctx())
+    with pytest.raises(ConfigError, match="sink ua: certificate files"):
+        await fwd.client.connect()
+    await fwd.client.close(graceful=False)
