@@ -11,8 +11,9 @@ Topics (``topic_prefix`` defaults to ``leakfleet``):
 Topic levels are slugs of the ids (``gateway.sinks.topics``: lower-case, any other character
 than a-z 0-9 - _ becomes ``-``; ``site_id`` overrides the site's slug). ``topic_style =
 "names"`` keeps the names as given (``+``, ``#`` and ``/`` become ``_``) for subscribers of
-older releases, and sends no meta topic. Payload: ``record.to_dict()`` as JSON: it carries
-``schema``, ``record_id`` and the station and line as configured, so a consumer can
+older releases, and sends no meta topic. Payload: ``record.to_dict()`` as JSON (with id
+topics plus ``site``, the display name): it carries ``schema``, ``record_id`` and the
+station and line as configured, so a consumer can
 de-duplicate the repeats at-least-once delivery allows. A status's line comes from the
 gateway config (statuses do not carry one).
 
@@ -353,11 +354,19 @@ class MqttClient:
         return "/".join((self.opts.topic_prefix, self._site_level, line_level,
                          self._level(record.station, self._stations), record.kind))
 
+    def payload(self, record: Record) -> dict[str, Any]:
+        """The record as JSON; with id topics also the site's display name (``site``), which
+        the topic no longer shows."""
+        doc = record.to_dict()
+        if self.opts.topic_style == "ids":
+            doc["site"] = self.ctx.site
+        return doc
+
     async def send(self, kind: Kind, rows: Sequence[tuple[int, Record]]) -> None:
         # paho puts each message on the wire in call order (so the last status of a station is
         # the one left retained); tasks start in creation order and call paho before awaiting.
         retain = kind == "status"
-        payloads = [json.dumps(record.to_dict(), separators=(",", ":")).encode()
+        payloads = [json.dumps(self.payload(record), separators=(",", ":")).encode()
                     for _, record in rows]
         too_big = [len(p) for p in payloads if len(p) > self.opts.max_payload_bytes]
         if too_big:  # the broker would drop or disconnect us: refuse it here, with a reason

@@ -72,6 +72,9 @@ def test_topic_levels_are_id_slugs() -> None:
     assert old.topic(result("L1-S1", 3, line="Line 1")) == (
         "leakfleet/Northmere Works/Line 1/L1-S1/result")
     assert old.meta_messages() == []
+    r = result("L1-S1", 3, line="Line 1")
+    assert client.payload(r) == {**r.to_dict(), "site": "Northmere Works"}
+    assert old.payload(r) == r.to_dict()  # the older payload, unchanged
 
 
 def test_topic_slug_collisions_are_refused() -> None:
