@@ -187,6 +187,8 @@ class OpcUaServer:
         self._idx = 0
         self._vars: dict[str, Any] = {}  # node id text → Node
         self._today: dict[str, tuple[date, int, int]] = {}  # station → (day, tests, rejects)
+        self._applied: dict[tuple[str, str], int] = {}  # (station, kind) → newest seq shown
+        self._counted: dict[str, set[int]] = {}  # station → seqs of today's results counted
 
     def describe(self) -> str:
         return self.opts.url
@@ -301,7 +303,13 @@ class OpcUaServer:
     async def send(self, kind: Kind, rows: Sequence[tuple[int, Record]]) -> None:
         if self._server is None:
             raise SinkUnavailable("OPC UA server not started")
-        for _, record in rows:
+        for seq, record in rows:
+            if isinstance(record, TestResult):
+                await self._count(seq, record)
+            key = (record.station, record.kind)
+            if seq <= self._applied.get(key, 0):
+                continue  # older than what is shown (the forwarder may send new ones first)
+            self._applied[key] = seq
             await self.apply(record)
 
     async def apply(self, record: Record) -> None:
@@ -309,7 +317,6 @@ class OpcUaServer:
             for v in RESULT_VARS:
                 await self._write(self.node_id(record.station, "LastResult", v.name), v.kind,
                                   result_values(record)[v.name], record.ended_at)
-            await self._count(record)
         elif isinstance(record, CalibrationEvent):
             for v in CALIBRATION_VARS:
                 await self._write(self.node_id(record.station, "LastCalibration", v.name),
@@ -320,12 +327,16 @@ class OpcUaServer:
             await self._write(self.node_id(record.station, "StateDetail"), "String",
                               record.detail, record.at)
 
-    async def _count(self, r: TestResult) -> None:
+    async def _count(self, seq: int, r: TestResult) -> None:
+        """Today's tests and rejects; each journal row once, in whatever order it comes."""
         today = datetime.now(self.tz).date()
         day, tests, rejects = self._today.get(r.station, (today, 0, 0))
+        counted = self._counted.setdefault(r.station, set())
         if day != today:
             tests, rejects = 0, 0
-        if r.ended_at.astimezone(self.tz).date() == today:
+            counted.clear()
+        if r.ended_at.astimezone(self.tz).date() == today and seq not in counted:
+            counted.add(seq)
             tests += 1
             rejects += r.verdict in (Verdict.REJECT, Verdict.GROSS)
         self._today[r.station] = (today, tests, rejects)
@@ -334,7 +345,7 @@ class OpcUaServer:
 
     async def close(self, *, graceful: bool) -> None:
         server, self._server = self._server, None
-        self._vars, self._today = {}, {}
+        self._vars, self._today, self._applied, self._counted = {}, {}, {}, {}
         if server is not None:
             with contextlib.suppress(OSError, asyncio.CancelledError):
                 await server.stop()

@@ -219,3 +219,25 @@ async def test_missing_certificate_is_a_config_error(tmp_path: Path) -> None:
     with pytest.raises(ConfigError, match="sink ua: certificate files"):
         await fwd.client.connect()
     await fwd.client.close(graceful=False)
+
+
+async def test_newest_record_wins_and_each_counts_once() -> None:
+    """The forwarder may send new records before an older backlog, and repeat a batch after a
+    failure: the shown values stay the newest and a result counts once."""
+    fwd = make_opcua("ua", {"url": f"opc.tcp://127.0.0.1:{free_port()}/x",
+                            "allow_anonymous": True}, ctx())
+    srv = fwd.client
+    assert isinstance(srv, OpcUaServer)
+    now = dt.datetime.now(dt.UTC)
+    older = result("L1-S1", 1, ended_at=now, verdict="gross")
+    newer = result("L1-S1", 2, ended_at=now, verdict="pass")
+    await srv.connect()
+    try:
+        await srv.send("result", [(7, newer)])
+        await srv.send("result", [(5, older), (7, newer)])  # backlog after the lane, a repeat
+        shown = srv._vars[srv.node_id("L1-S1", "LastResult", "record_id")]
+        assert await shown.read_value() == newer.record_id
+        assert await srv._vars[srv.node_id("L1-S1", "TestsToday")].read_value() == 2
+        assert await srv._vars[srv.node_id("L1-S1", "RejectsToday")].read_value() == 1
+    finally:
+        await srv.close(graceful=True)
