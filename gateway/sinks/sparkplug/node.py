@@ -90,7 +90,7 @@ class SparkplugClient(MqttClient):
         self.bd_seq = -1  # the first connection uses 0
         self._seq = 0
         self._born: set[str] = set()
-        self._last: dict[str, dict[str, Record]] = {}  # station → kind → latest sent record
+        self._last: dict[str, dict[str, tuple[int, Record]]] = {}  # station → kind → newest
         self._lock = asyncio.Lock()  # births and DDATA batches never interleave their seqs
         self._listener: asyncio.Task[None] | None = None
         self.rebirths = 0
@@ -129,7 +129,7 @@ class SparkplugClient(MqttClient):
     def _dbirth(self, station: str, line: str, now: int) -> tuple[str, Any]:
         self._born.add(station)
         payload = spm.birth_metrics(self._next_seq(), now, station=station, line=line,
-                                    last=self._last.get(station, {}).values())
+                                    last=[r for _, r in self._last.get(station, {}).values()])
         return self.device_topic("DBIRTH", station), payload
 
     async def _publish_all(self, messages: Sequence[tuple[str, bytes]]) -> None:
@@ -183,8 +183,10 @@ class SparkplugClient(MqttClient):
                 payload = spm.record_metrics(self._next_seq(), now, record)
                 messages.append((self.device_topic("DDATA", record.station), spm.encode(payload)))
             await self._publish_all(messages)
-            for _, record in rows:  # a rebirth carries the latest values
-                self._last.setdefault(record.station, {})[record.kind] = record
+            for seq, record in rows:  # a rebirth carries the latest values (by journal seq:
+                last = self._last.setdefault(record.station, {})  # a backlog may come late)
+                if seq > last.get(record.kind, (0, record))[0]:
+                    last[record.kind] = (seq, record)
 
     async def close(self, *, graceful: bool) -> None:
         listener, self._listener = self._listener, None
