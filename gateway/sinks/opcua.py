@@ -47,13 +47,14 @@ from gateway.records import CalibrationEvent, Record, StationStatus, TestResult,
 from gateway.sinks import SinkContext, register_sink
 from gateway.sinks.forwarder import ForwarderOptions, JournalForwarder, SinkUnavailable
 from gateway.sinks.topics import slug
-from gateway.store.journal import KINDS, Journal, Kind
+from gateway.store.journal import Journal, Kind
 
 __all__ = ["OpcUaOptions", "OpcUaServer", "make_opcua", "unit_id"]
 
 log = logging.getLogger(__name__)
 DEFAULT_URL = "opc.tcp://127.0.0.1:4840/leakfleet"
 UNECE_NS = "http://www.opcfoundation.org/UA/units/un/cefact"
+SHOWN_KINDS: tuple[Kind, ...] = ("result", "calibration", "status")  # what the space shows
 _KEYS = ("url", "cert_file", "key_file", "trusted_clients_dir", "allow_anonymous", "replay",
          "timezone")
 
@@ -180,7 +181,7 @@ class OpcUaServer:
         self.opts = opts
         self.ctx = ctx
         self.sink_name = sink_name
-        self.kinds: tuple[Kind, ...] = KINDS
+        self.kinds: tuple[Kind, ...] = SHOWN_KINDS
         self.tz = ZoneInfo(opts.timezone)
         self.site_id = slug(ctx.site)
         self._server: Any = None
@@ -364,7 +365,7 @@ class OpcUaForwarder(JournalForwarder):
     async def run_with(self, journal: Journal, stop: asyncio.Event) -> None:
         assert isinstance(self.client, OpcUaServer)
         replay = self.client.opts.replay
-        for kind in KINDS:
+        for kind in self.client.kinds:
             top = await asyncio.to_thread(journal.max_seq, kind)
             await asyncio.to_thread(journal.set_cursor, self.name, kind, max(0, top - replay))
         await super().run_with(journal, stop)

@@ -44,6 +44,7 @@ __all__ = ["NAMESPACE", "SparkplugClient", "SparkplugOptions", "make_sparkplug"]
 log = logging.getLogger(__name__)
 NAMESPACE = "spBv1.0"
 _OWN_KEYS = ("group_id", "edge_node_id")
+DDATA_KINDS = ("result", "calibration", "status")
 _NOT_HERE = ("topic_prefix", "topic_style", "site_id")  # plain-MQTT topic keys
 
 
@@ -72,6 +73,10 @@ class SparkplugOptions:
                          options.get("edge_node_id", None) or slug(ctx.gateway_id))
         station_slugs(ctx.stations)  # two stations on one device id: refused now
         rest = {k: v for k, v in options.items() if k not in _OWN_KEYS}
+        kinds = rest.setdefault("kinds", list(DDATA_KINDS))
+        if not isinstance(kinds, list) or not kinds or any(k not in DDATA_KINDS for k in kinds):
+            raise ValueError(f"kinds must be a list drawn from {', '.join(DDATA_KINDS)} "
+                             f"(what Sparkplug DDATA carries), got {kinds!r}")
         return cls(group, node), rest
 
 

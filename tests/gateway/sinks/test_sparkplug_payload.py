@@ -68,12 +68,13 @@ def test_options_and_topics() -> None:
     assert client.nbirth_topic == "spBv1.0/northmere-works/NBIRTH/gw-test"
     assert client.device_topic("DDATA", "L1-S1") == "spBv1.0/northmere-works/DDATA/gw-test/l1-s1"
     assert client.opts.client_id == "leakfleet-gw-test-spb"
+    assert client.kinds == ("result", "calibration", "status")
     own = make_sparkplug("spb", {"url": "mqtt://h", "group_id": "Plant A",
                                  "edge_node_id": "edge-1"}, ctx()).client
     assert isinstance(own, SparkplugClient) and own.ncmd_topic == "spBv1.0/Plant A/NCMD/edge-1"
     for bad, match in (({"group_id": "a/b"}, "group_id"), ({"edge_node_id": "#"}, "edge_node"),
                        ({"topic_prefix": "x"}, "Sparkplug topics are fixed"),
-                       ({"colour": 1}, "unknown key")):
+                       ({"colour": 1}, "unknown key"), ({"kinds": ["trace"]}, "DDATA")):
         with pytest.raises(ValueError, match=match):
             make_sparkplug("spb", {"url": "mqtt://h", **bad}, ctx())
     with pytest.raises(ValueError, match="both map to topic level"):
