@@ -11,11 +11,10 @@ Topics (``topic_prefix`` defaults to ``leakfleet``):
 Topic levels are slugs of the ids (``gateway.sinks.topics``: lower-case, any other character
 than a-z 0-9 - _ becomes ``-``; ``site_id`` overrides the site's slug). ``topic_style =
 "names"`` keeps the names as given (``+``, ``#`` and ``/`` become ``_``) for subscribers of
-older releases, and sends no meta topic. Payload: ``record.to_dict()`` as JSON (with id
-topics plus ``site``, the display name): it carries ``schema``, ``record_id`` and the
-station and line as configured, so a consumer can
-de-duplicate the repeats at-least-once delivery allows. A status's line comes from the
-gateway config (statuses do not carry one).
+older releases, and sends no meta topic. Payload: ``record.to_dict()`` as JSON (with id topics
+plus ``site``, the display name): it carries ``schema``, ``record_id`` and the station and line
+as configured, so a consumer can de-duplicate the repeats at-least-once delivery allows. A
+status's line comes from the gateway config (statuses do not carry one).
 
 ``send`` publishes a batch at QoS 1 and returns once the broker sent a PUBACK for every
 message (aiomqtt's ``publish`` waits for paho's on_publish), so the forwarder moves its cursor
