@@ -66,7 +66,8 @@ def sink_registry() -> Mapping[str, SinkFactory]:
     """Sink type → factory; sink modules register themselves when imported."""
     import importlib
 
-    for module in ("gateway.sinks.mqtt", "gateway.sinks.influx"):
+    for module in ("gateway.sinks.mqtt", "gateway.sinks.influx", "gateway.sinks.sparkplug.node",
+                   "gateway.sinks.opcua"):
         try:
             importlib.import_module(module)
         except ImportError as exc:

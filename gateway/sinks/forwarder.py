@@ -246,6 +246,9 @@ class JournalForwarder:
             await self._refresh_backlog(journal)
             if moved:
                 continue
+            check = getattr(self.client, "check_connection", None)
+            if check is not None:  # a client that can tell a lost connection while idle
+                check()
             if token is not None:
                 await Pulse.wait(token, self.options.poll_interval_s, stop)
             else:

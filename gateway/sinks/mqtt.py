@@ -4,11 +4,17 @@ Topics (``topic_prefix`` defaults to ``leakfleet``):
     <prefix>/<site>/<line>/<station>/result        one message per TestResult
     <prefix>/<site>/<line>/<station>/calibration   one per CalibrationEvent
     <prefix>/<site>/<line>/<station>/status        StationStatus, retained (the latest state)
+    <prefix>/<site>/<line>/<station>/meta          retained on connect (``topic_style = "ids"``):
+                                                   display names of site, line and station
     <prefix>/<site>/gateway/<gateway id>/state     "online" (retained) on connect; the last
                                                    will, also retained, is "offline"
-Payload: ``record.to_dict()`` as JSON: it carries ``schema`` and ``record_id``, so a consumer
-can de-duplicate the repeats at-least-once delivery allows. A status's line comes from the
-gateway config (statuses do not carry one). ``+``, ``#`` and ``/`` inside a name become ``_``.
+Topic levels are slugs of the ids (``gateway.sinks.topics``: lower-case, any other character
+than a-z 0-9 - _ becomes ``-``; ``site_id`` overrides the site's slug). ``topic_style =
+"names"`` keeps the names as given (``+``, ``#`` and ``/`` become ``_``) for subscribers of
+older releases, and sends no meta topic. Payload: ``record.to_dict()`` as JSON (with id topics
+plus ``site``, the display name): it carries ``schema``, ``record_id`` and the station and line
+as configured, so a consumer can de-duplicate the repeats at-least-once delivery allows. A
+status's line comes from the gateway config (statuses do not carry one).
 
 ``send`` publishes a batch at QoS 1 and returns once the broker sent a PUBACK for every
 message (aiomqtt's ``publish`` waits for paho's on_publish), so the forwarder moves its cursor
@@ -23,6 +29,8 @@ only over acknowledged records. Credentials: ``username`` in the config, the pas
     cert_file = "..."; key_file = "..."      # TLS client certificate, when the broker wants one
     protocol = "5"                           # "3.1.1" (default) or "5"
     client_id = "leakfleet-gw-l1"            # default: leakfleet-<gateway id>
+    topic_style = "ids"                      # "ids" (default) or "names" (older releases)
+    site_id = "northmere"                    # the site's topic level (default: slug of site)
 """
 
 from __future__ import annotations
@@ -47,6 +55,7 @@ from gateway.sinks.forwarder import (
     SinkUnavailable,
     read_secret,
 )
+from gateway.sinks.topics import slug, station_slugs
 from gateway.store.journal import KINDS, Kind
 
 __all__ = ["MqttClient", "MqttOptions", "make_mqtt", "parse_mqtt_url", "topic_for"]
@@ -62,8 +71,10 @@ _LIBRARY_LOG.setLevel(logging.ERROR)
 PASSWORD_ENV = "LEAKFLEET_MQTT_PASSWORD"
 _KEYS = (
     "url", "username", "password_file", "ca_file", "cert_file", "key_file", "protocol",
-    "client_id", "topic_prefix", "keepalive_s", "kinds", "max_payload_bytes",
+    "client_id", "topic_prefix", "keepalive_s", "kinds", "max_payload_bytes", "topic_style",
+    "site_id",
 )
+TOPIC_STYLES = ("ids", "names")
 # CONNACK codes that mean "your credentials are wrong" (MQTT 3.1.1: 4, 5; MQTT 5: 0x86, 0x87)
 _AUTH_CODES = {4, 5, 134, 135}
 
@@ -112,6 +123,8 @@ class MqttOptions:
     keepalive_s: int
     kinds: tuple[Kind, ...]
     max_payload_bytes: int = 262_144  # set it to the broker's limit (message_size_limit)
+    topic_style: str = "ids"
+    site_id: str | None = None
 
     @classmethod
     def from_options(cls, options: Mapping[str, Any], ctx: SinkContext) -> MqttOptions:
@@ -128,7 +141,7 @@ class MqttOptions:
         url_user = urllib.parse.urlsplit(str(options["url"])).username
         text = {k: _opt_text(options, k) for k in (
             "username", "password_file", "ca_file", "cert_file", "key_file", "client_id",
-            "topic_prefix")}
+            "topic_prefix", "site_id")}
         if (text["cert_file"] is None) != (text["key_file"] is None):
             raise ValueError("cert_file and key_file go together (the TLS client certificate)")
         if (text["ca_file"] or text["cert_file"]) and not tls:
@@ -143,7 +156,18 @@ class MqttOptions:
         if isinstance(limit, bool) or not isinstance(limit, int) or not 256 <= limit <= 268_435_455:
             raise ValueError(f"max_payload_bytes must be an integer from 256 to 268435455 "
                              f"(MQTT's maximum), got {limit!r}")
+        style = options.get("topic_style", "ids")
+        if style not in TOPIC_STYLES:
+            raise ValueError(f"topic_style must be \"ids\" or \"names\", got {style!r}")
+        site_id = text["site_id"]
+        if site_id is not None and slug(site_id) != site_id:
+            raise ValueError(f"site_id {site_id!r} is not a topic level: use lower-case "
+                             f"letters, digits, - and _ (e.g. {slug(site_id)!r})")
+        if style == "ids":  # refuse two ids on one topic now, not at the first message
+            slug(site_id or ctx.site)
+            station_slugs(ctx.stations)
         return cls(
+            topic_style=style, site_id=site_id,
             max_payload_bytes=limit,
             host=host, port=port, tls=tls,
             username=text["username"] or url_user,
@@ -185,8 +209,16 @@ class MqttClient:
         self.ctx = ctx
         self.kinds = opts.kinds
         self.sink_name = sink_name
+        if opts.topic_style == "ids":
+            self._site_level = opts.site_id or slug(ctx.site)
+            self._lines, self._stations = station_slugs(ctx.stations)
+            gw_level = slug(ctx.gateway_id)
+        else:
+            self._site_level = _segment(ctx.site)
+            self._lines, self._stations = {}, {}
+            gw_level = _segment(ctx.gateway_id)
         self.state_topic = "/".join(
-            (opts.topic_prefix, _segment(ctx.site), "gateway", _segment(ctx.gateway_id), "state")
+            (opts.topic_prefix, self._site_level, "gateway", gw_level, "state")
         )
         self._client: Any = None
         self._inflight = asyncio.Semaphore(MAX_INFLIGHT)
@@ -227,8 +259,16 @@ class MqttClient:
     async def connect(self) -> None:
         import aiomqtt
 
+        await self._open(aiomqtt.Will(self.state_topic, b"offline", qos=1, retain=True))
+        await self._publish(self.state_topic, b"online", retain=True)
+        for topic, payload in self.meta_messages():
+            await self._publish(topic, payload, retain=True)
+
+    async def _open(self, will: Any) -> None:
+        """Connect a fresh aiomqtt client with this last will (shared with Sparkplug)."""
+        import aiomqtt
+
         self._prepare()
-        will = aiomqtt.Will(self.state_topic, b"offline", qos=1, retain=True)
         client = aiomqtt.Client(
             self.opts.host,
             self.opts.port,
@@ -254,7 +294,30 @@ class MqttClient:
             await stack.aclose()
             raise SinkUnavailable(f"cannot connect to {self.describe()}: {exc}") from None
         self._client, self._stack = client, stack
-        await self._publish(self.state_topic, b"online", retain=True)
+
+    def meta_messages(self) -> list[tuple[str, bytes]]:
+        """Retained ``…/meta`` per station: the display names behind the slugged levels."""
+        if self.opts.topic_style != "ids":
+            return []
+        out = []
+        for station, line in sorted(self.ctx.stations.items()):
+            doc = {"site": self.ctx.site, "site_id": self._site_level, "line": line,
+                   "line_id": self._level(line, self._lines), "station": station,
+                   "station_id": self._level(station, self._stations),
+                   "gateway_id": self.ctx.gateway_id}
+            topic = "/".join((self.opts.topic_prefix, self._site_level, doc["line_id"],
+                              doc["station_id"], "meta"))
+            out.append((topic, json.dumps(doc, separators=(",", ":")).encode()))
+        return out
+
+    @staticmethod
+    def _level(name: str, known: Mapping[str, str]) -> str:
+        if name in known:
+            return known[name]
+        try:
+            return slug(name)
+        except ValueError:
+            return "_"
 
     def _refusal(self, exc: Any) -> str:
         rc = exc.rc
@@ -281,15 +344,28 @@ class MqttClient:
     def topic(self, record: Record) -> str:
         line = self.ctx.stations.get(record.station) if isinstance(record, StationStatus) else (
             record.line)
-        return topic_for(
-            self.opts.topic_prefix, self.ctx.site, line or "_", record.station, record.kind
-        )
+        if self.opts.topic_style == "names":
+            return topic_for(
+                self.opts.topic_prefix, self.ctx.site, line or "_", record.station, record.kind
+            )
+        # a record from a station no longer configured still gets a level (slug, or "_")
+        line_level = self._level(line, self._lines) if line else "_"
+        return "/".join((self.opts.topic_prefix, self._site_level, line_level,
+                         self._level(record.station, self._stations), record.kind))
+
+    def payload(self, record: Record) -> dict[str, Any]:
+        """The record as JSON; with id topics also the site's display name (``site``), which
+        the topic no longer shows."""
+        doc = record.to_dict()
+        if self.opts.topic_style == "ids":
+            doc["site"] = self.ctx.site
+        return doc
 
     async def send(self, kind: Kind, rows: Sequence[tuple[int, Record]]) -> None:
         # paho puts each message on the wire in call order (so the last status of a station is
         # the one left retained); tasks start in creation order and call paho before awaiting.
         retain = kind == "status"
-        payloads = [json.dumps(record.to_dict(), separators=(",", ":")).encode()
+        payloads = [json.dumps(self.payload(record), separators=(",", ":")).encode()
                     for _, record in rows]
         too_big = [len(p) for p in payloads if len(p) > self.opts.max_payload_bytes]
         if too_big:  # the broker would drop or disconnect us: refuse it here, with a reason

@@ -81,7 +81,7 @@ async def test_demo_forwards_results_to_mosquitto(broker: MosquittoServer, tmp_p
 
     got = _results(sub.messages)
     topics = {t for t, _, _ in sub.messages if t.endswith("/result")}
-    assert "leakfleet/Northmere Works/L1/L1-S1/result" in topics
+    assert "leakfleet/northmere-works/l1/l1-s1/result" in topics
     with sqlite3.connect(run / "demo.db") as conn:
         journal = {r[0]: r[1] for r in conn.execute("SELECT record_id, station FROM results")}
     # what the broker delivered is what the journal holds, record for record

@@ -93,7 +93,7 @@ url = "{influxdb.url(influx_db)}"
     # ... and a repeat, if any, is the same payload under the same record_id
     seen: dict[str, bytes] = {}
     for topic, payload, _ in sub.messages:
-        if "/gateway/" in topic:
+        if "/gateway/" in topic or topic.endswith("/meta"):  # state and display names
             continue
         rid = json.loads(payload)["record_id"]
         assert seen.setdefault(rid, payload) == payload, rid

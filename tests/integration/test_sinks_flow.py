@@ -31,11 +31,12 @@ async def test_journal_to_mqtt_subscriber(mosquitto: MosquittoServer, journal: J
     got = sub.records()
     assert set(got) == {r.record_id for r in records + more}
     for r in records:
-        assert got[r.record_id] == json.loads(json.dumps(r.to_dict()))
+        # the record as the journal has it, plus the site's display name (topics carry ids)
+        assert got[r.record_id] == {**json.loads(json.dumps(r.to_dict())), "site": "northmere"}
     topics = {t for t, _, _ in sub.messages}
-    assert "leakfleet/northmere/L1/L1-S1/result" in topics
-    assert "leakfleet/northmere/L2/L2-S1/calibration" in topics
-    assert "leakfleet/northmere/L1/L1-S2/status" in topics
+    assert "leakfleet/northmere/l1/l1-s1/result" in topics
+    assert "leakfleet/northmere/l2/l2-s1/calibration" in topics
+    assert "leakfleet/northmere/l1/l1-s2/status" in topics
     states = [p for t, p, _ in sub.messages if t == "leakfleet/northmere/gateway/gw-test/state"]
     assert states[0] == b"online" and states[-1] == b"offline"  # graceful stop says so
     assert all(journal.backlog("mqtt")[k][0] == 0 for k in ("result", "calibration", "status"))
@@ -50,10 +51,13 @@ async def test_status_and_state_are_retained(mosquitto: MosquittoServer, journal
         await until(lambda: unsent(journal, "mqtt-r") == 0, 20, "statuses sent")
     # a consumer that comes later still learns each station's latest state and the gateway's
     async with MqttLog(mosquitto, "leakfleet/retainsite/#", client_id="late-sub") as late:
-        await late.wait_for(lambda m: len(m) >= 4, timeout=10)
+        await late.wait_for(lambda m: len(m) >= 7, timeout=10)
     retained = {t: p for t, p, r in late.messages if r}
     assert retained["leakfleet/retainsite/gateway/gw-retain/state"] == b"offline"
-    last = json.loads(retained["leakfleet/retainsite/L1/L1-S1/status"])
+    meta = json.loads(retained["leakfleet/retainsite/l2/l2-s1/meta"])  # the names behind ids
+    assert meta == {"site": "retainsite", "site_id": "retainsite", "line": "L2", "line_id": "l2",
+                    "station": "L2-S1", "station_id": "l2-s1", "gateway_id": "gw-retain"}
+    last = json.loads(retained["leakfleet/retainsite/l1/l1-s1/status"])
     assert last["state"] == "calibrating" and last["detail"] == "step 20"  # cycle 20's status
 
 

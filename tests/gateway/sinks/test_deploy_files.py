@@ -26,6 +26,7 @@ def test_example_gateway_config_checks(capsys: pytest.CaptureFixture[str],
     assert main(["gateway", "--config", str(DEPLOY / "gateway.toml"), "--check"]) == 0
     out = capsys.readouterr().out
     assert "sink mqtt" in out and "sink influx" in out
+    assert "sink scada" in out and "sink opcua" in out  # Sparkplug B and the OPC UA server
 
 
 def test_units_run_unprivileged_and_restart() -> None:

@@ -44,14 +44,50 @@ def test_topics_and_payload_schema() -> None:
     c = ctx()
     client = MqttClient(MqttOptions.from_options({"url": "mqtt://h"}, c), c, "m")
     r = result("L1-S1", 4)
-    assert client.topic(r) == "leakfleet/northmere/L1/L1-S1/result"
-    assert client.topic(status("L2-S1", 1, "idle")) == "leakfleet/northmere/L2/L2-S1/status"
+    assert client.topic(r) == "leakfleet/northmere/l1/l1-s1/result"
+    assert client.topic(status("L2-S1", 1, "idle")) == "leakfleet/northmere/l2/l2-s1/status"
     assert client.state_topic == "leakfleet/northmere/gateway/gw-test/state"
     assert topic_for("lf", "a/b", "L+1", "S#1", "result") == "lf/a_b/L_1/S_1/result"
     assert client.opts.client_id == "leakfleet-gw-test"
     payload = json.loads(json.dumps(r.to_dict()))
     assert payload["schema"] == SCHEMA_VERSION and payload["record_id"] == r.record_id
     assert record_from_dict(payload) == r  # a consumer rebuilds the canonical record
+
+
+def test_topic_levels_are_id_slugs() -> None:
+    c = ctx(site="Northmere Works", gateway_id="NW L1 GW",
+            stations={"Leak Bench #2": "Line 1", "L1-S1": "Line 1"})
+    client = MqttClient(MqttOptions.from_options({"url": "mqtt://h"}, c), c, "m")
+    assert client.topic(result("L1-S1", 3, line="Line 1")) == (
+        "leakfleet/northmere-works/line-1/l1-s1/result")
+    assert client.state_topic == "leakfleet/northmere-works/gateway/nw-l1-gw/state"
+    topics = dict(client.meta_messages())
+    meta = json.loads(topics["leakfleet/northmere-works/line-1/leak-bench--2/meta"])
+    assert meta["station"] == "Leak Bench #2" and meta["site"] == "Northmere Works"
+    site_id = {"url": "mqtt://h", "site_id": "nw"}
+    assert MqttClient(MqttOptions.from_options(site_id, c), c, "m").topic(
+        result("L1-S1", 3, line="Line 1")).startswith("leakfleet/nw/line-1/")
+    old = MqttClient(MqttOptions.from_options({"url": "mqtt://h", "topic_style": "names"}, c),
+                     c, "m")
+    assert old.topic(result("L1-S1", 3, line="Line 1")) == (
+        "leakfleet/Northmere Works/Line 1/L1-S1/result")
+    assert old.meta_messages() == []
+    r = result("L1-S1", 3, line="Line 1")
+    assert client.payload(r) == {**r.to_dict(), "site": "Northmere Works"}
+    assert old.payload(r) == r.to_dict()  # the older payload, unchanged
+
+
+def test_topic_slug_collisions_are_refused() -> None:
+    c = ctx(stations={"L1 S1": "L1", "L1-S1": "L1"})
+    with pytest.raises(ValueError, match="'L1 S1' and 'L1-S1' both map to topic level 'l1-s1'"):
+        make_mqtt("m", {"url": "mqtt://h"}, c)
+    make_mqtt("m", {"url": "mqtt://h", "topic_style": "names"}, c)  # names: no slugs
+    with pytest.raises(ValueError, match="topic_style"):
+        make_mqtt("m", {"url": "mqtt://h", "topic_style": "slug"}, ctx())
+    with pytest.raises(ValueError, match="site_id"):
+        make_mqtt("m", {"url": "mqtt://h", "site_id": "North Mere"}, ctx())
+    with pytest.raises(ValueError, match="no usable topic level"):
+        make_mqtt("m", {"url": "mqtt://h"}, ctx(site="***"))
 
 
 def test_influx_urls() -> None:
