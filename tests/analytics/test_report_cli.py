@@ -11,7 +11,7 @@ from aiag_msa_example import tidy
 from fake_store import demo_store
 
 from gateway.cli import build_parser, main
-from gateway.cli.cmd_report import build_report, read_tidy_csv
+from gateway.reports import build_report, read_tidy_csv
 
 pytestmark = pytest.mark.timeout(120)
 
@@ -148,7 +148,7 @@ def test_help_for_every_kind() -> None:
     out = subprocess.run([sys.executable, "-m", "gateway", "report", "--help"], cwd=root,
                          capture_output=True, text=True, timeout=60)  # fmt: skip
     assert out.returncode == 0
-    from gateway.cli.cmd_report import KINDS
+    from gateway.reports import KINDS
 
     for kind in KINDS:
         assert kind in out.stdout
