@@ -317,9 +317,9 @@ def _handler(kind: str) -> Callable[[argparse.Namespace], int]:
 
         report = build_report(kind, args)
         if args.json:
-            print(json.dumps(report.document(), allow_nan=False, indent=2))
+            print(json.dumps(report.to_json(), allow_nan=False, indent=2))
         else:
-            print(report.text)
+            print(report.to_text())
         return 0
 
     return run
@@ -327,12 +327,12 @@ def _handler(kind: str) -> Callable[[argparse.Namespace], int]:
 
 def _shift_handler(args: argparse.Namespace) -> int:
     """Build the shift report; write the HTML page when asked, print JSON or text."""
-    from gateway.reports import build_report, render_shift_html
+    from gateway.reports import build_report
 
     report = build_report("shift", args)
-    document = report.document()
+    document = report.to_json()
     if args.html:
-        page = render_shift_html(document, paper=args.paper)
+        page = report.to_html(paper=args.paper)
         try:
             Path(args.html).write_text(page, encoding="utf-8")
         except OSError as exc:
@@ -340,7 +340,7 @@ def _shift_handler(args: argparse.Namespace) -> int:
         print(f"wrote {args.html}", file=sys.stderr)
     if not report.result["has_data"]:
         print(f"leakfleet report shift: note: {report.result['note']}", file=sys.stderr)
-    print(json.dumps(document, allow_nan=False, indent=2) if args.json else report.text)
+    print(json.dumps(document, allow_nan=False, indent=2) if args.json else report.to_text())
     return 0
 
 

@@ -8,7 +8,7 @@ import sys
 from collections.abc import Callable
 from dataclasses import dataclass
 from datetime import UTC, date, datetime, timedelta
-from typing import TYPE_CHECKING, Any
+from typing import TYPE_CHECKING, Any, Literal
 
 if TYPE_CHECKING:
     import pandas as pd
@@ -152,13 +152,28 @@ def store_calibrations(store: Any, f: Filters) -> pd.DataFrame:
 
 @dataclass
 class Report:
+    """One computed report: its figures (JSON-ready), the range it covers and its text view."""
+
     kind: str
     filters: dict[str, Any] | None
     result: Any  # JSON-ready
     text: str
 
     def document(self) -> dict[str, Any]:
+        """``{"schema", "kind", "filters", "result"}``: what ``--json`` prints."""
         return {"schema": SCHEMA, "kind": self.kind, "filters": self.filters, "result": self.result}
+
+    def to_json(self) -> dict[str, Any]:
+        return self.document()
+
+    def to_text(self) -> str:
+        return self.text
+
+    def to_html(self, paper: Literal["a4", "letter"] = "a4") -> str:
+        """The printable page; only the shift report has one (ValueError for the others)."""
+        from gateway.reports.shift_html import render_shift_html
+
+        return render_shift_html(self.document(), paper=paper)
 
 
 def known_ids(store: Any, args: argparse.Namespace) -> Any:

@@ -3,7 +3,8 @@
 from __future__ import annotations
 
 import argparse
-from collections.abc import Callable
+from collections.abc import Callable, Sequence
+from dataclasses import dataclass
 from datetime import UTC, date, datetime, timedelta
 from typing import Any
 
@@ -27,11 +28,25 @@ def shift_date(text: str, timezone: str) -> date:
         ) from None
 
 
+@dataclass(frozen=True)
+class ShiftOptions:
+    """What one shift report covers; the defaults are the CLI's."""
+
+    day: date
+    shift: str
+    line: str | None = None
+    history_days: float = 7.0
+    within_days: int = 30
+    guard_band_sccm: float | None = None
+    min_ratio: float | None = None
+    master_loss_limit_pa: float | None = None
+    standards: Sequence[Any] = ()
+    plant_stations: Sequence[tuple[str, str]] | None = None  # (station, line) from a config
+    config_source: str | None = None
+
+
 def build(args: argparse.Namespace, get_store: Callable[[], Any]) -> Report:
-    import pandas as pd
-
-    from analytics import HealthConfig, shift_report
-
+    """The CLI's options as ``ShiftOptions``; mistakes name the option."""
     calendar = calendar_of(args)
     day = shift_date(args.date, calendar.timezone)
     if args.shift not in calendar.names:
@@ -42,32 +57,44 @@ def build(args: argparse.Namespace, get_store: Callable[[], Any]) -> Report:
         raise ValueError(f"--history: expected 0..366 days, got {args.history:g}")
     if args.within < 0:
         raise ValueError(f"--within: expected days ≥ 0, got {args.within}")
-    window = calendar.window(day, args.shift)
     standards = standards_register(args)
-    health = HealthConfig(
-        min_ratio=args.min_ratio,
-        master_loss_limit_pa=quantity(
-            args.master_loss_limit, "pressure", "Pa", "--master-loss-limit"
-        ),
-    )
-    since = window.start - timedelta(days=args.history)
-    store = get_store()
-    results = store.results(since, window.end, line=args.line)
-    cals = store.calibrations(window.end - timedelta(days=args.history), window.end,
-                              line=args.line)  # fmt: skip
-    stations = store.stations() if hasattr(store, "stations") else None
+    master_loss = quantity(args.master_loss_limit, "pressure", "Pa", "--master-loss-limit")
+    guard = quantity(args.guard_band, "leak", "sccm", "--guard-band")
     plant = plant_of(args)
-    if plant is not None:  # stations the plant has, whether or not they have reported yet
-        known = pd.DataFrame(
-            [(st.id, st.line) for st in plant.stations], columns=["station", "line"]
-        )
+    options = ShiftOptions(
+        day=day, shift=args.shift, line=args.line, history_days=args.history,
+        within_days=args.within, guard_band_sccm=guard, min_ratio=args.min_ratio,
+        master_loss_limit_pa=master_loss, standards=standards,
+        plant_stations=None if plant is None else [(st.id, st.line) for st in plant.stations],
+        config_source=None if plant is None else plant.source,
+    )  # fmt: skip
+    return shift_report_of(get_store(), calendar, options)
+
+
+def shift_report_of(store: Any, calendar: Any, options: ShiftOptions) -> Report:
+    """One shift's report from ``store`` (QueryStore methods) in ``calendar``'s time zone;
+    used by ``leakfleet report shift`` and the dashboard's shift page alike."""
+    import pandas as pd
+
+    from analytics import HealthConfig, shift_report
+
+    o = options
+    window = calendar.window(o.day, o.shift)
+    health = HealthConfig(min_ratio=o.min_ratio, master_loss_limit_pa=o.master_loss_limit_pa)
+    since = window.start - timedelta(days=o.history_days)
+    results = store.results(since, window.end, line=o.line)
+    cals = store.calibrations(window.end - timedelta(days=o.history_days), window.end,
+                              line=o.line)  # fmt: skip
+    stations = store.stations() if hasattr(store, "stations") else None
+    if o.plant_stations is not None:  # stations the plant has, whether or not they reported yet
+        known = pd.DataFrame(list(o.plant_stations), columns=["station", "line"])
         if stations is not None and len(stations):
             known = known[~known["station"].isin(stations["station"].astype(str))]
             stations = pd.concat([stations[["station", "line"]], known], ignore_index=True)
         else:
             stations = known
-    if stations is not None and args.line is not None:
-        stations = stations[stations["line"].astype("string") == args.line]
+    if stations is not None and o.line is not None:
+        stations = stations[stations["line"].astype("string") == o.line]
     statuses = None
     if hasattr(store, "statuses"):
         names = set(stations["station"].astype(str)) if stations is not None else set()
@@ -80,19 +107,18 @@ def build(args: argparse.Namespace, get_store: Callable[[], Any]) -> Report:
         frames = [f for f in frames if len(f)]
         statuses = pd.concat(frames, ignore_index=True) if frames else None
     r = shift_report(
-        window, calendar, results, cals, statuses, stations, standards,
-        history_since=since, within_days=args.within,
-        guard_band=quantity(args.guard_band, "leak", "sccm", "--guard-band"),
-        health=health, line=args.line,
+        window, calendar, results, cals, statuses, stations, list(o.standards),
+        history_since=since, within_days=o.within_days, guard_band=o.guard_band_sccm,
+        health=health, line=o.line,
     )  # fmt: skip
     result = r.to_dict()
     filters = {
-        "date": day.isoformat(),
-        "shift": args.shift,
-        "line": args.line,
+        "date": o.day.isoformat(),
+        "shift": o.shift,
+        "line": o.line,
         "since": window.start.isoformat(),
         "until": window.end.isoformat(),
-        "config": None if plant is None else plant.source,
+        "config": o.config_source,
     }
     return Report("shift", filters, result, shift_text(result, calendar))
 
