@@ -3,26 +3,35 @@
 from __future__ import annotations
 
 import argparse
-from collections.abc import Callable
-from typing import Any
+from collections.abc import Callable, Sequence
+from typing import Any, Literal
 
-from gateway.reports.common import Report, filters_from, span, store_results
+from gateway.reports.common import Filters, Report, filters_from, span, store_results
 from gateway.reports.settings import calendar_of
 from gateway.reports.tables import pct, table
 
 
 def build(args: argparse.Namespace, get_store: Callable[[], Any]) -> Report:
-    from analytics import pareto, yield_report
-
+    """The CLI's options: --by, --pareto, the range and filters, the shift calendar."""
     f = filters_from(args, get_store=get_store)
     by = tuple(b.strip() for b in args.by.split(",") if b.strip())
-    calendar = calendar_of(args)
-    results = store_results(get_store(), f)
+    return yield_report_of(get_store(), f, by=by, calendar=calendar_of(args),
+                           pareto_column=args.pareto)
+
+
+def yield_report_of(store: Any, f: Filters, *, by: Sequence[str] = (), calendar: Any = None,
+                    pareto_column: Literal["reason", "verdict"] = "reason") -> Report:
+    """Yield per ``by`` group over the store's results in ``f``, with a Pareto of
+    ``pareto_column`` (rejects only, unless the column is the verdict itself)."""
+    from analytics import pareto, yield_report
+
+    by = tuple(by)
+    results = store_results(store, f)
     report = yield_report(results, by=by, calendar=calendar)
     par = pareto(
         results,
-        column=args.pareto,
-        verdicts=None if args.pareto == "verdict" else ("reject", "gross"),
+        column=pareto_column,
+        verdicts=None if pareto_column == "verdict" else ("reject", "gross"),
     )
     o = report.overall
     lines = [
@@ -52,13 +61,13 @@ def build(args: argparse.Namespace, get_store: Callable[[], Any]) -> Report:
                 ],
             ),
         ]
-    what = "tests" if args.pareto == "verdict" else "rejects"
+    what = "tests" if pareto_column == "verdict" else "rejects"
     if par.rows:
         lines += [
             "",
-            f"Pareto of {args.pareto} ({par.total} {what})",
+            f"Pareto of {pareto_column} ({par.total} {what})",
             table(
-                [args.pareto, "n", "share", "cumulative"],
+                [pareto_column, "n", "share", "cumulative"],
                 [[r.category, r.n, pct(r.share), pct(r.cumulative_share)] for r in par.rows[:15]],
             ),
         ]
