@@ -4,7 +4,6 @@ from __future__ import annotations
 
 import argparse
 import re
-import sys
 from collections.abc import Callable
 from dataclasses import dataclass
 from datetime import UTC, date, datetime, timedelta
@@ -202,12 +201,6 @@ def known_ids(store: Any, args: argparse.Namespace) -> Any:
 def pd_iso(value: Any) -> str:
     """ISO 8601 text of a pandas/py datetime."""
     return str(value.isoformat()) if hasattr(value, "isoformat") else str(value)
-
-
-if __name__ == "__main__":  # pragma: no cover
-    from gateway.cli import main
-
-    sys.exit(main(["report", *sys.argv[1:]]))
 
 
 def latest_lower(results: pd.DataFrame) -> float | None:
