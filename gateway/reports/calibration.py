@@ -3,16 +3,24 @@
 from __future__ import annotations
 
 import argparse
-from collections.abc import Callable
+from collections.abc import Callable, Sequence
 from typing import Any
 
-from gateway.reports.common import Report, filters_from, quantity, store_calibrations, store_results
+from gateway.reports.common import (
+    Filters,
+    Report,
+    filters_from,
+    quantity,
+    store_calibrations,
+    store_results,
+)
 from gateway.reports.settings import standards_register
 from gateway.reports.tables import num, table
 
 
 def build(args: argparse.Namespace, get_store: Callable[[], Any]) -> Report:
-    from analytics import HealthConfig, calibration_health
+    """The CLI's options: the range and filters, the chart settings, the --config register."""
+    from analytics import HealthConfig
 
     f = filters_from(args, get_store=get_store)
     cfg = HealthConfig(
@@ -25,7 +33,19 @@ def build(args: argparse.Namespace, get_store: Callable[[], Any]) -> Report:
         cusum_k=args.cusum_k,
         cusum_h=args.cusum_h,
     )
-    cals = store_calibrations(get_store(), f)
+    standards = standards_register(args) if getattr(args, "config", None) else []
+    return calibration_report_of(get_store(), f, cfg, standards)
+
+
+def calibration_report_of(store: Any, f: Filters, health_config: Any,
+                          standards: Sequence[Any] = ()) -> Report:
+    """Calibration health (control charts, drift projection, alarms) over the store's
+    calibrations in ``f``; with a standards register, also standards used off their
+    certificate pressure."""
+    from analytics import calibration_health
+
+    cfg = health_config
+    cals = store_calibrations(store, f)
     if cals.empty:
         return Report(
             "calibration",
@@ -84,11 +104,10 @@ def build(args: argparse.Namespace, get_store: Callable[[], Any]) -> Report:
     else:
         text += "\n\nNo alarms."
     result = health.to_dict()
-    standards = standards_register(args) if getattr(args, "config", None) else []
     if standards:
         from analytics.standard_use import pressure_mismatch
 
-        mismatches = pressure_mismatch(store_results(get_store(), f), standards)
+        mismatches = pressure_mismatch(store_results(store, f), list(standards))
         result["standard_pressure"] = [m.to_dict() for m in mismatches]
         text += "".join(f"\n\nLeak standard off its certificate pressure: {m.station}: "
                         f"{m.message}" for m in mismatches)

@@ -6,18 +6,35 @@ import argparse
 from collections.abc import Callable
 from typing import Any
 
-from gateway.reports.common import Report, filters_from, latest_lower, quantity, store_results
+from gateway.reports.common import (
+    Filters,
+    Report,
+    filters_from,
+    latest_lower,
+    quantity,
+    store_results,
+)
 from gateway.reports.tables import num, pct, table
 
 
 def build(args: argparse.Namespace, get_store: Callable[[], Any]) -> Report:
-    from analytics import capability, histogram
-
+    """The CLI's options: the range and filters, --by-station, --bins, --guard-band."""
     f = filters_from(args, get_store=get_store)
     guard = quantity(args.guard_band, "leak", "sccm", "--guard-band")
-    results = store_results(get_store(), f)
+    return capability_report_of(get_store(), f, by_station=args.by_station, bins=args.bins,
+                                guard_band_sccm=guard)
+
+
+def capability_report_of(store: Any, f: Filters, *, by_station: bool = False,
+                         bins: int | None = None, guard_band_sccm: float | None = None) -> Report:
+    """Capability (Ppu, Cpu, the best-fitting model) and a histogram per program, or per
+    station and program, over the store's results in ``f``."""
+    from analytics import capability, histogram
+
+    guard = guard_band_sccm
+    results = store_results(store, f)
     results = results[results["verdict"].astype(str) != "aborted"]
-    keys = ["station", "program"] if args.by_station else ["program"]
+    keys = ["station", "program"] if by_station else ["program"]
     studies, rows, notes = [], [], []
     for key, g in results.sort_values("ended_at").groupby(keys, sort=True):
         key_t = key if isinstance(key, tuple) else (key,)
@@ -41,8 +58,8 @@ def build(args: argparse.Namespace, get_store: Callable[[], Any]) -> Report:
             continue
         hist = histogram(
             values,
-            method="fixed" if args.bins else "fd",
-            bins=args.bins or 30,
+            method="fixed" if bins else "fd",
+            bins=bins or 30,
             reject_limit=limit,
             lower_limit=lower,
         )
@@ -75,7 +92,7 @@ def build(args: argparse.Namespace, get_store: Callable[[], Any]) -> Report:
         notes.append(f"{label}: {cap.note}")
     text = table(
         [
-            "program" if not args.by_station else "station/program",
+            "program" if not by_station else "station/program",
             "n",
             "mean",
             "std",

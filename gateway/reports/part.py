@@ -11,18 +11,23 @@ from gateway.reports.tables import num, table
 
 
 def build(args: argparse.Namespace, get_store: Callable[[], Any]) -> Report:
+    """The CLI's options: the part id, the range and filters."""
+    f = filters_from(args, get_store=get_store)
+    return part_report_of(get_store(), f, args.part_id)
+
+
+def part_report_of(store: Any, f: Filters, part_id: str) -> Report:
+    """Every test of ``part_id`` in ``f``, in order, each with the calibration in force."""
     from analytics import part_history
 
-    f = filters_from(args, get_store=get_store)
-    store = get_store()
-    results = store_results(store, f, part_id=args.part_id)
+    results = store_results(store, f, part_id=part_id)
     cals = store_calibrations(store, Filters(f.since, f.until)) if not results.empty else None
-    h = part_history(results, cals, args.part_id)
+    h = part_history(results, cals, part_id)
     if not h.tests:
-        text = f"Part {args.part_id}: no tests in the selection."
+        text = f"Part {part_id}: no tests in the selection."
     else:
         text = (
-            f"Part {args.part_id}: {h.note}; final verdict {h.final_verdict}"
+            f"Part {part_id}: {h.note}; final verdict {h.final_verdict}"
             + (f" after {h.rejects_before_pass} reject(s)" if h.rejects_before_pass else "")
             + "\n"
             + table(

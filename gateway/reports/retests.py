@@ -3,17 +3,16 @@
 from __future__ import annotations
 
 import argparse
-from collections.abc import Callable
-from typing import Any
+from collections.abc import Callable, Sequence
+from typing import Any, Literal
 
-from gateway.reports.common import Report, filters_from, quantity, store_results
+from gateway.reports.common import Filters, Report, filters_from, quantity, store_results
 from gateway.reports.settings import calendar_of
 from gateway.reports.tables import num, pct, table
 
 
 def build(args: argparse.Namespace, get_store: Callable[[], Any]) -> Report:
-    from analytics import retest_analysis
-
+    """The CLI's options: the range and filters, --by, --guard-band, --alarm-period."""
     f = filters_from(args, get_store=get_store)
     by = tuple(b.strip() for b in args.by.split(",") if b.strip())
     for key in by:
@@ -21,9 +20,22 @@ def build(args: argparse.Namespace, get_store: Callable[[], Any]) -> Report:
             raise ValueError(f"--by: cannot group retests by {key!r}")
     calendar = calendar_of(args)
     guard = quantity(args.guard_band, "leak", "sccm", "--guard-band")
-    results = store_results(get_store(), f)
+    return retests_report_of(get_store(), f, by=by, calendar=calendar, guard_band_sccm=guard,
+                             alarm_period=args.alarm_period)
+
+
+def retests_report_of(
+    store: Any, f: Filters, *, by: Sequence[str] = (), calendar: Any = None,
+    guard_band_sccm: float | None = None, alarm_period: Literal["day", "shift"] = "day",
+) -> Report:
+    """Parts passed only after a reject, marginal passes and retest alarms over the store's
+    results in ``f``."""
+    from analytics import retest_analysis
+
+    by = tuple(by)
+    results = store_results(store, f)
     r = retest_analysis(
-        results, by=by, calendar=calendar, guard_band=guard, alarm_period=args.alarm_period
+        results, by=by, calendar=calendar, guard_band=guard_band_sccm, alarm_period=alarm_period
     )
     lines = [
         f"Retests: {r.parts} parts with ids, {r.passed_parts} passed, {r.passed_after_retest} "
