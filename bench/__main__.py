@@ -1,9 +1,10 @@
 """``python -m bench [--quick] [--json] [--only NAME ...]``: every benchmark with its baseline.
 
 Prints one JSON document (keys: ingest, import_rate, modbus_poll, mqtt_latency,
-dashboard_queries, rss_mb, chaos; each with its inputs beside its figures); progress goes to
-stderr. ``--json`` prints it compact on one line (for tools); without it, indented. A
-benchmark that cannot run here says why under ``missing`` instead of failing the run.
+dashboard_queries, dashboard_browser, rss_mb, chaos, catchup, scaleout, startup; each with its
+inputs beside its figures); progress goes to stderr. ``--json`` prints it compact on one line
+(for tools); without it, indented. A benchmark that cannot run here says why under
+``missing`` instead of failing the run.
 """
 
 from __future__ import annotations
@@ -21,8 +22,8 @@ from datetime import UTC, datetime, timedelta
 from pathlib import Path
 from typing import Any
 
-NAMES = ("ingest", "import_rate", "modbus_poll", "mqtt_latency", "dashboard_queries", "rss_mb",
-         "chaos")
+NAMES = ("ingest", "import_rate", "modbus_poll", "mqtt_latency", "dashboard_queries",
+         "dashboard_browser", "rss_mb", "chaos", "catchup", "scaleout", "startup")
 
 
 def _log(msg: str) -> None:
@@ -46,6 +47,30 @@ def bench_chaos(quick: bool) -> dict[str, Any]:
     from bench.chaos import run
 
     return run(wall_s=45.0 if quick else 150.0)
+
+
+def bench_catchup(quick: bool) -> dict[str, Any]:
+    from bench.catchup import run
+
+    return run(minutes=30.0 if quick else 60.0)
+
+
+def bench_browser(quick: bool) -> dict[str, Any]:
+    from bench.dashboard_browser import run
+
+    return run(results=1_000_000 if quick else 10_000_000)
+
+
+def bench_scaleout(quick: bool) -> dict[str, Any]:
+    from bench.scaleout import run
+
+    return run(gateways=3, stations=1500, seconds=90.0 if quick else 300.0)
+
+
+def bench_startup(quick: bool) -> dict[str, Any]:
+    from bench.startup import run
+
+    return run(repeats=3 if quick else 7)
 
 
 def bench_import(quick: bool) -> dict[str, Any]:
@@ -190,6 +215,10 @@ def main(argv: list[str] | None = None) -> int:
         "mqtt_latency": lambda: bench_mqtt(args.quick),
         "dashboard_queries": lambda: bench_queries(args.quick),
         "rss_mb": lambda: bench_rss(args.quick, shared),
+        "catchup": lambda: bench_catchup(args.quick),
+        "dashboard_browser": lambda: bench_browser(args.quick),
+        "scaleout": lambda: bench_scaleout(args.quick),
+        "startup": lambda: bench_startup(args.quick),
     }
     doc: dict[str, Any] = {
         "run": {"quick": args.quick, "started": datetime.now(UTC).isoformat(timespec="seconds"),

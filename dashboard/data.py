@@ -47,6 +47,7 @@ __all__ = [
     "trace_stations",
     "traces",
     "verdict_counts",
+    "verdicts_of",
 ]
 
 LIVE_TTL = 4  # s: a little under the live page's refresh
@@ -386,6 +387,26 @@ def traces(url: str, station: str, role: str | None = None, limit: int = 50) -> 
             return read(journal, station, role=role, limit=limit)
     except (LeakfleetError, sqlite3.Error, OSError) as exc:
         raise StoreUnavailable(str(exc)) from exc
+
+
+def verdicts_of(url: str, station: str, curves: list[Any]) -> dict[str, str]:
+    """Per result curve (record_id), its result's verdict: the result with the same cycle and
+    time (a curve takes its result's time)."""
+    if not curves:
+        return {}
+    lo = min(t.ended_at for t in curves)
+    hi = max(t.ended_at for t in curves) + timedelta(seconds=1)
+    frame = results(url, lo, hi, station=station)
+    if frame.empty:
+        return {}
+    found = {(int(c), pd.Timestamp(e).value // 1000): str(v) for c, e, v in
+             zip(frame["cycle"], frame["ended_at"], frame["verdict"], strict=True)}
+    out: dict[str, str] = {}
+    for t in curves:
+        verdict = found.get((t.cycle, pd.Timestamp(t.ended_at).value // 1000))
+        if verdict is not None:
+            out[t.record_id] = verdict
+    return out
 
 
 @st.cache_data(ttl=HISTORY_TTL, show_spinner=False)

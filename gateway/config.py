@@ -95,6 +95,7 @@ class StationConfig:
     overrides: Mapping[str, Any]
     # the plant's values for what the station does not send (gateway.config_params)
     program_params: Mapping[str, ProgramParams] = field(default_factory=dict)
+    traces: bool = False  # collect the station's pressure curves (its profile says how)
 
 
 @dataclass(frozen=True)
@@ -108,6 +109,8 @@ class RuntimeConfig:
     pacing: Pacing = field(default_factory=Pacing)
     # journal rows older than this go, once every enabled sink has them (None = keep all)
     retention_s: float | None = None
+    # pressure curves older than this go sooner than the results (once every sink has them)
+    trace_retention_s: float | None = None
 
 
 @dataclass(frozen=True)
@@ -232,9 +235,9 @@ class _Reader:
 _TOP = ("site", "gateway_id", "timezone", "store", "profile_dirs", "shifts", "standards",
         "runtime", "metrics", "sinks", "parameters", "stations")
 _STATION = ("id", "line", "profile", "endpoint", "poll_interval", "timeout", "timezone",
-            "programs", "overrides", "parameters")
+            "programs", "overrides", "parameters", "traces")
 _RUNTIME = ("batch_size", "max_delay", "queue_size", "max_pending", "reconnect_initial",
-            "reconnect_max", "offline_after", "line_gap", "retention")
+            "reconnect_max", "offline_after", "line_gap", "retention", "trace_retention")
 
 
 def load_config(
@@ -347,17 +350,17 @@ def _check_store(r: _Reader, url: str, key: str) -> None:
         raise r.fail(key, "a SQLite journal (that file is something else)", url)
 
 
-def _retention(r: _Reader, t: dict[str, Any], p: str) -> float | None:
+def _retention(r: _Reader, t: dict[str, Any], p: str, key: str = "retention") -> float | None:
     """``retention = "400 d"`` (days; pruning runs hourly, so at least one day)."""
-    if "retention" not in t:
+    if key not in t:
         return None
-    value = t["retention"]
+    value = t[key]
     expect = "a number of days of at least 1, such as '400 d' or '90 days'"
     m = re.fullmatch(r"\s*(\d+(?:\.\d+)?)\s*(?:d|days?)\s*", value) if isinstance(
         value, str) else None
     days = float(m.group(1)) if m else 0.0
     if not 1 <= days <= 36_600:
-        raise r.fail(p + "retention", expect, value)
+        raise r.fail(p + key, expect, value)
     return days * 86400.0
 
 
@@ -379,8 +382,14 @@ def _runtime(r: _Reader, t: dict[str, Any]) -> RuntimeConfig:
     if max_delay > 0.2:
         raise r.fail(p + "max_delay", "at most 0.2 s (results are committed within 250 ms)",
                      t.get("max_delay"))
+    retention = _retention(r, t, p)
+    trace_retention = _retention(r, t, p, "trace_retention")
+    if trace_retention is not None and retention is not None and trace_retention > retention:
+        raise r.fail(p + "trace_retention", f"at most retention ({retention / 86400:g} d): "
+                     "curves are kept no longer than results", t["trace_retention"])
     return RuntimeConfig(
-        retention_s=_retention(r, t, p),
+        retention_s=retention,
+        trace_retention_s=trace_retention,
         batch_size=r.integer(t, "batch_size", p, 500, 1, 100_000),
         max_delay_s=max_delay,
         queue_size=r.integer(t, "queue_size", p, 2000, 1, 1_000_000),
@@ -451,6 +460,14 @@ def _station(
             and "address" not in overrides):
         raise r.fail(f"{p}overrides.address", f"the station's address (profile {profile.label} "
                      "asks each station by its address), e.g. overrides = { address = 1 }")
+    traces = t.get("traces", False)
+    if not isinstance(traces, bool):
+        raise r.fail(p + "traces", "true or false", traces)
+    described = (profile.serial.trace if profile.serial is not None
+                 else profile.modbus.trace if profile.modbus is not None else None)
+    if traces and described is None:
+        raise r.fail(p + "traces", f"false: profile {profile.label} does not describe how the "
+                     "station sends pressure curves (add [trace] or [modbus.trace])", traces)
     return StationConfig(
         id=sid,
         line=line,
@@ -465,6 +482,7 @@ def _station(
         program_params=station_parameters(
             sheet, parse_parameters(t.get("parameters", {}), p + "parameters", r.fail)
         ),
+        traces=traces,
     )
 
 

@@ -35,6 +35,8 @@ class Runtime(_Table):
     offline_after: int = Field(default=3, ge=1, le=1000)
     line_gap: Duration = 0.25
     retention: Duration | None = None
+    trace_retention: Duration | None = Field(
+        default=None, description="days pressure curves are kept (at most retention)")
 
 
 class Metrics(_Table):
@@ -90,6 +92,8 @@ class Station(_Table):
     programs: dict[str, str] = {}
     overrides: Overrides = Field(default_factory=Overrides)
     parameters: dict[str, Parameters] = {}
+    traces: bool = Field(default=False,
+                         description="collect the station's pressure curves (profile [trace])")
 
 
 class GatewayDocument(_Table):

@@ -576,7 +576,7 @@ class PressureTrace(_RecordMixin):
         return _stable_id("trace", self.station, self.cycle, _iso(self.ended_at), self.role)
 
 
-Record = TestResult | CalibrationEvent | StationStatus
+Record = TestResult | CalibrationEvent | StationStatus | PressureTrace
 
 #: the fields ``supplied`` may name (everything a station may leave out)
 _RESULT_NAMES = frozenset(f.name for f in fields(TestResult)) - {
@@ -588,10 +588,12 @@ _CAL_NAMES = frozenset(f.name for f in fields(CalibrationEvent)) - {
     "master_loss_pa", "standard_loss_pa",
 }
 
-_KINDS: dict[str, type[TestResult] | type[CalibrationEvent] | type[StationStatus]] = {
+_KINDS: dict[str, type[TestResult] | type[CalibrationEvent] | type[StationStatus]
+             | type[PressureTrace]] = {
     "result": TestResult,
     "calibration": CalibrationEvent,
     "status": StationStatus,
+    "trace": PressureTrace,
 }
 
 

@@ -46,6 +46,7 @@ from gateway.health import Backoff, ClockWatch
 from gateway.records import CalibrationEvent, Rejected, StationState, StationStatus, TestResult
 from gateway.sinks import REGISTRY, Attachable, Forwarder, SinkContext, SinkFactory
 from gateway.store.guard import JournalGone, JournalLock, cap_quarantine, spill, take_back
+from gateway.store.journal import KINDS
 
 __all__ = [
     "Forwarder",
@@ -435,6 +436,7 @@ def build_targets(config: GatewayConfig, resume: Mapping[str, int]) -> list[Stat
             # the plant's parameters for values the station does not send
             program_params=dict(st.program_params),
             address=st.overrides.get("address"),
+            traces=st.traces,
         )
         targets.append(
             StationTarget(
@@ -620,10 +622,13 @@ class Runtime:
         async with asyncio.TaskGroup() as tg:
             writer_task = tg.create_task(writer.run(), name="journal writer")
             sink_stop = asyncio.Event()
-            if cfg.runtime.retention_s is not None:
+            if cfg.runtime.retention_s is not None or cfg.runtime.trace_retention_s is not None:
+                by_kind: dict[str, list[str]] = {
+                    kind: [f.name for f in self.forwarders if kind in _kinds_of(f)]
+                    for kind in KINDS}
                 prune_task = tg.create_task(
-                    _prune_forever(writer, cfg.runtime.retention_s,
-                                   [f.name for f in self.forwarders]),
+                    _prune_forever(writer, cfg.runtime.retention_s, by_kind,
+                                   cfg.runtime.trace_retention_s),
                     name="journal retention",
                 )  # fmt: skip
             else:
@@ -677,13 +682,25 @@ class Runtime:
 PRUNE_INTERVAL_S = 3600.0
 
 
-async def _prune_forever(writer: JournalWriter, retention_s: float, sinks: list[str]) -> None:
-    """Hourly: drop journal rows older than the retention that every enabled sink confirmed
-    (on the writer's thread, between batches). A failure is logged and tried again later."""
+def _kinds_of(forwarder: Any) -> tuple[str, ...]:
+    """The record kinds a sink forwards (every kind when it does not say)."""
+    client = getattr(forwarder, "client", None)
+    return tuple(getattr(client, "kinds", KINDS))
+
+
+async def _prune_forever(writer: JournalWriter, retention_s: float | None,
+                         sinks: Mapping[str, Sequence[str]],
+                         trace_retention_s: float | None = None) -> None:
+    """Hourly: drop journal rows older than the retention that every enabled sink forwarding
+    them confirmed (on the writer's thread, between batches); pressure curves older than
+    their own, shorter retention. A failure is logged and tried again later."""
     while True:
-        cutoff = utcnow() - timedelta(seconds=retention_s)
+        now = utcnow()
+        cutoff = now - timedelta(seconds=retention_s) if retention_s is not None else None
+        curves = ({"trace": now - timedelta(seconds=trace_retention_s)}
+                  if trace_retention_s is not None else None)
         try:
-            n = await writer.call(lambda j, c=cutoff: j.prune(c, sinks))
+            n = await writer.call(lambda j, c=cutoff, k=curves: j.prune(c, sinks, kind_cutoffs=k))
         except StoreError as exc:
             log.warning("journal retention: pruning failed, will retry: %s", exc)
         except Exception:  # a bug here must not stop collection: like a sink, it is disabled
@@ -692,7 +709,7 @@ async def _prune_forever(writer: JournalWriter, retention_s: float, sinks: list[
         else:
             if n:
                 log.info("journal retention: removed %d row(s) older than %s", n,
-                         cutoff.isoformat(timespec="seconds"))  # fmt: skip
+                         (cutoff or now).isoformat(timespec="seconds"))  # fmt: skip
         await asyncio.sleep(PRUNE_INTERVAL_S)
 
 

@@ -158,7 +158,8 @@ class Plant:
         if station.type == "lf-mbtcp":
             assert station.port is not None
             return ModbusTcpStationServer(
-                station.name, station.port, station.device_id, faults, self.truth, rng
+                station.name, station.port, station.device_id, faults, self.truth, rng,
+                curves=station.trace_interval_s > 0,
             )
         if station.type == "lf-ticket":
             assert station.port is not None and station.bus is not None

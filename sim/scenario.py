@@ -47,6 +47,8 @@ TCP_TYPES = (*STREAM_TYPES, "lf-mbtcp", "lf-mbinput", "lf-mblast", "lf-mbnoclk",
 LINE_TYPES = (*STREAM_TYPES, "lf-kv", "lf-ticket")
 #: types whose stations share one line, each answering to its own address
 BUS_TYPES = ("lf-ticket",)
+#: types that can send each test's pressure curve (key ``trace_interval``)
+TRACE_TYPES = ("lf-delim", "lf-mbtcp")
 MODBUS_TYPES = ("lf-mbtcp", "lf-mbrtu", "lf-mbinput", "lf-mblast", "lf-mbnoclk")
 #: Modbus types whose records sit in a guarded ring (a torn write is detectable there)
 RING_TYPES = ("lf-mbtcp", "lf-mbrtu", "lf-mbinput")
@@ -104,6 +106,9 @@ class Program:
     part_tau_s: float = 600.0
     fill_capacity_sccm: float = 4000.0
     fill_tolerance: float = 0.05  # gross when fill ends more than this fraction short
+    # relative part-to-part scatter (SD) of a part's internal volume: castings and mouldings
+    # differ; the station's calibration assumes the master part's volume
+    volume_scatter: float = 0.0
 
 
 @dataclass(frozen=True, slots=True)
@@ -155,6 +160,7 @@ class Station:
     first_cycle: int = 1  # the cycle number of the first result (near a counter's wrap to try it)
     bus: str | None = None  # addressed types: the shared line's name (stations on it share a port)
     address: int = 1  # addressed types: the station's address on its line
+    trace_interval_s: float = 0.0  # > 0: the station sends each test's pressure curve
 
 
 @dataclass(frozen=True, slots=True)
@@ -551,6 +557,7 @@ def _program(name: str, r: _Reader, populations: Mapping[str, Population]) -> Pr
             "fill_capacity", "leak", f"{d.fill_capacity_sccm} sccm", positive=True
         ),
         fill_tolerance=r.fraction("fill_tolerance", d.fill_tolerance),
+        volume_scatter=r.number("volume_scatter", 0.0, minimum=0.0),
     )
     if lower is not None and lower >= program.reject_limit_sccm:
         raise r.fail("lower_limit", "a leak rate below the reject limit (usually negative)")
@@ -642,7 +649,11 @@ def _station(r: _Reader, lines: Mapping[str, str], programs: Mapping[str, Progra
         first_cycle=r.integer("first_cycle", 1, minimum=1),
         bus=r.text("bus", name) if kind in BUS_TYPES else None,
         address=r.integer("address", 1, minimum=0) if kind in BUS_TYPES else 1,
+        trace_interval_s=(r.quantity("trace_interval", "time", "0 s")
+                          if kind in TRACE_TYPES else 0.0),
     )
+    if station.trace_interval_s and not 0.01 <= station.trace_interval_s <= 1.0:
+        raise r.fail("trace_interval", "a sample interval from 10 ms to 1 s")
     if station.address > 99:
         raise r.fail("address", "a station address 0..99 (two digits on the line)")
     if station.device_id > 247:

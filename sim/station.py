@@ -22,8 +22,15 @@ from zoneinfo import ZoneInfo
 
 from gateway.calibration import Calibration
 from gateway.records import Verdict
-from sim.physics import TestConditions, fill_pressure_pa, laminar_flow, simulate_test
+from sim.physics import (
+    TestConditions,
+    TestOutcome,
+    fill_pressure_pa,
+    laminar_flow,
+    simulate_test,
+)
 from sim.scenario import Faults, Population, Program, Scenario, Station
+from sim.traces import SimTrace, trace_of_test
 
 __all__ = ["WINDOW_MIN", "Activity", "Ambient", "SimCalibration", "SimResult", "StationModel"]
 
@@ -100,6 +107,8 @@ class Activity:
     duplicate: bool = False
     torn: bool = False
     reset: bool = False  # the station was power-cycled just before this record (counter at 1)
+    # curves the station sends after the record: (role, cycle, trace), role result/master/standard
+    traces: tuple[tuple[str, int, SimTrace], ...] = ()
 
 
 @dataclass(frozen=True, slots=True)
@@ -130,6 +139,7 @@ class _Part:
     true_leak_sccm: float
     kind: str  # good/reject/gross
     retested: bool = False
+    volume_factor: float = 1.0  # this part's volume against the program's (the master's)
 
 
 @dataclass
@@ -165,6 +175,10 @@ class StationModel:
         self.index = [s.name for s in scenario.stations].index(station.name) + 1
         self.rng = random.Random(f"{scenario.seed}:{station.name}")
         self.fault_rng = random.Random(f"{scenario.seed}:{station.name}:faults")
+        # curves draw their sample noise apart, so sending traces changes no result; the same
+        # for parts' volume scatter, so a scenario without it keeps every result it had
+        self.trace_rng = random.Random(f"{scenario.seed}:{station.name}:traces")
+        self.volume_rng = random.Random(f"{scenario.seed}:{station.name}:volumes")
         self.ambient = Ambient(
             scenario.ambient_mean_c,
             scenario.ambient_swing_k,
@@ -200,10 +214,11 @@ class StationModel:
         return (elapsed % every) < self.faults.link_drop_down_s
 
     def _conditions(
-        self, program: Program, t: float, leak: float, part_offset: float
+        self, program: Program, t: float, leak: float, part_offset: float,
+        volume_factor: float = 1.0,
     ) -> TestConditions:
         return TestConditions(
-            volume_m3=program.volume_m3,
+            volume_m3=program.volume_m3 * volume_factor,
             test_pressure_pa=program.test_pressure_pa,
             stabilise_s=program.stabilise_s,
             test_s=program.test_s,
@@ -218,9 +233,18 @@ class StationModel:
             resolution_pa=self.station.resolution_pa,
         )
 
-    def _measure(self, program: Program, t: float, leak: float, part_offset: float) -> float:
-        """The loss one test of the station measures (Pa)."""
-        return simulate_test(self._conditions(program, t, leak, part_offset), self.rng).loss_pa
+    def _test(
+        self, program: Program, t: float, leak: float, part_offset: float,
+        volume_factor: float = 1.0,
+    ) -> tuple[TestOutcome, SimTrace | None]:
+        """One test from the end of fill at ``t``, and its curve when the station sends one."""
+        c = self._conditions(program, t, leak, part_offset, volume_factor)
+        outcome = simulate_test(c, self.rng)
+        if not self.station.trace_interval_s:
+            return outcome, None
+        return outcome, trace_of_test(c, outcome, fill_s=program.fill_s,
+                                      interval_s=self.station.trace_interval_s,
+                                      rng=self.trace_rng)
 
     def _record_faults(self) -> dict[str, bool]:
         f, r = self.faults, self.fault_rng
@@ -258,16 +282,19 @@ class StationModel:
         )
         cycle_s = program.fill_s + program.stabilise_s + program.test_s + VENT_S
         t_fill1 = t0 + MASTER_LOAD_S
-        master = self._measure(
+        master_test, master_trace = self._test(
             program, t_fill1 + program.fill_s, leak_seal, self.rng.gauss(0, MASTER_OFFSET_SD_K)
         )
         t_fill2 = t_fill1 + cycle_s
-        standard = self._measure(
+        standard_test, standard_trace = self._test(
             program,
             t_fill2 + program.fill_s,
             leak_seal + std_flow,
             self.rng.gauss(0, MASTER_OFFSET_SD_K),
         )
+        master, standard = master_test.loss_pa, standard_test.loss_pa
+        curves = tuple((role, s.cycle, tr) for role, tr in
+                       (("master", master_trace), ("standard", standard_trace)) if tr is not None)
         ended = t_fill2 + program.fill_s + program.stabilise_s + program.test_s
         # the ratio is undefined when the master loss is not above zero (gateway.calibration):
         # then the window is judged by the span against the loss noise instead
@@ -325,10 +352,18 @@ class StationModel:
             publish_at=ended,
             record=record,
             ends_at=ends,
+            traces=curves,
             **self._record_faults(),
         )
 
     def _new_part(self, program: Program, ps: _ProgramState) -> _Part:
+        part = self._drawn_part(program, ps)
+        if program.volume_scatter > 0:
+            part.volume_factor = max(0.5, 1.0 + self.volume_rng.gauss(0.0,
+                                                                      program.volume_scatter))
+        return part
+
+    def _drawn_part(self, program: Program, ps: _ProgramState) -> _Part:
         pop = self._population(program)
         ps.serial += 1
         part_id = program.part_id.format(n=ps.serial, s=self.index) if program.part_id else None
@@ -375,6 +410,7 @@ class StationModel:
         loss = 0.0
         leak = 0.0
         pressure = reached
+        trace: SimTrace | None = None
         reason = ""
         if aborted:
             stop = t_fill + until_end
@@ -391,7 +427,7 @@ class StationModel:
         else:
             states += [(t_stab, "stabilise"), (t_test, "test")]
             ended = t_end
-            outcome = simulate_test(self._conditions(program, t_stab, leak_total, offset), self.rng)
+            outcome, trace = self._test(program, t_stab, leak_total, offset, part.volume_factor)
             loss = outcome.loss_pa
             pressure = outcome.pressure_at_test_start_pa
             leak = ps.calibration.leak_rate(loss)
@@ -460,6 +496,7 @@ class StationModel:
             record=record,
             ends_at=ends,
             reset=reset,
+            traces=(("result", s.cycle, trace),) if trace is not None else (),
             **self._record_faults(),
         )
 

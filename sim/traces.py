@@ -15,9 +15,9 @@ import math
 import random
 from dataclasses import dataclass
 
-from sim.physics import TestConditions, isolated_curve
+from sim.physics import TestConditions, TestOutcome, isolated_curve
 
-__all__ = ["SimTrace", "simulate_trace"]
+__all__ = ["SimTrace", "simulate_trace", "trace_of_test"]
 
 
 @dataclass(frozen=True, slots=True)
@@ -79,3 +79,22 @@ def simulate_trace(
         ("end", (len(samples) - 1) * interval_s),
     )
     return SimTrace(interval_s, tuple(samples), phases)
+
+
+def trace_of_test(
+    c: TestConditions, outcome: TestOutcome, *, fill_s: float, interval_s: float,
+    rng: random.Random,
+) -> SimTrace:
+    """The curve of the test ``outcome`` reports: the same conditions, its own sample noise,
+    and the two readings the station judged by at the start and end of the test window, so the
+    curve's loss over the window is the result's loss exactly (a station's trace and its result
+    come from one transducer)."""
+    tr = simulate_trace(c, fill_s=fill_s, interval_s=interval_s, rng=rng)
+    test_at = dict(tr.phases)["test"]
+    first = round(test_at / interval_s)
+    last = round((test_at + c.test_s) / interval_s)
+    samples = list(tr.pressures_pa)
+    if 0 <= first < last < len(samples):
+        samples[first] = outcome.pressure_at_test_start_pa
+        samples[last] = outcome.pressure_at_test_end_pa
+    return SimTrace(tr.interval_s, tuple(samples), tr.phases)

@@ -181,7 +181,15 @@ def detail(p: Page) -> None:
     cols += [c for c in shown.columns if "[" in c]
     table = shown[cols].head(50).copy()
     table["ended_at"] = table["ended_at"].dt.tz_convert(p.settings.timezone)
-    st.dataframe(table, hide_index=True, width="stretch", key="fleet_latest_table")
+    config: dict[str, Any] = {}
+    if station in data.trace_stations(p.url):
+        # each test's pressure curve, opened on the traces page
+        table["curve"] = [f"traces?station={station}&cycle={c}" for c in table["cycle"]]
+        config["curve"] = st.column_config.LinkColumn("Curve", display_text="open curve")
+        st.page_link("views/traces.py", label=f"Pressure curves of {station}: newest, rejects",
+                     query_params={"station": station})
+    st.dataframe(table, hide_index=True, width="stretch", key="fleet_latest_table",
+                 column_config=config or None)
     maintenance(p, station)
 
 

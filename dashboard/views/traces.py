@@ -28,16 +28,44 @@ if not stations:
         "calibration study to try the page."
     )
     st.stop()
+# a link may open one station's curves, or one test's (?station=L1-S1&cycle=1042)
+asked = st.query_params.get("station")
+if asked in stations and "traces_station" not in st.session_state:
+    st.session_state["traces_station"] = asked
 station = st.selectbox("Station", stations, key="traces_station")
-n = st.slider("Curves shown", 1, 50, 10, key="traces_n")
 recent = data.traces(p.url, station, None, 200)
 programs = sorted({t.program for t in recent})
 program = (
     st.selectbox("Program", programs, key="traces_program") if len(programs) > 1 else programs[0]
 )
 recent = [t for t in recent if t.program == program]
+verdicts = data.verdicts_of(p.url, station, [t for t in recent if t.role == "result"])
+c1, c2 = st.columns([2, 1])
+show = c1.radio("Curves", ["Newest tests", "Rejects only", "One test"], horizontal=True,
+                key="traces_show",
+                index=2 if st.query_params.get("cycle") is not None else 0)
+n = c2.slider("Curves shown", 1, 50, 10, key="traces_n")
+results_shown = [t for t in recent if t.role == "result"]
+if show == "Rejects only":
+    results_shown = [t for t in results_shown if verdicts.get(t.record_id) == "reject"]
+elif show == "One test":
+    labels = {f"cycle {t.cycle} · {verdicts.get(t.record_id, '?')} · "
+              f"{t.ended_at.astimezone(p.tz):%Y-%m-%d %H:%M:%S}": t for t in results_shown}
+    wanted = st.query_params.get("cycle")
+    keys = list(labels)
+    at = next((i for i, k in enumerate(keys) if k.startswith(f"cycle {wanted} ")), 0)
+    if keys:
+        results_shown = [labels[st.selectbox("Test", keys, index=at, key="traces_one")]]
+# the newest calibration's two curves, drawn beside the tests for comparison
+reference = [next((t for t in recent if t.role == role), None) for role in ("master", "standard")]
 
 _PHASE_COLOURS = {"fill": "#d9e6f2", "stabilise": "#f2ecd9", "test": "#dff2d9", "dump": "#eeeeee"}
+
+
+def _label(t: Any) -> str:
+    if t.role == "result":
+        return f"#{t.cycle} {verdicts.get(t.record_id, '')}".strip()
+    return f"calibration {t.role} {t.ended_at.astimezone(p.tz):%m-%d %H:%M}"
 
 
 def _frame(chosen: list[Any]) -> pd.DataFrame:
@@ -46,7 +74,7 @@ def _frame(chosen: list[Any]) -> pd.DataFrame:
         times = np.arange(len(t.pressures_pa)) * t.sample_interval_s
         rows.append(pd.DataFrame({
             "t_s": times, "pressure": np.asarray(t.pressures_pa) * u.p_factor,
-            "curve": f"{t.role} #{t.cycle}", "role": t.role,
+            "curve": _label(t), "role": t.role,
         }))  # fmt: skip
     return pd.concat(rows, ignore_index=True)
 
@@ -61,7 +89,11 @@ def _phases(t: object) -> pd.DataFrame:
     return pd.DataFrame(rows, columns=["phase", "start", "end"])
 
 
-shown = recent[:n]
+shown = results_shown[:n] + [t for t in reference if t is not None]
+if not shown:
+    st.info(f"No {'rejected ' if show == 'Rejects only' else ''}test curves of {station} "
+            f"{program} among its newest 200.")
+    st.stop()
 df = _frame(shown)
 phases = _phases(shown[0])
 band = alt.Chart(phases).mark_rect(opacity=0.5).encode(
@@ -77,8 +109,10 @@ lines = alt.Chart(df).mark_line(strokeWidth=1).encode(
 )  # fmt: skip
 st.altair_chart((band + lines).properties(height=360), width="stretch")
 st.caption(
-    f"{len(shown)} newest of {len(recent)} curves of {station} {program}; phases as the "
-    "station reported them for the newest curve."
+    f"{min(n, len(results_shown))} test curve(s) of {station} {program}"
+    + (", with the newest calibration's master and master-plus-standard curves (dashed)"
+       if any(reference) else "")
+    + "; phases as the station reported them for the first curve shown."
 )
 
 # -- the test window, zoomed, with the reject threshold as a loss ----------------------------

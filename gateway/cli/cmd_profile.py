@@ -244,7 +244,7 @@ def _check(args: argparse.Namespace) -> int:
         raise ValueError("give a SAMPLE file or --endpoint URL (one of the two)")
     profile = load_profile(args.profile, args.profiles)
     ctx = StationContext(args.station, args.line, args.timezone, _programs(args.program),
-                         address=args.address)
+                         address=args.address, traces=True)
     if args.endpoint is not None:
         from gateway.cli.profile_live import check_endpoint
 
@@ -257,7 +257,7 @@ def _check(args: argparse.Namespace) -> int:
             raise ConfigError(f"{args.sample}: cannot read sample: {exc.strerror or exc}"
                               ) from None
         entries = check_sample(profile, data, ctx, datetime.now(UTC), args.sample)
-    counts = {"result": 0, "calibration": 0, "rejected": 0}
+    counts = {"result": 0, "calibration": 0, "trace": 0, "rejected": 0}
     for e in entries:
         if isinstance(e.item, Rejected):
             counts["rejected"] += 1
@@ -276,7 +276,7 @@ def _check(args: argparse.Namespace) -> int:
                 for e in entries
             ],
             "summary": {"results": counts["result"], "calibrations": counts["calibration"],
-                        "rejected": counts["rejected"]},
+                        "traces": counts["trace"], "rejected": counts["rejected"]},
         }
         print(json.dumps(doc, indent=2))
         return 0
@@ -292,6 +292,9 @@ def _check(args: argparse.Namespace) -> int:
             print(f"{'':<{where_w}}  {'':<11}  raw: {e.item.raw[:200]!r}")
         else:
             data_ = e.item.to_dict()
+            if "pressures_pa" in data_:  # a curve: its size and ends, not every sample
+                p = data_["pressures_pa"]
+                data_["pressures_pa"] = f"{len(p)} samples, {p[0]:g} .. {max(p):g} .. {p[-1]:g} Pa"
             print(f"{e.where:<{where_w}}  {e.item.kind:<11}  id {e.item.record_id}")
             names = [k for k in data_ if k not in _SKIP and data_[k] not in (None, "")]
             origins = {o.field: o for o in e.origins}
@@ -304,6 +307,7 @@ def _check(args: argparse.Namespace) -> int:
                 tail = f"  <- {o.raw}  [{o.applied}]" if o is not None and args.origins else ""
                 print(f"{'':<{where_w}}  {'':<11}  {k:<{key_w}}  {value:<{val_w}}{tail}")
     print()
+    curves = f"{counts['trace']} pressure curves, " if counts["trace"] else ""
     print(f"summary: {counts['result']} results, {counts['calibration']} calibrations, "
-          f"{counts['rejected']} rejected")
+          f"{curves}{counts['rejected']} rejected")
     return 0

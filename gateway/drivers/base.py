@@ -10,7 +10,14 @@ from typing import TYPE_CHECKING, Any, Protocol
 
 from gateway.errors import ProtocolError, TransportError
 from gateway.health import Backoff, StationHealth
-from gateway.records import CalibrationEvent, GapEvent, Rejected, StationStatus, TestResult
+from gateway.records import (
+    CalibrationEvent,
+    GapEvent,
+    PressureTrace,
+    Rejected,
+    StationStatus,
+    TestResult,
+)
 
 if TYPE_CHECKING:
     from gateway.profiles import Profile, StationContext
@@ -26,7 +33,7 @@ __all__ = [
     "utcnow",
 ]
 
-Item = TestResult | CalibrationEvent | StationStatus | Rejected | GapEvent
+Item = TestResult | CalibrationEvent | StationStatus | Rejected | GapEvent | PressureTrace
 
 
 class NoAnswer(TransportError):

@@ -36,6 +36,7 @@ from gateway.drivers.base import (
 from gateway.drivers.lines import split_host_port
 from gateway.drivers.modbus_latest import LatestReader
 from gateway.drivers.modbus_outcome import PollOutcome
+from gateway.drivers.modbus_trace import CurveReader
 from gateway.errors import DecodeError, ProtocolError, TransportError
 from gateway.profiles.decoders import ModbusDecoder, ack_registers
 from gateway.profiles.model import BlockSpec
@@ -580,7 +581,12 @@ async def run_modbus_bus(
             name=first.endpoint,
         )
     readers: dict[str, RingReader | LatestReader] = {}
+    curves: dict[str, CurveReader] = {}
     for t in targets:
+        tspec = t.profile.modbus
+        if t.context.traces and tspec is not None and tspec.trace is not None:
+            curves[t.station] = CurveReader(tspec, t.context,
+                                            t.options.get("device_id", tspec.device_id))
         t.health.offline_after = pacing.offline_after
         mspec = t.profile.modbus
         assert mspec is not None
@@ -621,7 +627,7 @@ async def run_modbus_bus(
                 if loop.time() < due[t.station]:
                     continue
                 due[t.station] = loop.time() + t.poll_interval_s
-                await _poll_one(t, readers[t.station], link, outbox)
+                await _poll_one(t, readers[t.station], link, outbox, curves.get(t.station))
                 if not link.connected:
                     break
             if link.connected:
@@ -631,7 +637,8 @@ async def run_modbus_bus(
 
 
 async def _poll_one(
-    target: StationTarget, reader: RingReader | LatestReader, link: Any, outbox: Outbox
+    target: StationTarget, reader: RingReader | LatestReader, link: Any, outbox: Outbox,
+    curves: CurveReader | None = None,
 ) -> None:
     health = target.health
     loop = asyncio.get_running_loop()
@@ -678,6 +685,14 @@ async def _poll_one(
     if outcome.unread:
         health.count("slot_unread", outcome.unread)
     items.extend(outcome.items)
+    if curves is not None and outbox.accepting:
+        try:
+            items.extend(await curves.poll(link, outcome.items))
+        except (ExceptionReply, NoAnswer, LinkLost, ProtocolError) as exc:
+            # the curve counter only moves after a whole read: the next poll tries again
+            log.debug("%s: pressure curve not read this poll: %s", target.station, exc)
+            if not isinstance(exc, ExceptionReply):
+                link.close()
     if items:
         await outbox.put(items)
     ack = reader.pending_ack()

@@ -1,6 +1,10 @@
 """InfluxDB line protocol for canonical records: pure encoding, no I/O.
 
-Schema (our names): measurements ``leak_results``, ``leak_calibrations``, ``station_status``.
+Schema (our names): measurements ``leak_results``, ``leak_calibrations``, ``station_status``,
+``pressure_traces``. A pressure curve is one point, not one per sample: its samples are the
+field ``pressures_pa``, gauge Pa as comma-separated decimals in the shortest form that reads back
+to the same double (lossless; Flux's ``strings.split`` and any CSV reader take it apart), its
+phase starts the JSON field ``phases``; ``role`` (result, master, standard) is a tag.
 Tags are only the low-cardinality keys a dashboard groups by (site, line, station, program,
 verdict); everything else, the part serial number included, is a field, because every distinct
 tag value makes a new series. The timestamp is the record's own time (``ended_at``; ``at`` for a
@@ -25,7 +29,7 @@ import json
 from collections.abc import Iterable, Mapping
 from datetime import UTC, datetime, timedelta
 
-from gateway.records import CalibrationEvent, Record, StationStatus, TestResult
+from gateway.records import CalibrationEvent, PressureTrace, Record, StationStatus, TestResult
 
 __all__ = [
     "MEASUREMENTS",
@@ -43,6 +47,7 @@ MEASUREMENTS = {
     "result": "leak_results",
     "calibration": "leak_calibrations",
     "status": "station_status",
+    "trace": "pressure_traces",
 }
 
 _EPOCH = datetime(1970, 1, 1, tzinfo=UTC)
@@ -172,6 +177,20 @@ def record_line(
             "raw": record.raw,
             "time_source": record.time_source,
             "supplied": _supplied(record.supplied),
+        }
+        at = record.ended_at
+    elif isinstance(record, PressureTrace):
+        tags = {"site": site, "line": record.line, "station": record.station,
+                "program": record.program, "role": record.role}
+        fields = {
+            "cycle": record.cycle,
+            "sample_interval_s": _f(record.sample_interval_s),
+            "samples": len(record.pressures_pa),
+            "pressures_pa": ",".join(map(repr, record.pressures_pa)),
+            "phases": json.dumps([list(p) for p in record.phases], separators=(",", ":")),
+            "started_at_ns": timestamp_ns(record.started_at),
+            "profile": record.profile,
+            "time_source": record.time_source,
         }
         at = record.ended_at
     elif isinstance(record, StationStatus):

@@ -12,10 +12,17 @@ from typing import Any
 from gateway.errors import ConfigError, DecodeError
 from gateway.profiles.decoders import ModbusDecoder, serial_parser
 from gateway.profiles.entries import Entry, FieldOrigin, _origins
-from gateway.profiles.model import FieldSpec, Parsed, Profile, SerialSpec, StationContext
+from gateway.profiles.model import (
+    Decoded,
+    FieldSpec,
+    Parsed,
+    Profile,
+    SerialSpec,
+    StationContext,
+)
 from gateway.profiles.normalise import reject
 from gateway.profiles.registers import registers_hex
-from gateway.records import Rejected
+from gateway.records import PressureTrace, Rejected
 
 __all__ = ["Entry", "check_registers", "check_sample", "check_text"]
 
@@ -29,7 +36,7 @@ def _line_entries(parser: Any, spec: SerialSpec, lines: list[bytes], start: int,
     out = []
     for item in items:
         origins: tuple[FieldOrigin, ...] = ()
-        if not isinstance(item, Rejected):
+        if not isinstance(item, Rejected | PressureTrace):
             raw = parser.raw_fields(lines, item.kind)
             origins = _origins(_kind_fields(spec, item.kind), item, raw=raw)
         out.append(Entry(start, f"line {start}", item, origins=origins))
@@ -172,7 +179,7 @@ def check_registers(profile: Profile, doc: Any, ctx: StationContext, received_at
                 raise ConfigError(f"{file}: {where}.{key}: expected a non-negative integer")
             regs = _regs(entry.get("registers"), f"{where}.registers", file)
             if section == "results":
-                item: Parsed = decoder.decode_result(regs, expected, ctx, received_at)
+                item: Decoded = decoder.decode_result(regs, expected, ctx, received_at)
                 fields = spec.result.fields
             else:
                 item = decoder.decode_calibration(regs, expected, ctx, received_at)

@@ -16,7 +16,7 @@ from typing import Any
 from gateway.errors import ConfigError, DecodeError
 from gateway.profiles.decoders import ModbusDecoder
 from gateway.profiles.entries import Entry, _origins
-from gateway.profiles.model import Parsed, Profile, StationContext
+from gateway.profiles.model import Decoded, Profile, StationContext
 
 __all__ = ["check_image", "is_image"]
 
@@ -53,7 +53,7 @@ def check_image(profile: Profile, doc: dict[str, Any], ctx: StationContext,
         out.append(Entry(0, f"snapshot {i}", None, f"{what}: {name} registers "
                          f"{start}..{start + count - 1} are not in the dump (probe them)"))
 
-    def add(i: int, where: str, item: Parsed, fields: Any, words: list[int]) -> None:
+    def add(i: int, where: str, item: Decoded, fields: Any, words: list[int]) -> None:
         key = getattr(item, "record_id", None) or f"{item.raw}"
         if key in seen:
             return

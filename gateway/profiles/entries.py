@@ -8,7 +8,7 @@ from dataclasses import dataclass
 
 from gateway.profiles.explain import FieldOrigin, explain_fields
 from gateway.profiles.model import FieldSpec, Parsed
-from gateway.records import Rejected
+from gateway.records import PressureTrace, Rejected
 
 __all__ = ["Entry", "FieldOrigin", "_origins"]
 
@@ -26,7 +26,7 @@ class Entry:
 
 def _origins(fields: Sequence[FieldSpec], item: Parsed, *, raw: Mapping[str, str] | None = None,
              registers: Sequence[int] | None = None) -> tuple[FieldOrigin, ...]:
-    if isinstance(item, Rejected):
+    if isinstance(item, Rejected | PressureTrace):
         return ()
     values = item.to_dict()
     return tuple(explain_fields(fields, values, dict(item.supplied), raw=raw,

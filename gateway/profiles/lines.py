@@ -25,6 +25,7 @@ from gateway.profiles.normalise import (
     make_record,
     reject,
 )
+from gateway.profiles.trace_lines import TraceCollector
 from gateway.records import TestResult, Verdict
 
 __all__ = ["SerialParser", "split_fields"]
@@ -240,6 +241,8 @@ class SerialParser:
         self._empty = frozenset(r.empty for r in spec.requests if r.empty is not None)
         self._block = spec.dialect.kind == "keyvalue" and spec.dialect.pair_separator is None
         self._frame = spec.frame
+        self._traces = (TraceCollector(spec.trace, ctx, self.label)
+                        if spec.trace is not None else None)
 
     def _decode(self, item: str | bytes) -> str:
         if isinstance(item, str):
@@ -331,41 +334,83 @@ class SerialParser:
             if self.spec.dialect.kind == "keyvalue":
                 pairs = _pairs(self.spec, [text], line_no)
                 return [self._from_raw(pairs, raw, line_no, received_at)]
-            parts: list[str] | None = None
-            for plan in self._plans:
-                kind = plan.kind
-                if not plan.delimited:
-                    try:
-                        fields = split_fields(self.spec, kind, text)
-                    except _NoMatch:
-                        continue
-                    values = plan.values_from(fields)
-                else:  # split_fields' delimited branch, by column position
-                    if parts is None:
-                        dialect = self.spec.dialect
-                        parts = text.split(dialect.separator)
-                        if dialect.strip:
-                            parts = [p.strip() for p in parts]
-                    if plan.when_count is not None and len(parts) != plan.when_count:
-                        continue
-                    if plan.when_at is not None:
-                        at = plan.when_at
-                        found = parts[at] if 0 <= at < len(parts) else None
-                        if plan.when_re is not None:
-                            if found is None or plan.when_re.search(found) is None:
-                                continue
-                        elif found not in plan.when_values:
-                            continue
-                    if len(parts) != plan.ncols:
-                        raise FieldError(
-                            f"{kind.record} line has {len(parts)} fields separated by "
-                            f"{self.spec.dialect.separator!r}, expected {plan.ncols}"
-                        )
-                    values = plan.values_of(parts)
-                return [plan.record(values, self.ctx, self.label, raw, received_at, line_no)]
-            raise FieldError(self._no_kind_reason())
+            if self._traces is not None:
+                return self._traced(text, raw, line_no, received_at)
+            return self._match(text, raw, line_no, received_at)
         except FieldError as exc:
             return [reject(self.ctx, self.label, raw, str(exc), received_at, line_no)]
+
+    def _match(self, text: str, raw: str, line_no: int, received_at: datetime) -> list[Parsed]:
+        """The record a delimited/fixed/regex line is (FieldError: none, or a broken one)."""
+        parts: list[str] | None = None
+        for plan in self._plans:
+            kind = plan.kind
+            if not plan.delimited:
+                try:
+                    fields = split_fields(self.spec, kind, text)
+                except _NoMatch:
+                    continue
+                values = plan.values_from(fields)
+            else:  # split_fields' delimited branch, by column position
+                if parts is None:
+                    dialect = self.spec.dialect
+                    parts = text.split(dialect.separator)
+                    if dialect.strip:
+                        parts = [p.strip() for p in parts]
+                if plan.when_count is not None and len(parts) != plan.when_count:
+                    continue
+                if plan.when_at is not None:
+                    at = plan.when_at
+                    found = parts[at] if 0 <= at < len(parts) else None
+                    if plan.when_re is not None:
+                        if found is None or plan.when_re.search(found) is None:
+                            continue
+                    elif found not in plan.when_values:
+                        continue
+                if len(parts) != plan.ncols:
+                    raise FieldError(
+                        f"{kind.record} line has {len(parts)} fields separated by "
+                        f"{self.spec.dialect.separator!r}, expected {plan.ncols}"
+                    )
+                values = plan.values_of(parts)
+            return [plan.record(values, self.ctx, self.label, raw, received_at, line_no)]
+        raise FieldError(self._no_kind_reason())
+
+    def _traced(self, text: str, raw: str, line_no: int, received_at: datetime) -> list[Parsed]:
+        """A line of a station that sends curves: a curve's, or a record the curves follow."""
+        traces = self._traces
+        assert traces is not None
+        dialect = self.spec.dialect
+        parts = text.split(dialect.separator)
+        if dialect.strip:
+            parts = [p.strip() for p in parts]
+        if traces.in_block and self._is_record(parts):
+            traces.cut(line_no, received_at)  # the end line was lost: this is the next record
+        taken = traces.take(parts, raw, line_no, received_at)
+        cut = traces.pop_pending()
+        if taken is not None:
+            return cut + taken
+        try:
+            out = self._match(text, raw, line_no, received_at)
+        except FieldError as exc:
+            out = [reject(self.ctx, self.label, raw, str(exc), received_at, line_no)]
+        for record in out:
+            traces.saw(record)
+        return cut + out
+
+    def _is_record(self, parts: Sequence[str]) -> bool:
+        """Whether a delimited line is told to be a record by a kind's discriminator."""
+        for plan in self._plans:
+            if not plan.delimited or plan.when_at is None:
+                continue
+            at = plan.when_at
+            found = parts[at] if 0 <= at < len(parts) else None
+            if found is None:
+                continue
+            if (plan.when_re.search(found) is not None if plan.when_re is not None
+                    else found in plan.when_values):
+                return True
+        return False
 
     def _parse_block(self, lines: Sequence[str | bytes], first: int,
                      received_at: datetime, raw: str | None = None) -> list[Parsed]:

@@ -10,6 +10,7 @@ from collections.abc import Sequence
 from typing import Any
 
 from gateway.profiles.load_fields import _fields, _Reader
+from gateway.profiles.load_trace import load_trace_block
 from gateway.profiles.modbus_schema import apply_latest
 from gateway.profiles.model import (
     AckSpec,
@@ -53,7 +54,7 @@ def _modbus(r: _Reader, doc: dict[str, Any], label: str, ref_c: float) -> Modbus
     r.table(m, "modbus", ("framer", "device_id", "function", "poll_interval_s", "timeout_s",
                           "word_order", "byte_order", "baudrate", "bytesize", "parity",
                           "stopbits", "string_encoding", "state", "result", "calibration",
-                          "acknowledge"))
+                          "acknowledge", "trace"))
     framer = r.string(m, "framer", "modbus", choices=("tcp", "rtu"))
     device_id = r.integer(m, "device_id", "modbus", lo=0, hi=247 if framer == "rtu" else 255)
     function = r.integer(m, "function", "modbus")
@@ -186,4 +187,5 @@ def _modbus(r: _Reader, doc: dict[str, Any], label: str, ref_c: float) -> Modbus
         bytesize=r.integer(m, "bytesize", "modbus", 8, lo=5, hi=8),
         parity=r.string(m, "parity", "modbus", "N", ("N", "E", "O", "M", "S")),
         stopbits=stopbits, string_encoding=encoding, leak_reference_c=ref_c, latest=latest,
+        trace=load_trace_block(r, m),
     )

@@ -11,6 +11,7 @@ from typing import Any
 
 from gateway.profiles.checks import CHECKS
 from gateway.profiles.load_fields import _NUMBER_KEYS, _condition, _fields, _number_text, _Reader
+from gateway.profiles.load_trace import load_trace_line
 from gateway.profiles.model import (
     Dialect,
     FixedColumn,
@@ -205,7 +206,8 @@ def _serial(r: _Reader, doc: dict[str, Any], label: str, ref_c: float) -> Serial
                                       pair_separator=pair_sep, strip=strip,
                                       unknown_keys=unknown),
                       profile_label=label, leak_reference_c=ref_c, request_gap_s=gap,
-                      checksum=checksum, frame=frame, address_field=address_field)
+                      checksum=checksum, frame=frame, address_field=address_field,
+                      trace=load_trace_line(r, doc, kind))
 
 
 def _frame(r: _Reader, s: Mapping[str, Any]) -> FrameSpec | None:

@@ -57,7 +57,8 @@ def parse_profile(doc: dict[str, Any], file: str) -> Profile:
     if ref_c not in (0.0, 20.0):
         r.fail("profile.leak_reference_c", "0 or 20 (°C base of sccm)", meta["leak_reference_c"])
     label = f"{name}@{version}"
-    allowed = (("profile", "serial", "dialect", "result", "calibration") if transport == "serial"
+    allowed = (("profile", "serial", "dialect", "result", "calibration", "trace")
+               if transport == "serial"
                else ("profile", "modbus"))
     r.table(doc, "", allowed)
     serial = _serial(r, doc, label, ref_c) if transport == "serial" else None

@@ -14,10 +14,11 @@ from dataclasses import dataclass, field
 from typing import TYPE_CHECKING, Any, Literal
 
 from gateway.programs import ProgramParams
-from gateway.records import CalibrationEvent, Rejected, StationState, TestResult
+from gateway.records import CalibrationEvent, PressureTrace, Rejected, StationState, TestResult
 
 if TYPE_CHECKING:
     from gateway.profiles.modbus_schema import LatestRule
+    from gateway.profiles.trace_schema import TraceBlock, TraceLine
 
 __all__ = [
     "CAL_FIELDS",
@@ -25,6 +26,7 @@ __all__ = [
     "AckSpec",
     "BlockSpec",
     "Condition",
+    "Decoded",
     "FieldSpec",
     "FixedColumn",
     "FrameSpec",
@@ -41,7 +43,10 @@ __all__ = [
     "StationContext",
 ]
 
-Parsed = TestResult | CalibrationEvent | Rejected
+#: what a record line or register block decodes to
+Decoded = TestResult | CalibrationEvent | Rejected
+#: what a serial parser hands on: records, quarantine, and pressure curves
+Parsed = Decoded | PressureTrace
 RecordKind = Literal["result", "calibration"]
 ValueKind = Literal[
     "int", "timestamp", "program", "verdict", "text", "bool", "number",
@@ -105,6 +110,7 @@ class StationContext:
     program_params: Mapping[str, ProgramParams] = field(default_factory=dict)
     default_program: str = DEFAULT_PROGRAM
     address: int | None = None  # the station's address on a shared line (config overrides)
+    traces: bool = False  # the plant collects this station's pressure curves (config)
 
 
 @dataclass(frozen=True, slots=True)
@@ -302,6 +308,7 @@ class SerialSpec:
     checksum: LineCheck | None = None
     frame: FrameSpec | None = None
     address_field: str | None = None  # the answer's key that echoes the station address
+    trace: TraceLine | None = None  # how the station sends a test's pressure curve
 
 
 @dataclass(frozen=True, slots=True)
@@ -377,6 +384,7 @@ class ModbusSpec:
     string_encoding: str = "ascii"
     leak_reference_c: float = 0.0
     latest: LatestRule | None = None  # a single last-result block instead of a ring
+    trace: TraceBlock | None = None  # the newest pressure curve in registers
 
 
 @dataclass(frozen=True)

@@ -17,9 +17,9 @@ from gateway.calibration import Calibration
 from gateway.errors import DecodeError, UnitError
 from gateway.profiles.model import (
     BlockSpec,
+    Decoded,
     FieldSpec,
     ModbusSpec,
-    Parsed,
     RingSpec,
     StationContext,
 )
@@ -535,7 +535,7 @@ def build_record(
     raw: str,
     received_at: datetime,
     line_no: int | None,
-) -> Parsed:
+) -> Decoded:
     """A TestResult/CalibrationEvent from canonical values, or Rejected if they don't fit."""
     present: dict[str, Any] = {k: v for k, v in values.items() if v is not None}
     return make_record(record, present, ctx, label, raw, received_at, line_no)
@@ -549,7 +549,7 @@ def make_record(
     raw: str,
     received_at: datetime,
     line_no: int | None,
-) -> Parsed:
+) -> Decoded:
     """``build_record`` for values without the ``None`` ones (fields left at their default)."""
     common: dict[str, Any] = {
         "station": ctx.station,
@@ -591,7 +591,7 @@ def decode_block(
     expected: int,
     ctx: StationContext,
     received_at: datetime,
-) -> Parsed:
+) -> Decoded:
     """A result slot or calibration block → record, after checking length and both guards."""
     raw = registers_hex(address, regs)
     label = spec.profile_label

@@ -17,6 +17,7 @@ from pydantic import BaseModel, ConfigDict, Field, ValidationError
 
 from gateway.errors import ConfigError
 from gateway.profiles.modbus_schema import LatestRule
+from gateway.profiles.trace_schema import TraceBlock, TraceLine
 
 __all__ = ["ProfileDocument", "check_document", "check_with", "error_line",
            "profile_json_schema"]
@@ -205,6 +206,7 @@ class Modbus(_Table):
     calibration: Block | None = None
     acknowledge: Acknowledge | None = None
     latest: LatestRule | None = None
+    trace: TraceBlock | None = None
 
 
 class ProfileDocument(_Table):
@@ -218,6 +220,7 @@ class ProfileDocument(_Table):
     dialect: Dialect | None = None
     result: LineKind | None = None
     calibration: LineKind | None = None
+    trace: TraceLine | None = None
     modbus: Modbus | None = None
 
 

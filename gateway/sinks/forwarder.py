@@ -60,6 +60,11 @@ __all__ = [
 
 log = logging.getLogger(__name__)
 
+#: kinds that may go out of arrival order (not statuses: the retained one must be the newest)
+LANE_KINDS: tuple[Kind, ...] = ("result", "calibration", "trace")
+#: a backlog of more batches than this opens the live lane
+LIVE_LANE_BATCHES = 4
+
 
 class SinkUnavailable(TransportError):
     """The remote system cannot take records right now; retry later (nothing is lost)."""
@@ -184,6 +189,9 @@ class JournalForwarder:
         self.failures = 0  # in the current streak
         self.dead_letters = 0  # records the server refused, parked
         self._cursors: dict[Kind, int] = {}
+        # the live lane while a backlog drains: per kind (start, end], records newer than the
+        # backlog already sent (the cursor stays the acknowledged prefix, see _send_pending)
+        self._lanes: dict[Kind, tuple[int, int]] = {}
         self._backlog_at = 0.0
         # the journal writer's commit signal, set by the runtime: with it a record goes out as
         # soon as it is committed; without it (a journal written by another process) we poll
@@ -254,25 +262,61 @@ class JournalForwarder:
                         "and go out on the next start", self.name)
 
     async def _send_pending(self, journal: Journal) -> int:
-        """One batch per kind; returns how many records were acknowledged."""
+        """One batch per kind (and one of the live lane's, while a backlog drains); returns
+        how many records were acknowledged.
+
+        After an outage the journal holds a backlog in arrival order. Results arriving
+        meanwhile would wait behind all of it, so when more than ``LIVE_LANE_BATCHES`` batches
+        wait, the newest records go out first in a live lane, one batch a pass beside one
+        backlog batch. The persisted cursor stays the acknowledged prefix: the backlog batches
+        stop at the lane's start and, once they reach it, the cursor jumps past what the lane
+        sent. A crash re-sends the lane's records (at-least-once, as always). Statuses keep
+        their order (the retained one must be the newest), so they never take the lane.
+        """
         moved = 0
         for kind in self.client.kinds:
+            lane = self._lanes.get(kind)
+            if lane is None and kind in LANE_KINDS and self.backlog.get(kind, (0, None))[0] > (
+                    LIVE_LANE_BATCHES * self.options.batch_size):
+                head = await asyncio.to_thread(journal.max_seq, kind)
+                lane = self._lanes[kind] = (head, head)
+                log.info("sink %s: %s backlog of %d; new records go out first meanwhile",
+                         self.name, kind, self.backlog[kind][0])
+            if lane is not None:
+                live = await asyncio.to_thread(journal.read_after, kind, lane[1],
+                                               self.options.batch_size)
+                if live:
+                    await self._send_rows(journal, kind, live)
+                    lane = self._lanes[kind] = (lane[0], live[-1][0])
+                    moved += len(live)
             rows = await asyncio.to_thread(
                 journal.read_after, kind, self._cursors[kind], self.options.batch_size
             )
-            if not rows:
-                continue
-            t0 = time.monotonic()
-            await self._send_isolating(journal, kind, rows)
-            last = rows[-1][0]
-            if self._save_cursor is None or not await self._save_cursor(self.name, kind, last):
-                await asyncio.to_thread(journal.set_cursor, self.name, kind, last)
-            self._cursors[kind] = last
-            self.sent[kind] += len(rows)
-            self.last_success = datetime.now(UTC)
-            metrics.sink_sent(self.name, kind, len(rows), time.monotonic() - t0)
-            moved += len(rows)
+            if lane is not None:
+                rows = [r for r in rows if r[0] <= lane[0]]
+            if rows:
+                await self._send_rows(journal, kind, rows)
+                moved += len(rows)
+            if lane is not None and (self._cursors[kind] >= lane[0] or not rows):
+                # the backlog has caught up with the lane: what the lane sent is confirmed
+                await self._advance(journal, kind, max(self._cursors[kind], lane[1]))
+                del self._lanes[kind]
         return moved
+
+    async def _send_rows(self, journal: Journal, kind: Kind,
+                         rows: Sequence[tuple[int, Record]]) -> None:
+        t0 = time.monotonic()
+        await self._send_isolating(journal, kind, rows)
+        if kind not in self._lanes or rows[-1][0] <= self._lanes[kind][0]:
+            await self._advance(journal, kind, rows[-1][0])
+        self.sent[kind] += len(rows)
+        self.last_success = datetime.now(UTC)
+        metrics.sink_sent(self.name, kind, len(rows), time.monotonic() - t0)
+
+    async def _advance(self, journal: Journal, kind: Kind, last: int) -> None:
+        if self._save_cursor is None or not await self._save_cursor(self.name, kind, last):
+            await asyncio.to_thread(journal.set_cursor, self.name, kind, last)
+        self._cursors[kind] = last
 
     async def _send_one(self, kind: Kind, rows: Sequence[tuple[int, Record]]) -> None:
         try:
@@ -337,7 +381,7 @@ class JournalForwarder:
 
     def _recovered(self) -> None:
         self.backoff.reset()
-        waiting = sum(n for n, _ in self.backlog.values())
+        waiting = sum(n for k, (n, _) in self.backlog.items() if k in self.client.kinds)
         log.info("sink %s: %s takes records again after %d failed attempt(s); "
                  "about %d record(s) were waiting", self.name, self.client.describe(),
                  self.failures, waiting)

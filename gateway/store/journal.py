@@ -25,7 +25,7 @@ import json
 import os
 import sqlite3
 import threading
-from collections.abc import Callable, Iterable, Sequence
+from collections.abc import Callable, Iterable, Mapping, Sequence
 from dataclasses import dataclass
 from datetime import datetime
 from pathlib import Path
@@ -60,12 +60,12 @@ from gateway.store.schema import (
     migrate,
 )
 from gateway.store.summaries import fold_results, part_shares, settle_part_hours
-from gateway.store.traces import INSERT_TRACE, trace_row
+from gateway.store.traces import INSERT_TRACE, TRACE_COLUMNS, trace_from, trace_row
 
 __all__ = ["Journal", "Kind", "WriteStats", "open_journal", "quarantine_id"]
 
-Kind = Literal["result", "calibration", "status"]
-KINDS: tuple[Kind, ...] = ("result", "calibration", "status")
+Kind = Literal["result", "calibration", "status", "trace"]
+KINDS: tuple[Kind, ...] = ("result", "calibration", "status", "trace")
 #: page cache of the writer's connection (negative: KiB), see Journal.__init__
 CACHE_SIZE = -32768
 
@@ -195,10 +195,15 @@ _READERS: dict[str, tuple[str, Callable[[tuple[Any, ...]], Record]]] = {
         f"SELECT seq, {', '.join(STATUS_COLUMNS)} FROM statuses WHERE seq > ? ORDER BY seq LIMIT ?",
         _status_from,
     ),
+    "trace": (
+        f"SELECT seq, {TRACE_COLUMNS} FROM traces WHERE seq > ? ORDER BY seq LIMIT ?",
+        trace_from,
+    ),
 }
 # Which column tells a row's age, per table (statuses carry no received_at; "at" is the
 # gateway's own observation time, so it plays that role).
-_AGE_COLUMN = {"results": "received_at", "calibrations": "received_at", "statuses": "at"}
+_AGE_COLUMN = {"results": "received_at", "calibrations": "received_at", "statuses": "at",
+               "traces": "received_at"}
 
 
 def _check_kind(kind: str) -> str:
@@ -429,14 +434,23 @@ class Journal:
             out[kind] = (int(count), from_us(oldest[0][0]) if oldest else None)
         return out
 
-    def prune(self, older_than: datetime, sinks: Sequence[str]) -> int:
+    def prune(
+        self,
+        older_than: datetime | None,
+        sinks: Sequence[str] | Mapping[str, Sequence[str]],
+        *,
+        kind_cutoffs: Mapping[str, datetime] | None = None,
+    ) -> int:
         """Delete records older than ``older_than`` that every listed sink has confirmed.
 
-        With no sinks listed, age alone decides. Quarantine rows (which no sink forwards) go by
-        age. The summaries of the hours and parts touched are rebuilt from the rows that
-        remain, so they always describe what is stored. Returns the number of rows deleted.
+        ``sinks`` lists the enabled sinks, or per kind the sinks that forward that kind (a
+        sink that never sends a kind must not hold it back). ``kind_cutoffs`` prunes a kind
+        sooner (pressure curves kept for a shorter time than results); ``older_than`` None
+        prunes nothing else. With no sinks listed, age alone decides. Quarantine rows (which no
+        sink forwards) go by age. The summaries of the hours and parts touched are rebuilt
+        from the rows that remain, so they always describe what is stored. Returns the number
+        of rows deleted.
         """
-        cutoff = to_us(older_than)
         deleted = 0
         with self._lock:
             conn = self._conn
@@ -444,8 +458,13 @@ class Journal:
                 conn.execute("BEGIN IMMEDIATE")
                 for kind in KINDS:
                     table = TABLES[kind]
+                    at = [t for t in (older_than, (kind_cutoffs or {}).get(kind)) if t is not None]
+                    if not at:
+                        continue
+                    cutoff = to_us(max(at))
                     bound: int | None = None
-                    for sink in sinks:
+                    listed = sinks.get(kind, ()) if isinstance(sinks, Mapping) else sinks
+                    for sink in listed:
                         row = conn.execute(
                             "SELECT seq FROM sink_cursors WHERE sink = ? AND kind = ?",
                             (sink, kind),
@@ -464,9 +483,10 @@ class Journal:
                         deleted += conn.execute(
                             f"DELETE FROM {table} WHERE {cond}", params
                         ).rowcount
-                deleted += conn.execute(
-                    "DELETE FROM quarantine WHERE received_at < ?", (cutoff,)
-                ).rowcount
+                if older_than is not None:
+                    deleted += conn.execute(
+                        "DELETE FROM quarantine WHERE received_at < ?", (to_us(older_than),)
+                    ).rowcount
                 conn.execute("COMMIT")
             except sqlite3.Error as exc:
                 self._rollback()

@@ -53,7 +53,8 @@ QUARANTINE_COLUMNS: tuple[str, ...] = (
 )  # fmt: skip
 
 #: kind → table, as used by read_after / cursors / backlog.
-TABLES: dict[str, str] = {"result": "results", "calibration": "calibrations", "status": "statuses"}
+TABLES: dict[str, str] = {"result": "results", "calibration": "calibrations", "status": "statuses",
+                          "trace": "traces"}
 
 # Hourly summaries (see gateway.store.summaries). Schema v1 kept them with per-row triggers,
 # which v2 drops: the writer folds each batch in once (summaries.fold_results), and a bulk

@@ -10,17 +10,18 @@ says so (``prune_traces``).
 from __future__ import annotations
 
 import json
+import sys
 import zlib
+from array import array
 from collections.abc import Sequence
 from datetime import datetime
 from typing import Any, Protocol
 
-import numpy as np
-
 from gateway.records import PressureTrace
 from gateway.store._sqlite import from_us, to_us
 
-__all__ = ["INSERT_TRACE", "TRACE_SCHEMA", "pack", "prune_traces", "trace_row", "traces", "unpack"]
+__all__ = ["INSERT_TRACE", "TRACE_COLUMNS", "TRACE_SCHEMA", "pack", "prune_traces", "trace_from",
+           "trace_row", "traces", "unpack"]
 
 TRACE_SCHEMA: tuple[str, ...] = (
     """CREATE TABLE traces (
@@ -57,11 +58,20 @@ class _Journal(Protocol):
 
 
 def pack(values: Sequence[float]) -> bytes:
-    return zlib.compress(np.asarray(values, dtype="<f8").tobytes(), 6)
+    """Little-endian float64, zlib-compressed (the standard library's ``array``: no numpy on
+    the gateway's start-up path)."""
+    doubles = array("d", values)
+    if sys.byteorder == "big":
+        doubles.byteswap()
+    return zlib.compress(doubles.tobytes(), 6)
 
 
 def unpack(blob: bytes) -> tuple[float, ...]:
-    return tuple(np.frombuffer(zlib.decompress(blob), dtype="<f8").tolist())
+    doubles = array("d")
+    doubles.frombytes(zlib.decompress(blob))
+    if sys.byteorder == "big":
+        doubles.byteswap()
+    return tuple(doubles)
 
 
 def trace_row(t: PressureTrace) -> tuple[Any, ...]:
@@ -71,7 +81,12 @@ def trace_row(t: PressureTrace) -> tuple[Any, ...]:
             t.time_source)
 
 
-def _trace(row: tuple[Any, ...]) -> PressureTrace:
+#: the columns ``trace_from`` rebuilds a record from, in its order
+TRACE_COLUMNS = ("station, line, cycle, role, program, ended_at, received_at, started_at, "
+                 "sample_interval_s, pressures, phases, profile, time_source")
+
+
+def trace_from(row: tuple[Any, ...]) -> PressureTrace:
     (station, line, cycle, role, program, ended, received, started, interval, blob, phases,
      profile, source) = row
     return PressureTrace(
@@ -94,9 +109,7 @@ def traces(
     limit: int | None = None,
 ) -> list[PressureTrace]:
     """A station's traces, newest first (all roles unless ``role`` is given)."""
-    sql = ("SELECT station, line, cycle, role, program, ended_at, received_at, started_at, "
-           "sample_interval_s, pressures, phases, profile, time_source FROM traces "
-           "WHERE station = ?")
+    sql = f"SELECT {TRACE_COLUMNS} FROM traces WHERE station = ?"
     params: list[Any] = [station]
     for column, op, value in (("role", "=", role), ("program", "=", program),
                               ("ended_at", ">=", since), ("ended_at", "<", until)):
@@ -107,7 +120,7 @@ def traces(
     if limit is not None:
         sql += " LIMIT ?"
         params.append(int(limit))
-    return [_trace(r) for r in journal._query(sql, params, "reading traces")]
+    return [trace_from(r) for r in journal._query(sql, params, "reading traces")]
 
 
 def prune_traces(journal: _Journal, older_than: datetime) -> None:

@@ -16,6 +16,7 @@ from sim.formats_serial import (
     semi_calibration,
     semi_result,
 )
+from sim.formats_traces import delim_trace
 from sim.servers.base import Endpoint, TcpPort, TruthSink, garbage_bytes, truncate
 from sim.station import Activity, SimCalibration, SimResult
 
@@ -106,6 +107,10 @@ class DelimServer(TcpPort):
             if activity.duplicate:
                 await self._send(line + _EOL)
                 fault = "duplicated"
+        for role, cycle, trace in activity.traces:
+            await self._send(delim_trace(role, cycle, trace) + _EOL)
+        curves = [{"role": r, "cycle": c, "samples": len(t.pressures_pa)}
+                  for r, c, t in activity.traces]
         self.truth.record(
             activity,
             encoded.reported,
@@ -113,6 +118,7 @@ class DelimServer(TcpPort):
             fault=fault,
             listeners=listeners,
             raw=line.decode("ascii"),
+            **({"traces": curves} if curves else {}),
         )
 
     async def set_state(self, state: str) -> None:

@@ -33,6 +33,7 @@ from sim.formats import (
     modbus_result,
     modbus_state,
 )
+from sim.formats_traces import TRACE_BASE, TRACE_MAX, mbtcp_trace, trace_size
 from sim.scenario import Faults
 from sim.servers.base import Endpoint, TruthSink
 from sim.servers.pty import PtyPair, open_pty
@@ -119,16 +120,20 @@ class _ModbusStation:
         self.faults = faults
         self.truth = truth
         self.rng = rng
-        self.image = [0] * self.regmap.size
+        self.size = max(self.regmap.size, trace_size()) if self.curves else self.regmap.size
+        self.image = [0] * self.size
         self.image[5] = self.regmap.ring_depth
+        self._curves_written = 0
         self._own_write = False
         self._server: ModbusTcpServer | ModbusSerialServer | None = None
         self._closed = asyncio.Event()
         self._results = 0
         self._calibrations = 0
 
+    curves = False  # the station keeps its newest pressure curve in registers
+
     def _device(self) -> SimDevice:
-        size = self.regmap.size
+        size = self.size
         block = [SimData(0, count=size, values=0, datatype=DataType.REGISTERS)]
         bits = [SimData(0, count=1, values=False, datatype=DataType.BITS)]
         none = [SimData(0, count=1, datatype=DataType.INVALID)]  # the other table: exception 02
@@ -192,7 +197,12 @@ class _ModbusStation:
         else:
             await self._write(address, regs)
             await self._write(counter_address, encode_u32(counter, wo))
-        extra = {"counter": counter} if not isinstance(record, SimResult) else {}
+        extra: dict[str, object] = (
+            {"counter": counter} if not isinstance(record, SimResult) else {})
+        if self.curves and activity.traces:
+            curves = await self._publish_curves(activity)
+            if curves:
+                extra["traces"] = curves
         self.truth.record(
             activity,
             encoded.reported,
@@ -202,6 +212,22 @@ class _ModbusStation:
             registers=regs,
             **extra,
         )
+
+    async def _publish_curves(self, activity: Activity) -> list[dict[str, object]]:
+        """The result's curve: the block holds one at a time, body first and its counter
+        last, so a reader sees a whole curve or the previous one. This type keeps no
+        calibration curves (its two would arrive together, the master's overwritten at once)."""
+        out: list[dict[str, object]] = []
+        for role, cycle, trace in activity.traces:
+            if role != "result":
+                continue
+            self._curves_written += 1
+            regs = mbtcp_trace(self._curves_written, role, cycle, trace)
+            await self._write(TRACE_BASE + 2, regs[2:])
+            await self._write(TRACE_BASE, regs[:2])
+            out.append({"role": role, "cycle": cycle, "counter": self._curves_written,
+                        "samples": min(len(trace.pressures_pa), TRACE_MAX)})
+        return out
 
     async def serve(self) -> None:
         await self._closed.wait()
@@ -221,7 +247,9 @@ class ModbusTcpStationServer(_ModbusStation, TcpLifecycle):
         faults: Faults,
         truth: TruthSink,
         rng: random.Random,
+        curves: bool = False,
     ) -> None:
+        self.curves = curves
         super().__init__(station, device_id, faults, truth, rng)
         self.port = port
         self.endpoint = Endpoint(station, self.kind, "tcp", "127.0.0.1", port)

@@ -293,3 +293,60 @@ def test_wrong_passwords_pause_sign_in() -> None:
     assert auth.password_ok("s3cret-pass", good, now=101.0) is None  # paused, even if right
     assert auth.password_ok("s3cret-pass", good, now=100.0 + auth.WINDOW_S + 1) is True
     auth._failures.clear()
+
+
+def test_a_rejects_curve_opens_from_a_link_beside_the_calibrations_curves(
+    demo_journal: Path, tmp_path: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    """The fleet page links each test to ``traces?station=..&cycle=..``; that link opens the
+    test's own curve, labelled with its verdict, beside the newest calibration's curves."""
+    import shutil
+    import sqlite3
+
+    from streamlit.testing.v1 import AppTest
+
+    from gateway.records import PressureTrace
+    from gateway.store import open_journal
+    from gateway.store._sqlite import from_us
+    from tests.dashboard.conftest import APP
+
+    db = tmp_path / "journal.db"
+    shutil.copy(demo_journal, db)
+    with sqlite3.connect(db) as c:
+        rows = c.execute("SELECT cycle, ended_at, verdict, program FROM results WHERE station = "
+                         "'L1-S1' AND verdict IN ('reject', 'pass') ORDER BY verdict DESC, "
+                         "seq DESC LIMIT 400").fetchall()
+    reject = next(r for r in rows if r[2] == "reject")
+    passed = next(r for r in rows if r[2] == "pass")
+
+    def curve(cycle: int, ended_us: int, program: str, role: str, drop: float) -> PressureTrace:
+        end = from_us(ended_us)
+        p = [350_000.0 * min(1.0, i / 20) for i in range(20)]
+        p += [350_000.0 - drop * i for i in range(80)]
+        return PressureTrace(station="L1-S1", line="L1", cycle=cycle, ended_at=end,
+                             received_at=end, started_at=end, sample_interval_s=0.1,
+                             pressures_pa=tuple(p), role=role, program=program,
+                             phases=(("fill", 0.0), ("stabilise", 2.0), ("test", 5.0),
+                                     ("dump", 9.9), ("end", 9.9)))
+
+    with open_journal(f"sqlite:///{db}") as j:
+        j.write([curve(reject[0], reject[1], reject[3], "result", 3.0),
+                 curve(passed[0], passed[1], passed[3], "result", 0.2),
+                 curve(passed[0], passed[1], passed[3], "master", 0.1),
+                 curve(passed[0], passed[1], passed[3], "standard", 1.0)])
+    monkeypatch.setenv("LEAKFLEET_STORE", f"sqlite:///{db}")
+    monkeypatch.setenv("LEAKFLEET_CONFIG", "demo")
+    monkeypatch.setenv("LEAKFLEET_CLOCK", "wall")
+    at = AppTest.from_file(APP, default_timeout=60)
+    at.query_params["station"] = "L1-S1"
+    at.query_params["cycle"] = str(reject[0])
+    at.switch_page("views/traces.py")
+    at.run()
+    assert not at.exception, [e.message for e in at.exception]
+    assert at.selectbox(key="traces_station").value == "L1-S1"
+    assert at.radio(key="traces_show").value == "One test"
+    assert at.selectbox(key="traces_one").value.startswith(f"cycle {reject[0]} · reject")
+    assert any("newest calibration's master and master-plus-standard" in c.value
+               for c in at.caption)
+    at.radio(key="traces_show").set_value("Rejects only").run()
+    assert not at.exception

@@ -104,6 +104,9 @@ def test_good_config_with_defaults(tmp_path: Path) -> None:
     kept = load_config(write(tmp_path, GOOD.replace(
         TZ, TZ + '\n[runtime]\nretention = "400 days"')))
     assert kept.runtime.retention_s == 400 * 86400
+    curves = load_config(write(tmp_path, GOOD.replace(
+        TZ, TZ + '\n[runtime]\nretention = "400 days"\ntrace_retention = "30 d"')))
+    assert curves.runtime.trace_retention_s == 30 * 86400
     assert load_config(write(tmp_path, GOOD), store="sqlite:///x.db").store == "sqlite:///x.db"
 
 
@@ -141,6 +144,8 @@ def test_good_config_with_defaults(tmp_path: Path) -> None:
          "runtime.retention: expected a number of days of at least 1"),
         ((TZ, TZ + '\n[runtime]\nretention = 30'),
          "runtime.retention: expected a number of days"),
+        ((TZ, TZ + '\n[runtime]\nretention = "30 d"\ntrace_retention = "90 d"'),
+         "runtime.trace_retention: expected at most retention (30 d)"),
     ],
 )
 def test_mistakes_name_file_key_and_expectation(

@@ -106,7 +106,7 @@ def test_cli_imports_and_reports_json(tmp_path: Path, capsys: pytest.CaptureFixt
                  "--line", "L9", "--store", f"sqlite:///{db}", "--json"])
     assert code == 0
     doc = json.loads(capsys.readouterr().out)
-    assert doc["files"][0]["stored"] == 5 and doc["files"][0]["quarantined"] == 5
+    assert doc["files"][0]["stored"] == 6 and doc["files"][0]["quarantined"] == 5
 
 
 @pytest.mark.parametrize(("args", "message"), [

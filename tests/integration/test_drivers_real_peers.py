@@ -77,7 +77,7 @@ async def test_streaming_tcp_lines_garbage_huge_lines_and_reconnect() -> None:
     async def serve(reader: asyncio.StreamReader, writer: asyncio.StreamWriter) -> None:
         connections.append(writer)
         if len(connections) == 1:
-            writer.write(R1 + b"\r\n" + b"\x93\xffnoise\r\n" + b"X" * 10_000 + b"\r\n" + C1
+            writer.write(R1 + b"\r\n" + b"\x93\xffnoise\r\n" + b"X" * 40_000 + b"\r\n" + C1
                          + b"\r\n")
             await writer.drain()
             writer.close()  # the device server drops the connection

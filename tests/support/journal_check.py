@@ -257,9 +257,11 @@ def config_for_plant(
     poll: Mapping[str, str] | None = None,
     timeout: str = "1 s",
     runtime: str = 'reconnect_initial = "0.05 s"\nreconnect_max = "0.5 s"\nline_gap = "0.05 s"',
+    traces: bool = False,
 ) -> str:
     """A gateway.toml for a running ``sim.run.Plant``: one station per endpoint, the built-in
-    profile of its type, the scenario's program numbers and time zone."""
+    profile of its type, the scenario's program numbers and time zone; with ``traces``, the
+    curves of every station that sends them are collected."""
     sc = plant.scenario
     poll = dict(poll or {})
     lines = [
@@ -285,6 +287,8 @@ def config_for_plant(
             lines.append(f"overrides = {{ device_id = {st.device_id} }}")
         if st.type == "lf-ticket":
             lines.append(f"overrides = {{ address = {st.address} }}")
+        if traces and st.trace_interval_s > 0:
+            lines.append("traces = true")
         lines.append("")
     return "\n".join(lines)
 

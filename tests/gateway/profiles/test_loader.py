@@ -69,7 +69,7 @@ def test_missing_file(tmp_path: Path) -> None:
     ("base", "old", "new", "key", "expected"),
     [
         # unknown key
-        ("lf-delim", "max_line = 512", "max_line = 512\nbaud = 9600", "serial.baud",
+        ("lf-delim", "max_line = 32768", "max_line = 32768\nbaud = 9600", "serial.baud",
          "one of the keys mode, baudrate"),
         # wrong type
         ("lf-delim", "baudrate = 9600", 'baudrate = "fast"', "serial.baudrate", "an integer"),
@@ -136,7 +136,7 @@ def test_missing_file(tmp_path: Path) -> None:
          "a discriminator"),
         # a section for the other transport
         ("lf-delim", "[dialect]", "[modbus]\nframer = \"tcp\"\n[dialect]", "modbus",
-         "one of the keys profile, serial, dialect, result, calibration (unknown key)"),
+         "one of the keys profile, serial, dialect, result, calibration, trace (unknown key)"),
         # modbus: overlapping registers
         ("lf-mbtcp", "pressure_loss_pa = { at = 8,", "pressure_loss_pa = { at = 7,",
          "modbus.result.fields.pressure_loss_pa", "registers that do not overlap"),

@@ -25,7 +25,7 @@ EXPECTED = {
         (4, "result", 1044), (5, "rejected", "verdict: unknown code 'XYZ'"),
         (6, "rejected", "is not a timestamp"), (7, "rejected", "has 8 fields"),
         (8, "rejected", "matches no line kind"), (9, "rejected", "'abc' is not a number"),
-        (10, "calibration", "HX-230"),
+        (10, "calibration", "HX-230"), (11, "result", 1049), (12, "trace", 1049),
     ]),
     "lf-kv": ("lf-kv.txt", [
         (1, "note", None), (3, "result", 311), (21, "calibration", "MV-44"),
@@ -67,7 +67,7 @@ EXPECTED = {
 @pytest.mark.parametrize("name", sorted(EXPECTED))
 def test_builtin_samples(name: str) -> None:
     sample, expected = EXPECTED[name]
-    ctx = StationContext("S1", "L1", "Europe/Berlin", {1: "HX-210"})
+    ctx = StationContext("S1", "L1", "Europe/Berlin", {1: "HX-210"}, traces=True)
     entries = check_sample(load_profile(name), (SAMPLES / sample).read_bytes(), ctx, RECEIVED)
     got = []
     for e in entries:
@@ -77,8 +77,8 @@ def test_builtin_samples(name: str) -> None:
             fact = next((f for _, k, f in expected if k == "rejected" and f in e.item.reason),
                         e.item.reason)
             got.append((e.line_no, "rejected", fact))
-        elif e.item.kind == "result":
-            got.append((e.line_no, "result", e.item.cycle))  # type: ignore[union-attr]
+        elif e.item.kind in ("result", "trace"):
+            got.append((e.line_no, e.item.kind, e.item.cycle))  # type: ignore[union-attr]
         else:
             got.append((e.line_no, "calibration", e.item.program))
     assert got == expected
@@ -93,8 +93,11 @@ def test_delim_sample_values() -> None:
     d = gross.to_dict()
     assert d["verdict"] == "gross" and d["part_id"] is None and d["lower_limit_sccm"] is None
     assert d["ended_at"] == "2026-12-02T06:16:40+00:00"
-    failed = entries[-1].item
+    failed = entries[9].item
     assert failed is not None and failed.to_dict()["passed"] is False
+    # curves of a station that is not collecting them are dropped, not quarantined
+    assert [getattr(e.item, "kind", None) for e in entries].count("trace") == 0
+    assert entries[-1].line_no == 11
 
 
 def test_cli_check_text(capsys: pytest.CaptureFixture[str]) -> None:
@@ -105,7 +108,9 @@ def test_cli_check_text(capsys: pytest.CaptureFixture[str]) -> None:
     assert "profile lf-delim@1.0" in out and "station L1-S1 / L1" in out
     assert "line 5   REJECTED     verdict: unknown code 'XYZ'" in out
     assert "                      leak_rate_sccm     0.213" in out
-    assert out.rstrip().endswith("summary: 3 results, 2 calibrations, 5 rejected")
+    assert "line 12  trace        id" in out and "28 samples, 0 .. 351040 .. 300 Pa" in out
+    assert out.rstrip().endswith(
+        "summary: 4 results, 2 calibrations, 1 pressure curves, 5 rejected")
 
 
 def test_cli_check_json(capsys: pytest.CaptureFixture[str]) -> None:
@@ -114,7 +119,7 @@ def test_cli_check_json(capsys: pytest.CaptureFixture[str]) -> None:
     doc = json.loads(capsys.readouterr().out)
     assert code == 0
     assert doc["profile"] == "lf-mbtcp@1.0"
-    assert doc["summary"] == {"results": 2, "calibrations": 1, "rejected": 2}
+    assert doc["summary"] == {"results": 2, "calibrations": 1, "traces": 0, "rejected": 2}
     torn = next(e for e in doc["entries"] if e["kind"] == "rejected")
     assert torn["record"]["reason"].startswith("torn block") and torn["line_no"] == 2
     first = next(e for e in doc["entries"] if e["kind"] == "result")["record"]

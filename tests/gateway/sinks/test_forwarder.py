@@ -167,3 +167,40 @@ async def test_pulse_fired_between_look_and_wait_is_not_missed() -> None:
     stop = asyncio.Event()
     stop.set()
     await asyncio.wait_for(Pulse.wait(pulse.token(), 3600.0, stop), 10)
+
+
+async def test_new_records_overtake_a_draining_backlog_and_the_cursor_stays_a_prefix(
+    tmp_path: Path,
+) -> None:
+    """After an outage the backlog drains while new results go out first (a live lane); the
+    cursor only ever covers acknowledged records, every record goes out once, statuses keep
+    their order."""
+    j = open_journal(str(tmp_path / "j.db"))
+    backlog = shift(1, 40)  # 120 results: more than 4 batches of 7
+    j.write(backlog)
+    client = Scripted()
+    cursors: list[tuple[int, int]] = []
+
+    async def slow_send(kind: Kind, rows: Sequence[tuple[int, Record]]) -> None:
+        await asyncio.sleep(0.01)
+        if kind == "result":  # the cursor never passes a record not yet acknowledged
+            cursors.append((j.get_cursor("lane", "result"), rows[0][0]))
+        client.acked += [r.record_id for _, r in rows]
+
+    client.send = slow_send  # type: ignore[method-assign]
+    fwd = JournalForwarder("lane", client, FAST)
+    live = shift(41, 43)
+    async with forwarding(fwd, j):
+        await until(lambda: len(client.acked) >= 14, 10, "the drain under way")
+        j.write(live)
+        await until(lambda: len(client.acked) == len(backlog) + len(live), 20, "all sent")
+    order = {rid: i for i, rid in enumerate(client.acked)}
+    newest_live = max(order[r.record_id] for r in live if r.kind == "result")
+    last_backlog = max(order[r.record_id] for r in backlog if r.kind == "result")
+    assert newest_live < last_backlog  # the new results did not wait for the whole backlog
+    assert len(client.acked) == len(set(client.acked))
+    assert cursors and all(cursor < first for cursor, first in cursors)
+    statuses = [r.record_id for r in backlog + live if r.kind == "status"]
+    assert [rid for rid in client.acked if rid in set(statuses)] == statuses
+    assert all(j.get_cursor("lane", k) == j.max_seq(k) for k in KINDS)
+    j.close()
