@@ -15,7 +15,7 @@ from gateway.reports.common import (
     store_calibrations,
     store_results,
 )
-from gateway.reports.inputs import read_tidy_csv
+from gateway.reports.inputs import csv_header, read_tidy_csv
 from gateway.reports.tables import num, table
 
 
@@ -46,6 +46,8 @@ def advise_times(args: argparse.Namespace, test_s: float | None, sensitivity: fl
 
 
 def build(args: argparse.Namespace, get_store: Callable[[], Any]) -> Report:
+    """Test-time advice from a CSV of master-part losses (--input) or the store's
+    calibrations (their master losses)."""
     from analytics import advise_test_time
 
     test_s = quantity(args.test_time, "time", "s", "--test-time")
@@ -55,11 +57,8 @@ def build(args: argparse.Namespace, get_store: Callable[[], Any]) -> Report:
     sensitivity = args.sensitivity
     filters: dict[str, Any] | None = None
     if args.input:
-        import csv as _csv
-
-        with open(args.input, newline="", encoding="utf-8") as fh:
-            header = next(_csv.reader(fh), [])
-        if "test_s" in header:  # master tests at several test times: the growth is measured
+        # master tests at several test times: the growth is measured
+        if "test_s" in csv_header(args.input):
             return advise_times(args, test_s, sensitivity, reject, lower)
         losses = read_tidy_csv(args.input, {"loss": float})["loss"].to_numpy()
         if test_s is None or sensitivity is None or reject is None:

@@ -46,6 +46,8 @@ def balanced_from_store(results: pd.DataFrame) -> tuple[pd.DataFrame, str]:
 
 
 def build_grr(args: argparse.Namespace, get_store: Callable[[], Any]) -> Report:
+    """Crossed gauge R&R from a CSV (--input part,operator,value) or from parts the store
+    has tested on every station."""
     from analytics import grr_anova, grr_average_range
 
     tolerance = quantity(args.tolerance, "leak", "sccm", "--tolerance")
@@ -111,6 +113,7 @@ def build_grr(args: argparse.Namespace, get_store: Callable[[], Any]) -> Report:
 
 
 def build_type1(args: argparse.Namespace, get_store: Callable[[], Any]) -> Report:
+    """Type 1 gauge study from a CSV of repeated readings of one reference part, or the store."""
     from analytics import type1_study
 
     reference = quantity(args.reference, "leak", "sccm", "--reference")

@@ -12,6 +12,18 @@ if TYPE_CHECKING:
     import pandas as pd
 
 
+def csv_header(path: str) -> list[str]:
+    """The header names of a CSV file, stripped and lower-case (empty for an empty file)."""
+    try:
+        with Path(path).open(newline="", encoding="utf-8-sig") as handle:
+            header = next(csv.reader(handle), [])
+    except OSError as exc:
+        raise ValueError(f"{path}: cannot open ({exc.strerror})") from None
+    except (csv.Error, UnicodeDecodeError) as exc:
+        raise ValueError(f"{path}:1: {exc}") from None
+    return [h.strip().lower() for h in header]
+
+
 def read_tidy_csv(path: str, columns: dict[str, type]) -> pd.DataFrame:
     """Read a CSV with a header; ``columns`` maps required names to float or str.
 

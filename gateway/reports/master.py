@@ -12,6 +12,7 @@ from gateway.reports.tables import num, table
 
 
 def build(args: argparse.Namespace, get_store: Callable[[], Any]) -> Report:
+    """The master-part choice from a CSV (--input part,value) or the store's candidate readings."""
     import pandas as pd
 
     from analytics import qualify_master

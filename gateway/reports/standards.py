@@ -13,6 +13,7 @@ from gateway.reports.tables import num, table
 
 
 def build(args: argparse.Namespace, get_store: Callable[[], Any]) -> Report:
+    """The leak-standard register's due dates and, unless --no-store, its use in the store."""
     from zoneinfo import ZoneInfo
 
     from analytics import flag_overdue_calibrations, standard_drift, standards_due

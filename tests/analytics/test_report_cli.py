@@ -118,6 +118,25 @@ def test_bad_csv_is_one_clear_line(
     assert expected in err and "Traceback" not in err and len(err.strip().splitlines()) == 1
 
 
+_OPTIONS = {
+    "grr": [],
+    "master": [],
+    "type1": ["--reference", "1", "--tolerance", "1"],
+    "advise": ["--test-time", "4s", "--sensitivity", "0.05", "--reject-limit", "2sccm"],
+}
+
+
+@pytest.mark.parametrize("kind", list(_OPTIONS))
+def test_missing_input_file_is_one_clear_line(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str], kind: str
+) -> None:
+    missing = tmp_path / "nowhere.csv"
+    assert main(["report", kind, "--input", str(missing), *_OPTIONS[kind]]) == 2
+    err = capsys.readouterr().err
+    assert "nowhere.csv: cannot open" in err and "Traceback" not in err
+    assert len(err.strip().splitlines()) == 1
+
+
 def test_unbalanced_csv_and_missing_options(
     tmp_path: Path, capsys: pytest.CaptureFixture[str]
 ) -> None:
