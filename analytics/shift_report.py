@@ -45,7 +45,8 @@ __all__ = [
 ]
 
 AlarmSource = Literal["calibration", "retests", "standard", "status"]
-CalibrationState = Literal["ok", "failed", "overdue standard", "no calibration"]
+# "not judged": the newest calibration came without a pass/fail (a station that sends none)
+CalibrationState = Literal["ok", "failed", "overdue standard", "no calibration", "not judged"]
 _ALARM_STATES = ("fault", "offline")
 
 
@@ -335,7 +336,8 @@ def _line_section(
         mine = mine.sort_values("ended_at", kind="mergesort") if len(mine) else mine
         during = mine[_in(mine["ended_at"], window)] if len(mine) else mine
         for r in (
-            during[during["standard_overdue"].astype(bool)].to_dict("records")
+            during[during["standard_overdue"].astype("boolean").fillna(False).astype(bool)]
+            .to_dict("records")
             if len(during)
             else []
         ):
@@ -362,9 +364,11 @@ def _line_section(
         last = mine.iloc[-1] if len(mine) else None
         if last is None:
             cal_state: CalibrationState = "no calibration"
+        elif pd.isna(last["passed"]):
+            cal_state = "not judged"
         elif not bool(last["passed"]):
             cal_state = "failed"
-        elif bool(last["standard_overdue"]):
+        elif not pd.isna(last["standard_overdue"]) and bool(last["standard_overdue"]):
             cal_state = "overdue standard"
         else:
             cal_state = "ok"
@@ -376,14 +380,16 @@ def _line_section(
                 state_at_end=str(ended["state"].iloc[-1]) if len(ended) else None,
                 calibration_state=cal_state,
                 calibrations_in_shift=len(during),
-                failed_calibrations_in_shift=int((~during["passed"].astype(bool)).sum())
+                failed_calibrations_in_shift=int((~during["passed"].astype("boolean")).fillna(False).sum())
                 if len(during)
                 else 0,
                 last_calibration_at=None
                 if last is None
                 else pd.Timestamp(last["ended_at"]).to_pydatetime(),
                 last_calibration_program=None if last is None else str(last["program"]),
-                last_calibration_passed=None if last is None else bool(last["passed"]),
+                last_calibration_passed=None
+                if last is None or pd.isna(last["passed"])
+                else bool(last["passed"]),
                 master_loss_pa=None if last is None else _float(last["master_loss_pa"]),
                 standard_loss_pa=None if last is None else _float(last["standard_loss_pa"]),
                 ratio=None if last is None else _float(last["ratio"]),
@@ -391,6 +397,7 @@ def _line_section(
                 standard_serial=None if last is None else last["standard_serial"],
                 standard_overdue=None
                 if last is None or last["standard_serial"] is None
+                or pd.isna(last["standard_overdue"])
                 else bool(last["standard_overdue"]),
                 drift=None if proj is None else proj.status,
             )

@@ -167,7 +167,7 @@ async def _mqtt_bare(port: int, records: list[TestResult]) -> float:
 
 
 def _influx_bare(base_url: str, db: str, records: list[TestResult]) -> float:
-    from gateway.sinks.lineprotocol import encode
+    from gateway.influxdb.lineprotocol import encode
 
     t = time.monotonic()
     for k in range(0, len(records), BATCH):

@@ -25,6 +25,7 @@ st.set_page_config(page_title="leakfleet", layout="wide")
 _PAGES = [
     st.Page("views/fleet.py", title="Fleet live", default=True),
     st.Page("views/yields.py", title="Yield"),
+    st.Page("views/shift.py", title="Shift report"),
     st.Page("views/readings.py", title="Readings vs limits"),
     st.Page("views/calibration.py", title="Calibration"),
     st.Page("views/gauge.py", title="Gauge study & test time"),

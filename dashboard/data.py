@@ -72,6 +72,11 @@ def _store(url: str) -> QueryStore:
         raise StoreUnavailable(str(exc)) from exc
 
 
+def query_store(url: str) -> QueryStore:
+    """The open store, for a report that ``gateway.reports`` builds from it directly."""
+    return _store(url)
+
+
 def _call(url: str, method: str, *args: Any, **kwargs: Any) -> pd.DataFrame:
     store = _store(url)
     try:

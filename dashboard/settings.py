@@ -12,7 +12,7 @@ from __future__ import annotations
 import tomllib
 from collections.abc import Mapping
 from dataclasses import dataclass, field
-from datetime import date, datetime, time
+from datetime import time
 from importlib import resources
 from pathlib import Path
 from typing import Any, Literal
@@ -67,52 +67,26 @@ def shifts_from_starts(starts: Mapping[str, Any], file: str) -> tuple[tuple[str,
     return tuple(out)
 
 
-def _date(value: Any, file: str, key: str) -> date:
-    if isinstance(value, datetime):
-        return value.date()
-    if isinstance(value, date):
-        return value
-    try:
-        return date.fromisoformat(str(value))
-    except ValueError:
-        raise ConfigError(f"{file}: {key}: expected a date YYYY-MM-DD, got {value!r}") from None
-
-
 def _standards(raw: Any, file: str) -> tuple[LeakStandard, ...]:
+    """The [[standards]] register, read by the same parser as ``leakfleet report``."""
     if raw is None:
         return ()
     if not isinstance(raw, list):
         raise ConfigError(f"{file}: standards: expected [[standards]] tables")
-    from gateway.units import parse_quantity
+    from gateway.reports.inputs import config_standard
 
     out = []
     for i, t in enumerate(raw):
         key = f"standards[{i}]"
         if not isinstance(t, dict):
             raise ConfigError(f"{file}: {key}: expected a table")
+        for required in ("serial", "station", "nominal", "certificate_date"):
+            if required not in t:
+                raise ConfigError(f"{file}: {key}.{required}: a value (required)")
         try:
-            nominal = parse_quantity(str(t["nominal"]), "leak", default_unit="sccm").canonical
-            ref = parse_quantity(
-                str(t.get("reference_pressure", "0 Pa")), "pressure", default_unit="Pa"
-            ).canonical
-            out.append(
-                LeakStandard(
-                    serial=str(t["serial"]),
-                    station=str(t["station"]),
-                    nominal_sccm=nominal,
-                    reference_pressure_pa=ref,
-                    certificate_date=_date(t["certificate_date"], file, f"{key}.certificate_date"),
-                    due_date=_date(t["due_date"], file, f"{key}.due_date")
-                    if "due_date" in t
-                    else None,
-                    interval_months=int(t["interval_months"]) if "interval_months" in t else None,
-                    uncertainty_pct=float(t["uncertainty_pct"]) if "uncertainty_pct" in t else None,
-                )
-            )
-        except KeyError as exc:
-            raise ConfigError(f"{file}: {key}.{exc.args[0]}: a value (required)") from None
-        except (ValueError, TypeError) as exc:
-            raise ConfigError(f"{file}: {key}: {exc}") from None
+            out.append(config_standard(file, i, t))
+        except ValueError as exc:
+            raise ConfigError(str(exc)) from None
     return tuple(out)
 
 

@@ -13,7 +13,7 @@ import dataclasses
 from collections.abc import Mapping
 from typing import Any, TypeVar
 
-from gateway.sinks.influx_http import parse_influx_url
+from gateway.influxdb.http import parse_influx_url
 from gateway.sinks.mqtt import parse_mqtt_url
 
 __all__ = ["add_sink_arguments", "sinks_from_cli", "with_cli_sinks"]

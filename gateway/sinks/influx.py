@@ -26,6 +26,16 @@ from dataclasses import dataclass
 from typing import Any
 
 from gateway.errors import ConfigError
+from gateway.influxdb.http import (
+    PASSWORD_ENV,
+    TOKEN_ENV,
+    InfluxHttp,
+    InfluxHttpError,
+    InfluxTarget,
+    clear_text_warning,
+    parse_influx_url,
+)
+from gateway.influxdb.lineprotocol import encode
 from gateway.records import Record
 from gateway.sinks import SinkContext, register_sink
 from gateway.sinks.forwarder import (
@@ -35,16 +45,6 @@ from gateway.sinks.forwarder import (
     SinkUnavailable,
     read_secret,
 )
-from gateway.sinks.influx_http import (
-    PASSWORD_ENV,
-    TOKEN_ENV,
-    InfluxHttp,
-    InfluxHttpError,
-    InfluxTarget,
-    clear_text_warning,
-    parse_influx_url,
-)
-from gateway.sinks.lineprotocol import encode
 from gateway.store.journal import KINDS, Kind
 
 __all__ = ["InfluxClient", "InfluxOptions", "make_influx"]

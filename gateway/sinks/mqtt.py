@@ -240,7 +240,7 @@ class MqttClient:
         self._password = read_secret(PASSWORD_ENV, self.opts.password_file, what)
         if self._password and not self.opts.username:
             raise ConfigError(f"{what}: a password is set but no username")
-        from gateway.sinks.influx_http import clear_text_warning
+        from gateway.influxdb.http import clear_text_warning
 
         warning = clear_text_warning(self.opts, bool(self._password))
         if warning:

@@ -1,7 +1,7 @@
 """InfluxStore: the QueryStore over InfluxDB, in InfluxQL through the v1 ``/query`` API.
 
 Reads what the InfluxDB sink wrote (measurements ``leak_results``, ``leak_calibrations``,
-``station_status``; see gateway.sinks.lineprotocol), so the dashboard and ``leakfleet report``
+``station_status``; see gateway.influxdb.lineprotocol), so the dashboard and ``leakfleet report``
 can run on a central InfluxDB exactly as on a gateway's journal. ``influxdb://host:8086/db``
 talks to 1.x (or 3 Core); ``influxdb2://host:8086?org=..&bucket=..`` to 2.x's v1 compatibility
 endpoint (the bucket needs a DBRP mapping, see deploy/influxdb.md) with the token from
@@ -38,14 +38,14 @@ import numpy as np
 import pandas as pd
 
 from gateway.errors import ConfigError, StoreError
-from gateway.sinks.influx_http import (
+from gateway.influxdb.http import (
     PASSWORD_ENV,
     TOKEN_ENV,
     InfluxHttp,
     InfluxHttpError,
     parse_influx_url,
 )
-from gateway.sinks.lineprotocol import MEASUREMENTS, timestamp_ns
+from gateway.influxdb.lineprotocol import MEASUREMENTS, timestamp_ns
 from gateway.store.base import (
     GROUP_COLUMNS,
     HISTOGRAM_VALUES,

@@ -11,7 +11,7 @@ from aiag_msa_example import tidy
 from fake_store import demo_store
 
 from gateway.cli import build_parser, main
-from gateway.cli.cmd_report import build_report, read_tidy_csv
+from gateway.reports import build_report, read_tidy_csv
 
 pytestmark = pytest.mark.timeout(120)
 
@@ -118,6 +118,25 @@ def test_bad_csv_is_one_clear_line(
     assert expected in err and "Traceback" not in err and len(err.strip().splitlines()) == 1
 
 
+_OPTIONS = {
+    "grr": [],
+    "master": [],
+    "type1": ["--reference", "1", "--tolerance", "1"],
+    "advise": ["--test-time", "4s", "--sensitivity", "0.05", "--reject-limit", "2sccm"],
+}
+
+
+@pytest.mark.parametrize("kind", list(_OPTIONS))
+def test_missing_input_file_is_one_clear_line(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str], kind: str
+) -> None:
+    missing = tmp_path / "nowhere.csv"
+    assert main(["report", kind, "--input", str(missing), *_OPTIONS[kind]]) == 2
+    err = capsys.readouterr().err
+    assert "nowhere.csv: cannot open" in err and "Traceback" not in err
+    assert len(err.strip().splitlines()) == 1
+
+
 def test_unbalanced_csv_and_missing_options(
     tmp_path: Path, capsys: pytest.CaptureFixture[str]
 ) -> None:
@@ -148,7 +167,7 @@ def test_help_for_every_kind() -> None:
     out = subprocess.run([sys.executable, "-m", "gateway", "report", "--help"], cwd=root,
                          capture_output=True, text=True, timeout=60)  # fmt: skip
     assert out.returncode == 0
-    from gateway.cli.cmd_report import KINDS
+    from gateway.reports import KINDS
 
     for kind in KINDS:
         assert kind in out.stdout

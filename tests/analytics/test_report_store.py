@@ -16,7 +16,7 @@ import pytest
 from fake_store import demo_records, demo_store
 
 from gateway.cli import build_parser, main
-from gateway.cli.cmd_report import build_report, filters_from
+from gateway.reports import build_report, filters_from
 
 store_pkg = pytest.importorskip("gateway.store", reason="the store package has not landed yet")
 pytestmark = pytest.mark.timeout(120)

@@ -61,3 +61,37 @@ def test_reports_over_absent_values(sparse_journal: Path, args: list[str],
     assert "Traceback" not in text
     assert main(["report", *args, "--store", url, "--json"]) == 0
     json.loads(capsys.readouterr().out)
+
+
+def test_shift_report_over_absent_values(sparse_journal: Path,
+                                         capsys: pytest.CaptureFixture[str]) -> None:  # fmt: skip
+    """Calibrations nobody judged: the station's state says so instead of failing or passing."""
+    import pandas as pd
+
+    from analytics import ShiftCalendar
+    from gateway.config import load_config
+    from gateway.reports.common import newest_record_time
+
+    url = f"sqlite:///{sparse_journal}"
+    with open_store(url) as store:
+        newest = newest_record_time(store)
+        cals = store.calibrations()
+    assert newest is not None
+    plant = load_config("demo")
+    found = ShiftCalendar.from_starts(plant.timezone, dict(plant.shifts)).shift_of(newest)
+    assert found is not None
+    day, shift = found
+    assert main(["report", "shift", "--store", url, "--config", "demo", "--date",
+                 day.isoformat(), "--shift", shift, "--json"]) == 0  # fmt: skip
+    doc = json.loads(capsys.readouterr().out)
+    states = {s["station"]: s for sec in doc["result"]["lines"] for s in sec["stations"]}
+    unjudged = cals[cals["passed"].isna()]
+    assert len(unjudged)  # the sparse journal has calibrations without a verdict
+    checked = 0
+    for station, group in cals.sort_values("ended_at").groupby("station"):
+        last = group.iloc[-1]
+        if station in states and pd.isna(last["passed"]):
+            assert states[station]["calibration_state"] == "not judged"
+            assert states[station]["last_calibration_passed"] is None
+            checked += 1
+    assert checked

@@ -14,6 +14,7 @@ pytestmark = pytest.mark.timeout(120)
 PAGES = [
     "views/fleet.py",
     "views/yields.py",
+    "views/shift.py",
     "views/readings.py",
     "views/calibration.py",
     "views/gauge.py",

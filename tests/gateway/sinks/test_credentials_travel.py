@@ -9,7 +9,7 @@ from typing import Any, ClassVar
 
 import pytest
 
-from gateway.sinks.influx_http import InfluxHttp, InfluxHttpError, InfluxTarget, clear_text_warning
+from gateway.influxdb.http import InfluxHttp, InfluxHttpError, InfluxTarget, clear_text_warning
 
 
 class _Spy(http.server.BaseHTTPRequestHandler):
@@ -40,7 +40,7 @@ def server() -> Iterator[int]:
 
 
 def _target(port: int) -> InfluxTarget:
-    from gateway.sinks.influx_http import parse_influx_url
+    from gateway.influxdb.http import parse_influx_url
 
     return parse_influx_url(f"influxdb2://127.0.0.1:{port}?org=o&bucket=b")
 

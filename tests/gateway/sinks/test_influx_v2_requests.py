@@ -13,9 +13,9 @@ from typing import Any, ClassVar
 
 import pytest
 
+from gateway.influxdb.http import TOKEN_ENV
+from gateway.influxdb.lineprotocol import encode
 from gateway.sinks.influx import InfluxClient, InfluxOptions
-from gateway.sinks.influx_http import TOKEN_ENV
-from gateway.sinks.lineprotocol import encode
 from gateway.store.influx import open_influx_store
 from tests.integration.sinks_data import ctx, shift
 

@@ -7,11 +7,11 @@ import json
 import pytest
 
 from gateway import metrics
+from gateway.influxdb.http import parse_influx_url
 from gateway.records import SCHEMA_VERSION, record_from_dict
 from gateway.sinks import REGISTRY
 from gateway.sinks.cli import sinks_from_cli
 from gateway.sinks.influx import make_influx
-from gateway.sinks.influx_http import parse_influx_url
 from gateway.sinks.mqtt import MqttClient, MqttOptions, make_mqtt, parse_mqtt_url, topic_for
 from tests.integration.sinks_data import ctx, result, status
 

@@ -12,8 +12,7 @@ from hypothesis import given
 from hypothesis import strategies as st
 from influxdb_client import Point
 
-from gateway.records import StationState, StationStatus
-from gateway.sinks.lineprotocol import (
+from gateway.influxdb.lineprotocol import (
     encode,
     encode_line,
     escape_measurement,
@@ -22,6 +21,7 @@ from gateway.sinks.lineprotocol import (
     record_line,
     timestamp_ns,
 )
+from gateway.records import StationState, StationStatus
 from tests.integration.sinks_data import calibration, result
 
 # --- the reference's rules, one by one ---------------------------------------------------

@@ -1,0 +1,142 @@
+"""Test-time advice from repeated readings of one part."""
+
+from __future__ import annotations
+
+import argparse
+from collections.abc import Callable
+from typing import Any, Literal
+
+from gateway.reports.common import (
+    Filters,
+    Report,
+    filters_from,
+    latest_lower,
+    quantity,
+    store_calibrations,
+    store_results,
+)
+from gateway.reports.inputs import csv_header, read_tidy_csv
+from gateway.reports.tables import num, table
+
+
+def advise_times(args: argparse.Namespace, test_s: float | None, sensitivity: float | None,
+                  reject: float | None, lower: float | None) -> Report:
+    """advise --input with columns test_s,loss: master tests at several test times."""
+    from analytics.advice_fit import advise_from_times
+
+    if test_s is None or sensitivity is None or reject is None:
+        raise ValueError("advise --input with test_s needs --test-time (of the calibration), "
+                         "--sensitivity and --reject-limit")
+    data = read_tidy_csv(args.input, {"test_s": float, "loss": float})
+    groups: dict[float, list[float]] = {}
+    for t, loss in zip(data["test_s"].tolist(), data["loss"].tolist(), strict=True):
+        groups.setdefault(float(t), []).append(float(loss))
+    tolerance = reject - lower if lower is not None else 2.0 * reject  # one-sided: 2·limit
+    pressure = quantity(args.test_pressure, "pressure", "Pa", "--test-pressure")
+    a = advise_from_times(groups, test_s, sensitivity, tolerance, target_pct=args.target,
+                          reject_limit_sccm=reject, test_pressure_pa=pressure)
+    rows = [[f"{t:g}", num(sig), n] for t, sig, n in zip(a.fit.times_s, a.fit.sigma_pa,
+                                                          a.fit.n, strict=True)]
+    text = (f"Test-time advice from master tests at {len(a.fit.times_s)} test times "
+            f"(file {args.input})\n" + table(["test s", "σ loss Pa", "n"], rows)
+            + f"\n  fit: {a.fit.model}; a = {a.fit.params['a']:.3g} Pa², "
+            f"b = {a.fit.params['b']:.3g} Pa²/s, c = {a.fit.params['c']:.3g} Pa²/s²"
+            + f"\n  {a.message}" + "".join(f"\n  assumes: {x}" for x in a.assumptions))
+    return Report("advise", None, {"source": f"file {args.input}", **a.to_dict()}, text)
+
+
+def build(args: argparse.Namespace, get_store: Callable[[], Any]) -> Report:
+    """Test-time advice from a CSV of master-part losses (--input) or the store's
+    calibrations (their master losses)."""
+    from analytics import advise_test_time
+
+    test_s = quantity(args.test_time, "time", "s", "--test-time")
+    reject = quantity(args.reject_limit, "leak", "sccm", "--reject-limit")
+    lower = quantity(args.lower_limit, "leak", "sccm", "--lower-limit")
+    max_s = quantity(args.max_test_time, "time", "s", "--max-test-time")
+    sensitivity = args.sensitivity
+    filters: dict[str, Any] | None = None
+    if args.input:
+        # master tests at several test times: the growth is measured
+        if "test_s" in csv_header(args.input):
+            return advise_times(args, test_s, sensitivity, reject, lower)
+        losses = read_tidy_csv(args.input, {"loss": float})["loss"].to_numpy()
+        if test_s is None or sensitivity is None or reject is None:
+            raise ValueError("advise --input needs --test-time, --sensitivity and --reject-limit")
+        source = f"file {args.input}"
+        sigma_method: Literal["std", "moving-range"] = "std"
+    else:
+        # Calibrations are days apart: the moving range keeps slow drift out of the noise.
+        sigma_method = "moving-range"
+        f = filters_from(args, get_store=get_store)
+        store = get_store()
+        cals = store_calibrations(store, f)
+        cals = cals[cals["passed"].astype(bool)] if not cals.empty else cals
+        pairs = sorted(
+            {(str(s), str(p)) for s, p in zip(cals["station"], cals["program"], strict=True)}
+        )
+        if not pairs:
+            raise ValueError("no passed calibrations in the selection")
+        if len(pairs) > 1:
+            raise ValueError(
+                "advise works on one station and program; choose with --station and "
+                f"--program from: {', '.join('/'.join(p) for p in pairs)}"
+            )
+        station, program = pairs[0]
+        cals = cals.sort_values("ended_at")
+        losses = cals["master_loss_pa"].to_numpy(dtype=float)
+        sensitivity = (
+            sensitivity if sensitivity is not None else float(cals["sensitivity"].iloc[-1])
+        )
+        results = store_results(store, Filters(f.since, f.until, station, None, program))
+        if test_s is None or reject is None:
+            if results.empty:
+                raise ValueError(
+                    f"no results for {station}/{program}: give --test-time and --reject-limit"
+                )
+            latest = results.sort_values("ended_at").iloc[-1]
+            test_s = float(latest["test_s"]) if test_s is None else test_s
+            reject = float(latest["reject_limit_sccm"]) if reject is None else reject
+            if lower is None and args.reject_limit is None:
+                lower = latest_lower(results.sort_values("ended_at"))
+        source = f"{len(losses)} calibrations of {station}/{program} (master-part losses)"
+        filters = f.to_dict()
+    a = advise_test_time(
+        losses,
+        test_s,
+        sensitivity,
+        reject,
+        lower,
+        target_pct=args.target,
+        sqrt_fraction=args.sqrt_fraction,
+        max_test_s=max_s,
+        sigma_method=sigma_method,
+    )
+    step = max(1, len(a.curve) // 12)
+    shown = a.curve[::step]
+    text = (
+        f"Test-time advice ({source})\n"
+        f"  now: test {a.current_test_s:g} s, σ(loss) {a.sigma_loss_pa:.3g} Pa ({a.sigma_method}), "
+        "sensitivity "
+        f"{a.sensitivity:.4g} sccm/Pa, tolerance {a.tolerance_sccm:g} sccm "
+        f"→ %GRR {a.current_pct_grr:.1f} %\n"
+        f"  shortest test time for ≤ {a.target_pct:g} %: "
+        f"{num(a.recommended_test_s, '.1f')} s (conservative, σ upper 95 %: "
+        f"{num(a.conservative_test_s, '.1f')} s)\n\n"
+        + table(
+            ["test s", "σ loss Pa", "sccm/Pa", "σ leak sccm", "%GRR"],
+            [
+                [
+                    f"{p.test_s:.2f}",
+                    num(p.sigma_loss_pa, ".3g"),
+                    num(p.sensitivity),
+                    num(p.sigma_leak_sccm, ".3g"),
+                    f"{p.pct_grr:.1f}",
+                ]
+                for p in shown
+            ],
+        )
+        + f"\n  assumes: {a.assumptions}"
+        + (f"\n  {a.note}" if a.note else "")
+    )
+    return Report("advise", filters, {"source": source, **a.to_dict()}, text)
