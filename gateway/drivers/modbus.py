@@ -19,7 +19,7 @@ import contextlib
 import logging
 from collections.abc import Sequence
 from datetime import datetime
-from typing import TYPE_CHECKING, Any, Protocol
+from typing import TYPE_CHECKING, Any
 
 from gateway.aio import within
 from gateway.drivers.base import (
@@ -35,7 +35,7 @@ from gateway.drivers.base import (
 )
 from gateway.drivers.lines import split_host_port
 from gateway.drivers.modbus_latest import LatestReader
-from gateway.drivers.modbus_outcome import PollOutcome
+from gateway.drivers.modbus_outcome import PollOutcome, RegisterLink
 from gateway.drivers.modbus_trace import CurveReader
 from gateway.errors import DecodeError, ProtocolError, TransportError
 from gateway.profiles.decoders import ModbusDecoder, ack_registers
@@ -68,16 +68,6 @@ log = logging.getLogger(__name__)
 MAX_READ = 125  # registers per read request (Modbus application protocol spec, 6.3)
 _MERGE_GAP = 16  # read a few unused registers rather than make another round trip
 _MAX_TORN_RETRIES = 5
-
-
-class RegisterLink(Protocol):
-    """The transport seam: read ``count`` registers with function 3 or 4."""
-
-    async def read(self, function: int, address: int, count: int, device_id: int) -> list[int]:
-        """Registers as read; ``ExceptionReply``, ``NoAnswer`` or ``LinkLost`` otherwise."""
-
-    async def write(self, address: int, values: list[int], device_id: int) -> None:
-        """Write holding registers: used only for a profile's acknowledge register."""
 
 
 def field_span(spec_field: Any) -> tuple[int, int]:

@@ -33,7 +33,7 @@ from gateway.profiles.traces import (
 from gateway.records import CalibrationEvent, GapEvent, TestResult
 
 if TYPE_CHECKING:
-    from gateway.drivers.modbus import RegisterLink
+    from gateway.drivers.modbus_outcome import RegisterLink
 
 __all__ = ["MAX_READ", "CurveReader"]
 
