@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import argparse
 from collections.abc import Callable
+from dataclasses import dataclass
 from typing import Any, Literal
 
 from gateway.reports.common import (
@@ -19,57 +20,95 @@ from gateway.reports.inputs import csv_header, read_tidy_csv
 from gateway.reports.tables import num, table
 
 
-def advise_times(args: argparse.Namespace, test_s: float | None, sensitivity: float | None,
-                  reject: float | None, lower: float | None) -> Report:
+@dataclass(frozen=True)
+class AdviceOptions:
+    """Test-time advice: from a CSV (``input``: loss, or test_s,loss) or the store's
+    calibrations; what the store does not say (test time, limits, sensitivity) given here."""
+
+    input: str | None = None
+    test_time_s: float | None = None
+    reject_limit_sccm: float | None = None
+    lower_limit_sccm: float | None = None
+    max_test_time_s: float | None = None
+    sensitivity: float | None = None
+    test_pressure_pa: float | None = None
+    target_pct: float = 10.0
+    sqrt_fraction: float = 0.0  # share of the loss variance growing with test time
+
+
+def options_from(args: argparse.Namespace) -> AdviceOptions:
+    return AdviceOptions(
+        input=args.input,
+        test_time_s=quantity(args.test_time, "time", "s", "--test-time"),
+        reject_limit_sccm=quantity(args.reject_limit, "leak", "sccm", "--reject-limit"),
+        lower_limit_sccm=quantity(args.lower_limit, "leak", "sccm", "--lower-limit"),
+        max_test_time_s=quantity(args.max_test_time, "time", "s", "--max-test-time"),
+        sensitivity=args.sensitivity,
+        test_pressure_pa=quantity(getattr(args, "test_pressure", None), "pressure", "Pa",
+                                  "--test-pressure"),
+        target_pct=args.target, sqrt_fraction=args.sqrt_fraction,
+    )  # fmt: skip
+
+
+def advise_times(options: AdviceOptions, test_s: float | None, sensitivity: float | None,
+                 reject: float | None, lower: float | None) -> Report:
     """advise --input with columns test_s,loss: master tests at several test times."""
     from analytics.advice_fit import advise_from_times
+
+    assert options.input is not None
 
     if test_s is None or sensitivity is None or reject is None:
         raise ValueError("advise --input with test_s needs --test-time (of the calibration), "
                          "--sensitivity and --reject-limit")
-    data = read_tidy_csv(args.input, {"test_s": float, "loss": float})
+    data = read_tidy_csv(options.input, {"test_s": float, "loss": float})
     groups: dict[float, list[float]] = {}
     for t, loss in zip(data["test_s"].tolist(), data["loss"].tolist(), strict=True):
         groups.setdefault(float(t), []).append(float(loss))
     tolerance = reject - lower if lower is not None else 2.0 * reject  # one-sided: 2·limit
-    pressure = quantity(args.test_pressure, "pressure", "Pa", "--test-pressure")
-    a = advise_from_times(groups, test_s, sensitivity, tolerance, target_pct=args.target,
-                          reject_limit_sccm=reject, test_pressure_pa=pressure)
+    a = advise_from_times(groups, test_s, sensitivity, tolerance,
+                          target_pct=options.target_pct, reject_limit_sccm=reject,
+                          test_pressure_pa=options.test_pressure_pa)
     rows = [[f"{t:g}", num(sig), n] for t, sig, n in zip(a.fit.times_s, a.fit.sigma_pa,
                                                           a.fit.n, strict=True)]
     text = (f"Test-time advice from master tests at {len(a.fit.times_s)} test times "
-            f"(file {args.input})\n" + table(["test s", "σ loss Pa", "n"], rows)
+            f"(file {options.input})\n" + table(["test s", "σ loss Pa", "n"], rows)
             + f"\n  fit: {a.fit.model}; a = {a.fit.params['a']:.3g} Pa², "
             f"b = {a.fit.params['b']:.3g} Pa²/s, c = {a.fit.params['c']:.3g} Pa²/s²"
             + f"\n  {a.message}" + "".join(f"\n  assumes: {x}" for x in a.assumptions))
-    return Report("advise", None, {"source": f"file {args.input}", **a.to_dict()}, text)
+    return Report("advise", None, {"source": f"file {options.input}", **a.to_dict()}, text)
 
 
 def build(args: argparse.Namespace, get_store: Callable[[], Any]) -> Report:
-    """Test-time advice from a CSV of master-part losses (--input) or the store's
-    calibrations (their master losses)."""
+    """``leakfleet report advise``: its options, then ``advice_report_of``."""
+    options = options_from(args)
+    if options.input:
+        return advice_report_of(None, None, options)
+    return advice_report_of(get_store(), filters_from(args, get_store=get_store), options)
+
+
+def advice_report_of(store: Any | None, f: Filters | None, options: AdviceOptions) -> Report:
+    """Test-time advice from a CSV of master-part losses or the store's calibrations (their
+    master losses)."""
     from analytics import advise_test_time
 
-    test_s = quantity(args.test_time, "time", "s", "--test-time")
-    reject = quantity(args.reject_limit, "leak", "sccm", "--reject-limit")
-    lower = quantity(args.lower_limit, "leak", "sccm", "--lower-limit")
-    max_s = quantity(args.max_test_time, "time", "s", "--max-test-time")
-    sensitivity = args.sensitivity
+    test_s, reject = options.test_time_s, options.reject_limit_sccm
+    lower, max_s = options.lower_limit_sccm, options.max_test_time_s
+    sensitivity = options.sensitivity
     filters: dict[str, Any] | None = None
-    if args.input:
+    if options.input:
         # master tests at several test times: the growth is measured
-        if "test_s" in csv_header(args.input):
-            return advise_times(args, test_s, sensitivity, reject, lower)
-        losses = read_tidy_csv(args.input, {"loss": float})["loss"].to_numpy()
+        if "test_s" in csv_header(options.input):
+            return advise_times(options, test_s, sensitivity, reject, lower)
+        losses = read_tidy_csv(options.input, {"loss": float})["loss"].to_numpy()
         if test_s is None or sensitivity is None or reject is None:
             raise ValueError("advise --input needs --test-time, --sensitivity and --reject-limit")
-        source = f"file {args.input}"
+        source = f"file {options.input}"
         sigma_method: Literal["std", "moving-range"] = "std"
     else:
         # Calibrations are days apart: the moving range keeps slow drift out of the noise.
         sigma_method = "moving-range"
-        f = filters_from(args, get_store=get_store)
-        store = get_store()
+        if store is None or f is None:
+            raise ValueError("advice from the store needs the store and its filters")
         cals = store_calibrations(store, f)
         cals = cals[cals["passed"].astype(bool)] if not cals.empty else cals
         pairs = sorted(
@@ -97,7 +136,7 @@ def build(args: argparse.Namespace, get_store: Callable[[], Any]) -> Report:
             latest = results.sort_values("ended_at").iloc[-1]
             test_s = float(latest["test_s"]) if test_s is None else test_s
             reject = float(latest["reject_limit_sccm"]) if reject is None else reject
-            if lower is None and args.reject_limit is None:
+            if lower is None and options.reject_limit_sccm is None:
                 lower = latest_lower(results.sort_values("ended_at"))
         source = f"{len(losses)} calibrations of {station}/{program} (master-part losses)"
         filters = f.to_dict()
@@ -107,8 +146,8 @@ def build(args: argparse.Namespace, get_store: Callable[[], Any]) -> Report:
         sensitivity,
         reject,
         lower,
-        target_pct=args.target,
-        sqrt_fraction=args.sqrt_fraction,
+        target_pct=options.target_pct,
+        sqrt_fraction=options.sqrt_fraction,
         max_test_s=max_s,
         sigma_method=sigma_method,
     )

@@ -4,9 +4,17 @@ from __future__ import annotations
 
 import argparse
 from collections.abc import Callable
+from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any
 
-from gateway.reports.common import Report, filters_from, quantity, reject_limit, store_results
+from gateway.reports.common import (
+    Filters,
+    Report,
+    filters_from,
+    quantity,
+    reject_limit,
+    store_results,
+)
 from gateway.reports.inputs import read_tidy_csv
 from gateway.reports.tables import num, table
 
@@ -45,20 +53,47 @@ def balanced_from_store(results: pd.DataFrame) -> tuple[pd.DataFrame, str]:
     return tidy, note
 
 
+@dataclass(frozen=True)
+class GrrOptions:
+    """A crossed gauge R&R: from a CSV file (``input``: part,operator,value) or the store."""
+
+    tolerance_sccm: float | None = None  # None from the store: one-sided at the reject limit
+    input: str | None = None
+
+
+@dataclass(frozen=True)
+class Type1Options:
+    """A type 1 study of one reference part: a CSV of readings (``input``) or its tests."""
+
+    part: str | None = None
+    reference_sccm: float | None = None
+    tolerance_sccm: float | None = None
+    input: str | None = None
+
+
 def build_grr(args: argparse.Namespace, get_store: Callable[[], Any]) -> Report:
-    """Crossed gauge R&R from a CSV (--input part,operator,value) or from parts the store
-    has tested on every station."""
+    """``leakfleet report grr``: its options, then ``grr_report_of``."""
+    options = GrrOptions(quantity(args.tolerance, "leak", "sccm", "--tolerance"), args.input)
+    if options.input:
+        return grr_report_of(None, None, options)
+    return grr_report_of(get_store(), filters_from(args, get_store=get_store), options)
+
+
+def grr_report_of(store: Any | None, f: Filters | None, options: GrrOptions) -> Report:
+    """Crossed gauge R&R from a CSV or from parts the store has tested on every station."""
     from analytics import grr_anova, grr_average_range
 
-    tolerance = quantity(args.tolerance, "leak", "sccm", "--tolerance")
+    tolerance = options.tolerance_sccm
     filters: dict[str, Any] | None
     one_sided = None
-    if args.input:
-        data = read_tidy_csv(args.input, {"part": str, "operator": str, "value": float})
-        source, filters = f"file {args.input}", None
+    if options.input:
+        data = read_tidy_csv(options.input,
+                             {"part": str, "operator": str, "value": float})
+        source, filters = f"file {options.input}", None
     else:
-        f = filters_from(args, get_store=get_store)
-        results = store_results(get_store(), f)
+        if store is None or f is None:
+            raise ValueError("gauge R&R from the store needs the store and its filters")
+        results = store_results(store, f)
         data, source = balanced_from_store(results)
         filters = f.to_dict()
         if tolerance is None:
@@ -113,25 +148,39 @@ def build_grr(args: argparse.Namespace, get_store: Callable[[], Any]) -> Report:
 
 
 def build_type1(args: argparse.Namespace, get_store: Callable[[], Any]) -> Report:
-    """Type 1 gauge study from a CSV of repeated readings of one reference part, or the store."""
+    """``leakfleet report type1``: its options, then ``type1_report_of``."""
+    options = Type1Options(
+        args.part, quantity(args.reference, "leak", "sccm", "--reference"),
+        quantity(args.tolerance, "leak", "sccm", "--tolerance"), args.input,
+    )  # fmt: skip
+    if options.input:
+        return type1_report_of(None, None, options)
+    if not options.part:
+        raise ValueError("type1 from the store needs --part (the reference part's id)")
+    return type1_report_of(get_store(), filters_from(args, get_store=get_store), options)
+
+
+def type1_report_of(store: Any | None, f: Filters | None, options: Type1Options) -> Report:
+    """Type 1 gauge study from a CSV of repeated readings of one reference part, or the
+    reference part's tests in the store."""
     from analytics import type1_study
 
-    reference = quantity(args.reference, "leak", "sccm", "--reference")
-    tolerance = quantity(args.tolerance, "leak", "sccm", "--tolerance")
+    reference, tolerance = options.reference_sccm, options.tolerance_sccm
     filters: dict[str, Any] | None = None
-    if args.input:
+    if options.input:
         if reference is None or tolerance is None:
             raise ValueError("type1 --input needs --reference and --tolerance")
-        values = read_tidy_csv(args.input, {"value": float})["value"].to_numpy()
-        source = f"file {args.input}"
+        values = read_tidy_csv(options.input, {"value": float})["value"].to_numpy()
+        source = f"file {options.input}"
     else:
-        if not args.part:
+        if not options.part:
             raise ValueError("type1 from the store needs --part (the reference part's id)")
-        f = filters_from(args, get_store=get_store)
-        results = store_results(get_store(), f, part_id=args.part)
+        if store is None or f is None:
+            raise ValueError("type1 from the store needs the store and its filters")
+        results = store_results(store, f, part_id=options.part)
         results = results[results["verdict"].astype(str) != "aborted"]
         if results.empty:
-            raise ValueError(f"no results for part {args.part!r} in the selection")
+            raise ValueError(f"no results for part {options.part!r} in the selection")
         values = results["leak_rate_sccm"].to_numpy(dtype=float)
         reference = 0.0 if reference is None else reference
         convention = ""
@@ -144,7 +193,7 @@ def build_type1(args: argparse.Namespace, get_store: Callable[[], Any]) -> Repor
             if tolerance <= 0:
                 raise ValueError("the reference part reads at or above the reject limit: "
                                  "give --tolerance")
-        source, filters = f"part {args.part} from the store", f.to_dict()
+        source, filters = f"part {options.part} from the store", f.to_dict()
         if convention:
             source += f"; {convention}"
     r = type1_study(values, reference, tolerance)
