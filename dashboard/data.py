@@ -11,7 +11,7 @@ from __future__ import annotations
 
 import sqlite3
 from collections.abc import Sequence
-from datetime import datetime, timedelta
+from datetime import UTC, datetime, timedelta
 from typing import TYPE_CHECKING, Any
 
 import pandas as pd
@@ -39,6 +39,7 @@ __all__ = [
     "maintenance",
     "newest_record_time",
     "open_alarms",
+    "part_report",
     "quarantine",
     "results",
     "sink_backlogs",
@@ -392,6 +393,22 @@ def traces(url: str, station: str, role: str | None = None, limit: int = 50) -> 
             return read(journal, station, role=role, limit=limit)
     except (LeakfleetError, sqlite3.Error, OSError) as exc:
         raise StoreUnavailable(str(exc)) from exc
+
+
+@st.cache_data(ttl=HISTORY_TTL, show_spinner=False)
+def part_report(url: str, part_id: str, until: datetime) -> dict[str, Any]:
+    """Every test of one part with the calibration in force: the same report as
+    ``leakfleet report part`` (``gateway.reports.part``), its JSON result."""
+    from gateway.reports.common import Filters
+    from gateway.reports.part import part_report_of
+
+    store = _store(url)
+    try:
+        report = part_report_of(store, Filters(datetime(1970, 1, 1, tzinfo=UTC), until),
+                                part_id)
+    except (LeakfleetError, sqlite3.Error, OSError) as exc:
+        raise StoreUnavailable(str(exc)) from exc
+    return dict(report.result)
 
 
 def verdicts_of(url: str, station: str, curves: list[Any]) -> dict[str, str]:

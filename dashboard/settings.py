@@ -12,7 +12,6 @@ from __future__ import annotations
 import tomllib
 from collections.abc import Mapping
 from dataclasses import dataclass, field
-from datetime import time
 from importlib import resources
 from pathlib import Path
 from typing import Any, Literal
@@ -45,26 +44,16 @@ class Settings:
 
 
 def shifts_from_starts(starts: Mapping[str, Any], file: str) -> tuple[tuple[str, str, str], ...]:
-    """``{"early": "06:00", "late": "14:00", ...}`` → (name, start, end) with each shift
-    ending where the next one starts (the last wraps to the first)."""
-    parsed: list[tuple[time, str, str]] = []
-    for name, value in starts.items():
-        text = value.strftime("%H:%M") if isinstance(value, time) else value
-        try:
-            parsed.append((time.fromisoformat(str(text)), str(name), str(text)))
-        except ValueError:
-            raise ConfigError(
-                f"{file}: shifts.{name}: expected a local time HH:MM, got {value!r}"
-            ) from None
-    if not parsed:
+    """``{"early": "06:00", "late": "14:00", ...}`` (or spans) → (name, start, end), read by
+    the same parser as ``leakfleet report`` (``gateway.reports.settings``)."""
+    from gateway.reports.settings import calendar_from_table
+
+    if not starts:
         return DEFAULT_SHIFTS
-    parsed.sort()
-    out = []
-    for i, (_, name, text) in enumerate(parsed):
-        out.append((name, text, parsed[(i + 1) % len(parsed)][2]))
-    if len(out) == 1:
-        raise ConfigError(f"{file}: shifts: expected at least two shift start times")
-    return tuple(out)
+    try:
+        return tuple(calendar_from_table("UTC", starts, file).shifts)
+    except ValueError as exc:
+        raise ConfigError(str(exc)) from None
 
 
 def _standards(raw: Any, file: str) -> tuple[LeakStandard, ...]:

@@ -2,10 +2,12 @@
 
 from __future__ import annotations
 
+from datetime import timedelta
+
 import pandas as pd
 import streamlit as st
 
-from analytics import part_history, standard_drift, standards_due
+from analytics import standard_drift, standards_due
 from dashboard import data, derived
 from dashboard.common import page, pick, time_range
 from dashboard.display import fmt
@@ -22,31 +24,23 @@ def part_search() -> None:
     st.subheader("Part history")
     part = st.text_input("Part id", key="q_part", placeholder="e.g. HX210-100042").strip()
     if part:
-        tests = data.results(p.url, part_id=part)
-        if tests.empty:
+        # the same report as 'leakfleet report part': every test, the calibration in force
+        history = data.part_report(p.url, part, p.now + timedelta(seconds=1))
+        if not history["tests"]:
             st.info(f"No tests of part {part!r} in the store.")
         else:
-            cals = pd.concat(
-                [data.calibrations(p.url, None, tests["ended_at"].max() + pd.Timedelta(seconds=1),
-                                   station=s) for s in tests["station"].unique()],
-                ignore_index=True,
-            )  # fmt: skip
-            history = part_history(tests, cals, part)
             a, b, c = st.columns(3)
-            a.metric("Tests", len(history.tests))
-            b.metric("Final verdict", history.final_verdict or "–")
-            c.metric(
-                "Rejects before the first pass",
-                "–" if history.rejects_before_pass is None else history.rejects_before_pass,
-            )
-            table = pd.DataFrame([t.to_dict() for t in history.tests])
+            a.metric("Tests", len(history["tests"]))
+            b.metric("Final verdict", history["final_verdict"] or "–")
+            rejects = history["rejects_before_pass"]
+            c.metric("Rejects before the first pass", "–" if rejects is None else rejects)
+            table = pd.DataFrame(history["tests"])
             for col in ("ended_at", "calibration_at"):
                 table[col] = pd.to_datetime(table[col], utc=True).dt.tz_convert(p.settings.timezone)
             st.dataframe(u.frame(table), hide_index=True, width="stretch",
                          key="q_part_table")  # fmt: skip
-            st.caption(f"{history.note}; calibration in force = the station's latest calibration "
-                       "of "
-                       "the same program before the test")  # fmt: skip
+            st.caption(f"{history['note']}; calibration in force = the station's latest "
+                       "calibration of the same program before the test")
 
 
 part_search()

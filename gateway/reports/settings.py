@@ -4,6 +4,8 @@ from __future__ import annotations
 
 import argparse
 import re
+from collections.abc import Mapping
+from datetime import time
 from typing import Any
 
 from gateway.reports.common import DEFAULT_SHIFTS, DEFAULT_STORE
@@ -49,27 +51,40 @@ def calendar_of(args: argparse.Namespace) -> Any:
     plant = plant_of(args)
     if plant is None or not plant.shifts:
         return ShiftCalendar(timezone, parse_shifts(DEFAULT_SHIFTS))
-    values = dict(plant.shifts)
-    for name, value in values.items():
-        if not isinstance(value, str) or not re.fullmatch(
-            r"\s*\d{1,2}:\d{2}\s*(-\s*\d{1,2}:\d{2}\s*)?", value
+    return calendar_from_table(timezone, plant.shifts, plant.source)
+
+
+def calendar_from_table(timezone: str, table: Mapping[str, Any], source: str) -> Any:
+    """A plant config's ``[shifts]`` table as a shift calendar, read the same way by
+    ``leakfleet report`` and the dashboard: every shift a local start time (``"06:00"`` or a
+    TOML time; each ends where the next begins, so at least two are needed) or every shift
+    a span (``"06:00-14:00"``). ValueError names the file and the key."""
+    from analytics import ShiftCalendar
+
+    values: dict[str, str] = {}
+    for name, value in table.items():
+        text = value.strftime("%H:%M") if isinstance(value, time) else value
+        if not isinstance(text, str) or not re.fullmatch(
+            r"\s*\d{1,2}:\d{2}\s*(-\s*\d{1,2}:\d{2}\s*)?", text
         ):
-            raise ValueError(
-                f"{plant.source}: shifts.{name}: expected a local start time \"HH:MM\" or a "
-                f"span \"HH:MM-HH:MM\", got {value!r}"
-            )
+            raise ValueError(f"{source}: shifts.{name}: expected a local time HH:MM, got "
+                             f"{value!r}")
+        values[str(name)] = text
     spans = [("-" in v) for v in values.values()]
     try:
-        if all(spans):
+        if spans and all(spans):
             return ShiftCalendar(
                 timezone, parse_shifts(",".join(f"{n}={v}" for n, v in values.items()))
             )
         if any(spans):
             raise ValueError("give every shift as a start time, or every shift as a span")
+        if len(values) < 2:
+            raise ValueError("expected at least two shift start times (each shift ends where "
+                             "the next begins), or spans HH:MM-HH:MM")
         starts = {n: v.strip().zfill(5) for n, v in values.items()}
         return ShiftCalendar.from_starts(timezone, starts)
     except ValueError as exc:
-        raise ValueError(f"{plant.source}: shifts: {exc}") from None
+        raise ValueError(f"{source}: shifts: {exc}") from None
 
 
 def parse_shifts(text: str) -> list[tuple[str, str, str]]:
