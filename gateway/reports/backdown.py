@@ -70,20 +70,25 @@ def build_backdown(store_url: str, station: str, *, program: str | None = None,
     tolerance and standard flow default to the newest result's limit and calibration's flow."""
     from analytics.backdown import backdown_map, curve_of
     from gateway.store import open_journal, open_store
+    from gateway.store.influx_traces import influx_traces
     from gateway.store.traces import traces
 
     if not 0 < step <= 60 or fixed < 0 or not 0 < target < 100:
         raise ValueError("--step: 0..60 s; --fixed: 0 s or more; --target: between 0 and 100")
-    with open_journal(store_url) as journal:
-        found = traces(journal, station, program=program, limit=5000)
-    found = [t for t in found if t.role in ("master", "standard")]
-    if not found:
-        raise ValueError(f"no master or standard traces of {station} in {store_url} "
-                         "(record a long-cycle study first, e.g. 'leakfleet sim study')")
-    program = program or found[0].program
-    found = [t for t in found if t.program == program]
-    store = open_store(store_url)
+    store = open_store(store_url)  # a journal that does not exist is refused, not created
     try:
+        if store_url.startswith("sqlite:"):
+            with open_journal(store_url) as journal:
+                found = traces(journal, station, program=program, limit=5000)
+        else:  # the central InfluxDB of a scale-out plant holds the curves its gateways sent
+            found = [t for t in influx_traces(store, station, limit=5000)
+                     if program is None or t.program == program]
+        found = [t for t in found if t.role in ("master", "standard")]
+        if not found:
+            raise ValueError(f"no master or standard traces of {station} in {store_url} "
+                             "(record a long-cycle study first, e.g. 'leakfleet sim study')")
+        program = program or found[0].program
+        found = [t for t in found if t.program == program]
         tolerance = tolerance or _newest(store, "results", station, program, "reject_limit_sccm")
         flow = standard_sccm or _newest(store, "calibrations", station, program, "standard_sccm")
     finally:

@@ -61,15 +61,19 @@ AppFactory = Callable[..., AppTest]
 
 @pytest.fixture()
 def app(monkeypatch: pytest.MonkeyPatch) -> Iterator[AppFactory]:
-    """``app(journal, page=None)`` → an AppTest that has run the page once."""
+    """``app(journal, page=None, query=None, clock="wall")`` → an AppTest that has run the page
+    once (``query``: the URL's query parameters, as a link would open it)."""
 
-    def make(journal: Path | str, page: str | None = None, config: str = "demo") -> AppTest:
+    def make(journal: Path | str, page: str | None = None, config: str = "demo",
+             query: dict[str, str] | None = None, clock: str = "wall") -> AppTest:
         # caches stay: every journal has its own URL, and the cache keys start with it
         url = journal if isinstance(journal, str) else f"sqlite:///{journal}"
         monkeypatch.setenv("LEAKFLEET_STORE", url)
         monkeypatch.setenv("LEAKFLEET_CONFIG", config)
-        monkeypatch.setenv("LEAKFLEET_CLOCK", "wall")
+        monkeypatch.setenv("LEAKFLEET_CLOCK", clock)
         at = AppTest.from_file(APP, default_timeout=60)
+        for key, value in (query or {}).items():
+            at.query_params[key] = value
         if page is not None:
             at.switch_page(page)
         at.run()

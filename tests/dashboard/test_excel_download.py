@@ -8,9 +8,9 @@ from pathlib import Path
 
 import openpyxl
 import pandas as pd
-import pytest
 
 from dashboard.export import to_xlsx
+from tests.dashboard.conftest import AppFactory
 
 
 def test_excel_holds_the_rows_with_times_as_the_pages_wall_clock() -> None:
@@ -27,19 +27,9 @@ def test_excel_holds_the_rows_with_times_as_the_pages_wall_clock() -> None:
     assert rows[2] == (datetime(2026, 7, 3, 8, 15, 9), "L2-S1", 1.5, 7)
 
 
-def test_the_yield_page_offers_its_table_as_csv_and_excel(
-    demo_journal: Path, monkeypatch: pytest.MonkeyPatch
-) -> None:
-    from streamlit.testing.v1 import AppTest
-
-    from tests.dashboard.conftest import APP
-
-    monkeypatch.setenv("LEAKFLEET_STORE", f"sqlite:///{demo_journal}")
-    monkeypatch.setenv("LEAKFLEET_CONFIG", "demo")
-    monkeypatch.setenv("LEAKFLEET_CLOCK", "data")
-    at = AppTest.from_file(APP, default_timeout=60)
-    at.switch_page("views/yields.py")
-    at.run()
+def test_the_yield_page_offers_its_table_as_csv_and_excel(app: AppFactory,
+                                                          demo_journal: Path) -> None:
+    at = app(demo_journal, "views/yields.py", clock="data")
     assert not at.exception, [e.message for e in at.exception]
     labels = [b.proto.label for b in at.get("download_button")]
     assert "CSV" in labels and "Excel" in labels

@@ -296,19 +296,16 @@ def test_wrong_passwords_pause_sign_in() -> None:
 
 
 def test_a_rejects_curve_opens_from_a_link_beside_the_calibrations_curves(
-    demo_journal: Path, tmp_path: Path, monkeypatch: pytest.MonkeyPatch
+    app: AppFactory, demo_journal: Path, tmp_path: Path
 ) -> None:
     """The fleet page links each test to ``traces?station=..&cycle=..``; that link opens the
     test's own curve, labelled with its verdict, beside the newest calibration's curves."""
     import shutil
     import sqlite3
 
-    from streamlit.testing.v1 import AppTest
-
     from gateway.records import PressureTrace
     from gateway.store import open_journal
     from gateway.store._sqlite import from_us
-    from tests.dashboard.conftest import APP
 
     db = tmp_path / "journal.db"
     shutil.copy(demo_journal, db)
@@ -334,14 +331,7 @@ def test_a_rejects_curve_opens_from_a_link_beside_the_calibrations_curves(
                  curve(passed[0], passed[1], passed[3], "result", 0.2),
                  curve(passed[0], passed[1], passed[3], "master", 0.1),
                  curve(passed[0], passed[1], passed[3], "standard", 1.0)])
-    monkeypatch.setenv("LEAKFLEET_STORE", f"sqlite:///{db}")
-    monkeypatch.setenv("LEAKFLEET_CONFIG", "demo")
-    monkeypatch.setenv("LEAKFLEET_CLOCK", "wall")
-    at = AppTest.from_file(APP, default_timeout=60)
-    at.query_params["station"] = "L1-S1"
-    at.query_params["cycle"] = str(reject[0])
-    at.switch_page("views/traces.py")
-    at.run()
+    at = app(db, "views/traces.py", query={"station": "L1-S1", "cycle": str(reject[0])})
     assert not at.exception, [e.message for e in at.exception]
     assert at.selectbox(key="traces_station").value == "L1-S1"
     assert at.radio(key="traces_show").value == "One test"
@@ -353,47 +343,28 @@ def test_a_rejects_curve_opens_from_a_link_beside_the_calibrations_curves(
 
 
 def test_the_kiosk_view_shows_one_line_at_a_time_and_nothing_to_click(
-    demo_journal: Path, monkeypatch: pytest.MonkeyPatch
+    app: AppFactory, demo_journal: Path
 ) -> None:
     """``?kiosk=1`` on the fleet page: the sidebar hidden, one line's tiles, which line is
     shown and which come next, no station detail or alarm form."""
-    from streamlit.testing.v1 import AppTest
-
-    from tests.dashboard.conftest import APP
-
-    monkeypatch.setenv("LEAKFLEET_STORE", f"sqlite:///{demo_journal}")
-    monkeypatch.setenv("LEAKFLEET_CONFIG", "demo")
-    monkeypatch.setenv("LEAKFLEET_CLOCK", "data")
-    at = AppTest.from_file(APP, default_timeout=60)
-    at.query_params["kiosk"] = "1"
-    at.query_params["every"] = "30"
-    at.run()
+    at = app(demo_journal, query={"kiosk": "1", "every": "30"}, clock="data")
     assert not at.exception, [e.message for e in at.exception]
     headings = [h.value for h in at.subheader]
     assert [h for h in headings if h.startswith("Line ")] in (["Line L1"], ["Line L2"])
     assert "Station detail" not in headings
     assert any("Line 1 of 2" in c.value or "Line 2 of 2" in c.value for c in at.caption)
     assert any("display: none" in m.value for m in at.markdown)
-    normal = AppTest.from_file(APP, default_timeout=60)
-    normal.run()
+    normal = app(demo_journal, clock="data")
     assert [h.value for h in normal.subheader if h.value.startswith("Line ")] == [
         "Line L1", "Line L2"]
 
 
 def test_times_follow_the_zone_picked_in_the_sidebar_while_days_stay_the_plants(
-    demo_journal: Path, monkeypatch: pytest.MonkeyPatch
+    app: AppFactory, demo_journal: Path
 ) -> None:
     from datetime import datetime, timedelta
 
-    from streamlit.testing.v1 import AppTest
-
-    from tests.dashboard.conftest import APP
-
-    monkeypatch.setenv("LEAKFLEET_STORE", f"sqlite:///{demo_journal}")
-    monkeypatch.setenv("LEAKFLEET_CONFIG", "demo")
-    monkeypatch.setenv("LEAKFLEET_CLOCK", "data")
-    at = AppTest.from_file(APP, default_timeout=60)
-    at.run()
+    at = app(demo_journal, clock="data")
     assert at.selectbox(key="lf_timezone").value == "Europe/Berlin"  # the plant's by default
     plant = next(c.value for c in at.caption if c.value.startswith("As of "))
     assert "(Europe/Berlin)" in plant

@@ -29,7 +29,7 @@ pytest.importorskip("gateway.store", reason="the journal (gateway.store) has not
 
 from sim.scenario import load_scenario
 from tests.support.journal_check import compare, config_for_plant, read_journal, station_types
-from tests.support.sim import running_plant
+from tests.support.sim import running_plant, wait_online
 
 pytestmark = [pytest.mark.e2e, pytest.mark.timeout(240)]
 
@@ -56,17 +56,6 @@ def _scaled_faults(speed: float):  # type: ignore[no-untyped-def]
     return dataclasses.replace(scenario, stations=stations)
 
 
-async def _wait_online(log: Path, stations: list[str], proc: asyncio.subprocess.Process) -> None:
-    async with asyncio.timeout(90):
-        while True:
-            text = log.read_text(errors="replace") if log.exists() else ""
-            if all(f"{s}: start -> online" in text for s in stations):
-                return
-            if proc.returncode is not None:
-                raise AssertionError(f"gateway exited early:\n{text[-3000:]}")
-            await asyncio.sleep(0.05)
-
-
 async def test_demo_plant_with_faults_arrives_complete(tmp_path: Path) -> None:
     scenario = _scaled_faults(SPEED)
     db = tmp_path / "journal.db"
@@ -89,7 +78,7 @@ async def test_demo_plant_with_faults_arrives_complete(tmp_path: Path) -> None:
                 env={**os.environ, "PYTHONPATH": str(REPO)},
             )
             try:
-                await _wait_online(log, [s.name for s in scenario.stations], proc)
+                await wait_online(log, [s.name for s in scenario.stations], proc)
                 t0 = len(plant.truth.entries)
                 await asyncio.sleep(SIMULATED_S / SPEED)
                 t1 = len(plant.truth.entries)

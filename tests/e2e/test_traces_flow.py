@@ -26,7 +26,7 @@ from gateway.store import open_journal
 from gateway.store.traces import traces
 from sim.scenario import loads_scenario
 from tests.support.journal_check import config_for_plant, read_journal
-from tests.support.sim import running_plant
+from tests.support.sim import running_plant, wait_online
 
 pytestmark = [pytest.mark.e2e, pytest.mark.timeout(240)]
 
@@ -89,17 +89,6 @@ pause_probability = 0.0
 """
 
 
-async def _wait_online(log: Path, stations: list[str], proc: asyncio.subprocess.Process) -> None:
-    async with asyncio.timeout(90):
-        while True:
-            text = log.read_text(errors="replace") if log.exists() else ""
-            if all(f"{s}: start -> online" in text for s in stations):
-                return
-            if proc.returncode is not None:
-                raise AssertionError(f"gateway exited early:\n{text[-3000:]}")
-            await asyncio.sleep(0.05)
-
-
 def _window_loss(trace) -> float:  # type: ignore[no-untyped-def]
     at = dict(trace.phases)
     i0 = round(at["test"] / trace.sample_interval_s)
@@ -124,7 +113,7 @@ async def test_curves_arrive_tied_to_their_results_and_feed_the_backdown_report(
                 env={**os.environ, "PYTHONPATH": str(REPO)},
             )
             try:
-                await _wait_online(log, ["L9-S1", "L9-S2"], proc)
+                await wait_online(log, ["L9-S1", "L9-S2"], proc)
                 t0 = len(plant.truth.entries)
                 await asyncio.sleep(SIMULATED_S / SPEED)
                 t1 = len(plant.truth.entries)

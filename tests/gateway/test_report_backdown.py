@@ -43,6 +43,18 @@ def test_study_then_backdown_names_a_shorter_cycle(tmp_path: Path,
 ])  # fmt: skip
 def test_errors_are_one_line(args: list[str], message: str, tmp_path: Path,
                              capsys: pytest.CaptureFixture[str]) -> None:
+    from gateway.store import open_journal
+
+    open_journal(f"sqlite:///{tmp_path / 'j.db'}").close()  # a gateway's journal, no curves
     code = main([*args, "--store", f"sqlite:///{tmp_path / 'j.db'}"])
     err = capsys.readouterr().err
     assert code != 0 and message in err and "Traceback" not in err
+
+
+def test_a_journal_that_does_not_exist_is_named_not_created(
+        tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    missing = tmp_path / "nope.db"
+    assert main(["report", "backdown", "--station", "L1-S1",
+                 "--store", f"sqlite:///{missing}"]) == 2
+    assert "no such file" in capsys.readouterr().err
+    assert not missing.exists()

@@ -15,6 +15,7 @@ and the pty symlinks live under ``tmp_path / "run"``.
 
 from __future__ import annotations
 
+import asyncio
 import contextlib
 from collections.abc import AsyncIterator
 from datetime import datetime
@@ -23,7 +24,7 @@ from pathlib import Path
 from sim.run import Plant
 from sim.scenario import Scenario, load_scenario, loads_scenario
 
-__all__ = ["running_plant", "scenario_from_text"]
+__all__ = ["running_plant", "scenario_from_text", "wait_online"]
 
 
 def scenario_from_text(text: str, base_dir: Path | None = None) -> Scenario:
@@ -47,3 +48,15 @@ async def running_plant(
         sc, speed=speed, truth_path=tmp_path / truth_name, faults=faults, start=start
     ) as plant:
         yield plant
+
+
+async def wait_online(log: Path, stations: list[str], proc: asyncio.subprocess.Process) -> None:
+    """Until a gateway started as its own process logs every station online (90 s at most)."""
+    async with asyncio.timeout(90):
+        while True:
+            text = log.read_text(errors="replace") if log.exists() else ""
+            if all(f"{s}: start -> online" in text for s in stations):
+                return
+            if proc.returncode is not None:
+                raise AssertionError(f"gateway exited early:\n{text[-3000:]}")
+            await asyncio.sleep(0.05)
