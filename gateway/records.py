@@ -16,12 +16,14 @@ from enum import StrEnum
 from typing import Any, ClassVar, Self
 
 __all__ = [
+    "ALARM_CHANGES",
     "ORIGINS",
     "READABLE_SCHEMAS",
     "SCHEMA_VERSION",
     "TIME_SOURCES",
     "TRACE_PHASES",
     "TRACE_ROLES",
+    "AlarmEvent",
     "CalibrationEvent",
     "PressureTrace",
     "Record",
@@ -576,7 +578,57 @@ class PressureTrace(_RecordMixin):
         return _stable_id("trace", self.station, self.cycle, _iso(self.ended_at), self.role)
 
 
-Record = TestResult | CalibrationEvent | StationStatus | PressureTrace
+#: what can happen to an alarm occurrence, in the order it happens
+ALARM_CHANGES = ("raised", "acknowledged", "cleared")
+
+
+@dataclass(frozen=True, slots=True)
+class AlarmEvent(_RecordMixin):
+    """One change of an alarm occurrence (raised, acknowledged, cleared): the append-only
+    record a plant's alerting receives. The journal's alarm table holds the occurrence as it
+    is now; this says what happened to it and when. ``station`` is None for a fleet-wide
+    alarm (a sink's backlog); ``alarm_id`` is the occurrence's number in its journal."""
+
+    kind: ClassVar[str] = "alarm"
+    _time_fields: ClassVar[tuple[str, ...]] = ("at", "since")
+
+    alarm_id: int
+    key: str
+    rule: str
+    station: str | None
+    severity: str
+    message: str
+    change: str
+    at: datetime
+    since: datetime
+    by: str | None = None
+
+    def __post_init__(self) -> None:
+        if isinstance(self.alarm_id, bool) or not isinstance(self.alarm_id, int):
+            raise ValueError(f"alarm_id must be an integer, got {self.alarm_id!r}")
+        for name in ("key", "rule", "severity", "message"):
+            _check_text(name, getattr(self, name))
+        _check_text("station", self.station, optional=True)
+        if self.change not in ALARM_CHANGES:
+            raise ValueError(f"change must be one of {', '.join(ALARM_CHANGES)}, "
+                             f"got {self.change!r}")
+        if self.change == "acknowledged":
+            _check_text("by", self.by)
+        for name in ("at", "since"):
+            _check_time(name, getattr(self, name))
+            object.__setattr__(self, name, _to_utc(getattr(self, name)))
+
+    @property
+    def state(self) -> str:
+        """The occurrence's state after this change (the alarm list's words)."""
+        return {"raised": "active"}.get(self.change, self.change)
+
+    @property
+    def record_id(self) -> str:
+        return _stable_id("alarm", self.key, _iso(self.since), self.alarm_id, self.change)
+
+
+Record = TestResult | CalibrationEvent | StationStatus | PressureTrace | AlarmEvent
 
 #: the fields ``supplied`` may name (everything a station may leave out)
 _RESULT_NAMES = frozenset(f.name for f in fields(TestResult)) - {
@@ -589,11 +641,12 @@ _CAL_NAMES = frozenset(f.name for f in fields(CalibrationEvent)) - {
 }
 
 _KINDS: dict[str, type[TestResult] | type[CalibrationEvent] | type[StationStatus]
-             | type[PressureTrace]] = {
+             | type[PressureTrace] | type[AlarmEvent]] = {
     "result": TestResult,
     "calibration": CalibrationEvent,
     "status": StationStatus,
     "trace": PressureTrace,
+    "alarm": AlarmEvent,
 }
 
 

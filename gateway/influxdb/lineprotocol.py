@@ -5,6 +5,9 @@ Schema (our names): measurements ``leak_results``, ``leak_calibrations``, ``stat
 field ``pressures_pa``, gauge Pa as comma-separated decimals in the shortest form that reads back
 to the same double (lossless; Flux's ``strings.split`` and any CSV reader take it apart), its
 phase starts the JSON field ``phases``; ``role`` (result, master, standard) is a tag.
+``alarm_events``: one point per alarm change (raised, acknowledged, cleared) at its time, tagged
+by rule, severity, change and key (keys are few: a rule per station, program or sink), so a
+Grafana panel can count or list them; fleet-wide alarms carry no line or station tag.
 Tags are only the low-cardinality keys a dashboard groups by (site, line, station, program,
 verdict); everything else, the part serial number included, is a field, because every distinct
 tag value makes a new series. The timestamp is the record's own time (``ended_at``; ``at`` for a
@@ -29,7 +32,14 @@ import json
 from collections.abc import Iterable, Mapping
 from datetime import UTC, datetime, timedelta
 
-from gateway.records import CalibrationEvent, PressureTrace, Record, StationStatus, TestResult
+from gateway.records import (
+    AlarmEvent,
+    CalibrationEvent,
+    PressureTrace,
+    Record,
+    StationStatus,
+    TestResult,
+)
 
 __all__ = [
     "MEASUREMENTS",
@@ -48,6 +58,7 @@ MEASUREMENTS = {
     "calibration": "leak_calibrations",
     "status": "station_status",
     "trace": "pressure_traces",
+    "alarm": "alarm_events",
 }
 
 _EPOCH = datetime(1970, 1, 1, tzinfo=UTC)
@@ -197,9 +208,16 @@ def record_line(
         tags = {"site": site, "line": line, "station": record.station}
         fields = {"state": record.state.value, "detail": record.detail}
         at = record.at
+    elif isinstance(record, AlarmEvent):
+        tags = {"site": site, "line": line, "station": record.station, "rule": record.rule,
+                "severity": record.severity, "change": record.change, "key": record.key}
+        fields = {"alarm_id": record.alarm_id, "state": record.state,
+                  "message": record.message, "by": record.by,
+                  "since_ns": timestamp_ns(record.since)}
+        at = record.at
     else:  # pragma: no cover - the Record union is closed
         raise TypeError(f"not a record: {type(record).__name__}")
-    if not isinstance(record, StationStatus):
+    if not isinstance(record, StationStatus | AlarmEvent):
         fields["received_at_ns"] = timestamp_ns(record.received_at)
     fields["record_id"] = record.record_id
     fields["seq"] = seq
@@ -212,5 +230,6 @@ def encode(
     """A write body: one point per ``(seq, record)``, newline-separated."""
     lines = lines or {}
     return "\n".join(
-        record_line(rec, site=site, line=lines.get(rec.station), seq=seq) for seq, rec in rows
+        record_line(rec, site=site, line=lines.get(rec.station or ""), seq=seq)
+        for seq, rec in rows
     )

@@ -60,7 +60,8 @@ __all__ = [
 
 log = logging.getLogger(__name__)
 
-#: kinds that may go out of arrival order (not statuses: the retained one must be the newest)
+#: kinds that may go out of arrival order (not statuses nor alarm changes: the retained one
+#: must be the newest)
 LANE_KINDS: tuple[Kind, ...] = ("result", "calibration", "trace")
 #: a backlog of more batches than this opens the live lane
 LIVE_LANE_BATCHES = 4

@@ -8,13 +8,23 @@ Topics (``topic_prefix`` defaults to ``leakfleet``):
                                                    display names of site, line and station
     <prefix>/<site>/gateway/<gateway id>/state     "online" (retained) on connect; the last
                                                    will, also retained, is "offline"
+    <prefix>/<site>/<line>/<station>/alarm         one per AlarmEvent: an alarm raised,
+                                                   acknowledged or cleared (never retained)
+    <prefix>/<site>/<line>/<station>/alarms/<key>  retained: the alarm's state now (the last
+                                                   event's payload); cleared → an empty
+                                                   retained message, which removes it
+    <prefix>/<site>/gateway/<gateway id>/alarm     the same two for fleet-wide alarms (a sink's
+    <prefix>/<site>/gateway/<gateway id>/alarms/<key>    backlog), which have no station
 Topic levels are slugs of the ids (``gateway.sinks.topics``: lower-case, any other character
 than a-z 0-9 - _ becomes ``-``; ``site_id`` overrides the site's slug). ``topic_style =
 "names"`` keeps the names as given (``+``, ``#`` and ``/`` become ``_``) for subscribers of
 older releases, and sends no meta topic. Payload: ``record.to_dict()`` as JSON (with id topics
 plus ``site``, the display name): it carries ``schema``, ``record_id`` and the station and line
 as configured, so a consumer can de-duplicate the repeats at-least-once delivery allows. A
-status's line comes from the gateway config (statuses do not carry one).
+status's or an alarm's line comes from the gateway config (neither carries one). An alarm's
+payload adds ``state`` (active, acknowledged, cleared) and ``line``; ``<key>`` is the slug of
+the alarm's key (``reject-streak:L1-S1`` → ``reject-streak-l1-s1``), so subscribing to
+``<prefix>/+/+/+/alarms/+`` and ``<prefix>/+/gateway/+/alarms/+`` shows every open alarm.
 
 ``send`` publishes a batch at QoS 1 and returns once the broker sent a PUBACK for every
 message (aiomqtt's ``publish`` waits for paho's on_publish), so the forwarder moves its cursor
@@ -46,7 +56,7 @@ from dataclasses import dataclass
 from typing import Any
 
 from gateway.errors import ConfigError
-from gateway.records import Record, StationStatus
+from gateway.records import AlarmEvent, Record, StationStatus
 from gateway.sinks import SinkContext, register_sink
 from gateway.sinks.forwarder import (
     ForwarderOptions,
@@ -217,9 +227,8 @@ class MqttClient:
             self._site_level = _segment(ctx.site)
             self._lines, self._stations = {}, {}
             gw_level = _segment(ctx.gateway_id)
-        self.state_topic = "/".join(
-            (opts.topic_prefix, self._site_level, "gateway", gw_level, "state")
-        )
+        self.gateway_topic = "/".join((opts.topic_prefix, self._site_level, "gateway", gw_level))
+        self.state_topic = f"{self.gateway_topic}/state"
         self._client: Any = None
         self._inflight = asyncio.Semaphore(MAX_INFLIGHT)
         self._stack: contextlib.AsyncExitStack | None = None
@@ -342,16 +351,24 @@ class MqttClient:
             raise SinkUnavailable(f"publish to {self.describe()} failed: {exc}") from None
 
     def topic(self, record: Record) -> str:
-        line = self.ctx.stations.get(record.station) if isinstance(record, StationStatus) else (
-            record.line)
+        if isinstance(record, AlarmEvent) and record.station is None:
+            return f"{self.gateway_topic}/alarm"  # a fleet-wide alarm: the gateway's level
+        station = str(record.station)
+        line = (self.ctx.stations.get(station)
+                if isinstance(record, StationStatus | AlarmEvent) else record.line)
         if self.opts.topic_style == "names":
-            return topic_for(
-                self.opts.topic_prefix, self.ctx.site, line or "_", record.station, record.kind
-            )
+            return topic_for(self.opts.topic_prefix, self.ctx.site, line or "_", station,
+                             record.kind)
         # a record from a station no longer configured still gets a level (slug, or "_")
         line_level = self._level(line, self._lines) if line else "_"
         return "/".join((self.opts.topic_prefix, self._site_level, line_level,
-                         self._level(record.station, self._stations), record.kind))
+                         self._level(station, self._stations), record.kind))
+
+    def alarm_state_topic(self, event: AlarmEvent) -> str:
+        """The retained topic that holds one alarm's state while it is open."""
+        key = _segment(event.key) if self.opts.topic_style == "names" else self._level(
+            event.key, {})
+        return f"{self.topic(event)}s/{key}"
 
     def payload(self, record: Record) -> dict[str, Any]:
         """The record as JSON; with id topics also the site's display name (``site``), which
@@ -359,6 +376,9 @@ class MqttClient:
         doc = record.to_dict()
         if self.opts.topic_style == "ids":
             doc["site"] = self.ctx.site
+        if isinstance(record, AlarmEvent):
+            doc["state"] = record.state
+            doc["line"] = self.ctx.stations.get(record.station) if record.station else None
         return doc
 
     async def send(self, kind: Kind, rows: Sequence[tuple[int, Record]]) -> None:
@@ -375,6 +395,10 @@ class MqttClient:
             async with asyncio.TaskGroup() as tg:
                 for (_, record), payload in zip(rows, payloads, strict=True):
                     tg.create_task(self._publish(self.topic(record), payload, retain=retain))
+                    if isinstance(record, AlarmEvent):  # and the alarm's retained state
+                        state = b"" if record.change == "cleared" else payload
+                        tg.create_task(self._publish(self.alarm_state_topic(record), state,
+                                                     retain=True))
         except* SinkUnavailable as group:
             raise SinkUnavailable(str(group.exceptions[0])) from None
 

@@ -43,7 +43,14 @@ from typing import Any
 from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 
 from gateway.errors import ConfigError
-from gateway.records import CalibrationEvent, Record, StationStatus, TestResult, Verdict
+from gateway.records import (
+    AlarmEvent,
+    CalibrationEvent,
+    Record,
+    StationStatus,
+    TestResult,
+    Verdict,
+)
 from gateway.sinks import SinkContext, register_sink
 from gateway.sinks.forwarder import ForwarderOptions, JournalForwarder, SinkUnavailable
 from gateway.sinks.topics import slug
@@ -305,6 +312,8 @@ class OpcUaServer:
         if self._server is None:
             raise SinkUnavailable("OPC UA server not started")
         for seq, record in rows:
+            if isinstance(record, AlarmEvent):
+                continue  # not in the shown kinds: the address space has no alarm nodes
             if isinstance(record, TestResult):
                 await self._count(seq, record)
             key = (record.station, record.kind)

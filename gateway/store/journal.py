@@ -29,7 +29,7 @@ from collections.abc import Callable, Iterable, Mapping, Sequence
 from dataclasses import dataclass
 from datetime import datetime
 from pathlib import Path
-from typing import Any, Literal
+from typing import Any, Literal, TypeVar
 
 from gateway.errors import StoreError
 from gateway.records import (
@@ -45,6 +45,7 @@ from gateway.records import (
     supplied_pairs,
 )
 from gateway.store._sqlite import from_us, sqlite_path, store_error, to_us
+from gateway.store.alarm_events import ALARM_EVENT_COLUMNS, alarm_event_from
 from gateway.store.conflicts import find_conflicts
 from gateway.store.gaps import record_gaps
 from gateway.store.guard import JournalGone
@@ -64,8 +65,9 @@ from gateway.store.traces import INSERT_TRACE, TRACE_COLUMNS, trace_from, trace_
 
 __all__ = ["Journal", "Kind", "WriteStats", "open_journal", "quarantine_id"]
 
-Kind = Literal["result", "calibration", "status", "trace"]
-KINDS: tuple[Kind, ...] = ("result", "calibration", "status", "trace")
+Kind = Literal["result", "calibration", "status", "trace", "alarm"]
+KINDS: tuple[Kind, ...] = ("result", "calibration", "status", "trace", "alarm")
+_T = TypeVar("_T")
 #: page cache of the writer's connection (negative: KiB), see Journal.__init__
 CACHE_SIZE = -32768
 
@@ -199,11 +201,15 @@ _READERS: dict[str, tuple[str, Callable[[tuple[Any, ...]], Record]]] = {
         f"SELECT seq, {TRACE_COLUMNS} FROM traces WHERE seq > ? ORDER BY seq LIMIT ?",
         trace_from,
     ),
+    "alarm": (
+        f"SELECT seq, {ALARM_EVENT_COLUMNS} FROM alarm_events WHERE seq > ? ORDER BY seq LIMIT ?",
+        alarm_event_from,
+    ),
 }
 # Which column tells a row's age, per table (statuses carry no received_at; "at" is the
 # gateway's own observation time, so it plays that role).
 _AGE_COLUMN = {"results": "received_at", "calibrations": "received_at", "statuses": "at",
-               "traces": "received_at"}
+               "traces": "received_at", "alarm_events": "at"}
 
 
 def _check_kind(kind: str) -> str:
@@ -594,6 +600,21 @@ class Journal:
                 return self._conn.execute(sql, params).fetchall()
             except sqlite3.Error as exc:
                 raise store_error(exc, self.path, action) from exc
+
+    def _transaction(self, work: Callable[[sqlite3.Connection], _T], action: str) -> _T:
+        """Run ``work`` on the writer's connection in one transaction (all of it or nothing)."""
+        with self._lock:
+            try:
+                self._conn.execute("BEGIN IMMEDIATE")
+                out = work(self._conn)
+                self._conn.execute("COMMIT")
+            except sqlite3.Error as exc:
+                self._rollback()
+                raise store_error(exc, self.path, action) from exc
+            except BaseException:
+                self._rollback()
+                raise
+            return out
 
     def _execute_write(self, sql: str, params: Sequence[Any], action: str) -> None:
         with self._lock:

@@ -9,16 +9,18 @@ and at most one open occurrence per key (a unique partial index enforces it).
 
 from __future__ import annotations
 
-from collections.abc import Iterable, Sequence
+import sqlite3
+from collections.abc import Callable, Iterable, Sequence
 from dataclasses import dataclass
 from datetime import UTC, datetime
+from functools import partial
 from typing import Any, Protocol
 
 import pandas as pd
 
-from gateway.errors import StoreError
 from gateway.records import MaintenanceEvent
 from gateway.store._sqlite import from_us, to_us
+from gateway.store.alarm_events import apply_ack, apply_clear, apply_raise
 
 __all__ = ["AlarmRow", "Logbook"]
 
@@ -26,6 +28,7 @@ __all__ = ["AlarmRow", "Logbook"]
 class _Journal(Protocol):
     def _query(self, sql: str, params: Sequence[Any], action: str) -> list[tuple[Any, ...]]: ...
     def _execute_write(self, sql: str, params: Sequence[Any], action: str) -> None: ...
+    def _transaction(self, work: Callable[[sqlite3.Connection], bool], action: str) -> bool: ...
 
 
 @dataclass(frozen=True, slots=True)
@@ -132,42 +135,24 @@ class Logbook:
                                                    "reading alarms")]
 
     def apply(self, transitions: Iterable[Any], at: datetime | None = None) -> int:
-        """Apply ``analytics.alarms.transitions`` (raise / clear); returns how many changed."""
-        now = to_us(at or datetime.now(UTC))
+        """Apply ``analytics.alarms.transitions`` (raise / clear); returns how many changed.
+        Each change appends its alarm event in the same transaction (gateway.store.
+        alarm_events), so a sink forwarding alarms sees every change or none."""
+        now = at or datetime.now(UTC)
         n = 0
         for t in transitions:
             if t.change == "raise" and t.condition is not None:
-                c = t.condition
-                try:
-                    self._j._execute_write(
-                        "INSERT INTO alarms (key, rule, station, severity, message, since, "
-                        "raised_at) VALUES (?, ?, ?, ?, ?, ?, ?)",
-                        (c.key, c.rule, c.station, c.severity, c.message, to_us(c.since), now),
-                        "raising an alarm",
-                    )
-                except StoreError as exc:
-                    if "UNIQUE" not in str(exc).upper():
-                        raise
-                    continue  # already open (another evaluator got there first)
-                n += 1
+                n += self._j._transaction(partial(apply_raise, condition=t.condition, at=now),
+                                          "raising an alarm")
             elif t.change == "clear":
-                self._j._execute_write(
-                    "UPDATE alarms SET cleared_at = ? WHERE key = ? AND cleared_at IS NULL",
-                    (now, t.key), "clearing an alarm",
-                )
-                n += 1
+                n += self._j._transaction(partial(apply_clear, key=t.key, at=now),
+                                          "clearing an alarm")
         return n
 
     def acknowledge(self, alarm_id: int, by: str, at: datetime | None = None) -> bool:
         """Acknowledge an open alarm; False when it is not open (or already acknowledged)."""
         if not by.strip() or any(ord(ch) < 32 for ch in by):
             raise ValueError("say who acknowledges (one line of text)")
-        rows = self._j._query("SELECT acked_at, cleared_at FROM alarms WHERE id = ?",
-                              (alarm_id,), "reading an alarm")
-        if not rows or rows[0][0] is not None or rows[0][1] is not None:
-            return False
-        self._j._execute_write(
-            "UPDATE alarms SET acked_at = ?, acked_by = ? WHERE id = ? AND acked_at IS NULL",
-            (to_us(at or datetime.now(UTC)), by.strip(), alarm_id), "acknowledging an alarm",
-        )
-        return True
+        when = at or datetime.now(UTC)
+        return self._j._transaction(lambda conn: apply_ack(conn, alarm_id, by.strip(), when),
+                                    "acknowledging an alarm")

@@ -15,6 +15,7 @@ from collections.abc import Sequence
 from dataclasses import dataclass
 
 from gateway.errors import StoreError
+from gateway.store.alarm_events import ALARM_EVENT_SCHEMA
 from gateway.store.conflicts import CONFLICT_SCHEMA
 from gateway.store.deadletters import DEAD_LETTER_SCHEMA
 from gateway.store.gaps import GAP_SCHEMA
@@ -54,7 +55,7 @@ QUARANTINE_COLUMNS: tuple[str, ...] = (
 
 #: kind → table, as used by read_after / cursors / backlog.
 TABLES: dict[str, str] = {"result": "results", "calibration": "calibrations", "status": "statuses",
-                          "trace": "traces"}
+                          "trace": "traces", "alarm": "alarm_events"}
 
 # Hourly summaries (see gateway.store.summaries). Schema v1 kept them with per-row triggers,
 # which v2 drops: the writer folds each batch in once (summaries.fold_results), and a bulk
@@ -477,6 +478,7 @@ MIGRATIONS: tuple[Migration, ...] = (
     Migration(8, CONFLICT_SCHEMA, "re-sends that disagree with the stored record"),
     Migration(9, GAP_SCHEMA, "cycles known to be lost"),
     Migration(10, DEAD_LETTER_SCHEMA, "records a sink's server refused"),
+    Migration(11, ALARM_EVENT_SCHEMA, "alarm state changes as forwardable events"),
 )
 SCHEMA_VERSION = MIGRATIONS[-1].version
 

@@ -31,7 +31,7 @@ from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from typing import Any
 
-from gateway.records import Record, StationStatus
+from gateway.records import AlarmEvent, Record, StationStatus
 from gateway.sinks import SinkContext, register_sink
 from gateway.sinks.forwarder import ForwarderOptions, JournalForwarder, SinkUnavailable
 from gateway.sinks.mqtt import MqttClient, MqttOptions
@@ -180,6 +180,8 @@ class SparkplugClient(MqttClient):
             now = _now_ms()
             messages: list[tuple[str, bytes]] = []
             for _, record in rows:
+                if isinstance(record, AlarmEvent):
+                    continue  # no device data (not in DDATA_KINDS): skipped should one come
                 if record.station not in self._born:  # a station added since the births
                     line = (self.ctx.stations.get(record.station, "_")
                             if isinstance(record, StationStatus) else record.line)
@@ -189,6 +191,8 @@ class SparkplugClient(MqttClient):
                 messages.append((self.device_topic("DDATA", record.station), spm.encode(payload)))
             await self._publish_all(messages)
             for seq, record in rows:  # a rebirth carries the latest values (by journal seq:
+                if isinstance(record, AlarmEvent):
+                    continue
                 last = self._last.setdefault(record.station, {})  # a backlog may come late)
                 if seq > last.get(record.kind, (0, record))[0]:
                     last[record.kind] = (seq, record)

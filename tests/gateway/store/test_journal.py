@@ -112,6 +112,7 @@ def test_cursors_and_backlog(tmp_path: Path, journal: Journal) -> None:
         "calibration": (0, None),
         "status": (0, None),
         "trace": (0, None),
+        "alarm": (0, None),
     }
     journal.write([result(i) for i in range(1, 6)] + [status(0)])
     seqs = [s for s, _ in journal.read_after("result", 0, 100)]
