@@ -2,8 +2,10 @@
 
 Per line: first-pass and final yield, rejects by reason (Pareto), the share of passes that
 needed a retest, each station's calibration state, the alarms raised in the shift, and the
-leak standards that are due. Everything is computed by the existing analytics (yield,
-retest, calibration health, standards); this module only picks one shift out of them.
+leak standards that are due; beside them the previous shift's figures and the targets, and
+the journal's alarm states at the shift's end (``analytics.shift_compare``). Everything is
+computed by the existing analytics (yield, retest, calibration health, standards); this module
+only picks one shift out of them.
 
 Which shift a figure belongs to follows the analytics' own conventions, so shift reports add
 up: a part belongs to the shift of its *first* test (a part first rejected in the late shift
@@ -16,8 +18,8 @@ retest alarm and the calibration charts have a baseline.
 
 from __future__ import annotations
 
-from collections.abc import Sequence
-from dataclasses import dataclass, field
+from collections.abc import Iterable, Mapping, Sequence
+from dataclasses import dataclass, field, replace
 from datetime import date, datetime, timedelta
 from typing import Any, Literal
 
@@ -32,6 +34,14 @@ from analytics.audit import (
     standards_due,
 )
 from analytics.drift import HealthConfig, calibration_health
+from analytics.shift_compare import (
+    Comparison,
+    JournalAlarm,
+    alarm_states,
+    compare_shift,
+    journal_alarms,
+    previous_window,
+)
 from analytics.shifts import ShiftCalendar, ShiftWindow
 from analytics.yields import ParetoReport, YieldRow, pareto, yield_report
 
@@ -81,6 +91,10 @@ class StationShift(ResultMixin):
     standard_serial: str | None
     standard_overdue: bool | None
     drift: str | None
+    # the journal's alarms at the shift's end: "active", "acknowledged" or "clear" (None when
+    # the store keeps no alarm states), and how many were open
+    alarm_state: str | None = None
+    open_alarms: int | None = None
 
 
 @dataclass(frozen=True, slots=True)
@@ -118,6 +132,8 @@ class LineShift(ResultMixin):
     alarms: list[ShiftAlarm]
     standards: list[StandardStatus]
     note: str
+    journal_alarms: list[JournalAlarm] = field(default_factory=list)
+    comparison: list[Comparison] = field(default_factory=list)
 
 
 @dataclass(frozen=True, slots=True)
@@ -136,6 +152,11 @@ class ShiftReport(ResultMixin):
     lines: list[LineShift]
     other_standards: list[StandardStatus] = field(default_factory=list)
     note: str = ""
+    site: str = ""
+    previous_shift: str | None = None  # "<date> <shift>" the comparison is with
+    targets: dict[str, float] = field(default_factory=dict)
+    alarms_known: bool = False  # the journal's alarm states were read
+    fleet_alarms: list[JournalAlarm] = field(default_factory=list)  # alarms of no station
 
 
 def _in(ts: pd.Series, window: ShiftWindow) -> pd.Series:
@@ -183,6 +204,11 @@ def shift_report(
     guard_band: float | None = None,
     health: HealthConfig | None = None,
     line: str | None = None,
+    site: str = "",
+    alarms: Iterable[Any] | None = None,
+    targets: Mapping[str, float] | None = None,
+    previous: bool = True,
+    previous_results: pd.DataFrame | None = None,
 ) -> ShiftReport:
     """The report of one shift (``window``), one section per line.
 
@@ -190,7 +216,10 @@ def shift_report(
     docstring) and are cut at the shift's end; ``statuses`` are state changes up to the end
     (the latest one before the shift tells the state a quiet station was in); ``stations`` is
     the store's station list, so a line that did not test in the shift still gets a section.
-    ``line`` restricts the report to one line.
+    ``line`` restricts the report to one line. ``alarms`` are the journal's alarm
+    occurrences (``Logbook.alarms``; None when the store keeps none); ``targets`` maps
+    ``first_pass_yield`` / ``final_yield`` to fractions; ``previous`` adds the comparison with
+    the shift before (its figures from ``previous_results``, else from ``results``).
     """
     key = f"{window.shift_date.isoformat()} {window.shift}"
     end = pd.Timestamp(window.end)
@@ -271,7 +300,39 @@ def shift_report(
         else f"no test results in the {window.shift} shift of {window.shift_date.isoformat()}"
         + ("" if lines else " and no stations known to the store")
     )
+    listed = journal_alarms(alarms, window) if alarms is not None else []
+    states = alarm_states(listed)
+    before = previous_window(calendar, window) if previous else None
+    earlier = {}
+    if before is not None:
+        prior = shift_report(before, calendar,
+                             results if previous_results is None else previous_results,
+                             calibrations, statuses, stations,
+                             history_since=history_since, guard_band=guard_band, health=health,
+                             line=line, previous=False)  # fmt: skip
+        earlier = {sec.line: _figures(sec) for sec in prior.lines}
+    sections = [
+        replace(
+            sec,
+            stations=[
+                replace(st, alarm_state=states.get(st.station, ("clear", 0))[0],
+                        open_alarms=states.get(st.station, ("clear", 0))[1])
+                if alarms is not None else st
+                for st in sec.stations
+            ],
+            journal_alarms=[a for a in listed if a.station in {x.station for x in sec.stations}],
+            comparison=compare_shift(_figures(sec), earlier.get(sec.line) if before else None,
+                                     targets),
+        )
+        for sec in sections
+    ]  # fmt: skip
     return ShiftReport(
+        site=site,
+        previous_shift=None if before is None
+        else f"{before.shift_date.isoformat()} {before.shift}",
+        targets=dict(targets or {}),
+        alarms_known=alarms is not None,
+        fleet_alarms=[a for a in listed if a.station is None],
         shift_date=window.shift_date,
         shift=window.shift,
         timezone=calendar.timezone,
@@ -287,6 +348,12 @@ def shift_report(
         other_standards=sorted(other, key=lambda x: (x.days_left, x.serial)),
         note=note,
     )
+
+
+def _figures(sec: LineShift) -> dict[str, float | int | None]:
+    """A line's figures that ``compare_shift`` sets beside the previous shift's."""
+    return {"first_pass_yield": sec.first_pass_yield, "final_yield": sec.final_yield,
+            "retest_share": sec.retests.share, "tests": sec.tests}
 
 
 def _line_section(

@@ -17,7 +17,7 @@ p = page("Shift report")
 calendar = p.calendar
 current = calendar.shift_of(p.now)
 today = p.now.astimezone(calendar.tz).date()
-c1, c2, c3 = st.columns(3)
+c1, c2, c3, c4 = st.columns(4)
 with c1:
     day = st.date_input("Production date", value=current[0] if current else today,
                         max_value=today + timedelta(days=1), key="shift_day")
@@ -27,12 +27,18 @@ with c2:
                          index=names.index(current[1]) if current else 0)
 with c3:
     line = pick("Line", sorted(p.stations["line"].dropna().astype(str).unique()), "shift_line")
+with c4:
+    target = st.number_input("First-pass yield target (%)", min_value=0.0, max_value=100.0,
+                             value=None, step=0.5, key="shift_target",
+                             help="Shown beside each line's first-pass yield; none by default.")
 
 try:
     report = shift_report_of(
         data.query_store(p.url), calendar,
         ShiftOptions(day=day, shift=shift, line=line, standards=p.settings.standards,
-                     config_source=p.settings.config_source),
+                     config_source=p.settings.config_source, site=p.settings.site,
+                     target_first_pass_yield=None if not target else target / 100,
+                     pressure_unit=p.units.pressure, leak_unit=p.units.leak),
     )  # fmt: skip
 except (data.StoreUnavailable, LeakfleetError, sqlite3.Error, OSError) as exc:
     st.error(f"Store unavailable: {exc}")
@@ -46,22 +52,51 @@ def _pct(value: float | None) -> str:
     return "–" if value is None else f"{100 * value:.1f} %"
 
 
+def _points(value: float | None) -> str | None:
+    return None if value is None else f"{100 * value:+.1f} pp"
+
+
+if r.get("previous_shift"):
+    st.caption(f"Changes are against the previous shift, {r['previous_shift']}.")
 for sec in r["lines"]:
     st.subheader(f"Line {sec['line']}")
+    change = {c["figure"]: c for c in sec.get("comparison", [])}
     m1, m2, m3, m4, m5 = st.columns(5)
-    m1.metric("Tests", f"{sec['tests']:,}")
+    tests_change = change.get("tests", {}).get("change")
+    m1.metric("Tests", f"{sec['tests']:,}",
+              delta=None if tests_change is None else f"{tests_change:+.0f}")
     m2.metric("Parts", f"{sec['parts']:,}")
-    m3.metric("First-pass yield", _pct(sec["first_pass_yield"]))
-    m4.metric("Final yield", _pct(sec["final_yield"]))
-    m5.metric("Passes after retest", _pct(sec["retests"]["share"]))
+    m3.metric("First-pass yield", _pct(sec["first_pass_yield"]),
+              delta=_points(change.get("first_pass_yield", {}).get("change")))
+    m4.metric("Final yield", _pct(sec["final_yield"]),
+              delta=_points(change.get("final_yield", {}).get("change")))
+    m5.metric("Passes after retest", _pct(sec["retests"]["share"]),
+              delta=_points(change.get("retest_share", {}).get("change")), delta_color="inverse")
+    fpy = change.get("first_pass_yield", {})
+    if fpy.get("target") is not None:
+        met = "reached" if fpy["met"] else "missed"
+        st.caption(f"First-pass yield target {_pct(fpy['target'])}: {met} "
+                   f"({_points(fpy['versus_target'])}).")
     if sec["rejects"]["rows"]:
         st.dataframe(
-            [{"reason": x["category"], "tests": x["n"], "share": _pct(x["share"])}
+            [{"Reject reason": x["category"], "Tests": x["n"], "Share": _pct(x["share"])}
              for x in sec["rejects"]["rows"]],
             hide_index=True, width="stretch", key=f"shift_rejects_{sec['line']}",
         )  # fmt: skip
+    st.dataframe(
+        [{"Station": s["station"], "Tests": s["tests"],
+          "Link at shift end": s["state_at_end"] or "not reported",
+          "Alarms at shift end": "not kept" if s["alarm_state"] is None
+          else s["alarm_state"] + (f" ({s['open_alarms']})" if s["open_alarms"] else ""),
+          "Calibration": s["calibration_state"]} for s in sec["stations"]],
+        hide_index=True, width="stretch", key=f"shift_stations_{sec['line']}",
+    )  # fmt: skip
+    for a in sec.get("journal_alarms", []):
+        who = f", acknowledged by {a['acked_by']}" if a["acked_by"] else ""
+        st.warning(f"{a['station']}: {a['message']} ({a['state_at_end']} at the shift's "
+                   f"end{who})")
     for a in sec["alarms"]:
-        st.warning(f"{a['station']}: {a['message']}")
+        st.info(f"{a['station']}: {a['message']}")
 
 st.download_button(
     "Printable page (HTML)", report.to_html(), file_name=f"shift-{day}-{shift}.html",

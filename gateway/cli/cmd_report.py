@@ -308,6 +308,13 @@ def register(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
         "--min-ratio", type=float, help="alarm when a calibration's ratio is below this"
     )
     p.add_argument("--master-loss-limit", help="master loss limit for the drift projection")
+    p.add_argument("--target-yield", metavar="PCT", type=float,
+                   help="first-pass yield target in percent, e.g. 97.5 (none by default)")
+    p.add_argument("--site", help="site name in the header (default: the --config's site)")
+    p.add_argument("--pressure-unit", default="Pa", choices=("Pa", "kPa", "mbar", "psi"),
+                   help="pressure unit shown (Pa)")
+    p.add_argument("--leak-unit", default="sccm", choices=("sccm", "mbar*L/s", "Pa*m3/s"),
+                   help="leak-rate unit shown (sccm)")
     p.set_defaults(func=_shift_handler)
 
 

@@ -43,6 +43,10 @@ class ShiftOptions:
     standards: Sequence[Any] = ()
     plant_stations: Sequence[tuple[str, str]] | None = None  # (station, line) from a config
     config_source: str | None = None
+    site: str = ""
+    target_first_pass_yield: float | None = None  # a fraction, e.g. 0.975
+    pressure_unit: str = "Pa"  # shown on the printed page (the figures stay canonical)
+    leak_unit: str = "sccm"
 
 
 def build(args: argparse.Namespace, get_store: Callable[[], Any]) -> Report:
@@ -61,7 +65,14 @@ def build(args: argparse.Namespace, get_store: Callable[[], Any]) -> Report:
     master_loss = quantity(args.master_loss_limit, "pressure", "Pa", "--master-loss-limit")
     guard = quantity(args.guard_band, "leak", "sccm", "--guard-band")
     plant = plant_of(args)
+    target = getattr(args, "target_yield", None)
+    if target is not None and not 0 < target <= 100:
+        raise ValueError(f"--target-yield: expected a percentage in (0, 100], got {target:g}")
+    site = getattr(args, "site", None) or ("" if plant is None else plant.site)
     options = ShiftOptions(
+        site=site, target_first_pass_yield=None if target is None else target / 100,
+        pressure_unit=getattr(args, "pressure_unit", "Pa"),
+        leak_unit=getattr(args, "leak_unit", "sccm"),
         day=day, shift=args.shift, line=args.line, history_days=args.history,
         within_days=args.within, guard_band_sccm=guard, min_ratio=args.min_ratio,
         master_loss_limit_pa=master_loss, standards=standards,
@@ -77,6 +88,7 @@ def shift_report_of(store: Any, calendar: Any, options: ShiftOptions) -> Report:
     import pandas as pd
 
     from analytics import HealthConfig, shift_report
+    from analytics.shift_compare import previous_window
 
     o = options
     window = calendar.window(o.day, o.shift)
@@ -106,12 +118,19 @@ def shift_report_of(store: Any, calendar: Any, options: ShiftOptions) -> Report:
         ]
         frames = [f for f in frames if len(f)]
         statuses = pd.concat(frames, ignore_index=True) if frames else None
+    prev = previous_window(calendar, window)
+    prior = None if prev is None else store.results(
+        prev.start - timedelta(days=o.history_days), prev.end, line=o.line)
+    targets = ({} if o.target_first_pass_yield is None
+               else {"first_pass_yield": o.target_first_pass_yield})
     r = shift_report(
         window, calendar, results, cals, statuses, stations, list(o.standards),
         history_since=since, within_days=o.within_days, guard_band=o.guard_band_sccm,
-        health=health, line=o.line,
+        health=health, line=o.line, site=o.site, alarms=journal_alarms(store, window),
+        targets=targets, previous_results=prior,
     )  # fmt: skip
     result = r.to_dict()
+    result["units"] = {"pressure": o.pressure_unit, "leak": o.leak_unit}
     filters = {
         "date": o.day.isoformat(),
         "shift": o.shift,
@@ -123,13 +142,25 @@ def shift_report_of(store: Any, calendar: Any, options: ShiftOptions) -> Report:
     return Report("shift", filters, result, shift_text(result, calendar))
 
 
+def journal_alarms(store: Any, window: Any) -> list[Any] | None:
+    """The journal's alarm occurrences open during the shift (None for a store with no alarm
+    table, e.g. InfluxDB): the list the dashboard shows, read without writing."""
+    path = getattr(store, "path", None)
+    if path is None:
+        return None
+    from gateway.store.logbook import read_alarms
+
+    return read_alarms(path, window.start, window.end)
+
+
 def shift_text(r: dict[str, Any], calendar: Any) -> str:
     """The shift report as plain text (the table view of the same document)."""
     start = datetime.fromisoformat(r["start"]).astimezone(calendar.tz)
     end = datetime.fromisoformat(r["end"]).astimezone(calendar.tz)
+    site = f"{r['site']}: " if r.get("site") else ""
     lines = [
-        f"Shift {r['shift_date']} {r['shift']}: {start:%Y-%m-%d %H:%M} – {end:%Y-%m-%d %H:%M} "
-        f"({r['timezone']}), {r['tests']} tests"
+        f"{site}Shift {r['shift_date']} {r['shift']}: {start:%Y-%m-%d %H:%M} – "
+        f"{end:%Y-%m-%d %H:%M} ({r['timezone']}), {r['tests']} tests"
     ]
     if not r["has_data"]:
         lines.append(f"  {r['note']}")
@@ -142,6 +173,13 @@ def shift_text(r: dict[str, Any], calendar: Any) -> str:
             f"{rt['passed_after_retest']} of {rt['passes']} passes needed a retest "
             f"({pct(rt['share'])})" + (f"; {sec['note']}" if sec["note"] else ""),
         ]
+        for c in sec.get("comparison", []):
+            if c["previous"] is None and c["target"] is None:
+                continue
+            fig = (lambda v: "–" if v is None else f"{v:.0f}") if c["figure"] == "tests" else pct
+            extra = f", target {pct(c['target'])}" if c["target"] is not None else ""
+            lines.append(f"  {c['label']}: {fig(c['this'])}, previous shift "
+                         f"{fig(c['previous'])}{extra}")
         if sec["rejects"]["rows"]:
             lines.append(
                 "  rejects: "
@@ -153,7 +191,9 @@ def shift_text(r: dict[str, Any], calendar: Any) -> str:
                 + (f" (last {s['last_calibration_at'][:16]})" if s["last_calibration_at"] else "")
                 + (f", standard {s['standard_serial']}" if s["standard_serial"] else "")
             )
-        lines += [f"  alarm {a['station']}: {a['message']}" for a in sec["alarms"]]
+        lines += [f"  alarm {a['station']} ({a['state_at_end']} at the end): {a['message']}"
+                  for a in sec.get("journal_alarms", [])]
+        lines += [f"  found {a['station']}: {a['message']}" for a in sec["alarms"]]
         lines += [
             f"  standard {x['serial']} ({x['station']}) due {x['due_date']}: {x['status']}"
             for x in sec["standards"]

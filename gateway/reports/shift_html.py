@@ -1,28 +1,39 @@
 """The shift report as one self-contained, printable HTML file.
 
 Input is the ``leakfleet report shift --json`` document; output is a single HTML string with
-its CSS inline and its charts as inline SVG: no scripts, no fonts, no images, no links, so the
+its CSS inline (the Pareto's bars are CSS too): no scripts, no fonts, no images, no links, so the
 file opens the same on a shop-floor PC without network and in an auditor's archive years later.
-Print CSS sets the page (A4 or Letter), one line per page.
+Print CSS sets the page (A4 or Letter), one line per page: each line's section is one printed
+page with the site, "Line X — page n of N" (counted here, since Chromium's print margin boxes
+cannot name the line), its comparison with the previous shift and the target, its tables cut to
+what fits (with how many rows were left out) and a sign-off and comments block.
+
+Pressures and leak rates are printed in the document's ``units`` (``{"pressure": "kPa",
+"leak": "mbar*L/s"}``, default Pa and sccm), converted by ``gateway.units``; ``data-value``
+keeps the canonical value.
 
 Every figure printed from the document carries ``data-path`` (its place in the document's
 ``result``, e.g. ``lines/0/first_pass_yield``) and ``data-value`` (the JSON value), so a reader
 or a test can check the page against the JSON without parsing formatted text.
 
 The page is the jinja2 template ``templates/shift.html.j2`` (autoescape on: every value from
-the document is escaped); this module only computes the charts' geometry and renders.
+the document is escaped); this module only decides how many rows of each table fit the
+page, and renders.
 """
 
 from __future__ import annotations
 
 import json
-from collections.abc import Mapping, Sequence
+from collections.abc import Mapping
+from dataclasses import dataclass
 from datetime import datetime
 from functools import cache
 from typing import Any, Literal
 from zoneinfo import ZoneInfo
 
 import jinja2
+
+from gateway.units import from_canonical
 
 __all__ = ["PAPER_SIZES", "render_shift_html"]
 
@@ -47,6 +58,40 @@ def _pct(value: Any) -> str:
     return "–" if value is None else f"{100 * float(value):.1f} %"
 
 
+def _points(value: Any) -> str:
+    """A difference of two shares in percentage points, signed."""
+    return "–" if value is None else f"{100 * float(value):+.1f} pp"
+
+
+def _signed(value: Any) -> str:
+    return "–" if value is None else f"{float(value):+.0f}"
+
+
+_UNIT_LABELS = {"mbar*L/s": "mbar·L/s", "Pa*m3/s": "Pa·m³/s"}
+
+
+@dataclass(frozen=True)
+class _Units:
+    """The page's display units and their labels."""
+
+    pressure: str = "Pa"
+    leak: str = "sccm"
+
+    @property
+    def p_label(self) -> str:
+        return _UNIT_LABELS.get(self.pressure, self.pressure)
+
+    @property
+    def q_label(self) -> str:
+        return _UNIT_LABELS.get(self.leak, self.leak)
+
+    def shown(self, value: Any, kind: Literal["pressure", "leak"]) -> str:
+        if value is None:
+            return "–"
+        unit = self.pressure if kind == "pressure" else self.leak
+        return _num(from_canonical(float(value), unit, kind))
+
+
 def _num(value: Any, fmt: str = ".4g") -> str:
     if value is None:
         return "–"
@@ -65,61 +110,63 @@ def _environment() -> jinja2.Environment:
         undefined=jinja2.StrictUndefined,
         keep_trailing_newline=False,
     )
-    env.filters.update(json=_json, pct=_pct, num=_num)
+    env.filters.update(json=_json, pct=_pct, num=_num, points=_points, signed=_signed)
     return env
 
 
-def _yield_chart(fp: float | None, final: float | None, label: str) -> dict[str, Any]:
-    """Two horizontal bars on a 0–100 % scale: first-pass and final yield."""
-    w, h, left, right = 300, 74, 78, 44
-    span = w - left - right
-    bars = []
-    for name, value, y in (("first-pass", fp, 12), ("final", final, 40)):
-        bw = 0.0 if value is None else max(0.0, min(1.0, float(value))) * span
-        bars.append({"name": name, "value": value, "y": y, "width": f"{bw:.1f}",
-                     "text_x": f"{left + bw + 3:.1f}"})
-    grid = [{"x": f"{left + x * span:.1f}", "label": f"{int(x * 100)} %"} for x in (0, 0.5, 1.0)]
-    return {"w": w, "h": h, "left": left, "label": label, "grid": grid, "bars": bars}
+#: table rows of one text line that fit on a page beside the fixed parts, per paper size
+ROW_BUDGET = {"a4": 26.0, "letter": 22.0}
+# characters of a wrapping column per printed line (7.5 pt on A4's 186 mm text width)
+_WIDTH = {"journal_alarms": 52, "alarms": 62, "reasons": 26, "standards": 200, "parts": 200}
+_TEXT = {"journal_alarms": "message", "alarms": "message", "reasons": "category"}
+# the order lists get their rows in, after every list got its first MIN_ROWS
+_PRIORITY = ("journal_alarms", "reasons", "alarms", "standards", "parts")
+_MAX_ROWS = {"journal_alarms": 10, "reasons": 8, "alarms": 8, "standards": 8, "parts": 8}
+MIN_ROWS = 2
+MAX_STATIONS = 10  # rows of the two station tables a page prints
 
 
-def _retest_chart(passes: int, after: int) -> dict[str, Any]:
-    """One stacked bar: passes at the first test vs passes that needed a retest."""
-    w, h, left, right = 300, 74, 8, 8
-    span = w - left - right
-    w1 = span * (passes - after) / passes if passes > 0 else 0.0
-    return {"w": w, "h": h, "left": left, "right": right, "passes": passes, "after": after,
-            "first": passes - after, "w1": f"{w1:.1f}", "x2": f"{left + w1:.1f}",
-            "w2": f"{span - w1:.1f}"}
+def _lines(row: Mapping[str, Any], name: str) -> float:
+    """Printed lines one row takes (its wrapping text column decides)."""
+    text = str(row.get(_TEXT.get(name, ""), ""))
+    return float(max(1, -(-len(text) // _WIDTH[name])))
 
 
-def _pareto_chart(rows: Sequence[Mapping[str, Any]]) -> dict[str, Any]:
-    """Pareto of reject reasons: bars by falling count, cumulative share as a line."""
-    shown = list(rows[:8])
-    w, h, left, right, top, bottom = 660, 200, 40, 40, 12, 58
-    span_x, span_y = w - left - right, h - top - bottom
-    top_n = max(int(r["n"]) for r in shown)
-    grid = []
-    for frac in (0, 0.25, 0.5, 0.75, 1.0):
-        y = top + span_y * (1 - frac)
-        grid.append({"y": f"{y:.1f}", "ty": f"{y + 3:.1f}", "count": f"{top_n * frac:.3g}",
-                     "share": f"{int(frac * 100)} %"})
-    slot = span_x / max(len(shown), 6)  # few categories: bars keep a sensible width
-    bars, points = [], []
-    for i, r in enumerate(shown):
-        n = int(r["n"])
-        bh = span_y * n / top_n
-        x = left + i * slot + slot * 0.15
-        bw = slot * 0.7
-        label = str(r["category"])
-        label = label if len(label) <= 24 else label[:23] + "…"
-        bars.append({"x": f"{x:.1f}", "y": f"{top + span_y - bh:.1f}", "w": f"{bw:.1f}",
-                     "h": f"{bh:.1f}", "n": n, "category": str(r["category"]), "label": label,
-                     "cx": f"{x + bw / 2:.1f}", "ny": f"{top + span_y - bh - 3:.1f}",
-                     "ly": f"{top + span_y + 10:.1f}"})
-        cy = top + span_y * (1 - float(r["cumulative_share"]))
-        points.append((f"{x + bw / 2:.1f}", f"{cy:.1f}"))
-    return {"w": w, "h": h, "left": left, "right": right, "grid": grid, "bars": bars,
-            "points": points}
+def _limits(sec: Mapping[str, Any], budget: float) -> dict[str, int]:
+    """How many rows of each table a line's page prints so that it stays one page: stations
+    first (up to ``MAX_STATIONS``), then every list its first rows, then more in priority order.
+    The page says how many rows were left out."""
+    rows = {"journal_alarms": sec.get("journal_alarms", []), "alarms": sec["alarms"],
+            "reasons": sec["rejects"]["rows"], "standards": sec["standards"],
+            "parts": sec["retests"]["parts"]}
+    stations = min(len(sec["stations"]), MAX_STATIONS)
+    # the reasons sit beside the yield-by-station table (one row a station): lines up to its
+    # rows cost nothing more
+    by_station = min(len(sec["by_station"]), MAX_STATIONS)
+    beside = float(by_station)
+    left = budget - stations - beside
+    out = dict.fromkeys(rows, 0)
+
+    def take(name: str, upto: int) -> None:
+        nonlocal left, beside
+        while out[name] < min(upto, len(rows[name]), _MAX_ROWS[name]):
+            cost = _lines(rows[name][out[name]], name)
+            if name == "reasons":
+                free = min(beside, cost)
+                beside -= free
+                cost -= free
+            if cost > left:
+                return
+            left -= cost
+            out[name] += 1
+
+    for name in _PRIORITY:
+        take(name, MIN_ROWS)
+    for name in _PRIORITY:
+        take(name, _MAX_ROWS[name])
+    out["stations"] = stations
+    out["by_station"] = by_station
+    return out
 
 
 def render_shift_html(document: Mapping[str, Any], paper: Paper = "a4") -> str:
@@ -136,22 +183,24 @@ def render_shift_html(document: Mapping[str, Any], paper: Paper = "a4") -> str:
             return "–"
         return datetime.fromisoformat(iso).astimezone(tz).strftime(fmt)
 
-    charts = [
-        {
-            "yields": _yield_chart(sec["first_pass_yield"], sec["final_yield"], "yield"),
-            "retests": _retest_chart(int(sec["retests"]["passes"]),
-                                     int(sec["retests"]["passed_after_retest"])),
-            "pareto": _pareto_chart(sec["rejects"]["rows"]) if sec["rejects"]["rows"] else None,
-        }
-        for sec in r["lines"]
-    ]
-    return _environment().get_template("shift.html.j2").render(
+    limits = [_limits(sec, ROW_BUDGET[paper]) for sec in r["lines"]]
+    chosen = r.get("units") or {}
+    units = _Units(str(chosen.get("pressure", "Pa")), str(chosen.get("leak", "sccm")))
+    env = _environment().overlay()
+    env.filters.update(q=lambda v: units.shown(v, "leak"), pr=lambda v: units.shown(v, "pressure"))
+    when = (f"{local(r['start'])} – {local(r['end'])} local time ({r['timezone']}), "
+            f"{float(r['hours']):g} h; {r['tests']} tests on {len(r['lines'])} line(s)")
+    site = str(r.get("site") or "")
+    return env.get_template("shift.html.j2").render(
         r=r,
         c=_COLOURS,
-        charts=charts,
+        limits=limits,
         local=local,
+        u=units,
+        when=when,
+        site_name=site or "leakfleet",
         paper=paper,
         paper_size=PAPER_SIZES[paper],
         schema=int(document.get("schema", 1)),
-        title=f"Shift report {r['shift_date']} {r['shift']}",
+        title=f"{site + ': ' if site else ''}Shift report {r['shift_date']} {r['shift']}",
     )

@@ -9,20 +9,23 @@ and at most one open occurrence per key (a unique partial index enforces it).
 
 from __future__ import annotations
 
+import contextlib
 import sqlite3
 from collections.abc import Callable, Iterable, Sequence
 from dataclasses import dataclass
 from datetime import UTC, datetime
 from functools import partial
+from pathlib import Path
 from typing import Any, Protocol
 
 import pandas as pd
 
+from gateway.errors import StoreError
 from gateway.records import MaintenanceEvent
 from gateway.store._sqlite import from_us, to_us
 from gateway.store.alarm_events import apply_ack, apply_clear, apply_raise
 
-__all__ = ["AlarmRow", "Logbook"]
+__all__ = ["AlarmRow", "Logbook", "read_alarms"]
 
 
 class _Journal(Protocol):
@@ -156,3 +159,30 @@ class Logbook:
         when = at or datetime.now(UTC)
         return self._j._transaction(lambda conn: apply_ack(conn, alarm_id, by.strip(), when),
                                     "acknowledging an alarm")
+
+
+class _ReadOnly:
+    """A journal file opened read-only, enough for the logbook's readers (reports)."""
+
+    def __init__(self, conn: sqlite3.Connection) -> None:
+        self._conn = conn
+
+    def _query(self, sql: str, params: Sequence[Any], action: str) -> list[tuple[Any, ...]]:
+        return self._conn.execute(sql, params).fetchall()
+
+    def _execute_write(self, sql: str, params: Sequence[Any], action: str) -> None:
+        raise StoreError(f"{action}: the journal is open read-only")
+
+    def _transaction(self, work: Callable[[sqlite3.Connection], bool], action: str) -> bool:
+        raise StoreError(f"{action}: the journal is open read-only")
+
+
+def read_alarms(path: str | Path, since: datetime | None = None,
+                until: datetime | None = None) -> list[AlarmRow] | None:
+    """``Logbook.alarms`` of the journal file at ``path`` without opening it for writing (no
+    migration, no lock); None when it has no alarm table (an older or foreign file)."""
+    try:
+        with contextlib.closing(sqlite3.connect(f"file:{path}?mode=ro", uri=True)) as conn:
+            return Logbook(_ReadOnly(conn)).alarms(since, until)
+    except sqlite3.Error:
+        return None

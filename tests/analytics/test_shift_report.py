@@ -183,8 +183,8 @@ def test_html_is_self_contained_and_printable(
     assert not re.search(r"<script|<link|<img|<iframe|@import|url\(|@font-face", html, re.I)
     assert not re.search(r"(src|href)\s*=", html, re.I)
     assert not re.search(r"https?://(?!www\.w3\.org/2000/svg)", html)
-    assert html.count('<section class="line"') == 2
-    assert "break-before:page" in html and html.count("<svg") >= 3
+    assert html.count('<section class="line page"') == 2
+    assert "break-after:page" in html and "Comments, handover notes" in html
 
 
 def _config(directory: Path, url: str, extra: str = "") -> Path:
@@ -223,6 +223,9 @@ def test_config_gives_zone_shifts_register_and_store(
     assert main(["report", "shift", "--config", str(config), *night]) == 0
     from_config = json.loads(capsys.readouterr().out)
     from_options = _shift(journal, capsys, *night[:-1])
+    # the same figures; the config also names the site for the page's header
+    assert from_config["result"].pop("site") == "Northmere Works"
+    assert from_options["result"].pop("site") == ""
     assert from_config["result"] == from_options["result"]
     assert from_config["filters"]["config"] == str(config)
     # Options override the config: the same shift name on the UTC clock is another window.

@@ -47,8 +47,10 @@ def _shown(value: Any, key: str) -> set[str]:
     if isinstance(value, str):
         return {value}
     out = {format(value, ".4g"), f"{value:g}"}
-    if "yield" in key or "share" in key:
-        out.add(f"{100 * value:.1f} %")
+    if "yield" in key or "share" in key or key in ("this", "previous", "target"):
+        out |= {f"{100 * value:.1f} %", f"{value:.0f}"}  # a comparison's share, or its tests
+    if key in ("change", "versus_target"):  # percentage points, or a signed count of tests
+        out |= {f"{100 * value:+.1f} pp", f"{value:+.0f}"}
     return out
 
 
@@ -117,6 +119,68 @@ def test_page_in_chromium_matches_json(
         for j, _ in enumerate(sec["standards"]):
             assert f"lines/{i}/standards/{j}/days_left" in seen
     assert seen["lines/0/first_pass_yield"] == pytest.approx(4 / 7)
-    # One line per printed page: at least as many A4 pages as lines.
+    # One line per printed page (the page objects of the PDF counted)
     pages = len(re.findall(rb"/Type\s*/Page(?!s)", pdf))
-    assert pages >= len(result["lines"])
+    assert pages == len(result["lines"])
+
+
+def _print(html: Path, paper: str) -> bytes:
+    with sync_api.sync_playwright() as pw:
+        browser = pw.chromium.launch(executable_path=str(CHROMIUM), args=ARGS)
+        try:
+            page = browser.new_page()
+            page.goto(html.resolve().as_uri(), wait_until="load")
+            return page.pdf(prefer_css_page_size=True)
+        finally:
+            browser.close()
+
+
+@pytest.mark.parametrize("paper", ["a4", "letter"])
+def test_two_line_plant_prints_one_page_per_line(tmp_path: Path, paper: str) -> None:
+    """Printed by Chromium's print-to-PDF: exactly one page per line, each naming the site,
+    its line and page, with the sign-off block, full reason labels, the comparison, the
+    journal's alarm state and the chosen units."""
+    import contextlib
+    import io
+    from datetime import UTC, datetime
+
+    import pint
+    pypdf = pytest.importorskip("pypdf")
+
+    from analytics.alarms import Condition, transitions
+    from gateway.store import open_journal
+    from gateway.store.logbook import Logbook
+
+    url = write_journal(tmp_path)
+    with open_journal(url) as j:  # an alarm acknowledged in the night shift, still open
+        book = Logbook(j)
+        at = datetime(2026, 1, 14, 23, 0, tzinfo=UTC)
+        book.apply(transitions([Condition("reject-streak:L1-S1", "reject-streak", "L1-S1",
+                                          "alarm", at, "3 rejects in a row")], []), at)
+        book.acknowledge(book.open_alarms()[0].id, "J. Doe", at)
+    html = tmp_path / f"night-{paper}.html"
+    argv = ["report", "shift", "--store", url, "--standards", str(tmp_path / "standards.csv"),
+            "--timezone", "Europe/Berlin", "--date", "2026-01-14", "--shift", "night",
+            "--site", "Northmere Works", "--target-yield", "95", "--pressure-unit", "kPa",
+            "--leak-unit", "mbar*L/s", "--paper", paper, "--html", str(html)]  # fmt: skip
+    with contextlib.redirect_stdout(io.StringIO()), contextlib.redirect_stderr(io.StringIO()):
+        assert main(argv) == 0
+    pdf = pypdf.PdfReader(io.BytesIO(_print(html, paper)))
+    texts = [" ".join(p.extract_text().split()) for p in pdf.pages]
+    assert len(texts) == 2  # two lines, two pages
+    for n, text in enumerate(texts, 1):
+        assert f"Line L{n} — page {n} of 2" in text
+        assert "Northmere Works" in text and "Comments, handover notes" in text
+        assert "Shift leader (name, signature)" in text and "Received by, next shift" in text
+        assert "previous" in text and "target 95.0 %" in text
+        assert "[kPa]" in text and "mbar·L/s" in text
+    l1 = texts[0]
+    for reason in ("leak above limit", "gross leak", "no part seated"):  # whole labels
+        assert reason in l1
+    assert "acknowledged (1)" in l1 and "J. Doe" in l1 and "reject-streak" in l1
+    assert "previous 50.0 % (+7.1 pp)" in l1  # 4/7 against the late shift's 1/2
+    # LS-101's nominal 5 sccm in mbar·L/s; reference: pint, 1 sccm = 1 cm³/min at 1013.25 mbar
+    # (0 °C standard conditions, the project's canonical leak unit)
+    u = pint.UnitRegistry()
+    nominal = (5 * u("cm**3/min") * 1013.25 * u.mbar).to("mbar * L / s").magnitude
+    assert f"{nominal:.4g}" in l1
