@@ -4,8 +4,9 @@ Input is the ``leakfleet report shift --json`` document; output is a single HTML
 its CSS inline (the Pareto's bars are CSS too): no scripts, no fonts, no images, no links, so the
 file opens the same on a shop-floor PC without network and in an auditor's archive years later.
 Print CSS sets the page (A4 or Letter), one line per page: each line's section is one printed
-page with the site, "Line X — page n of N" (counted here, since Chromium's print margin boxes
-cannot name the line), its comparison with the previous shift and the target, its tables cut to
+page with the site and "Line X — page n of N" (counted here: Chromium prints ``@page`` margin
+boxes with their page counters, the bottom's "sheet n of N", but cannot put the line's name in
+one), its comparison with the previous shift and the target, its tables cut to
 what fits (with how many rows were left out) and a sign-off and comments block.
 
 Pressures and leak rates are printed in the document's ``units`` (``{"pressure": "kPa",

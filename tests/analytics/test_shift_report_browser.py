@@ -170,6 +170,7 @@ def test_two_line_plant_prints_one_page_per_line(tmp_path: Path, paper: str) -> 
     assert len(texts) == 2  # two lines, two pages
     for n, text in enumerate(texts, 1):
         assert f"Line L{n} — page {n} of 2" in text
+        assert f"sheet {n} of 2" in text  # the @page margin box's counters, as Chromium prints
         assert "Northmere Works" in text and "Comments, handover notes" in text
         assert "Shift leader (name, signature)" in text and "Received by, next shift" in text
         assert "previous" in text and "target 95.0 %" in text
