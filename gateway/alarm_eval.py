@@ -102,9 +102,12 @@ def _conflict_counts(store: Any, now: datetime) -> dict[str, int]:
 
 
 def evaluate(journal: Any, store: Any, now: datetime | None = None,
-             rules: AlarmRules | None = None, sinks: Sequence[str] = ()) -> int:
+             rules: AlarmRules | None = None,
+             sinks: Sequence[str] | Mapping[str, Sequence[str]] = ()) -> int:
     """One evaluation: conditions from ``store``, states into ``journal``'s logbook.
-    Returns how many alarms were raised or cleared."""
+    ``sinks`` names the sinks whose backlog is judged, or maps each to the record kinds it
+    forwards (a kind it never sends is no backlog; empty: every kind). Returns how many
+    alarms were raised or cleared."""
     from gateway.store.logbook import Logbook
 
     now = now or datetime.now(UTC)
@@ -119,8 +122,9 @@ def evaluate(journal: Any, store: Any, now: datetime | None = None,
     backlog = getattr(journal, "backlog", None)
     if sinks and callable(backlog):
         oldest: dict[str, tuple[int, timedelta | None]] = {}
-        for sink in sinks:
-            kinds = backlog(sink)
+        forwarded = sinks if isinstance(sinks, Mapping) else dict.fromkeys(sinks, ())
+        for sink, only in forwarded.items():
+            kinds = {k: v for k, v in backlog(sink).items() if not only or k in only}
             count = sum(n for n, _ in kinds.values())
             ages = [now - t for _, t in kinds.values() if t is not None]
             oldest[sink] = (count, max(ages) if ages else None)

@@ -636,7 +636,8 @@ class Runtime:
                 prune_task = None
             cap_task = tg.create_task(_cap_quarantine_forever(writer), name="quarantine bound")
             alarm_task = tg.create_task(
-                _alarms_forever(cfg.store, [f.name for f in self.forwarders]),
+                _alarms_forever(cfg.store, [f"{f.name}={'+'.join(_kinds_of(f))}"
+                                            for f in self.forwarders]),
                 name="alarm rules",
             )
             for fwd in self.forwarders:

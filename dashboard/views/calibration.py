@@ -7,9 +7,14 @@ import pandas as pd
 import streamlit as st
 
 from analytics import HealthConfig, calibration_health
-from dashboard import charts, data
+from dashboard import charts, data, tables
 from dashboard.common import page, time_range
-from dashboard.display import fmt
+from dashboard.display import fmt, labelled
+
+_SERIES = {"master_loss_pa": "master loss", "standard_loss_pa": "standard loss",
+           "sensitivity": "sensitivity", "ratio": "ratio", "window": "span"}
+_KINDS = {"ewma": "EWMA", "cusum": "CUSUM", "ratio": "ratio below minimum",
+          "window": "span too narrow", "failed": "failed", "projection": "drift projection"}
 
 p = page("Calibration")
 u = p.units
@@ -51,7 +56,7 @@ if not alarms.empty:
 m1, m2, m3 = st.columns(3)
 m1.metric("Calibrations", sh.n)
 m2.metric("Failed", sum(not x for x in sh.passed))
-m3.metric("Alarms", len(sh.alarms))
+m3.metric("Chart alarms", len(sh.alarms))
 st.markdown(f"**Drift of the master loss:** {sh.projection.status} — {sh.projection.note}")
 if sh.projection.reaches_limit_at is not None:
     st.warning(f"Projected to reach the limit on {p.local(sh.projection.reaches_limit_at)}")
@@ -70,7 +75,8 @@ left.altair_chart(charts.series(shown, "master", f"master loss [{u.p_label}]", c
                   width="stretch")  # fmt: skip
 right.altair_chart(charts.series(shown, "standard", f"standard loss [{u.p_label}]", chart_alarms),
                    width="stretch")  # fmt: skip
-left.altair_chart(charts.series(shown, "ratio", "ratio", chart_alarms), width="stretch")
+left.altair_chart(charts.series(shown, "ratio", "ratio standard / master loss [–]",
+                                chart_alarms), width="stretch")  # fmt: skip
 right.altair_chart(
     charts.series(shown, "sens", f"sensitivity [{u.q_label}/{u.p_label}]", chart_alarms),
     width="stretch",
@@ -98,18 +104,19 @@ st.subheader("Alarms")
 if alarms.empty:
     st.success("No alarms for this station and program.")
 else:
-    alarms["at"] = alarms["at"].dt.tz_convert(p.settings.timezone)
-    st.dataframe(alarms[["at", "kind", "series", "message"]], hide_index=True,
-                 width="stretch", key="cal_alarms")  # fmt: skip
+    table = alarms[["at", "kind", "series", "message"]].assign(
+        kind=alarms["kind"].map(_KINDS).fillna(alarms["kind"]),
+        series=alarms["series"].map(_SERIES).fillna(alarms["series"]))
+    tables.show(labelled(table, u, p.settings.timezone).rename(
+        columns={"Kind": "Rule", "Series": "Measured"}), key="cal_alarms")
 
 st.subheader("Failed calibrations")
 failed = series[~series["passed"].astype(bool)]
 if failed.empty:
     st.success("None in this range.")
 else:
-    table = u.frame(failed[["ended_at", "program", "master_loss_pa", "standard_loss_pa", "ratio",
-                            "reason"]])  # fmt: skip
-    table["ended_at"] = table["ended_at"].dt.tz_convert(p.settings.timezone)
-    st.dataframe(table, hide_index=True, width="stretch", key="cal_failed")
+    table = labelled(failed[["ended_at", "program", "master_loss_pa", "standard_loss_pa",
+                             "ratio", "reason"]], u, p.settings.timezone)  # fmt: skip
+    tables.show(table, key="cal_failed")
 st.caption(f"Newest: {p.local(series['ended_at'].iloc[-1])}, master loss "
            f"{fmt(u.p(series['master_loss_pa'].iloc[-1]))} {u.p_label}")  # fmt: skip

@@ -8,9 +8,12 @@ import io
 import pandas as pd
 import streamlit as st
 
-from dashboard import data
+from dashboard import data, tables
 from dashboard.common import page, pick, time_range
+from dashboard.display import cut_note, labelled
 from dashboard.export import to_xlsx
+
+_QUARANTINE_ROWS = 1000
 
 p = page("Data")
 tab_records, tab_quarantine = st.tabs(["Records", "Quarantine"])
@@ -40,15 +43,22 @@ with tab_records:
     else:
         frame = data.statuses(p.url, since, until, station=station, limit=int(limit),
                               newest_first=True)  # fmt: skip
+    total: int | None = len(frame)
+    if len(frame) >= int(limit):  # cut: say by how much when the summaries can tell
+        total = None
+        if kind == "results" and program is None and part is None:
+            counts = data.verdict_counts(p.url, since, until, by=(), station=station)
+            total = int(counts["n"].sum()) if not counts.empty else None
     st.caption(
-        f"{len(frame):,} row(s); times in {p.settings.timezone}; values in the units "
-        "chosen in the sidebar (downloads keep the canonical units, Pa and sccm, UTC)"
+        f"{len(frame):,} row(s), newest first; times in {p.settings.timezone}; values in the "
+        "units chosen in the sidebar (the CSV and Parquet downloads keep the field names, the "
+        "canonical units Pa and sccm, and UTC)"
     )
-    shown = p.units.frame(frame)
-    for col in ("ended_at", "received_at", "at"):
-        if col in shown.columns:
-            shown[col] = shown[col].dt.tz_convert(p.settings.timezone)
-    st.dataframe(shown, hide_index=True, width="stretch", key="data_table")
+    note = cut_note(len(frame), total) if len(frame) >= int(limit) else None
+    if note:
+        st.caption(note)
+    shown = labelled(frame, p.units, p.settings.timezone)
+    tables.show(shown, key="data_table")
     stem = f"leakfleet-{kind.replace(' ', '-')}"
     d1, d2, d3 = st.columns(3)
     d1.download_button("Download CSV", frame.to_csv(index=False).encode(), f"{stem}.csv",
@@ -63,16 +73,15 @@ with tab_records:
                        "application/vnd.apache.parquet", key="data_parquet")  # fmt: skip
 
 with tab_quarantine:
-    q = data.quarantine(p.url, None, None, station=station, limit=1000)
+    q = data.quarantine(p.url, None, None, station=station, limit=_QUARANTINE_ROWS)
     if q.empty:
         st.success("Nothing in quarantine: every line and register block was readable.")
     else:
         q = q.assign(received_at=pd.to_datetime(q["received_at"], utc=True)
                      .dt.tz_convert(p.settings.timezone))  # fmt: skip
         st.caption(f"{len(q):,} newest rejected input(s)")
-        st.dataframe(
-            q[["received_at", "station", "profile", "reason", "raw", "line_no"]],
-            hide_index=True,
-            width="stretch",
-            key="quarantine_table",
-        )
+        if len(q) >= _QUARANTINE_ROWS:
+            st.caption(cut_note(len(q), None, "rejected inputs"))
+        tables.show(labelled(q[["received_at", "station", "profile", "reason", "raw",
+                                "line_no"]], p.units, p.settings.timezone),
+                    key="quarantine_table")  # fmt: skip

@@ -14,7 +14,8 @@ import pandas as pd
 import streamlit as st
 
 from analytics import advise_test_time, grr_anova, grr_average_range, type1_study
-from dashboard import charts, data
+from analytics.drift import project_drift
+from dashboard import charts, data, tables
 from dashboard.common import TEST_PARAMETER_NOTE, page, time_range
 from dashboard.display import fmt
 
@@ -30,6 +31,11 @@ source = st.radio("Data", ["Master-part runs from the store", "Upload a CSV"], h
                   key="gauge_source")  # fmt: skip
 
 
+_ANOVA = {"source": "Source of variation", "df": "Degrees of freedom",
+          "ss": "Sum of squares [unit²]", "ms": "Mean square [unit²]", "f": "F ratio",
+          "p": "p-value"}
+
+
 def show_type1(values_disp: np.ndarray, reference: float, tolerance: float) -> None:
     try:
         t1 = type1_study(values_disp, reference, tolerance)
@@ -37,10 +43,10 @@ def show_type1(values_disp: np.ndarray, reference: float, tolerance: float) -> N
         st.warning(f"No type 1 study: {exc}")
         return
     a, b, c, d = st.columns(4)
-    a.metric("Cg", fmt(t1.cg))
-    b.metric("Cgk", fmt(t1.cgk))
-    c.metric("n", t1.n)
-    d.metric("Bias", fmt(t1.bias), help=f"t-test p = {fmt(t1.bias_p)}")
+    a.metric("Cg (repeatability)", fmt(t1.cg))
+    b.metric("Cgk (with bias)", fmt(t1.cgk))
+    c.metric("Readings", t1.n)
+    d.metric(f"Bias [{u.q_label}]", fmt(t1.bias), help=f"t-test p = {fmt(t1.bias_p)}")
     (st.success if t1.capable else st.warning)(t1.note)
 
 
@@ -58,11 +64,18 @@ def show_grr(df: pd.DataFrame, tolerance: float | None) -> None:
             "%GRR of tolerance",
             "–" if r.pct_grr_tolerance is None else f"{r.pct_grr_tolerance:.1f} %",
         )
-        c.metric("ndc", r.ndc)
-        d.metric("EV / AV", f"{fmt(r.ev)} / {fmt(r.av)}")
+        c.metric("Distinct categories (ndc)", r.ndc)
+        d.metric(f"Repeatability EV / reproducibility AV [{u.q_label}]",
+                 f"{fmt(r.ev)} / {fmt(r.av)}")
         if r.anova:
-            st.dataframe(pd.DataFrame([row.to_dict() for row in r.anova]), hide_index=True,
-                         key=f"gauge_anova_{method}")  # fmt: skip
+            table = pd.DataFrame([row.to_dict() for row in r.anova])
+            for col in ("ss", "ms", "f", "p"):  # the residual row has no F and no p
+                table[col] = [
+                    "–" if v is None or pd.isna(v) else format(float(v), ".4g")
+                    for v in table[col]
+                ]
+            labels = {k: v.replace("unit", u.q_label) for k, v in _ANOVA.items()}
+            tables.show(table.rename(columns=labels), key=f"gauge_anova_{method}")
         st.caption(r.note)
 
 
@@ -114,7 +127,8 @@ if source.startswith("Master"):
     sens = float(np.median(cals["sensitivity"].to_numpy(float)))
     tolerance = reject - lower if lower is not None else reject
     st.caption(
-        f"{len(losses)} master-part test(s) at {test_s:g} s; sensitivity {fmt(sens)} sccm/Pa; "
+        f"{len(losses)} master-part test(s) at {test_s:g} s; sensitivity "
+        f"{fmt(sens * u.q_factor / u.p_factor)} {u.q_label}/{u.p_label}; "
         f"tolerance {fmt(u.q(tolerance))} {u.q_label}"
     )
     st.subheader("Type 1 study of the master part")
@@ -125,6 +139,18 @@ if source.startswith("Master"):
         "median as zero, so bias is not assessed here; Cg (repeatability) is."
     )
     st.subheader("Test-time advice")
+    # the advice treats the master-part losses as repeats of one stable reading: a trend
+    # (seal wear, a warming fixture) inflates their spread and the advice with it
+    drift = project_drift(cals["ended_at"], losses, None)
+    if drift.status == "drifting":
+        st.warning(
+            f"The master part's losses drift ({fmt(u.p(drift.slope_per_day))} {u.p_label} per "
+            f"day, Theil–Sen trend whose 95 % interval excludes zero): their spread is not "
+            "repeatability alone, so the advice below is not to be trusted as it is. Pick a "
+            "range within one calibration epoch (after the last seal change or repair) or "
+            "find the cause on the calibration page first.",
+            icon=":material/trending_up:",
+        )
     target = st.slider("Target %GRR", 5.0, 30.0, 10.0, 0.5, key="gauge_target")
     show_advice(losses, test_s, sens, reject, lower, target)
     st.caption("Gauge R&R needs several parts and operators: upload a study as a CSV.")
@@ -143,6 +169,8 @@ else:
         st.error(f"{upload.name}: not a readable CSV ({exc})")
         st.stop()
     st.dataframe(frame.head(20), hide_index=True, key="gauge_upload_preview")
+    if len(frame) > 20:
+        st.caption(f"The first 20 of {len(frame):,} rows; the study uses all of them.")
     a, b = st.columns(2)
     tol = a.number_input(f"Tolerance [{u.q_label}]", 0.0, 1e9, 2.0, key="gauge_tol")
     ref = b.number_input(f"Reference value [{u.q_label}]", -1e9, 1e9, 0.0, key="gauge_ref")
@@ -156,6 +184,8 @@ else:
         s0 = d.number_input("Sensitivity [sccm/Pa]", 0.0, 100.0, 0.05, format="%.5f",
                             key="gauge_s0")  # fmt: skip
         target = e.number_input("Target %GRR", 1.0, 50.0, 10.0, key="gauge_target_csv")
+        st.caption("Uploaded losses carry no times, so a drift cannot be checked here: use "
+                   "master-part runs from one stable period (one calibration epoch).")
         show_advice(pd.to_numeric(frame["loss_pa"], errors="coerce").to_numpy(float), t0, s0,
                     tol / u.q_factor, None, target)  # fmt: skip
     if not {"value", "loss_pa"} & set(frame.columns):

@@ -46,9 +46,9 @@ for station, line in zip(p.stations["station"], p.stations["line"], strict=True)
     rows.append({
         "Station": station, "Line": line,
         "Link": str(status.loc[station, "state"]) if known else "unknown",
-        "Since": _ago(status.loc[station, "at"]) if known else "never",
-        "Newest result": _ago(results.loc[station, "ended_at"]) if station in results.index
-        else "never",
+        "In this state for": _ago(status.loc[station, "at"]) if known else "–",
+        "Newest result, age": _ago(results.loc[station, "ended_at"])
+        if station in results.index else "never",
         "Link drops, 24 h": drops,
         "Quarantined lines, 24 h": bad,
     })  # fmt: skip
@@ -63,7 +63,7 @@ else:
     per_hour = charts.plant_clock(q.groupby(["hour", "station"]).size().reset_index(name="n"), tz)
     st.altair_chart(
         alt.Chart(per_hour).mark_bar().encode(
-            x=alt.X("hour:T", title=None, axis=alt.Axis(format="%H:%M")),
+            x=alt.X("hour:T", title=f"hour ({tz})", axis=alt.Axis(format="%H:%M")),
             y=alt.Y("n:Q", title="quarantined lines per hour"),
             color=alt.Color("station:N", title="station"),
             tooltip=["station", "n"],
@@ -86,7 +86,8 @@ else:
         ]
     )
     st.dataframe(shown.rename(columns={"sink": "Sink", "kind": "Records", "waiting": "Waiting",
-                                       "oldest": "Oldest waiting for"}),
+                                       "oldest": "Oldest waiting for"})
+                 [["Sink", "Records", "Waiting", "Oldest waiting for"]],
                  hide_index=True, width="stretch", key="health_sinks")  # fmt: skip
 
 st.subheader("Conflicting re-sends")

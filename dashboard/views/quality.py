@@ -8,9 +8,9 @@ import pandas as pd
 import streamlit as st
 
 from analytics import standard_drift, standards_due
-from dashboard import data, derived
+from dashboard import data, derived, tables
 from dashboard.common import page, pick, time_range
-from dashboard.display import fmt
+from dashboard.display import fmt, labelled, pct
 
 _RETEST_ROWS = 200_000  # retest analysis follows parts across tests: bounded row count
 
@@ -36,9 +36,8 @@ def part_search() -> None:
             c.metric("Rejects before the first pass", "–" if rejects is None else rejects)
             table = pd.DataFrame(history["tests"])
             for col in ("ended_at", "calibration_at"):
-                table[col] = pd.to_datetime(table[col], utc=True).dt.tz_convert(p.settings.timezone)
-            st.dataframe(u.frame(table), hide_index=True, width="stretch",
-                         key="q_part_table")  # fmt: skip
+                table[col] = pd.to_datetime(table[col], utc=True)
+            tables.show(labelled(table, u, p.settings.timezone), key="q_part_table")
             st.caption(f"{history['note']}; calibration in force = the station's latest "
                        "calibration of the same program before the test")
 
@@ -65,29 +64,22 @@ else:
     a, b, c, d = st.columns(4)
     a.metric("Parts", f"{report.parts:,}")
     b.metric("Passed after a retest", report.passed_after_retest)
-    c.metric("Share of passes needing a retest",
-             "–" if report.share_of_passes_after_retest is None
-             else f"{report.share_of_passes_after_retest:.2%}")  # fmt: skip
+    c.metric("Share of passes needing a retest", pct(report.share_of_passes_after_retest))
     d.metric("Passed after ≥ 2 rejects", len(report.passed_after_two_or_more_rejects))
     for alarm in report.alarms:
         st.warning(alarm.message, icon=":material/notifications_active:")
     if report.by_group:
-        st.dataframe(
-            pd.DataFrame(report.by_group),
-            hide_index=True,
-            width="stretch",
-            key="q_retest_groups",
-            column_config={"share": st.column_config.NumberColumn(format="percent")},
-        )
+        tables.show(labelled(pd.DataFrame(report.by_group), u), key="q_retest_groups")
     if report.marginal_passes:
         st.markdown("**Marginal passes** (in the guard band right after a reject)")
         marginal = pd.DataFrame(report.marginal_passes)
-        st.dataframe(u.frame(marginal), hide_index=True, key="q_marginal")
-    if report.passed_after_two_or_more_rejects:
-        st.caption(
-            "Passed only after two or more rejects: "
-            + ", ".join(report.passed_after_two_or_more_rejects[:50])
-        )
+        if "ended_at" in marginal:
+            marginal["ended_at"] = pd.to_datetime(marginal["ended_at"], utc=True)
+        tables.show(labelled(marginal, u, p.settings.timezone), key="q_marginal")
+    twice = report.passed_after_two_or_more_rejects
+    if twice:
+        more = f" and {len(twice) - 50:,} more" if len(twice) > 50 else ""
+        st.caption("Passed only after two or more rejects: " + ", ".join(twice[:50]) + more)
     st.caption(report.note)
 
 st.subheader("Leak standards")
@@ -99,8 +91,7 @@ else:
     within = st.slider("Due within (days)", 7, 180, 30, key="q_due_days")
     today = p.now.astimezone(p.tz).date()
     due = standards_due(p.settings.standards, today, within)
-    st.dataframe(pd.DataFrame([s.to_dict() for s in due]), hide_index=True,
-                 width="stretch", key="q_standards")  # fmt: skip
+    tables.show(labelled(pd.DataFrame([s.to_dict() for s in due]), u), key="q_standards")
     for s in due:
         if s.status == "overdue":
             st.error(f"{s.serial} on {s.station} is overdue since {s.due_date}")
@@ -111,6 +102,8 @@ else:
         if cals.empty:
             continue
         drift = standard_drift(cals, std)
+        per_day = (None if drift.slope_per_day is None
+                   else drift.slope_per_day * u.q_factor / u.p_factor)
         st.caption(f"{std.serial}: measured sensitivity since the certificate — {drift.status}"
-                   + (f", {fmt(drift.slope_per_day)} sccm/Pa per day" if drift.slope_per_day
+                   + (f", {fmt(per_day)} {u.q_label}/{u.p_label} per day" if per_day
                       else ""))  # fmt: skip

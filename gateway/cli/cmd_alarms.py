@@ -46,7 +46,8 @@ def register(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
     watch.add_argument("--interval", type=float, default=30.0, metavar="S",
                        help="seconds between evaluations (default 30)")
     watch.add_argument("--sinks", default="", metavar="A,B",
-                       help="sinks whose backlog the rules watch")
+                       help="sinks whose backlog the rules watch; NAME=KIND+KIND counts only "
+                       "the record kinds that sink forwards (e.g. scada=result+status)")
     watch.set_defaults(func=_watch)
 
 
@@ -106,6 +107,22 @@ def _evaluate(args: argparse.Namespace) -> int:
     return 0
 
 
+def sink_kinds(text: str) -> dict[str, tuple[str, ...]]:
+    """``--sinks``: sink → the kinds it forwards (empty: every kind)."""
+    from gateway.store.journal import KINDS
+
+    out: dict[str, tuple[str, ...]] = {}
+    for entry in filter(None, (e.strip() for e in text.split(","))):
+        name, _, kinds = entry.partition("=")
+        listed = tuple(k for k in kinds.split("+") if k)
+        unknown = [k for k in listed if k not in KINDS]
+        if not name or unknown:
+            raise ValueError(f"--sinks: expected NAME or NAME=KIND+KIND with kinds from "
+                             f"{', '.join(KINDS)}, got {entry!r}")
+        out[name] = listed
+    return out
+
+
 def _watch(args: argparse.Namespace) -> int:
     """Evaluate until SIGTERM/SIGINT. Its own process, so the statistics libraries the rules
     need never weigh on the gateway's memory; a failed round is reported and retried."""
@@ -119,7 +136,7 @@ def _watch(args: argparse.Namespace) -> int:
 
     if not 1.0 <= args.interval <= 86400:
         raise ValueError(f"--interval: expected 1..86400 s, got {args.interval:g}")
-    sinks = [s for s in args.sinks.split(",") if s]
+    sinks = sink_kinds(args.sinks)
     stopping = False
 
     def stop(signum: int, frame: object) -> None:

@@ -5,6 +5,7 @@ from __future__ import annotations
 
 from pathlib import Path
 
+import pandas as pd
 import pytest
 
 from tests.dashboard.conftest import AppFactory
@@ -116,14 +117,14 @@ def test_gauge_page_from_store_and_upload(app: AppFactory, demo_journal: Path) -
     assert any("qualified person" in w.value for w in at.warning)
     at.selectbox(key="gauge_station").set_value("L2-S2").run()
     m = _metrics(at)
-    assert "Cg" in m and "%GRR now" in m
+    assert "Cg (repeatability)" in m and "%GRR now" in m
     assert m["Shortest test time for target"].endswith(" s")
 
 
 def test_quality_part_history_search(app: AppFactory, demo_journal: Path) -> None:
     at = app(demo_journal, "views/quality.py")
     assert "Parts" in _metrics(at)
-    assert len(_table(at, "passes", "share")) >= 1
+    assert len(_table(at, "Passes", "Share of passes retested [%]")) >= 1
     from gateway.store import open_store
 
     store = open_store(str(demo_journal))
@@ -131,8 +132,8 @@ def test_quality_part_history_search(app: AppFactory, demo_journal: Path) -> Non
     store.close()
     at.text_input(key="q_part").input(pid).run()
     assert not at.exception
-    history = _table(at, "calibration_at")
-    assert set(history["station"]) == {"L1-S3"}
+    history = _table(at, "Calibration in force")
+    assert set(history["Station"]) == {"L1-S3"}
     assert _metrics(at)["Tests"] == str(len(history))
     at.text_input(key="q_part").input("NO-SUCH-PART").run()
     assert any("No tests of part" in i.value for i in at.info)
@@ -140,22 +141,24 @@ def test_quality_part_history_search(app: AppFactory, demo_journal: Path) -> Non
 
 def test_data_filters_and_quarantine(app: AppFactory, demo_journal: Path) -> None:
     at = app(demo_journal, "views/data_view.py")
-    table = _table(at, "station", "record_id")
-    assert len(table) == 1000 and table["station"].nunique() == 6
+    table = _table(at, "Station", "Record id")
+    assert len(table) == 1000 and table["Station"].nunique() == 6
+    assert any(c.value.startswith("Showing 1,000 of ") for c in at.caption)  # cut, and by how much
     at.selectbox(key="data_station").set_value("L1-S3").run()
-    assert set(_table(at, "station", "record_id")["station"]) == {"L1-S3"}
+    assert set(_table(at, "Station", "Record id")["Station"]) == {"L1-S3"}
     at.selectbox(key="data_kind").set_value("calibrations").run()
-    cal = _table(at, "ratio")
-    assert len(cal) >= 1 and "ratio" in cal.columns
-    quarantine = _table(at, "raw", "reason", "line_no")
-    assert list(quarantine["reason"]) == ["no field separator"]
+    cal = _table(at, "Ratio (standard / master)")
+    assert len(cal) >= 1
+    quarantine = _table(at, "Raw input", "Reason", "Line no.")
+    assert list(quarantine["Reason"]) == ["no field separator"]
 
 
 def test_units_switch_changes_shown_values(app: AppFactory, demo_journal: Path) -> None:
     at = app(demo_journal, "views/data_view.py")
-    sccm = _table(at, "leak_rate [sccm]")["leak_rate [sccm]"]
+    sccm = pd.to_numeric(_table(at, "Leak rate [sccm]")["Leak rate [sccm]"], errors="coerce")
     at.sidebar.selectbox(key="lf_leak_unit").set_value("mbar*L/s").run()
-    mbarl = _table(at, "leak_rate [mbar·L/s]")["leak_rate [mbar·L/s]"]
+    mbarl = pd.to_numeric(_table(at, "Leak rate [mbar·L/s]")["Leak rate [mbar·L/s]"],
+                          errors="coerce")
     # 1 sccm = 101325 Pa · 1e-6 m³ / 60 s = 1.68875e-3 Pa·m³/s = 1.68875e-2 mbar·L/s
     # (definition of the standard cm³ per minute at 101.325 kPa, 0 °C reference)
     ratio = (mbarl / sccm).dropna()

@@ -79,3 +79,29 @@ def test_events_are_a_journal_kind_with_cursor_backlog_and_pruning(tmp_path: Pat
         assert j.prune(T0 + timedelta(days=1), {"alarm": ["mqtt"]}) == 1
         assert [e.key for _, e in j.read_after("alarm", 0, 10)] == ["b"]
         assert j.backlog("mqtt")["alarm"] == (1, T0)
+
+
+def test_a_sink_that_does_not_forward_alarm_events_has_no_backlog_of_them(
+        tmp_path: Path) -> None:
+    """The alarm rules judge a sink's backlog by the kinds it forwards: alarm events waiting
+    for a Sparkplug sink (which never sends them) must not raise a backlog alarm (which would
+    append more events, for ever)."""
+    from gateway.alarm_eval import evaluate
+    from gateway.cli.cmd_alarms import sink_kinds
+    from gateway.store import open_store
+
+    url = f"sqlite:///{tmp_path / 'j.db'}"
+    with open_journal(url) as j:
+        Logbook(j).apply(transitions([_cond("a")], []), T0)
+        store = open_store(url)
+        try:
+            later = T0 + timedelta(hours=1)
+            assert evaluate(j, store, later, sinks={"scada": ("result", "status")}) == 1
+            assert all(a.rule != "sink-backlog" for a in Logbook(j).open_alarms())
+            evaluate(j, store, later, sinks=["mqtt"])  # a sink that forwards every kind
+            assert any(a.key == "sink-backlog:mqtt" for a in Logbook(j).open_alarms())
+        finally:
+            store.close()
+    assert sink_kinds("mqtt,scada=result+status") == {"mqtt": (), "scada": ("result", "status")}
+    with pytest.raises(ValueError, match="--sinks"):
+        sink_kinds("scada=results")
