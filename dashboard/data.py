@@ -357,9 +357,11 @@ def fleet_conditions(url: str, now: datetime) -> dict[str, list[Any]]:
 
 @st.cache_data(ttl=LIVE_TTL, show_spinner=False)
 def sink_backlogs(url: str) -> pd.DataFrame:
-    """Per sink that has ever confirmed a record: waiting records and the oldest one's time."""
+    """Per sink that has ever confirmed a record: waiting records and the oldest one's time,
+    per kind, and whether it ever confirmed one of that kind (a sink that does not carry a
+    kind, like Sparkplug and pressure curves, never does)."""
     if not url.startswith("sqlite:"):
-        return pd.DataFrame(columns=["sink", "kind", "waiting", "oldest"])
+        return pd.DataFrame(columns=["sink", "kind", "waiting", "oldest", "ever_sent"])
     from gateway.store import open_journal
 
     rows = []
@@ -369,10 +371,11 @@ def sink_backlogs(url: str) -> pd.DataFrame:
                 "SELECT DISTINCT sink FROM sink_cursors ORDER BY sink", (), "reading sinks")]
             for sink in sinks:
                 for kind, (n, oldest) in journal.backlog(sink).items():
-                    rows.append({"sink": sink, "kind": kind, "waiting": n, "oldest": oldest})
+                    rows.append({"sink": sink, "kind": kind, "waiting": n, "oldest": oldest,
+                                 "ever_sent": journal.get_cursor(sink, kind) > 0})
     except (LeakfleetError, sqlite3.Error, OSError) as exc:
         raise StoreUnavailable(str(exc)) from exc
-    return pd.DataFrame(rows, columns=["sink", "kind", "waiting", "oldest"])
+    return pd.DataFrame(rows, columns=["sink", "kind", "waiting", "oldest", "ever_sent"])
 
 
 @st.cache_data(ttl=HISTORY_TTL, show_spinner=False)

@@ -129,6 +129,7 @@ def evaluate(journal: Any, store: Any, now: datetime | None = None,
             ages = [now - t for _, t in kinds.values() if t is not None]
             oldest[sink] = (count, max(ages) if ages else None)
         conds += sink_conditions(oldest, rules, now)
+    book.backfill_events()  # alarms opened before the journal kept events (an upgrade)
     opened = [a.key for a in book.open_alarms()]
     return book.apply(transitions(conds, opened), now)
 

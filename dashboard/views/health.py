@@ -81,8 +81,10 @@ if backlog.empty:
 else:
     shown = backlog.assign(
         oldest=[
-            _ago(t) if n else "–"
-            for t, n in zip(backlog["oldest"], backlog["waiting"], strict=True)
+            ("never sent one (the sink may not carry them)" if not sent else _ago(t)) if n
+            else "–"
+            for t, n, sent in zip(backlog["oldest"], backlog["waiting"], backlog["ever_sent"],
+                                  strict=True)
         ]
     )
     st.dataframe(shown.rename(columns={"sink": "Sink", "kind": "Records", "waiting": "Waiting",

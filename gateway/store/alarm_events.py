@@ -17,7 +17,7 @@ from gateway.records import AlarmEvent
 from gateway.store._sqlite import from_us, to_us
 
 __all__ = ["ALARM_EVENT_COLUMNS", "ALARM_EVENT_SCHEMA", "alarm_event_from", "apply_ack",
-           "apply_clear", "apply_raise"]
+           "apply_clear", "apply_raise", "backfill"]
 
 ALARM_EVENT_SCHEMA: tuple[str, ...] = (
     """CREATE TABLE alarm_events (
@@ -97,3 +97,18 @@ def apply_ack(conn: sqlite3.Connection, alarm_id: int, by: str, at: datetime) ->
     conn.execute("UPDATE alarms SET acked_at = ?, acked_by = ? WHERE id = ?", (now, by, alarm_id))
     _append(conn, row, "acknowledged", now, by)
     return True
+
+
+def backfill(conn: sqlite3.Connection) -> int:
+    """Events for open occurrences that have none: alarms raised (and acknowledged) before
+    the journal kept events, so their retained MQTT state appears after an upgrade too.
+    Returns how many events were appended."""
+    rows = conn.execute(
+        f"{_OCCURRENCE.replace('FROM alarms', ', raised_at, acked_at, acked_by FROM alarms a')}"
+        " WHERE cleared_at IS NULL AND NOT EXISTS "
+        "(SELECT 1 FROM alarm_events e WHERE e.alarm_id = a.id) ORDER BY id").fetchall()
+    for *occurrence, raised, acked, by in rows:
+        _append(conn, tuple(occurrence), "raised", raised)
+        if acked is not None:
+            _append(conn, tuple(occurrence), "acknowledged", acked, by)
+    return len(rows)

@@ -23,7 +23,7 @@ import pandas as pd
 from gateway.errors import StoreError
 from gateway.records import MaintenanceEvent
 from gateway.store._sqlite import from_us, to_us
-from gateway.store.alarm_events import apply_ack, apply_clear, apply_raise
+from gateway.store.alarm_events import apply_ack, apply_clear, apply_raise, backfill
 
 __all__ = ["AlarmRow", "Logbook", "read_alarms"]
 
@@ -31,7 +31,7 @@ __all__ = ["AlarmRow", "Logbook", "read_alarms"]
 class _Journal(Protocol):
     def _query(self, sql: str, params: Sequence[Any], action: str) -> list[tuple[Any, ...]]: ...
     def _execute_write(self, sql: str, params: Sequence[Any], action: str) -> None: ...
-    def _transaction(self, work: Callable[[sqlite3.Connection], bool], action: str) -> bool: ...
+    def _transaction(self, work: Callable[[sqlite3.Connection], Any], action: str) -> Any: ...
 
 
 @dataclass(frozen=True, slots=True)
@@ -152,6 +152,11 @@ class Logbook:
                                           "clearing an alarm")
         return n
 
+    def backfill_events(self) -> int:
+        """Events for open alarms raised before the journal kept events (see
+        ``alarm_events.backfill``); the evaluator calls it every round, a no-op after once."""
+        return int(self._j._transaction(backfill, "writing alarm events"))
+
     def acknowledge(self, alarm_id: int, by: str, at: datetime | None = None) -> bool:
         """Acknowledge an open alarm; False when it is not open (or already acknowledged)."""
         if not by.strip() or any(ord(ch) < 32 for ch in by):
@@ -173,7 +178,7 @@ class _ReadOnly:
     def _execute_write(self, sql: str, params: Sequence[Any], action: str) -> None:
         raise StoreError(f"{action}: the journal is open read-only")
 
-    def _transaction(self, work: Callable[[sqlite3.Connection], bool], action: str) -> bool:
+    def _transaction(self, work: Callable[[sqlite3.Connection], Any], action: str) -> Any:
         raise StoreError(f"{action}: the journal is open read-only")
 
 

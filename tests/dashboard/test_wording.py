@@ -124,3 +124,24 @@ def test_cut_tables_say_how_many_rows_were_cut() -> None:
                                    "Share of passes retested [%]"]
     # 12.5 Pa = 0.0125 kPa (SI prefix); an absent value reads "–", never "None"
     assert shown.iloc[0].tolist() == [3, 0.0125, "–", pytest.approx(12.34)]
+
+
+def test_health_says_a_sink_never_sent_a_kind(app: AppFactory, tmp_path: Path) -> None:
+    """A Sparkplug sink never carries alarm events: the health page does not show them as an
+    ageing backlog but says none was ever sent."""
+    from analytics.alarms import Condition, transitions
+    from gateway.store.logbook import Logbook
+
+    path = tmp_path / "sinks.db"
+    _drifting_journal(path, 0.0)
+    with open_journal(f"sqlite:///{path}") as j:
+        j.set_cursor("scada", "result", j.max_seq("result"))
+        Logbook(j).apply(transitions([Condition("silent:S-1", "silent", "S-1", "warning",
+                                                datetime.now(UTC), "no result")], []))
+    at = app(path, "views/health.py")
+    sinks = next(d.value for d in at.dataframe if "Oldest waiting for" in d.value.columns)
+    rows = {r["Records"]: r for r in sinks.to_dict("records")}
+    assert rows["alarm"]["Waiting"] == 1
+    assert rows["alarm"]["Oldest waiting for"].startswith("never sent one")
+    assert rows["result"]["Oldest waiting for"] == "–"
+    _headers_and_cells_read_as_words(at)

@@ -105,3 +105,26 @@ def test_a_sink_that_does_not_forward_alarm_events_has_no_backlog_of_them(
     assert sink_kinds("mqtt,scada=result+status") == {"mqtt": (), "scada": ("result", "status")}
     with pytest.raises(ValueError, match="--sinks"):
         sink_kinds("scada=results")
+
+
+def test_alarms_open_before_events_existed_get_theirs(tmp_path: Path) -> None:
+    """A journal upgraded with alarms open: the evaluator appends their raised (and
+    acknowledged) events once, so a subscriber's retained state shows them too."""
+    path = tmp_path / "j.db"
+    with open_journal(f"sqlite:///{path}") as j:
+        book = Logbook(j)
+        book.apply(transitions([_cond("a"), _cond("b")], []), T0)
+        book.acknowledge(book.open_alarms()[0].id, "Jo", T0 + timedelta(minutes=1))
+        book.apply(transitions([_cond("a")], ["a", "b"]), T0 + timedelta(minutes=2))
+    conn = sqlite3.connect(path)
+    conn.execute("DELETE FROM alarm_events")  # as an older release left it
+    conn.commit()
+    conn.close()
+    with open_journal(f"sqlite:///{path}") as j:
+        book = Logbook(j)
+        assert book.backfill_events() == 1  # "b" is cleared: nothing to show for it
+        assert book.backfill_events() == 0
+        events = [e for _, e in j.read_after("alarm", 0, 10)]
+        assert [(e.key, e.change, e.at) for e in events] == [
+            ("a", "raised", T0), ("a", "acknowledged", T0 + timedelta(minutes=1))]
+        assert events[1].by == "Jo"
