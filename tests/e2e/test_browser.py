@@ -8,23 +8,17 @@ must stop the plant, the gateway and the dashboard cleanly. Screenshots land in 
 
 from __future__ import annotations
 
-import os
 import signal
-import socket
 import subprocess
-import sys
 import time
 from collections.abc import Iterator
 from pathlib import Path
 
 import pytest
 
-CHROMIUM = Path("/usr/bin/chromium")
-REPO = Path(__file__).resolve().parents[2]
-ARGS = [
-    "--headless", "--no-sandbox", "--disable-gpu", "--disable-background-networking",
-    "--disable-component-update", "--disable-sync", "--no-first-run",
-]  # fmt: skip
+from tests.support.browser import CHROMIUM, CHROMIUM_ARGS, running_demo
+
+ARGS = CHROMIUM_ARGS
 PAGES = [  # (navigation entry, a text the page shows once it has data)
     ("Fleet live", "cycles in the last hour"),
     ("Yield", "First-pass yield"),
@@ -44,39 +38,10 @@ pytestmark = [
 ]
 
 
-def _free_port() -> int:
-    with socket.socket() as s:
-        s.bind(("127.0.0.1", 0))
-        return int(s.getsockname()[1])
-
-
 @pytest.fixture()
 def demo(tmp_path: Path) -> Iterator[tuple[str, subprocess.Popen[str]]]:
-    port = _free_port()
-    log = (tmp_path / "demo.out").open("w")
-    proc = subprocess.Popen(
-        [sys.executable, "-m", "gateway", "demo", "--port", str(port), "--speed", "120",
-         "--free-ports", "--run-dir", str(tmp_path / "run"), "--seconds", "120"],
-        cwd=REPO, stdout=log, stderr=subprocess.STDOUT, text=True,
-        env={**os.environ, "PYTHONUNBUFFERED": "1"},
-    )  # fmt: skip
-    url = f"http://127.0.0.1:{port}/"
-    try:
-        deadline = time.monotonic() + 60
-        while "dashboard: http" not in (tmp_path / "demo.out").read_text():
-            assert proc.poll() is None, (tmp_path / "demo.out").read_text()
-            assert time.monotonic() < deadline, "the demo did not print its URL"
-            time.sleep(0.2)
-        yield url, proc
-    finally:
-        if proc.poll() is None:
-            proc.send_signal(signal.SIGINT)
-            try:
-                proc.wait(timeout=30)
-            except subprocess.TimeoutExpired:
-                proc.kill()
-                proc.wait()
-        log.close()
+    with running_demo(tmp_path) as d:
+        yield d.url, d.proc
 
 
 LEVEL_WORDS = ["ALARM", "OFFLINE", "WARNING", "OK", "NO DATA"]  # analytics.fleet.LEVELS order
