@@ -89,14 +89,16 @@ if not sh.charts:
 for name, pair in sh.charts.items():
     factor = u.p_factor if name == "master_loss_pa" else u.q_factor / u.p_factor
     label = "master loss" if name == "master_loss_pa" else "sensitivity"
+    unit = u.p_label if name == "master_loss_pa" else f"{u.q_label}/{u.p_label}"
     a, b = st.columns(2)
     a.caption(f"EWMA of {label} (λ = {pair['ewma'].parameters['lambda']:g}, "
               f"L = {pair['ewma'].parameters['L']:g})")  # fmt: skip
-    a.altair_chart(charts.control_chart(pair["ewma"], good_times, label, factor),
-                   width="stretch")  # fmt: skip
+    a.altair_chart(charts.control_chart(pair["ewma"], good_times, f"{label} [{unit}]",
+                                        factor), width="stretch")  # fmt: skip
     b.caption(f"CUSUM of {label} (k = {pair['cusum'].parameters['k']:g} σ, "
               f"h = {pair['cusum'].parameters['h']:g} σ): SH above, −SL below")  # fmt: skip
-    b.altair_chart(charts.control_chart(pair["cusum"], good_times, f"{label} CUSUM", factor),
+    b.altair_chart(charts.control_chart(pair["cusum"], good_times,
+                                        f"{label} CUSUM [{unit}]", factor),
                    width="stretch")  # fmt: skip
 st.caption(sh.note)
 
