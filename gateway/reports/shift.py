@@ -190,6 +190,8 @@ def shift_text(r: dict[str, Any], calendar: Any) -> str:
                 f"  {s['station']}: {s['tests']} tests, calibration {s['calibration_state']}"
                 + (f" (last {s['last_calibration_at'][:16]})" if s["last_calibration_at"] else "")
                 + (f", standard {s['standard_serial']}" if s["standard_serial"] else "")
+                + ("" if s.get("alarm_state") is None else f", alarms {s['alarm_state']}"
+                   + (f" ({s['open_alarms']} open)" if s["open_alarms"] else ""))
             )
         lines += [f"  alarm {a['station']} ({a['state_at_end']} at the end): {a['message']}"
                   for a in sec.get("journal_alarms", [])]
