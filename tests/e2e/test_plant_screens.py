@@ -4,7 +4,9 @@ A test engineer on a line PC (1024×768) and a wall screen (1920×1080), in a br
 time zone (America/Chicago) is not the plant's (Europe/Berlin): every page opens without an
 error box and without pushing the page sideways; the fleet's alarm list is the journal's
 (what ``leakfleet alarms list`` prints); a chart's tooltip, the table beside it and the Excel
-file downloaded from it give the newest test the same time. Screenshots of every page at both
+file downloaded from it give the newest test the same time; each line's tiles are worst first
+and say their level in words; nothing but this machine is asked for anything; Ctrl-C stops
+the demo cleanly. Screenshots of every page at both
 sizes are left for review (``$LEAKFLEET_SCREENSHOTS``, else the test's temp dir).
 """
 
@@ -12,6 +14,7 @@ from __future__ import annotations
 
 import json
 import re
+import signal
 import subprocess
 import sys
 import time
@@ -102,6 +105,26 @@ def _column(grid: Any, header: str) -> list[str]:
             grid.locator(f"[role='gridcell'][aria-colindex='{index}']").all_inner_texts()]
 
 
+LEVEL_WORDS = ["ALARM", "OFFLINE", "WARNING", "OK", "NO DATA"]  # analytics.fleet.LEVELS order
+BADGE = re.compile(r"[▲■◆●○] (ALARM|OFFLINE|WARNING|OK|NO DATA)")
+
+
+def _worst_first(page: Any) -> None:
+    """Every tile names its level in words beside the colour, worst first within each line."""
+    blocks = page.locator("[data-testid='stHeading'], [data-testid='stMarkdownContainer']")
+    lines: list[list[int]] = []
+    for text in (t.strip() for t in blocks.all_inner_texts()):
+        if text.startswith("Line "):
+            lines.append([])
+        for part in text.splitlines():
+            m = BADGE.search(part)
+            if m and lines:
+                lines[-1].append(LEVEL_WORDS.index(m.group(1)))
+    assert sum(len(x) for x in lines) >= 6, lines  # one badge per demo station
+    for ranks in lines:
+        assert ranks == sorted(ranks), lines
+
+
 def test_plant_screens_with_faults(tmp_path: Path) -> None:
     from playwright.sync_api import sync_playwright
 
@@ -111,6 +134,8 @@ def test_plant_screens_with_faults(tmp_path: Path) -> None:
         context = browser.new_context(timezone_id="America/Chicago", accept_downloads=True,
                                       viewport={"width": 1024, "height": 768})  # fmt: skip
         page = context.new_page()
+        requests: list[str] = []
+        page.on("request", lambda r: requests.append(r.url))
         page.goto(demo.url, wait_until="domcontentloaded")
         page.wait_for_selector("[data-testid='stApp']", timeout=30_000)
         _wait_for_alarms(demo)
@@ -127,6 +152,9 @@ def test_plant_screens_with_faults(tmp_path: Path) -> None:
                                 full_page=True)  # fmt: skip
                 assert page.locator("[data-testid='stException']").count() == 0, name
                 assert page.get_by_text(marker).count() > 0, f"{name}: {marker!r} not shown"
+                assert page.get_by_text("pressure ratings").count() > 0, name  # safety note
+                if title == "Fleet live":
+                    _worst_first(page)
                 sideways = page.evaluate(
                     "() => document.documentElement.scrollWidth - window.innerWidth")
                 assert sideways <= 1, f"{name} at {width}x{height} scrolls sideways by {sideways}px"
@@ -178,5 +206,10 @@ def test_plant_screens_with_faults(tmp_path: Path) -> None:
         assert f"{first:%Y-%m-%d %H:%M:%S}" == newest, (sheet.head(2), newest)
         page.screenshot(path=str(shots / "fleet-tooltip.png"))
         browser.close()
+        # nothing but this machine was asked for anything
+        assert all(r.startswith(("http://127.0.0.1", "ws://127.0.0.1", "data:", "blob:"))
+                   for r in requests), [r for r in requests if "127.0.0.1" not in r][:5]
+        demo.proc.send_signal(signal.SIGINT)  # Ctrl-C stops plant, gateway and dashboard
+        assert demo.proc.wait(timeout=30) == 0
     out = demo.output()
     assert "stopped:" in out and "Traceback" not in out, out[-3000:]
