@@ -42,7 +42,8 @@ def park(journal: Any, sink: str, kind: str, rows: Sequence[tuple[int, Any]], re
         journal._execute_write(
             "INSERT OR IGNORE INTO dead_letters (sink, kind, record_seq, record_id, station, at, "
             "reason, record) VALUES (?, ?, ?, ?, ?, ?, ?, ?)",
-            (sink, kind, int(seq), record.record_id, record.station, now, reason[:2000],
+            # a fleet-wide alarm event has no station: "" keeps the column's NOT NULL
+            (sink, kind, int(seq), record.record_id, record.station or "", now, reason[:2000],
              json.dumps(record.to_dict(), default=str)),
             "parking a refused record",
         )

@@ -128,3 +128,14 @@ def test_alarms_open_before_events_existed_get_theirs(tmp_path: Path) -> None:
         assert [(e.key, e.change, e.at) for e in events] == [
             ("a", "raised", T0), ("a", "acknowledged", T0 + timedelta(minutes=1))]
         assert events[1].by == "Jo"
+
+
+def test_a_refused_fleet_wide_alarm_event_can_be_parked(tmp_path: Path) -> None:
+    from gateway.store.deadletters import dead_letters, park
+
+    with open_journal(f"sqlite:///{tmp_path / 'j.db'}") as j:
+        Logbook(j).apply(transitions([_cond("sink-backlog:x", None)], []), T0)
+        rows = j.read_after("alarm", 0, 10)
+        park(j, "mqtt", "alarm", rows, "payload too large")
+        (letter,) = dead_letters(j, "mqtt")
+        assert (letter["station"], letter["record"]["station"]) == ("", None)
