@@ -8,15 +8,16 @@ test (``parts``) and the parts per hour of their first test (``part_hours``), up
 transaction that stores the result; after each batch of results the sink writes the rows that
 batch touched as points:
 
-- ``leak_parts``: one point per part at its first test's time (tags site, line, station,
-  program; fields part_id, first_pass, final_pass, tests), overwritten when a retest changes it
-  (same series and timestamp);
+- ``leak_parts``: one point per part tested more than once, at its first test's time (tags
+  site, line, station, program; fields part_id, first_pass, final_pass, tests), overwritten
+  when a further test changes it (same series and timestamp); a part tested once is its result;
 - ``leak_part_hours``: one point per hour of first tests and station (fields parts, first_pass,
   final_pass, tests), overwritten the same way; an hour whose parts moved away is written as
   zeros.
 
-``InfluxStore.first_pass_counts`` reads whole hours from the second and the ragged ends of a
-range from the first. A part whose earlier test reaches the journal after a later one moves
+``InfluxStore.first_pass_counts`` reads whole hours from the second, and the ragged ends of a
+range from the results there and the first (retested parts are a few per cent: the extra
+points stay few). A part whose earlier test reaches the journal after a later one moves
 to an earlier hour there; its old point here stays (rare: tests of one part arriving out of
 order from two stations).
 """
@@ -56,6 +57,8 @@ def part_summary_lines(store_url: str, rows: Iterable[tuple[int, Record]], *,
         hours = _hours(conn, keys)
     out = []
     for part_id, first, station, line, program, first_v, last_v, tests in parts:
+        if tests < 2:
+            continue
         tags: dict[str, str | None] = {"site": site, "line": line, "station": station,
                                        "program": program}
         out.append(encode_line(PARTS, tags, {

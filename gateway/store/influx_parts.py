@@ -1,10 +1,13 @@
 """First-pass yield on InfluxDB from the part summaries the sink writes beside the results.
 
-``gateway.sinks.influx_parts`` mirrors the journal's ``parts`` (one point per part, at its
-first test) and ``part_hours`` (parts per hour of their first test). A range is read as the
-whole hours inside it from the hourly points and its ragged ends from the per-part points, as
-the SQLite journal reads its own summaries; tests without a part id are counted from the
-results (``COUNT(cycle) − COUNT(part_id)``: every result has a cycle, only some a part id).
+``gateway.sinks.influx_parts`` mirrors the journal's ``part_hours`` (parts per hour of their
+first test) and, for parts tested more than once, ``parts`` (a point at the part's first
+test). A range is read as the whole hours inside it from the hourly points, as the SQLite
+journal reads its own summaries; at its ragged ends each part tested there is judged by its
+point if it has one (a retested part: counted where its first test lies, within
+``PART_WINDOW`` before the end) and by its only test otherwise; tests without a part id are
+counted from the results (``COUNT(cycle) − COUNT(part_id)``: every result has a cycle,
+only some a part id).
 A database written before the sink wrote summaries has none: the caller then judges parts
 from the tests themselves.
 """
@@ -58,19 +61,17 @@ def first_pass_from_summaries(
         frame = store._frame(store._query(
             f"SELECT {fields}, {tags} FROM {measurement}{w.sql()}", w.params))
         if not frame.empty:
-            if measurement == PARTS:
-                frame["parts"] = 1  # a per-part point is one part
             frames.append(frame.assign(no_part_id=0))
 
-    part_fields = '"first_pass", "final_pass", "tests"'
     if h0 is not None and h1 is not None and h0 >= h1:
-        read(PARTS, part_fields, lo, hi)  # within one hour: parts only
+        assert lo is not None and hi is not None
+        frames += _ragged(store, filters, lo, hi)  # within one hour: no whole hour
     else:
-        read(PART_HOURS, f'"parts", {part_fields}', h0, h1)
-        if lo is not None:
-            read(PARTS, part_fields, lo, h0)
-        if hi is not None:
-            read(PARTS, part_fields, h1, hi)
+        read(PART_HOURS, '"parts", "first_pass", "final_pass", "tests"', h0, h1)
+        if lo is not None and h0 is not None:
+            frames += _ragged(store, filters, lo, h0)
+        if hi is not None and h1 is not None:
+            frames += _ragged(store, filters, h1, hi)
     loose = store._bounded(_RESULTS, where(None, None), since, until)
     if loose is not None:
         group = [tags, *([f"time({'1h' if bucket == 'hour' else '1d'})"] if bucket else [])]
@@ -99,3 +100,44 @@ def first_pass_from_summaries(
     if bucket is not None:
         agg["bucket"] = _utc(agg["bucket_ns"])
     return agg[[*names, *(["bucket"] if bucket else []), *COUNTS]].reset_index(drop=True)
+
+
+def _ragged(store: Any, filters: dict[str, str | None], a: int, b: int) -> list[pd.DataFrame]:
+    """The parts whose first test lies in [a, b) (less than an hour): those tested there,
+    each judged by its ``leak_parts`` point when it was retested, by its one test otherwise;
+    then the filters, on the tags of each part's first test."""
+    from gateway.store.influx import _RESULTS, PART_WINDOW
+
+    if a >= b:
+        return []
+    tests = store._frame(store._query(
+        'SELECT "part_id", "station", "line", "program", "verdict" '
+        f"FROM {_RESULTS} WHERE time >= $a AND time < $b", {"a": a, "b": b}))
+    if tests.empty or "part_id" not in tests.columns:
+        return []
+    tests = tests[tests["part_id"].notna() & (tests["verdict"] != "aborted")]
+    if tests.empty:
+        return []
+    back = a - int(PART_WINDOW.total_seconds()) * 10**9
+    retested = store._frame(store._query(
+        'SELECT "part_id", "first_pass", "final_pass", "tests", "station", "line", "program" '
+        f"FROM {PARTS} WHERE time >= $a AND time < $b", {"a": back, "b": b}))
+    known = (retested.drop_duplicates("part_id", keep="last").set_index("part_id")
+             if not retested.empty else pd.DataFrame(columns=["time"]))
+    first = tests.sort_values("time", kind="stable").drop_duplicates("part_id")
+    once = first[~first["part_id"].isin(known.index)]
+    passed = (once["verdict"] == "pass").astype("int64")
+    rows = [once[["time", "station", "line", "program"]].assign(
+        parts=1, first_pass=passed, final_pass=passed, tests=1, no_part_id=0)]
+    mine = known[(known["time"] >= a) & (known["time"] < b) & known.index.isin(first["part_id"])]
+    if not mine.empty:
+        rows.append(mine.reset_index()[["time", "station", "line", "program", "first_pass",
+                                        "final_pass", "tests"]].assign(parts=1, no_part_id=0))
+    out = []
+    for frame in rows:
+        for column, value in filters.items():
+            if value is not None:
+                frame = frame[frame[column] == value]
+        if not frame.empty:
+            out.append(frame)
+    return out

@@ -76,6 +76,7 @@ def stores(influxdb: InfluxServer, tmp_path_factory: pytest.TempPathFactory,
 
 H = timedelta(hours=1)
 M = timedelta(minutes=1)
+S = timedelta(seconds=1)
 QUERIES: dict[str, Callable[[QueryStore], pd.DataFrame]] = {
     "stations": lambda s: s.stations(),
     "results": lambda s: s.results(),
@@ -117,6 +118,12 @@ QUERIES: dict[str, Callable[[QueryStore], pd.DataFrame]] = {
     "first pass, within one hour": lambda s: s.first_pass_counts(
         T0 + H + 5 * M, T0 + H + 50 * M, by=()),
     "first pass, ragged since only": lambda s: s.first_pass_counts(T0 + 23 * M, None),
+    # cycle 1's part is retested as cycle 400 (T0 + 4 h 6 min 40 s): counted with its first
+    # test's window and its final verdict, not again in the retest's
+    "first pass, a first test in a ragged end": lambda s: s.first_pass_counts(
+        T0 + 30 * S, T0 + 50 * M, by=("station",)),
+    "first pass, only a retest in a ragged end": lambda s: s.first_pass_counts(
+        T0 + 4 * H + 5 * M, T0 + 4 * H + 10 * M, by=()),
     "histogram": lambda s: s.histogram(None, None, [0.0, 0.5, 1.0, 1.5, 2.0, 2.25]),
     "histogram pressure loss": lambda s: s.histogram(
         T0, T0 + 2 * H, [0.0, 10.0, 20.0, 40.0], station="L1-S1", value="pressure_loss_pa"),
