@@ -122,6 +122,7 @@ class RingReader:
             (int(cal.counter_address), int(cal.counter_registers)) if cal is not None else None
         )
         self._state_span = field_span(spec.state) if spec.state is not None else None
+        self._header_plan = plan_reads(self._header_spans())  # the same reads every poll
         self._acked: int | None = None
         # the station's counter wraps (65535 -> 0, or at 2^32): cycles are handled here as
         # unwrapped integers and turned back into the station's numbers at its registers
@@ -375,7 +376,7 @@ class RingReader:
 
     async def _read_header(self, link: RegisterLink) -> dict[int, int]:
         regs: dict[int, int] = {}
-        for address, count in plan_reads(self._header_spans()):
+        for address, count in self._header_plan:
             values = await self._read(link, address, count)
             regs.update(zip(range(address, address + count), values, strict=True))
         return regs
