@@ -484,33 +484,44 @@ class PymodbusLink:
     async def read(self, function: int, address: int, count: int, device_id: int) -> list[int]:
         from pymodbus.exceptions import ConnectionException, ModbusException, ModbusIOException
 
-        if self._client is None:
+        client = self._client
+        if client is None:
             raise LinkLost(f"{self.name}: not connected")
-        call = {
-            1: self._client.read_coils,
-            2: self._client.read_discrete_inputs,
-            4: self._client.read_input_registers,
-        }.get(function, self._client.read_holding_registers)
-        what = f"{self.name} device {device_id} fc{function} {address}+{count}"
+        if function == 3:  # holding registers: nearly every poll
+            call = client.read_holding_registers
+        else:
+            call = {
+                1: client.read_coils,
+                2: client.read_discrete_inputs,
+                4: client.read_input_registers,
+            }.get(function, client.read_holding_registers)
         async with self.lock:
             try:
                 reply = await within(
                     call(address, count=count, device_id=device_id), self.timeout + 0.5
                 )
             except ConnectionException as exc:
-                raise LinkLost(f"{what}: connection lost: {exc}") from exc
+                raise LinkLost(f"{self._what(function, address, count, device_id)}: "
+                               f"connection lost: {exc}") from exc
             except (ModbusIOException, TimeoutError) as exc:
-                raise NoAnswer(f"{what}: no answer within {self.timeout:g} s") from exc
+                raise NoAnswer(f"{self._what(function, address, count, device_id)}: "
+                               f"no answer within {self.timeout:g} s") from exc
             except ModbusException as exc:
-                raise ProtocolError(f"{what}: {exc}") from exc
+                raise ProtocolError(
+                    f"{self._what(function, address, count, device_id)}: {exc}") from exc
             except OSError as exc:
-                raise LinkLost(f"{what}: {exc}") from exc
+                raise LinkLost(f"{self._what(function, address, count, device_id)}: {exc}"
+                               ) from exc
         if reply.isError():
             code = int(getattr(reply, "exception_code", 0) or 0)
-            raise ExceptionReply(code, what)
+            raise ExceptionReply(code, self._what(function, address, count, device_id))
         if function in (1, 2):
             return [int(b) for b in reply.bits[:count]]
         return list(reply.registers)
+
+    def _what(self, function: int, address: int, count: int, device_id: int) -> str:
+        """The request, for an error message (made only when one is raised)."""
+        return f"{self.name} device {device_id} fc{function} {address}+{count}"
 
     async def write(self, address: int, values: list[int], device_id: int) -> None:
         """Function 6 for one register (what most stations expect), 16 for more."""

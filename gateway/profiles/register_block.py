@@ -16,6 +16,7 @@ import math
 import struct
 from collections.abc import Callable, Sequence
 from datetime import datetime
+from functools import partial
 from typing import Any
 
 from gateway.errors import DecodeError, UnitError
@@ -42,7 +43,7 @@ from gateway.profiles.normalise import (
     reject,
 )
 from gateway.profiles.registers import NUMERIC_TYPES, parse_type
-from gateway.units import to_canonical_fn
+from gateway.units import same_value, to_canonical_fn
 
 __all__ = ["BlockDecoder", "counter_reader"]
 
@@ -135,13 +136,25 @@ def _finisher(spec: FieldSpec, ctx: StationContext,
         except UnitError:
             return None
 
+        plain = spec.scale == 1.0 and spec.offset == 0.0  # _scaled would return it as is
+        if plain and to_unit is same_value:
+
+            def as_canonical(value: int | float) -> Any:
+                if (value != value or value == sentinel) and register_null(spec, value):
+                    return null(value)
+                if not isfinite(value):
+                    raise _fail(spec, f"{value!r} is not a finite number")
+                return float(value)
+
+            return as_canonical
+
         def as_quantity(value: int | float) -> Any:
-            if is_null(value):
+            if (value != value or value == sentinel) and register_null(spec, value):
                 return null(value)
             if not isfinite(value):
                 raise _fail(spec, f"{value!r} is not a finite number")
             number = float(value)
-            out = to_unit(_scaled(spec, number))
+            out = to_unit(number if plain else _scaled(spec, number))
             if not isfinite(out):
                 raise _fail(spec, f"{number!r} is not a finite number")
             return out
@@ -156,54 +169,119 @@ def compile_register_field(spec: FieldSpec, ctx: StationContext, reference_c: fl
     raw = _raw_decoder(spec, length)
     if raw is None:
         return lambda words: convert_register(spec, words, ctx, reference_c, encoding)
+    return _after(spec, ctx, reference_c, raw)
+
+
+def _after(spec: FieldSpec, ctx: StationContext, reference_c: float,
+           raw: Callable[[Any], Any]) -> Callable[[Any], Any]:
     finish = _finisher(spec, ctx, reference_c)
     if finish is None:
-        return lambda words: finish_register(spec, raw(words), ctx, reference_c)
-    return lambda words: finish(raw(words))
+        return lambda source: finish_register(spec, raw(source), ctx, reference_c)
+    return lambda source: finish(raw(source))
+
+
+def _finish_general(spec: FieldSpec, ctx: StationContext, reference_c: float,
+                    value: int | float) -> Any:
+    return finish_register(spec, value, ctx, reference_c)
+
+
+def _plain_code(type_name: str, at: int, width: int, word_order: str, byte_order: str,
+                length: int) -> str | None:
+    """The ``struct`` code of a number read straight from the block's big-endian bytes, or
+    None when its words or bytes are swapped (or it is not a plain number in the block)."""
+    try:
+        type_kind, type_width = parse_type(type_name)
+    except DecodeError:
+        return None
+    if (type_kind not in NUMERIC_TYPES or type_width != width or at < 0 or at + width > length
+            or byte_order != "big" or (word_order != "big" and width > 1)):
+        return None
+    return NUMERIC_TYPES[type_kind][0]
 
 
 class BlockDecoder:
-    """``decode_block`` for one block layout and one station, its layout work done once."""
+    """``decode_block`` for one block layout and one station, its layout work done once.
+
+    The block's words are packed to bytes once (the audit text is their hex); every plain
+    big-endian number in it, guards included, comes out of one compiled ``struct`` unpack;
+    the rest is read field by field.
+    """
 
     def __init__(self, spec: ModbusSpec, record: str, block: RingSpec | BlockSpec,
                  ctx: StationContext) -> None:
         self.spec, self.record, self.block, self.ctx = spec, record, block, ctx
         self.label = spec.profile_label
-        self._length = int(block.length)
-        self._pack_all = _word_packer("big", self._length)
+        length = self._length = int(block.length)
+        self._pack_all = _word_packer("big", length)
         width = block.counter_registers
-        guard_ok = all(at >= 0 and at + width <= self._length
-                       for at in (block.head_guard, block.tail_guard))
-        self._guards: Callable[[Sequence[int]], tuple[int, int]] | None = None
-        if guard_ok and block.counter_type in NUMERIC_TYPES:
-            head, tail = (_number_reader(block.counter_type, at, width, block.word_order,
-                                         block.byte_order)
-                          for at in (block.head_guard, block.tail_guard))
-            self._guards = lambda words: (head(words), tail(words))
-        self._fields = [
-            (f.canonical, compile_register_field(f, ctx, spec.leak_reference_c,
-                                                 spec.string_encoding, self._length))
-            for f in block.fields
-        ]
-        self._noun = "cycle" if record == "result" else "calibration counter"
+        # (at, width, struct code) of everything one unpack can read, and who reads it
+        plain: list[tuple[int, int, str, str]] = []
+        guard_codes = [_plain_code(block.counter_type, at, width, block.word_order,
+                                   block.byte_order, length)
+                       for at in (block.head_guard, block.tail_guard)]
+        self._fast = all(code is not None for code in guard_codes)
+        for at, code in zip((block.head_guard, block.tail_guard), guard_codes, strict=True):
+            if code is not None:
+                plain.append((at, width, code, f"guard@{at}"))
+        steps: dict[str, Any] = {}
+        for f in block.fields:
+            reg = f.register
+            plain_time = f.kind != "timestamp" or f.time_format not in ("ymdhms", "bcd-ymdhms")
+            code = (_plain_code(reg.type, reg.at, reg.width, reg.word_order, reg.byte_order,
+                                length) if reg is not None and plain_time else None)
+            if reg is not None and code is not None:
+                plain.append((reg.at, reg.width, code, f.canonical))
+            else:
+                steps[f.canonical] = compile_register_field(
+                    f, ctx, spec.leak_reference_c, spec.string_encoding, length)
+        plain.sort()
+        layout, end, names = ">", 0, []
+        for at, w, code, name in plain:
+            if at < end:  # overlapping values (bits of one register): read on their own
+                if name.startswith("guard@"):
+                    self._fast = False
+                else:
+                    field = next(f for f in block.fields if f.canonical == name)
+                    steps[name] = compile_register_field(
+                        field, ctx, spec.leak_reference_c, spec.string_encoding, length)
+                continue
+            layout += f"{2 * (at - end)}x{code}" if at > end else code
+            end = at + w
+            names.append(name)
+        self._unpack = struct.Struct(layout).unpack_from
+        index = {name: i for i, name in enumerate(names)}
+        self._head = index.get(f"guard@{block.head_guard}", -1)
+        self._tail = index.get(f"guard@{block.tail_guard}", -1)
+        # per field, in the profile's order (the first failing field names the rejection):
+        # (name, position in the unpacked tuple or -1, value -> canonical or words -> canonical)
+        self._steps: list[tuple[str, int, Callable[[Any], Any]]] = []
+        for f in block.fields:
+            if f.canonical in steps:
+                self._steps.append((f.canonical, -1, steps[f.canonical]))
+            else:
+                finish = _finisher(f, ctx, spec.leak_reference_c)
+                if finish is None:
+                    finish = partial(_finish_general, f, ctx, spec.leak_reference_c)
+                self._steps.append((f.canonical, index[f.canonical], finish))
 
     def __call__(self, address: int, regs: Sequence[int], expected: int,
                  received_at: datetime) -> Decoded:
         words = regs if type(regs) is list else None
-        if (words is None or len(words) != self._length or self._guards is None
+        if (words is None or len(words) != self._length or not self._fast
                 or not _plain_words(words)):
             # anything out of the ordinary: the interpreter says exactly what is wrong
             return decode_block(self.spec, self.record, self.block, address, regs, expected,
                                 self.ctx, received_at)
-        raw = f"@{address}: " + self._pack_all(*words).hex(" ", 2)
-        head, tail = self._guards(words)
-        if head != expected or tail != expected:
+        data = self._pack_all(*words)
+        numbers = self._unpack(data)
+        if numbers[self._head] != expected or numbers[self._tail] != expected:
             return decode_block(self.spec, self.record, self.block, address, regs, expected,
                                 self.ctx, received_at)
+        raw = f"@{address}: " + data.hex(" ", 2)
         values: dict[str, Any] = {}
         try:
-            for name, field in self._fields:
-                values[name] = field(words)
+            for name, i, convert in self._steps:
+                values[name] = convert(numbers[i]) if i >= 0 else convert(words)
         except FieldError as exc:
             return reject(self.ctx, self.label, raw, str(exc), received_at)
         if self.record == "result":
