@@ -497,9 +497,9 @@ class PymodbusLink:
             }.get(function, client.read_holding_registers)
         async with self.lock:
             try:
-                reply = await within(
-                    call(address, count=count, device_id=device_id), self.timeout + 0.5
-                )
+                # inline, not ``within``: one coroutine fewer on every read of every poll
+                async with asyncio.timeout(self.timeout + 0.5):
+                    reply = await call(address, count=count, device_id=device_id)
             except ConnectionException as exc:
                 raise LinkLost(f"{self._what(function, address, count, device_id)}: "
                                f"connection lost: {exc}") from exc
