@@ -31,6 +31,7 @@ from gateway.profiles.model import (
 from gateway.profiles.normalise import (
     _DEFAULT_UNITS,
     _QUANTITY_KINDS,
+    _VERDICTS,
     FieldError,
     _coded,
     _fail,
@@ -43,6 +44,7 @@ from gateway.profiles.normalise import (
     reject,
 )
 from gateway.profiles.registers import NUMERIC_TYPES, parse_type
+from gateway.records import Verdict
 from gateway.units import same_value, to_canonical_fn
 
 __all__ = ["BlockDecoder", "counter_reader"]
@@ -107,7 +109,9 @@ def _finisher(spec: FieldSpec, ctx: StationContext,
         raise _fail(spec, f"holds the null value {value!r} but the field is required")
 
     if kind in ("verdict", "bool"):
-        codes = dict(spec.codes or {})
+        codes: dict[str, Any] = dict(spec.codes or {})
+        if kind == "verdict":  # the member make_record would make of the code's text
+            codes = {k: Verdict(v) if v in _VERDICTS else v for k, v in codes.items()}
 
         def as_code(value: int | float) -> Any:
             if is_null(value):
@@ -199,6 +203,35 @@ def _plain_code(type_name: str, at: int, width: int, word_order: str, byte_order
     return NUMERIC_TYPES[type_kind][0]
 
 
+def _string_code(type_name: str, at: int, width: int, byte_order: str,
+                 length: int) -> str | None:
+    """``struct``'s bytes code of a string read straight from the block (strings keep their
+    registers in address order whatever the word order), or None."""
+    try:
+        type_kind, type_width = parse_type(type_name)
+    except DecodeError:
+        return None
+    if (type_kind != "string" or type_width != width or at < 0 or at + width > length
+            or byte_order != "big"):
+        return None
+    return f"{2 * width}s"
+
+
+def _text_finisher(spec: FieldSpec, ctx: StationContext, reference_c: float,
+                   encoding: str) -> Callable[[bytes], Any]:
+    """A string field's bytes as ``convert_register`` takes them: decoded, padding removed."""
+
+    def as_text(data: bytes) -> Any:
+        try:
+            text = data.decode(encoding)
+        except UnicodeDecodeError as exc:
+            raise _fail(spec, f"string is not valid {encoding}: byte 0x{data[exc.start]:02x} "
+                              f"at {exc.start}") from None
+        return finish_register(spec, text.rstrip("\x00 "), ctx, reference_c)
+
+    return as_text
+
+
 class BlockDecoder:
     """``decode_block`` for one block layout and one station, its layout work done once.
 
@@ -228,7 +261,9 @@ class BlockDecoder:
             reg = f.register
             plain_time = f.kind != "timestamp" or f.time_format not in ("ymdhms", "bcd-ymdhms")
             code = (_plain_code(reg.type, reg.at, reg.width, reg.word_order, reg.byte_order,
-                                length) if reg is not None and plain_time else None)
+                                length) or _string_code(reg.type, reg.at, reg.width,
+                                                        reg.byte_order, length)
+                    if reg is not None and plain_time else None)
             if reg is not None and code is not None:
                 plain.append((reg.at, reg.width, code, f.canonical))
             else:
@@ -259,7 +294,13 @@ class BlockDecoder:
             if f.canonical in steps:
                 self._steps.append((f.canonical, -1, steps[f.canonical]))
             else:
-                finish = _finisher(f, ctx, spec.leak_reference_c)
+                reg = f.register
+                assert reg is not None
+                finish: Callable[[Any], Any] | None
+                if _string_code(reg.type, reg.at, reg.width, reg.byte_order, length):
+                    finish = _text_finisher(f, ctx, spec.leak_reference_c, spec.string_encoding)
+                else:
+                    finish = _finisher(f, ctx, spec.leak_reference_c)
                 if finish is None:
                     finish = partial(_finish_general, f, ctx, spec.leak_reference_c)
                 self._steps.append((f.canonical, index[f.canonical], finish))
