@@ -87,6 +87,7 @@ class AlarmRules:
     garbage_per_10min: int = 20  # quarantined lines a station may send in 10 minutes
     backlog_age: timedelta = timedelta(minutes=5)  # a sink's oldest unsent record
     clock_ahead: timedelta = timedelta(minutes=2)  # a station clock this far ahead is wrong
+    gap_window: timedelta = timedelta(hours=1)  # lost cycles keep a station's warning this long
 
 
 def epochs(times: Sequence[datetime] | pd.Series, events: Iterable[datetime]) -> np.ndarray:
@@ -153,9 +154,33 @@ def forecast_errors(values: np.ndarray, start: int, window: int) -> np.ndarray:
     forecast errors) lets a steady trend such as seal wear pass as expected while a step
     (a damaged fixture, a blocked leak standard) or a change of the trend still signals.
     """
+    values = np.asarray(values, dtype=float)
+    first_full = max(start, window)
+    parts = [_errors_one_by_one(values, start, min(first_full, values.size))]
+    if values.size > first_full and window >= 4:
+        # every full window at once (one row per predicted value): same formula, no loop
+        y = np.lib.stride_tricks.sliding_window_view(values[:-1], window)[first_full - window:]
+        x = np.arange(window, dtype=float)  # window-local; predicted at ``window``
+        xc = x - x.mean()
+        sxx = float(np.sum(xc**2))
+        ybar = y.mean(axis=1)
+        slope = (y - ybar[:, None]) @ xc / sxx
+        resid = y - (ybar[:, None] + slope[:, None] * xc)
+        s = np.sqrt(np.sum(resid**2, axis=1) / (window - 2))
+        se = s * np.sqrt(1.0 + 1.0 / window + (window - x.mean()) ** 2 / sxx)
+        target = values[first_full:]
+        pred = ybar + slope * (window - x.mean())
+        ok = se > 1e-12 * np.maximum(1.0, np.abs(target))
+        parts.append((target[ok] - pred[ok]) / se[ok])
+    return np.concatenate(parts)
+
+
+def _errors_one_by_one(values: np.ndarray, start: int, stop: int) -> np.ndarray:
+    """Forecast errors for ``start <= i < stop`` whose windows are still short (the first
+    ``window`` values of a series)."""
     out = []
-    for i in range(start, values.size):
-        lo = max(0, i - window)
+    for i in range(start, stop):
+        lo = 0
         y = values[lo:i]
         x = np.arange(lo, i, dtype=float)
         if y.size < 4:
@@ -313,10 +338,18 @@ def link_conditions(
         out.append(Condition(f"garbage:{station}", "garbage", station, "warning", now,
                              f"{quarantined_10min} unreadable lines in 10 minutes "
                              "(wrong line settings, a noisy cable, or another profile?)"))
-    for first, last, at in gaps:
-        what = f"cycle {first}" if first == last else f"cycles {first}..{last}"
-        out.append(Condition(f"gap:{station}:{first}", "gap", station, "warning", at,
-                             f"{what} lost before they could be read"))
+    gaps = [g for g in gaps if now - g[2] <= rules.gap_window]  # an event, not a state
+    if gaps:
+        # one alarm per station, however many gaps: a list with an entry per lost cycle
+        # would bury the station that is really failing
+        lost = sum(last - first + 1 for first, last, _ in gaps)
+        first, last, _ = max(gaps, key=lambda g: g[2])
+        newest = f"cycle {first}" if first == last else f"cycles {first}..{last}"
+        runs = f" in {len(gaps)} gaps" if len(gaps) > 1 else ""
+        out.append(Condition(f"gap:{station}", "gap", station, "warning",
+                             min(at for _, _, at in gaps),
+                             f"{lost} cycle{'s' if lost != 1 else ''} lost{runs} before they "
+                             f"could be read (newest: {newest})"))
     if conflicts:
         out.append(Condition(f"conflict:{station}", "conflict", station, "warning", now,
                              f"{conflicts} re-sent record(s) differ from what was stored"))

@@ -32,6 +32,15 @@ _TIME_FORMAT = {
 _TIP_FORMAT = "%Y-%m-%d %H:%M:%S"
 
 
+@alt.theme.register("leakfleet", enable=True)
+def _theme() -> alt.theme.ThemeConfig:
+    """Every chart drawn as SVG (vega-embed reads ``usermeta.embedOptions``): a printed page
+    or PDF keeps charts sharp, and each mark carries an ARIA label with its values, which a
+    screen reader (and the browser tests) can read; the charts hold at most a few thousand
+    marks, where SVG is as quick as canvas."""
+    return alt.theme.ThemeConfig(usermeta={"embedOptions": {"renderer": "svg"}})
+
+
 def plant_clock(df: pd.DataFrame, timezone: str) -> pd.DataFrame:
     """Every time column as naive wall-clock time in ``timezone`` (the plant's by default).
 
@@ -139,7 +148,7 @@ def histogram(
     if hist.reject_limit is not None:
         marks.append({"x": hist.reject_limit * factor, "what": "reject limit"})
     if hist.lower_limit is not None:
-        marks.append({"x": hist.lower_limit * factor, "what": "lower limit"})
+        marks.append({"x": hist.lower_limit * factor, "what": "lower plausibility limit"})
     if hist.reject_limit is not None and guard_band:
         band = pd.DataFrame(
             [{"a": (hist.reject_limit - guard_band) * factor, "b": hist.reject_limit * factor}]
@@ -154,10 +163,16 @@ def histogram(
             .mark_rule(strokeWidth=2)
             .encode(
                 x="x:Q",
+                # only the reject limit is drawn solid: the others judge no part
+                strokeDash=alt.StrokeDash(
+                    "what:N", legend=None,
+                    scale=alt.Scale(domain=["reject limit", "lower plausibility limit",
+                                            "guard band"], range=[[1, 0], [4, 3], [2, 2]]),
+                ),
                 color=alt.Color(
                     "what:N",
                     scale=alt.Scale(
-                        domain=["reject limit", "lower limit", "guard band"],
+                        domain=["reject limit", "lower plausibility limit", "guard band"],
                         range=["#b23a48", "#6a4c93", "#c9a227"],
                     ),
                     title=None,

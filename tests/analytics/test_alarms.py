@@ -108,11 +108,12 @@ def test_forecast_errors_match_the_regression_prediction_interval() -> None:
     from analytics.alarms import forecast_errors
 
     rng = np.random.default_rng(11)
-    y = 5.0 + 0.1 * np.arange(30) + rng.normal(0, 0.3, 30)
-    z = forecast_errors(y, 25, 20)
-    for k, i in enumerate(range(25, 30)):
-        x = np.arange(i - 20, i, dtype=float)
-        fit = sm.OLS(y[i - 20:i], sm.add_constant(x)).fit()
+    y = 5.0 + 0.1 * np.arange(120) + rng.normal(0, 0.3, 120)
+    z = forecast_errors(y, 5, 20)  # short windows first (all values before i), then 20
+    assert z.size == 115
+    for k, i in enumerate(range(5, 120)):
+        x = np.arange(max(0, i - 20), i, dtype=float)
+        fit = sm.OLS(y[max(0, i - 20):i], sm.add_constant(x)).fit()
         pred = fit.get_prediction(np.array([[1.0, float(i)]]))
         expected = (y[i] - pred.predicted_mean[0]) / pred.se_obs[0]
         assert z[k] == pytest.approx(expected, rel=1e-9)
@@ -158,6 +159,18 @@ def test_link_conditions() -> None:
                             gaps=[(101, 104, now)], conflicts=2, rules=rules, now=now)
     assert [c.rule for c in quiet] == ["silent", "garbage", "gap", "conflict"]
     assert "cycles 101..104" in quiet[2].message
+    many = link_conditions("L1-S1", state="online", state_since=T0, last_result=now,
+                           typical_cycle=timedelta(seconds=40), quarantined_10min=0,
+                           gaps=[(5, 5, now - timedelta(minutes=30)), (9, 12, now)],
+                           rules=rules, now=now)  # fmt: skip
+    assert [(c.key, c.since) for c in many] == [("gap:L1-S1", now - timedelta(minutes=30))]
+    assert many[0].message.startswith("5 cycles lost in 2 gaps")  # one alarm, not one per gap
+    assert "cycles 9..12" in many[0].message
+    later = now + rules.gap_window + timedelta(minutes=31)  # both gaps older than the window
+    assert not link_conditions("L1-S1", state="online", state_since=T0, last_result=later,
+                               typical_cycle=timedelta(seconds=40), quarantined_10min=0,
+                               gaps=[(5, 5, now - timedelta(minutes=30)), (9, 12, now)],
+                               rules=rules, now=later)  # fmt: skip
 
 
 def test_transitions_raise_once_and_clear_when_gone() -> None:
