@@ -2,7 +2,7 @@
 
 ``model`` holds what the loader read (plain, frozen data, no behaviour that reaches the
 parsing code); this module turns it into the objects drivers and ``profile check`` use. The
-imports run one way only: model <- registers/normalise/lines <- decoders.
+imports run one way only: model <- registers/normalise/lines <- register_block <- decoders.
 """
 
 from __future__ import annotations
