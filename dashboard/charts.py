@@ -274,3 +274,58 @@ def advice_curve(df: pd.DataFrame, target: float, current_s: float) -> Layered:
         alt.Chart(pd.DataFrame([{"x": current_s}])).mark_rule(color="#b23a48").encode(x="x:Q")
     )
     return alt.layer(line, target_rule, now_rule).properties(height=260)
+
+
+#: ordinary series (groups, periods, stations): the Okabe–Ito colour-blind-safe palette
+#: (Okabe & Ito 2008, "Color Universal Design"), blue and orange first, no red/green pair
+SERIES_COLOURS = ["#0072B2", "#E69F00", "#56B4E9", "#CC79A7", "#009E73", "#F0E442",
+                  "#D55E00", "#000000"]  # fmt: skip
+_LIMIT_STYLE = alt.Scale(
+    domain=["reject limit", "lower plausibility limit (not a reject limit)"],
+    range=["#D55E00", "#8d8d8d"],
+)
+
+
+def station_leak(points: pd.DataFrame, band_df: pd.DataFrame, limits: pd.DataFrame,
+                 events: pd.DataFrame, unit: str) -> Layered:
+    """A station's leak rate over days: hourly min–max band and mean, the newest tests as
+    dots by verdict, each limit as the step it was in force (the reject limit solid, the
+    lower plausibility limit dotted and named as such), maintenance as vertical rules."""
+    title = f"leak rate [{unit}]"
+    layers: list[alt.Chart] = []
+    if not band_df.empty:
+        base = alt.Chart(band_df).encode(x=_time_x("bucket"))
+        layers += [
+            base.mark_area(opacity=0.2, color="#0072B2").encode(
+                y=alt.Y("min:Q", title=title, scale=alt.Scale(zero=False)), y2="max:Q"),
+            base.mark_line(color="#0072B2", strokeWidth=1).encode(
+                y="mean:Q", tooltip=[_time_tip("bucket"), alt.Tooltip("n:Q", title="tests"),
+                                     alt.Tooltip("mean:Q", format=".3g", title="mean"),
+                                     alt.Tooltip("max:Q", format=".3g", title="highest")]),
+        ]
+    if not points.empty:
+        layers.append(
+            alt.Chart(points).mark_circle(size=16, opacity=0.7).encode(
+                x=_time_x("ended_at"), y=alt.Y("leak:Q", title=title),
+                color=alt.Color("verdict:N", scale=_VERDICT_COLOURS, title="verdict"),
+                tooltip=[_time_tip("ended_at"), alt.Tooltip("cycle:Q", title="cycle"),
+                         alt.Tooltip("program:N", title="program"),
+                         alt.Tooltip("verdict:N", title="verdict"),
+                         alt.Tooltip("leak:Q", format=".3g", title=title)]))
+    if not limits.empty:
+        layers.append(
+            alt.Chart(limits).mark_rule(strokeWidth=2).encode(
+                x=_time_x("start"), x2="end:T", y=alt.Y("value:Q", title=title),
+                color=alt.Color("what:N", scale=_LIMIT_STYLE, title="limits"),
+                strokeDash=alt.StrokeDash("what:N", scale=alt.Scale(
+                    domain=_LIMIT_STYLE.domain, range=[[1, 0], [2, 3]]), legend=None),
+                tooltip=[alt.Tooltip("what:N", title="limit"),
+                         alt.Tooltip("value:Q", format=".3g", title=unit)]))
+    if not events.empty:
+        layers.append(
+            alt.Chart(events).mark_rule(color="#000000", strokeDash=[6, 3]).encode(
+                x=_time_x("at"), tooltip=[_time_tip("at"), alt.Tooltip("kind:N", title="what"),
+                                          alt.Tooltip("note:N", title="note")]))
+    if not layers:
+        layers.append(alt.Chart(pd.DataFrame({"x": []})).mark_point())
+    return alt.layer(*layers).resolve_scale(color="independent").properties(height=280)

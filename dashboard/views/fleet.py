@@ -104,6 +104,8 @@ def _tile(
     )
     streak = f" · {s.reject_streak} rejects in a row" if s.reject_streak else ""
     st.caption(f"Last calibration: {_age(p.now, cal_at)}{streak}")
+    st.page_link("views/station.py", label=f"Station page of {s.station}",
+                 icon=":material/open_in_new:", query_params={"station": s.station})
     if len(s.conditions) > 1:
         with st.expander(f"{len(s.conditions)} open conditions"):
             for c in s.conditions:
