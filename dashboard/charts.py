@@ -11,6 +11,7 @@ import pandas as pd
 from analytics import ControlChart, Histogram, ParetoReport
 
 __all__ = [
+    "SERIES_COLOURS",
     "advice_curve",
     "control_chart",
     "histogram",
@@ -18,7 +19,9 @@ __all__ = [
     "pareto",
     "plant_clock",
     "series",
+    "station_leak",
     "verdict_trend",
+    "yield_periods",
     "yield_trend",
 ]
 
@@ -62,19 +65,22 @@ _VERDICT_COLOURS = alt.Scale(
 )
 
 
-def yield_trend(df: pd.DataFrame, x: str, y: str, colour: str | None, title: str) -> alt.Chart:
-    """Yield (0..1) over time or periods, one line per group."""
+def yield_trend(df: pd.DataFrame, x: str, y: str, colour: str | None, title: str,
+                domain: tuple[float, float] = (0.9, 1.0)) -> alt.Chart:
+    """Yield (0..1) over time or periods, one line per group, on a fixed floor (``domain``,
+    from ``analytics.compare.yield_axis``) so noise is not stretched to the full height."""
     chart = (
         alt.Chart(df)
-        .mark_line(point=True)
+        .mark_line(point=True, color=SERIES_COLOURS[0])
         .encode(
             x=alt.X(f"{x}:O", title=None),
-            y=alt.Y(f"{y}:Q", title=title, axis=alt.Axis(format="%"), scale=alt.Scale(zero=False)),
+            y=alt.Y(f"{y}:Q", title=f"{title} [%]", axis=alt.Axis(format="%"),
+                    scale=alt.Scale(domain=list(domain), clamp=True)),
             tooltip=[alt.Tooltip(c) for c in df.columns],
         )
     )
     if colour:
-        chart = chart.encode(color=alt.Color(f"{colour}:N"))
+        chart = chart.encode(color=alt.Color(f"{colour}:N", scale=alt.Scale(range=SERIES_COLOURS)))
     return chart.properties(height=260)
 
 
@@ -329,3 +335,40 @@ def station_leak(points: pd.DataFrame, band_df: pd.DataFrame, limits: pd.DataFra
     if not layers:
         layers.append(alt.Chart(pd.DataFrame({"x": []})).mark_point())
     return alt.layer(*layers).resolve_scale(color="independent").properties(height=280)
+
+
+def yield_periods(df: pd.DataFrame, *, measure: str, domain: tuple[float, float],
+                  target: float | None, colour: str | None = None, x: str = "period"
+                  ) -> alt.VConcatChart:
+    """Yield per period (day, week or shift) with its volume: points sized by volume on a
+    fixed-floor axis, the target as a dashed line, and the volume as bars below, so a period
+    with a handful of parts is seen to be one. ``df``: ``period``, ``yield``, ``total``,
+    ``share`` and optionally the ``colour`` column (e.g. the shift)."""
+    order = list(dict.fromkeys(df[x]))
+    x_enc = alt.X(f"{x}:O", sort=order, title=None, axis=alt.Axis(labelAngle=-40))
+    colour_enc = (alt.Color(f"{colour}:N", scale=alt.Scale(range=SERIES_COLOURS), title=None)
+                  if colour else alt.value(SERIES_COLOURS[0]))
+    tips = [alt.Tooltip("period:N", title="period"),
+            alt.Tooltip("yield:Q", format=".2%", title=measure),
+            alt.Tooltip("total:Q", format=",", title="volume"),
+            alt.Tooltip("share:Q", format=".1%", title="share of volume")]
+    base = alt.Chart(df).encode(x=x_enc)
+    line = base.mark_line(strokeWidth=1, opacity=0.6).encode(
+        y=alt.Y("yield:Q", title=f"{measure} [%]", axis=alt.Axis(format="%"),
+                scale=alt.Scale(domain=list(domain), clamp=True)),
+        color=colour_enc)
+    points = base.mark_circle(opacity=0.9).encode(
+        y="yield:Q", color=colour_enc,
+        size=alt.Size("total:Q", title="volume", scale=alt.Scale(range=[15, 400])),
+        tooltip=tips)
+    layers: list[alt.Chart] = [line, points]
+    if target is not None:
+        layers.append(alt.Chart(pd.DataFrame({"y": [target], "what": [f"target {target:.1%}"]}))
+                      .mark_rule(color="#000000", strokeDash=[6, 4])
+                      .encode(y="y:Q", tooltip=[alt.Tooltip("what:N", title="target")]))
+    top = alt.layer(*layers).properties(height=240)
+    bars = base.mark_bar(opacity=0.8).encode(
+        y=alt.Y("total:Q", title="volume"), color=colour_enc, tooltip=tips,
+        **({"xOffset": alt.XOffset(f"{colour}:N")} if colour else {}),
+    ).properties(height=90)
+    return alt.vconcat(top, bars).resolve_scale(color="shared")
