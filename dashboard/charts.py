@@ -107,7 +107,8 @@ def pareto(report: ParetoReport, title: str) -> Layered:
         alt.Chart(df)
         .mark_bar(color="#d9822b")
         .encode(
-            x=alt.X("category:N", sort=order, title=title),
+            x=alt.X("category:N", sort=order, title=title,
+                    axis=alt.Axis(labelLimit=220, labelAngle=-35)),
             y=alt.Y("n:Q", title="count"),
             tooltip=["category", "n", alt.Tooltip("share:Q", format=".1%")],
         )
@@ -293,7 +294,7 @@ _LIMIT_STYLE = alt.Scale(
 
 
 def station_leak(points: pd.DataFrame, band_df: pd.DataFrame, limits: pd.DataFrame,
-                 events: pd.DataFrame, unit: str) -> Layered:
+                 events: pd.DataFrame, unit: str, height: int = 280) -> Layered:
     """A station's leak rate over days: hourly min–max band and mean, the newest tests as
     dots by verdict, each limit as the step it was in force (the reject limit solid, the
     lower plausibility limit dotted and named as such), maintenance as vertical rules."""
@@ -302,9 +303,9 @@ def station_leak(points: pd.DataFrame, band_df: pd.DataFrame, limits: pd.DataFra
     if not band_df.empty:
         base = alt.Chart(band_df).encode(x=_time_x("bucket"))
         layers += [
-            base.mark_area(opacity=0.2, color="#0072B2").encode(
+            base.mark_area(opacity=0.2, color="#0072B2", interpolate="step-after").encode(
                 y=alt.Y("min:Q", title=title, scale=alt.Scale(zero=False)), y2="max:Q"),
-            base.mark_line(color="#0072B2", strokeWidth=1).encode(
+            base.mark_line(color="#0072B2", strokeWidth=1, interpolate="step-after").encode(
                 y="mean:Q", tooltip=[_time_tip("bucket"), alt.Tooltip("n:Q", title="tests"),
                                      alt.Tooltip("mean:Q", format=".3g", title="mean"),
                                      alt.Tooltip("max:Q", format=".3g", title="highest")]),
@@ -313,7 +314,8 @@ def station_leak(points: pd.DataFrame, band_df: pd.DataFrame, limits: pd.DataFra
         layers.append(
             alt.Chart(points).mark_circle(size=16, opacity=0.7).encode(
                 x=_time_x("ended_at"), y=alt.Y("leak:Q", title=title),
-                color=alt.Color("verdict:N", scale=_VERDICT_COLOURS, title="verdict"),
+                color=alt.Color("verdict:N", scale=_VERDICT_COLOURS, title="verdict",
+                                legend=alt.Legend(orient="bottom")),
                 tooltip=[_time_tip("ended_at"), alt.Tooltip("cycle:Q", title="cycle"),
                          alt.Tooltip("program:N", title="program"),
                          alt.Tooltip("verdict:N", title="verdict"),
@@ -322,7 +324,8 @@ def station_leak(points: pd.DataFrame, band_df: pd.DataFrame, limits: pd.DataFra
         layers.append(
             alt.Chart(limits).mark_rule(strokeWidth=2).encode(
                 x=_time_x("start"), x2="end:T", y=alt.Y("value:Q", title=title),
-                color=alt.Color("what:N", scale=_LIMIT_STYLE, title="limits"),
+                color=alt.Color("what:N", scale=_LIMIT_STYLE, title="limits",
+                                legend=alt.Legend(labelLimit=320, orient="bottom")),
                 strokeDash=alt.StrokeDash("what:N", scale=alt.Scale(
                     domain=_LIMIT_STYLE.domain, range=[[1, 0], [2, 3]]), legend=None),
                 tooltip=[alt.Tooltip("what:N", title="limit"),
@@ -334,12 +337,12 @@ def station_leak(points: pd.DataFrame, band_df: pd.DataFrame, limits: pd.DataFra
                                           alt.Tooltip("note:N", title="note")]))
     if not layers:
         layers.append(alt.Chart(pd.DataFrame({"x": []})).mark_point())
-    return alt.layer(*layers).resolve_scale(color="independent").properties(height=280)
+    return alt.layer(*layers).resolve_scale(color="independent").properties(height=height)
 
 
 def yield_periods(df: pd.DataFrame, *, measure: str, domain: tuple[float, float],
-                  target: float | None, colour: str | None = None, x: str = "period"
-                  ) -> alt.VConcatChart:
+                  target: float | None, colour: str | None = None, x: str = "period",
+                  height: int = 240) -> alt.VConcatChart:
     """Yield per period (day, week or shift) with its volume: points sized by volume on a
     fixed-floor axis, the target as a dashed line, and the volume as bars below, so a period
     with a handful of parts is seen to be one. ``df``: ``period``, ``yield``, ``total``,
@@ -359,14 +362,15 @@ def yield_periods(df: pd.DataFrame, *, measure: str, domain: tuple[float, float]
         color=colour_enc)
     points = base.mark_circle(opacity=0.9).encode(
         y="yield:Q", color=colour_enc,
-        size=alt.Size("total:Q", title="volume", scale=alt.Scale(range=[15, 400])),
+        size=alt.Size("total:Q", title="volume", scale=alt.Scale(range=[15, 400]),
+                      legend=alt.Legend(orient="bottom")),
         tooltip=tips)
     layers: list[alt.Chart] = [line, points]
     if target is not None:
         layers.append(alt.Chart(pd.DataFrame({"y": [target], "what": [f"target {target:.1%}"]}))
                       .mark_rule(color="#000000", strokeDash=[6, 4])
                       .encode(y="y:Q", tooltip=[alt.Tooltip("what:N", title="target")]))
-    top = alt.layer(*layers).properties(height=240)
+    top = alt.layer(*layers).properties(height=height)
     bars = base.mark_bar(opacity=0.8).encode(
         y=alt.Y("total:Q", title="volume"), color=colour_enc, tooltip=tips,
         **({"xOffset": alt.XOffset(f"{colour}:N")} if colour else {}),

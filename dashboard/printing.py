@@ -76,6 +76,6 @@ def show_table(frame: pd.DataFrame, key: str, *, rows: int = 12, **kwargs: Any) 
     if not printing():
         st.dataframe(frame, hide_index=True, width="stretch", key=key, **kwargs)
         return
-    st.table(frame.head(rows).set_index(frame.columns[0]) if len(frame.columns) else frame)
+    st.table(frame.head(rows), hide_index=True, border="horizontal")
     if len(frame) > rows:
         st.caption(f"First {rows} of {len(frame):,} rows; the interactive page has them all.")

@@ -44,8 +44,10 @@ def _summary_line(s: PeriodSummary, what: str, target: float) -> str:
     if s.periods == 1:
         what = what[:-1]
     text = (f"Over {s.periods} {what} with volume ({s.total:,} counted): **{_pct(s.weighted_yield)}"
-            f"** weighted by volume (each {what.rstrip('s')} counts by its parts or tests), "
-            f"{_pct(s.unweighted_yield)} as a plain mean of the {what}; target {target:.1%}.")
+            f"** weighted by volume (each {what.rstrip('s')} counts by its parts or tests)")
+    text += (f", {_pct(s.unweighted_yield)} as a plain mean of the {what}; " if s.periods > 1
+             else "; ")
+    text += f"target {target:.1%}."
     if s.thin_periods:
         text += (f" {s.thin_periods} of them had under a quarter of an even share of the "
                  "volume: small dots and short bars below.")
@@ -53,7 +55,7 @@ def _summary_line(s: PeriodSummary, what: str, target: float) -> str:
 
 
 def compare_section(hourly: pd.DataFrame, calendar: ShiftCalendar, *, measure: str,
-                    target: float, choice: str) -> None:
+                    target: float, choice: str, height: int = 240) -> None:
     """``hourly``: UTC ``bucket, good, total`` of the page's selection (``good_total``)."""
     kind = COMPARISONS[choice]
     period = "shift" if kind in ("shift", "same_shift") else kind
@@ -70,7 +72,7 @@ def compare_section(hourly: pd.DataFrame, calendar: ShiftCalendar, *, measure: s
         shown = table.rename(columns={"shift": "period"}).assign(
             share=table["total"] / table["total"].sum())
         st.altair_chart(charts.yield_periods(shown, measure=measure, domain=domain,
-                                             target=target), width="stretch",
+                                             target=target, height=height), width="stretch",
                         key="yield_compare_chart")
         show_table(pd.DataFrame({
             "Shift": table["shift"], "Shifts run": table["shifts"],
@@ -89,7 +91,7 @@ def compare_section(hourly: pd.DataFrame, calendar: ShiftCalendar, *, measure: s
     st.altair_chart(
         charts.yield_periods(periods, measure=measure, domain=domain, target=target,
                              colour="shift" if same_shift else None,
-                             x="day" if same_shift else "period"),
+                             x="day" if same_shift else "period", height=height),
         width="stretch", key="yield_compare_chart",
     )
     floor = f"{domain[0]:.0%}"

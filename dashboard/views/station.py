@@ -85,7 +85,7 @@ def _leak_chart(p: Page, station: str, program: str | None, since: datetime | No
                                           for c in ("mean", "min", "max")}), tz),
         charts.plant_clock(limits.assign(value=limits["value"] * u.q_factor), tz),
         charts.plant_clock(events[["at", "kind", "note"]], tz),
-        u.q_label,
+        u.q_label, height=200 if printing() else 280,
     )
     st.altair_chart(chart, width="stretch", key="station_leak_chart")
     reject = limits[limits["what"] == "reject limit"]
@@ -123,7 +123,7 @@ def _calibrations(p: Page, station: str, since: datetime | None, until: datetime
         f"Leak standard [{u.q_label}]": [fmt(u.q(v)) for v in cal["standard_sccm"]],
         "Reason": cal["reason"],
     })  # fmt: skip
-    show_table(_text(table), "station_cal_table", rows=8)
+    show_table(_text(table), "station_cal_table", rows=6)
 
 
 def _alarms(p: Page, station: str, since: datetime | None, until: datetime | None) -> None:
@@ -230,7 +230,8 @@ def _config(p: Page, station: str) -> None:
         f"**Line** {view.line} · **Station clock zone** {view.timezone}  \n"
         f"**Pressure curves** {'collected' if view.traces else 'not collected'}  \n"
         f"**Config** {view.source}"
-        + (f"  \n**Newest result read with** {seen}" if seen and seen != view.profile else "")
+        + (f"  \n**Newest result read with** {seen}"
+           if seen and not _same_profile(seen, view.profile) else "")
     )
     if view.programs:
         show_table(pd.DataFrame({"Program no.": [n for n, _ in view.programs],
@@ -242,6 +243,17 @@ def _config(p: Page, station: str) -> None:
         st.markdown("**Program sheet** (values the gateway fills in when the station sends "
                     "none)")
         show_table(_parameters(p, view.parameters), "station_parameter_table")
+
+
+def _same_profile(a: str, b: str) -> bool:
+    """``lf-kv@1`` and ``lf-kv@1.0`` name the same profile version."""
+    def norm(text: str) -> str:
+        name, _, version = text.partition("@")
+        while version.endswith(".0"):
+            version = version[:-2]
+        return f"{name}@{version}"
+
+    return norm(a) == norm(b)
 
 
 _PARAM_LABELS = {

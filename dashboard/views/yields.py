@@ -173,10 +173,12 @@ _LABELS = {"tests": "Tests", "aborted": "Aborted", "passed_tests": "Passed tests
            "no_part_id": "Tests without part id", "first_pass_yield": "First-pass yield",
            "final_yield": "Final yield"}  # fmt: skip
 shown_table = table.rename(columns={group: group_label, **_LABELS})
-if paper:
-    show_table(shown_table.assign(**{c: shown_table[c].map(_pct) for c in
-                                     ("Test yield", "First-pass yield", "Final yield")
-                                     if c in shown_table}), "yield_table")
+if paper:  # the headline columns only: twelve do not fit a portrait page
+    narrow = [c for c in (group_label, "Tests", "Aborted", "Parts", "First-pass yield",
+                          "Final yield", "Test yield") if c in shown_table]
+    show_table(shown_table[narrow].assign(**{c: shown_table[c].map(_pct) for c in
+                                             ("Test yield", "First-pass yield", "Final yield")
+                                             if c in shown_table}), "yield_table")
 else:
     st.dataframe(
         shown_table, hide_index=True, width="stretch", key="yield_table",
@@ -197,7 +199,7 @@ if since is not None and until is not None and (until - since).days < 2:
 hourly = good_total(counts("first_pass" if measure == "first_pass" else "verdict",
                            bucket="hour"), measure, keys=("bucket",))  # type: ignore[arg-type]
 compare_section(hourly, p.calendar, measure=MEASURES[measure].split(" (")[0],
-                target=target_pct / 100.0, choice=compare_choice)
+                target=target_pct / 100.0, choice=compare_choice, height=150 if paper else 240)
 
 if not paper:
     st.subheader("Trend")

@@ -8,7 +8,9 @@ must stop the plant, the gateway and the dashboard cleanly. Screenshots land in 
 
 from __future__ import annotations
 
+import io
 import os
+import re
 import signal
 import socket
 import subprocess
@@ -27,6 +29,7 @@ ARGS = [
 ]  # fmt: skip
 PAGES = [  # (navigation entry, a text the page shows once it has data)
     ("Fleet live", "cycles in the last hour"),
+    ("Station", "Leak rate against the reject limit"),
     ("Yield", "First-pass yield"),
     ("Readings vs limits", "Ppu"),
     ("Calibration", "Calibrations"),
@@ -153,3 +156,60 @@ def test_every_page_renders_in_chromium(demo: tuple[str, subprocess.Popen[str]],
     assert proc.wait(timeout=30) == 0
     out = (tmp_path / "demo.out").read_text()
     assert "stopped:" in out and "Traceback" not in out, out
+
+
+def _pdf_pages(pdf: bytes) -> int:
+    """Pages of a PDF: pypdf when installed, else the page objects in the file."""
+    try:
+        from pypdf import PdfReader
+    except ImportError:
+        return len(re.findall(rb"/Type\s*/Page(?![s\w])", pdf))
+    return len(PdfReader(io.BytesIO(pdf)).pages)
+
+
+PRINTED = [  # (print view, a text it shows once it has data)
+    ("station?station=L1-S1&print=1&range=Last+24+hours", "Leak rate against the reject limit"),
+    ("yields?print=1&range=Everything&compare=Shift+against+shift", "Rejects, Pareto"),
+]
+
+
+def test_station_and_yield_print_views_fit_a4(demo: tuple[str, subprocess.Popen[str]],
+                                              tmp_path: Path) -> None:  # fmt: skip
+    """The print views printed by Chromium to A4 PDF: no sidebar or widgets, the charts
+    drawn, one or two pages each (a manager's handout, not a scroll of screens)."""
+    from playwright.sync_api import sync_playwright
+
+    url, _proc = demo
+    with sync_playwright() as pw:
+        browser = pw.chromium.launch(executable_path=str(CHROMIUM), args=ARGS)
+        try:
+            page = browser.new_page(viewport={"width": 1000, "height": 1200})
+            for path, marker in PRINTED:
+                page.goto(url + path, wait_until="domcontentloaded")
+                deadline = time.monotonic() + 60
+                while page.get_by_text(marker).count() == 0 and time.monotonic() < deadline:
+                    page.wait_for_timeout(500)
+                    if page.get_by_text("The store holds no records yet").count():
+                        page.reload()
+                page.wait_for_function(
+                    "() => !document.querySelector(\"[data-testid='stStatusWidget']\")",
+                    timeout=30_000,
+                )
+                page.wait_for_selector("[data-testid='stVegaLiteChart'] canvas, "
+                                       "[data-testid='stVegaLiteChart'] svg", timeout=30_000)
+                page.wait_for_timeout(1500)
+                name = path.split("?")[0]
+                assert page.locator("[data-testid='stException']").count() == 0, name
+                assert page.get_by_text(marker).count() > 0, name
+                assert page.get_by_text("Save as PDF").count() > 0, name
+                assert not page.locator("[data-testid='stSidebar']").is_visible(), name
+                assert not page.locator("[data-testid='stSelectbox']").first.is_visible(), name
+                page.emulate_media(media="print")
+                page.screenshot(path=str(tmp_path / f"{name}-print.png"), full_page=True)
+                pdf = page.pdf(format="A4")
+                page.emulate_media(media="screen")
+                (tmp_path / f"{name}.pdf").write_bytes(pdf)
+                assert pdf.startswith(b"%PDF"), name
+                assert 1 <= _pdf_pages(pdf) <= 2, (name, _pdf_pages(pdf))
+        finally:
+            browser.close()
