@@ -153,9 +153,33 @@ def forecast_errors(values: np.ndarray, start: int, window: int) -> np.ndarray:
     forecast errors) lets a steady trend such as seal wear pass as expected while a step
     (a damaged fixture, a blocked leak standard) or a change of the trend still signals.
     """
+    values = np.asarray(values, dtype=float)
+    first_full = max(start, window)
+    parts = [_errors_one_by_one(values, start, min(first_full, values.size))]
+    if values.size > first_full and window >= 4:
+        # every full window at once (one row per predicted value): same formula, no loop
+        y = np.lib.stride_tricks.sliding_window_view(values[:-1], window)[first_full - window:]
+        x = np.arange(window, dtype=float)  # window-local; predicted at ``window``
+        xc = x - x.mean()
+        sxx = float(np.sum(xc**2))
+        ybar = y.mean(axis=1)
+        slope = (y - ybar[:, None]) @ xc / sxx
+        resid = y - (ybar[:, None] + slope[:, None] * xc)
+        s = np.sqrt(np.sum(resid**2, axis=1) / (window - 2))
+        se = s * np.sqrt(1.0 + 1.0 / window + (window - x.mean()) ** 2 / sxx)
+        target = values[first_full:]
+        pred = ybar + slope * (window - x.mean())
+        ok = se > 1e-12 * np.maximum(1.0, np.abs(target))
+        parts.append((target[ok] - pred[ok]) / se[ok])
+    return np.concatenate(parts)
+
+
+def _errors_one_by_one(values: np.ndarray, start: int, stop: int) -> np.ndarray:
+    """Forecast errors for ``start <= i < stop`` whose windows are still short (the first
+    ``window`` values of a series)."""
     out = []
-    for i in range(start, values.size):
-        lo = max(0, i - window)
+    for i in range(start, stop):
+        lo = 0
         y = values[lo:i]
         x = np.arange(lo, i, dtype=float)
         if y.size < 4:

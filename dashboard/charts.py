@@ -146,7 +146,7 @@ def histogram(
     if hist.reject_limit is not None:
         marks.append({"x": hist.reject_limit * factor, "what": "reject limit"})
     if hist.lower_limit is not None:
-        marks.append({"x": hist.lower_limit * factor, "what": "lower limit"})
+        marks.append({"x": hist.lower_limit * factor, "what": "lower plausibility limit"})
     if hist.reject_limit is not None and guard_band:
         band = pd.DataFrame(
             [{"a": (hist.reject_limit - guard_band) * factor, "b": hist.reject_limit * factor}]
@@ -161,10 +161,16 @@ def histogram(
             .mark_rule(strokeWidth=2)
             .encode(
                 x="x:Q",
+                # only the reject limit is drawn solid: the others judge no part
+                strokeDash=alt.StrokeDash(
+                    "what:N", legend=None,
+                    scale=alt.Scale(domain=["reject limit", "lower plausibility limit",
+                                            "guard band"], range=[[1, 0], [4, 3], [2, 2]]),
+                ),
                 color=alt.Color(
                     "what:N",
                     scale=alt.Scale(
-                        domain=["reject limit", "lower limit", "guard band"],
+                        domain=["reject limit", "lower plausibility limit", "guard band"],
                         range=["#b23a48", "#6a4c93", "#c9a227"],
                     ),
                     title=None,

@@ -30,7 +30,8 @@ with c3:
         default=on_program[:3],
         key=f"read_stations_{program}",
     )
-guard_pct = st.slider("Guard band, % of tolerance", 1, 30, 10, key="read_guard")
+guard_pct = st.slider("Guard band below the reject limit, % of the limit", 1, 30, 10,
+                      key="read_guard")
 bins = st.slider("Bins", 10, 80, 30, key="read_bins")
 if not chosen:
     st.info("Pick at least one station.")
@@ -40,12 +41,14 @@ newest = data.results(p.url, program=program, limit=1, newest_first=True)
 reject = float(newest["reject_limit_sccm"].iloc[0])
 lower_raw = newest["lower_limit_sccm"].iloc[0]
 lower = None if pd.isna(lower_raw) else float(lower_raw)
-tolerance = reject - lower if lower is not None else abs(reject)
-guard = guard_pct / 100.0 * tolerance
+# a lower limit catches implausible readings (a blocked or unsealed part reads too low); it
+# is no reject limit, so the guard band and the capability figures look at the reject limit
+guard = guard_pct / 100.0 * abs(reject)
 u = p.units
 st.caption(
     f"{program}: reject limit {fmt(u.q(reject))} {u.q_label}"
-    + (f", lower limit {fmt(u.q(lower))} {u.q_label}" if lower is not None else "")
+    + (f", lower plausibility limit {fmt(u.q(lower))} {u.q_label} (no reject limit: "
+       "readings below it point at the test, not the part)" if lower is not None else "")
     + f", guard band {fmt(u.q(guard))} {u.q_label} (limits from the newest result)"
 )
 summary = data.leak_summary(p.url, since, until, by=("station",), program=program)
@@ -61,7 +64,7 @@ for i, station in enumerate(chosen):
         n = int(s["n"])
         # winsorised range: gross leaks would squash the picture; they show as "above range"
         hi = min(float(s["max"]), reject * 3)
-        lo = max(float(s["min"]), (lower if lower is not None else 0.0) - tolerance)
+        lo = max(float(s["min"]), (lower if lower is not None else 0.0) - abs(reject))
         edges = fixed_edges(lo, hi, bins, reject_limit=reject, lower_limit=lower)
         counts = data.histogram(p.url, since, until, tuple(edges), station=station,
                                 program=program)  # fmt: skip
@@ -78,28 +81,33 @@ for i, station in enumerate(chosen):
                 rows = data.results(p.url, since, until, station=station, program=program)
                 kept = rows.loc[rows["verdict"] != "aborted"]
                 values = kept["leak_rate_sccm"].to_numpy(float)
-                report = capability(values, reject, lower, guard_band=guard,
+                report = capability(values, reject, None, guard_band=guard,
                                     groups=kept["station"].astype(str).to_numpy())
             else:
                 report = capability_from_summary(n, float(s["mean"]), float(s["std"]), reject,
-                                                 lower)  # fmt: skip
+                                                 None)  # fmt: skip
         except ValueError as exc:
             st.warning(f"No capability figures: {exc}")
             continue
+        # the figure that applies: the normal Ppu when normality holds, else the percentile
+        # method (ISO 22514-2) on the fitted model or the empirical quantiles
+        applies = report.non_normal if report.recommended != "normal" else None
+        ppu_value = applies.ppu if applies is not None else report.ppu.value
+        basis = ("normal model" if applies is None else
+                 applies.model if report.recommended == "fitted" else "empirical percentiles")
+        ppm = report.ppu.ppm_beyond_limit if applies is None else applies.ppm_above
         m1, m2, m3 = st.columns(3)
-        m1.metric("Ppu", fmt(report.ppu.value))
-        m2.metric("Cpu", fmt(report.cpu.value) if report.cpu else "–")
-        ppm = report.ppu.ppm_beyond_limit
-        if report.recommended != "normal" and report.non_normal is not None:
-            ppm = report.non_normal.ppm_above
+        m1.metric("Ppu (applies)", "–" if ppu_value is None else fmt(ppu_value),
+                  help=f"long-term capability against the reject limit; basis: {basis}")
+        m2.metric("Cpu (short-term)", fmt(report.cpu.value) if report.cpu else "–",
+                  help="from moving ranges within each station's sequence; normal model")
         m3.metric("ppm above limit", "–" if ppm is None else f"{ppm:,.0f}",
-                  help=f"expected parts per million above the reject limit; model: "
-                  f"{report.recommended}")  # fmt: skip
+                  help=f"expected parts per million above the reject limit; basis: {basis}")
         m4, m5, m6 = st.columns(3)
-        m4.metric("n", f"{report.n:,}")
-        m5.metric("mean", fmt(u.q(report.mean)))
+        m4.metric("tests", f"{report.n:,}")
+        m5.metric(f"mean [{u.q_label}]", fmt(u.q(report.mean)))
         m6.metric("in guard band", "–" if report.guard_band_share is None
-                  else f"{report.guard_band_share:.2%}")  # fmt: skip
-        if report.non_normal is not None and report.non_normal.ppu is not None:
-            st.caption(f"{report.non_normal.model}: Ppu {fmt(report.non_normal.ppu)}")
-        st.caption(f"Normality: {report.note}")
+                  else f"{report.guard_band_share:.1%}")  # fmt: skip
+        st.caption(f"Applies: Ppu on the {basis} ({report.note})."
+                   + ("" if applies is None else
+                      f" The normal-model Ppu would be {fmt(report.ppu.value)}, not valid here."))

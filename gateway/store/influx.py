@@ -181,11 +181,20 @@ class InfluxStore:
         return out
 
     def _frame(self, series: list[dict[str, Any]]) -> pd.DataFrame:
-        rows: list[dict[str, Any]] = []
+        """One frame of every series' points, each with its series' tags (a field of the same
+        name wins); built column-wise, as a frame of row dicts costs a dict per point."""
+        frames = []
         for s in series:
-            for values in s["values"]:
-                rows.append({**s["tags"], **dict(zip(s["columns"], values, strict=True))})
-        return pd.DataFrame(rows)
+            if not s["values"]:
+                continue
+            frame = pd.DataFrame(s["values"], columns=s["columns"])
+            for key, value in s["tags"].items():
+                if key not in frame.columns:
+                    frame[key] = value
+            frames.append(frame)
+        if not frames:
+            return pd.DataFrame()
+        return frames[0] if len(frames) == 1 else pd.concat(frames, ignore_index=True)
 
     def _records(self, frame: pd.DataFrame, columns: Sequence[str], time_col: str) -> pd.DataFrame:
         """Raw points → canonical columns, built the way SqliteStore builds its frames (from
@@ -541,7 +550,10 @@ class InfluxStore:
         until: datetime | None = None,
     ) -> pd.DataFrame:
         where = _Where().eq("station", station).eq("program", program).time(since, until)
-        frame = self._frame(self._query(f"SELECT * FROM {_CALS}{where.sql()}", where.params))
+        # only the series' columns: a calibration point carries its raw line and more
+        wanted = ", ".join(f'"{c}"' for c in ("seq", *_SERIES_COLUMNS[1:]))
+        frame = self._frame(self._query(f"SELECT {wanted} FROM {_CALS}{where.sql()}",
+                                        where.params))
         out = self._records(frame, ("seq", *_SERIES_COLUMNS), "ended_at")
         if not out.empty:
             out = out.sort_values(["ended_at", "seq"], kind="stable")

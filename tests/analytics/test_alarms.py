@@ -108,11 +108,12 @@ def test_forecast_errors_match_the_regression_prediction_interval() -> None:
     from analytics.alarms import forecast_errors
 
     rng = np.random.default_rng(11)
-    y = 5.0 + 0.1 * np.arange(30) + rng.normal(0, 0.3, 30)
-    z = forecast_errors(y, 25, 20)
-    for k, i in enumerate(range(25, 30)):
-        x = np.arange(i - 20, i, dtype=float)
-        fit = sm.OLS(y[i - 20:i], sm.add_constant(x)).fit()
+    y = 5.0 + 0.1 * np.arange(120) + rng.normal(0, 0.3, 120)
+    z = forecast_errors(y, 5, 20)  # short windows first (all values before i), then 20
+    assert z.size == 115
+    for k, i in enumerate(range(5, 120)):
+        x = np.arange(max(0, i - 20), i, dtype=float)
+        fit = sm.OLS(y[max(0, i - 20):i], sm.add_constant(x)).fit()
         pred = fit.get_prediction(np.array([[1.0, float(i)]]))
         expected = (y[i] - pred.predicted_mean[0]) / pred.se_obs[0]
         assert z[k] == pytest.approx(expected, rel=1e-9)

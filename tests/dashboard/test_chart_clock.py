@@ -29,3 +29,17 @@ def test_chart_data_carries_no_zone_and_a_24_hour_axis() -> None:
     values = next(iter(spec["datasets"].values()))
     assert values[0]["ended_at"] == "2026-12-03T13:00:00"  # no "Z", no offset
     assert spec["encoding"]["x"]["axis"]["format"]["hours"] == "%H:%M"
+
+
+def test_a_lower_limit_is_drawn_as_a_plausibility_limit_not_a_reject_limit() -> None:
+    from analytics import histogram_from_counts
+
+    hist = histogram_from_counts([(-0.5, 0.0, 3), (0.0, 0.5, 40), (0.5, 1.0, 9)],
+                                 reject_limit=1.0, lower_limit=-0.5)  # fmt: skip
+    spec = charts.histogram(hist, 1.0, "sccm", 0.1).to_dict()
+    rules = spec["layer"][-1]
+    names = [row["what"] for row in spec["datasets"][rules["data"]["name"]]]
+    assert names == ["reject limit", "lower plausibility limit", "guard band"]
+    dash = rules["encoding"]["strokeDash"]["scale"]
+    solid = [d for d, r in zip(dash["domain"], dash["range"], strict=True) if r == [1, 0]]
+    assert solid == ["reject limit"]

@@ -92,13 +92,16 @@ def test_yield_grouping_changes_the_table(app: AppFactory, demo_journal: Path) -
 
 def test_readings_side_by_side_and_capability(app: AppFactory, demo_journal: Path) -> None:
     at = app(demo_journal, "views/readings.py")
-    assert [m.label for m in at.metric].count("Ppu") == 2  # HX-210 runs on L1-S1 and L1-S2
-    assert any(c.value.startswith("Normality:") for c in at.caption)
+    assert [m.label for m in at.metric].count("Ppu (applies)") == 2  # L1-S1, L1-S2
+    # which figure applies, and why, is said in words (ISO 22514-2: the percentile method
+    # for readings that are not normal)
+    applies = [c.value for c in at.caption if c.value.startswith("Applies: Ppu on the ")]
+    assert len(applies) == 2 and all("normal" in a for a in applies), applies
     at.selectbox(key="read_program").set_value("MV-44").run()
     assert not at.exception
-    assert [m.label for m in at.metric].count("Ppu") == 3
+    assert [m.label for m in at.metric].count("Ppu (applies)") == 3
     at.multiselect(key="read_stations_MV-44").set_value(["L2-S2"]).run()
-    assert [m.label for m in at.metric].count("Ppu") == 1
+    assert [m.label for m in at.metric].count("Ppu (applies)") == 1
 
 
 def test_calibration_page_charts_and_station_filter(app: AppFactory, demo_journal: Path) -> None:
