@@ -293,10 +293,12 @@ def advice_curve(df: pd.DataFrame, target: float, current_s: float) -> Layered:
 #: (Okabe & Ito 2008, "Color Universal Design"), blue and orange first, no red/green pair
 SERIES_COLOURS = ["#0072B2", "#E69F00", "#56B4E9", "#CC79A7", "#009E73", "#F0E442",
                   "#D55E00", "#000000"]  # fmt: skip
-_LIMIT_STYLE = alt.Scale(
-    domain=["reject limit", "lower plausibility limit (not a reject limit)"],
-    range=["#D55E00", "#8d8d8d"],
-)
+#: limit kind (analytics.station.LIMIT_KINDS) → colour and dash: the reject limit solid
+#: vermillion, the lower plausibility limit dotted grey
+_LIMIT_STYLE: dict[str, tuple[str, list[int]]] = {
+    "reject limit": ("#D55E00", [1, 0]),
+    "lower plausibility limit (not a reject limit)": ("#8d8d8d", [2, 3]),
+}
 
 
 def station_leak(points: pd.DataFrame, band_df: pd.DataFrame, limits: pd.DataFrame,
@@ -327,13 +329,15 @@ def station_leak(points: pd.DataFrame, band_df: pd.DataFrame, limits: pd.DataFra
                          alt.Tooltip("verdict:N", title="verdict"),
                          alt.Tooltip("leak:Q", format=".3g", title=title)]))
     if not limits.empty:
+        shown = [k for k in _LIMIT_STYLE if k in set(limits["what"])]
         layers.append(
             alt.Chart(limits).mark_rule(strokeWidth=2).encode(
                 x=_time_x("start"), x2="end:T", y=alt.Y("value:Q", title=title),
-                color=alt.Color("what:N", scale=_LIMIT_STYLE, title="limits",
-                                legend=alt.Legend(labelLimit=320, orient="bottom")),
+                color=alt.Color("what:N", scale=alt.Scale(domain=shown, range=[
+                    _LIMIT_STYLE[k][0] for k in shown]), title="limits",
+                    legend=alt.Legend(labelLimit=320, orient="bottom")),
                 strokeDash=alt.StrokeDash("what:N", scale=alt.Scale(
-                    domain=_LIMIT_STYLE.domain, range=[[1, 0], [2, 3]]), legend=None),
+                    domain=shown, range=[_LIMIT_STYLE[k][1] for k in shown]), legend=None),
                 tooltip=[alt.Tooltip("what:N", title="limit"),
                          alt.Tooltip("value:Q", format=".3g", title=unit)]))
     if not events.empty:

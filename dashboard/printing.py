@@ -46,6 +46,8 @@ def hide_for_print() -> None:
         ".block-container {max-width: 100% !important; padding: 0.5rem 1rem !important;}"
         "@media print {"
         f"  @page {{size: {paper}; margin: 10mm;}}"
+        "  html {font-size: 13px;}"
+        "  [data-testid='stTable'] td {overflow-wrap: anywhere;}"
         "  html, body {height: auto !important; overflow: visible !important;}"
         "  .lf-screen-only {display: none !important;}"
         "  [data-testid='stVegaLiteChart'], [data-testid='stTable'], [data-testid='stMetric'],"

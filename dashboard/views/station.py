@@ -36,6 +36,14 @@ def _text(frame: pd.DataFrame) -> pd.DataFrame:
     return frame.astype(object).where(frame.notna(), "–")
 
 
+def _short(texts: pd.Series, width: int = 90) -> pd.Series:
+    """On paper, the start of a long text (the interactive page shows it whole)."""
+    out = texts.astype(object).where(texts.notna(), "–").astype(str)
+    if not printing():
+        return out
+    return out.where(out.str.len() <= width, out.str.slice(0, width - 1) + "…")
+
+
 def _summary(p: Page, station: str, since: datetime | None, until: datetime | None) -> None:
     row = p.stations[p.stations["station"] == station].iloc[0]
     status = data.latest(p.url, "status")
@@ -123,7 +131,7 @@ def _calibrations(p: Page, station: str, since: datetime | None, until: datetime
         f"Leak standard [{u.q_label}]": [fmt(u.q(v)) for v in cal["standard_sccm"]],
         "Reason": cal["reason"],
     })  # fmt: skip
-    show_table(_text(table), "station_cal_table", rows=6)
+    show_table(_text(table), "station_cal_table", rows=5)
 
 
 def _alarms(p: Page, station: str, since: datetime | None, until: datetime | None) -> None:
@@ -148,12 +156,12 @@ def _alarms(p: Page, station: str, since: datetime | None, until: datetime | Non
                          zip(history["acked_by"], _when(p, history["acked_at"]), strict=True)],
         "Cleared": _when(p, history["cleared_at"]),
     })  # fmt: skip
-    show_table(_text(table), "station_alarm_table", rows=10)
+    show_table(_text(table), "station_alarm_table", rows=5)
 
 
 def _link(p: Page, station: str, since: datetime | None, until: datetime | None) -> None:
     st.subheader("Link: state changes and gaps")
-    left, right = st.columns(2)
+    left, right = (st.container(), st.container()) if printing() else st.columns(2)
     with left:
         states = data.statuses(p.url, since, until, station=station, limit=200,
                                newest_first=True)
@@ -163,7 +171,7 @@ def _link(p: Page, station: str, since: datetime | None, until: datetime | None)
             show_table(_text(pd.DataFrame({
                 "When": _when(p, states["at"]),
                 "State": states["state"].map(lambda s: _STATE_WORDS.get(str(s), str(s))),
-                "Detail": states["detail"]})), "station_status_table", rows=8)
+                "Detail": _short(states["detail"])})), "station_status_table", rows=4)
     with right:
         if not station_data.journal_only(p.url):
             st.caption("Gaps are recorded in the gateway's journal; this store is not one.")
@@ -179,8 +187,8 @@ def _link(p: Page, station: str, since: datetime | None, until: datetime | None)
                 "Noticed": _when(p, gaps["at"]),
                 "Cycles lost": [f"{a}–{b}" if a != b else str(a)
                                 for a, b in zip(gaps["first"], gaps["last"], strict=True)],
-                "Found by": gaps["source"], "Detail": gaps["detail"]})),
-                "station_gap_table", rows=8)
+                "Found by": gaps["source"], "Detail": _short(gaps["detail"])})),
+                "station_gap_table", rows=4)
 
 
 def _quarantine(p: Page, station: str, since: datetime | None, until: datetime | None
@@ -191,10 +199,11 @@ def _quarantine(p: Page, station: str, since: datetime | None, until: datetime |
         st.caption("Nothing from this station was quarantined in this range.")
         return
     st.caption("Input the gateway could not read, kept with its reason (never dropped).")
+    raw = _short(q["raw"], 60)
     show_table(_text(pd.DataFrame({
         "Received": _when(p, q["received_at"]), "Profile": q["profile"],
-        "Reason": q["reason"], "Line no.": q["line_no"], "As received": q["raw"]})),
-        "station_quarantine_table", rows=6)
+        "Reason": q["reason"], "Line no.": q["line_no"], "As received": raw})),
+        "station_quarantine_table", rows=3)
 
 
 def _maintenance(p: Page, station: str) -> None:
@@ -206,7 +215,7 @@ def _maintenance(p: Page, station: str) -> None:
     events = events.iloc[::-1]
     show_table(_text(pd.DataFrame({
         "When": _when(p, events["at"]), "What": events["kind"], "Note": events["note"],
-        "By": events["by"]})), "station_maintenance_table", rows=8)
+        "By": events["by"]})), "station_maintenance_table", rows=5)
 
 
 def _config(p: Page, station: str) -> None:
