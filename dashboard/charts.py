@@ -352,20 +352,28 @@ def station_leak(points: pd.DataFrame, band_df: pd.DataFrame, limits: pd.DataFra
 
 def yield_periods(df: pd.DataFrame, *, measure: str, domain: tuple[float, float],
                   target: float | None, colour: str | None = None, x: str = "period",
-                  height: int = 240) -> alt.VConcatChart:
+                  height: int = 240) -> tuple[Layered, alt.Chart]:
     """Yield per period (day, week or shift) with its volume: points sized by volume on a
     fixed-floor axis, the target as a dashed line, and the volume as bars below, so a period
     with a handful of parts is seen to be one. ``df``: ``period``, ``yield``, ``total``,
-    ``share`` and optionally the ``colour`` column (e.g. the shift)."""
+    ``share`` and optionally the ``colour`` column (e.g. the shift). Two charts (yield, then
+    volume), since a concatenated chart does not stretch to the page's width."""
     order = list(dict.fromkeys(df[x]))
-    x_enc = alt.X(f"{x}:O", sort=order, title=None, axis=alt.Axis(labelAngle=-40))
-    colour_enc = (alt.Color(f"{colour}:N", scale=alt.Scale(range=SERIES_COLOURS), title=None)
+    x_enc = alt.X(f"{x}:O", sort=order, title=None,
+                  axis=alt.Axis(labelAngle=0 if len(order) <= 8 else -40))
+    # Streamlit fits the whole chart, legends included, into its height: one legend, on top
+    colour_enc = (alt.Color(f"{colour}:N", scale=alt.Scale(range=SERIES_COLOURS), title=None,
+                            legend=alt.Legend(orient="top"))
+                  if colour else alt.value(SERIES_COLOURS[0]))
+    bar_colour = (alt.Color(f"{colour}:N", scale=alt.Scale(range=SERIES_COLOURS), legend=None)
                   if colour else alt.value(SERIES_COLOURS[0]))
     tips = [alt.Tooltip("period:N", title="period"),
             alt.Tooltip("yield:Q", format=".2%", title=measure),
             alt.Tooltip("total:Q", format=",", title="volume"),
             alt.Tooltip("share:Q", format=".1%", title="share of volume")]
     base = alt.Chart(df).encode(x=x_enc)
+    if colour:  # the same period's groups side by side, not on top of each other
+        base = base.encode(xOffset=alt.XOffset(f"{colour}:N"))
     line = base.mark_line(strokeWidth=1, opacity=0.6).encode(
         y=alt.Y("yield:Q", title=f"{measure} [%]", axis=alt.Axis(format="%"),
                 scale=alt.Scale(domain=list(domain), clamp=True)),
@@ -373,7 +381,7 @@ def yield_periods(df: pd.DataFrame, *, measure: str, domain: tuple[float, float]
     points = base.mark_circle(opacity=0.9).encode(
         y="yield:Q", color=colour_enc,
         size=alt.Size("total:Q", title="volume", scale=alt.Scale(range=[15, 400]),
-                      legend=alt.Legend(orient="bottom")),
+                      legend=None),
         tooltip=tips)
     layers: list[alt.Chart] = [line, points]
     if target is not None:
@@ -382,7 +390,6 @@ def yield_periods(df: pd.DataFrame, *, measure: str, domain: tuple[float, float]
                       .encode(y="y:Q", tooltip=[alt.Tooltip("what:N", title="target")]))
     top = alt.layer(*layers).properties(height=height)
     bars = base.mark_bar(opacity=0.8).encode(
-        y=alt.Y("total:Q", title="volume"), color=colour_enc, tooltip=tips,
-        **({"xOffset": alt.XOffset(f"{colour}:N")} if colour else {}),
-    ).properties(height=90)
-    return alt.vconcat(top, bars).resolve_scale(color="shared")
+        y=alt.Y("total:Q", title="volume"), color=bar_colour, tooltip=tips,
+    ).properties(height=140)
+    return top, bars

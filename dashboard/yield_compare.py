@@ -4,6 +4,7 @@ the figures come from ``analytics.compare``."""
 
 from __future__ import annotations
 
+import altair as alt
 import pandas as pd
 import streamlit as st
 
@@ -54,6 +55,12 @@ def _summary_line(s: PeriodSummary, what: str, target: float) -> str:
     return text
 
 
+def _show(pair: tuple[charts.Layered, alt.Chart]) -> None:
+    top, volume = pair
+    st.altair_chart(top, width="stretch", key="yield_compare_chart")
+    st.altair_chart(volume, width="stretch", key="yield_volume_chart")
+
+
 def compare_section(hourly: pd.DataFrame, calendar: ShiftCalendar, *, measure: str,
                     target: float, choice: str, height: int = 240) -> None:
     """``hourly``: UTC ``bucket, good, total`` of the page's selection (``good_total``)."""
@@ -71,9 +78,8 @@ def compare_section(hourly: pd.DataFrame, calendar: ShiftCalendar, *, measure: s
         table = shift_against_shift(periods, calendar)
         shown = table.rename(columns={"shift": "period"}).assign(
             share=table["total"] / table["total"].sum())
-        st.altair_chart(charts.yield_periods(shown, measure=measure, domain=domain,
-                                             target=target, height=height), width="stretch",
-                        key="yield_compare_chart")
+        _show(charts.yield_periods(shown, measure=measure, domain=domain, target=target,
+                                   height=height))
         show_table(pd.DataFrame({
             "Shift": table["shift"], "Shifts run": table["shifts"],
             "Volume": [f"{n:,}" for n in table["total"]],
@@ -88,12 +94,9 @@ def compare_section(hourly: pd.DataFrame, calendar: ShiftCalendar, *, measure: s
     if kind == "week":
         periods = week_over_week(periods)
     same_shift = kind == "same_shift"
-    st.altair_chart(
-        charts.yield_periods(periods, measure=measure, domain=domain, target=target,
-                             colour="shift" if same_shift else None,
-                             x="day" if same_shift else "period", height=height),
-        width="stretch", key="yield_compare_chart",
-    )
+    _show(charts.yield_periods(periods, measure=measure, domain=domain, target=target,
+                               colour="shift" if same_shift else None,
+                               x="day" if same_shift else "period", height=height))
     floor = f"{domain[0]:.0%}"
     st.caption(f"The yield axis starts at {floor} so small differences stay small; dot size "
                "and bar height are the volume. Dashed line: the target.")

@@ -93,7 +93,7 @@ def _leak_chart(p: Page, station: str, program: str | None, since: datetime | No
                                           for c in ("mean", "min", "max")}), tz),
         charts.plant_clock(limits.assign(value=limits["value"] * u.q_factor), tz),
         charts.plant_clock(events[["at", "kind", "note"]], tz),
-        u.q_label, height=200 if printing() else 280,
+        u.q_label, height=260 if printing() else 340,
     )
     st.altair_chart(chart, width="stretch", key="station_leak_chart")
     reject = limits[limits["what"] == "reject limit"]

@@ -199,7 +199,7 @@ if since is not None and until is not None and (until - since).days < 2:
 hourly = good_total(counts("first_pass" if measure == "first_pass" else "verdict",
                            bucket="hour"), measure, keys=("bucket",))  # type: ignore[arg-type]
 compare_section(hourly, p.calendar, measure=MEASURES[measure].split(" (")[0],
-                target=target_pct / 100.0, choice=compare_choice, height=150 if paper else 240)
+                target=target_pct / 100.0, choice=compare_choice, height=180 if paper else 300)
 
 if not paper:
     st.subheader("Trend")

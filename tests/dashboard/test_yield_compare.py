@@ -70,8 +70,8 @@ def test_test_yield_measure_counts_tests(app: AppFactory, demo_journal: Path) ->
 def test_axis_floor_target_line_and_palette(app: AppFactory, demo_journal: Path) -> None:
     at = app(demo_journal, PAGE, query={"target": "99.5"})
     assert at.number_input(key="yield_target").value == 99.5
-    spec = _specs(at)[0]
-    top = spec["vconcat"][0]["layer"]
+    spec, volume = _specs(at)[:2]
+    top = spec["layer"]
     scale = top[0]["encoding"]["y"]["scale"]
     # the demo's yields sit near 96-99 %: the axis runs 90-100 %, not min-max of the data
     assert scale["domain"] == [0.9, 1.0]
@@ -81,10 +81,10 @@ def test_axis_floor_target_line_and_palette(app: AppFactory, demo_journal: Path)
     target = next(f for f in frames if "what" in f.columns)
     assert target["y"].tolist() == [pytest.approx(0.995)]
     assert target["what"].tolist() == ["target 99.5%"]
-    colours = re.findall(r"#[0-9a-fA-F]{6}", json.dumps(spec))
+    colours = re.findall(r"#[0-9a-fA-F]{6}", json.dumps([spec, volume]))
     assert set(colours) <= set(SERIES_COLOURS)  # Okabe–Ito; no red/green pair
     # volume is shown: sized dots and bars of the same periods
-    assert spec["vconcat"][1]["mark"]["type"] == "bar"
+    assert volume["mark"]["type"] == "bar" and volume["encoding"]["y"]["field"] == "total"
     assert top[1]["encoding"]["size"]["field"] == "total"
 
 
