@@ -97,3 +97,18 @@ async def until(predicate: Any, timeout: float, what: str) -> None:
                 await asyncio.sleep(0.05)
     except TimeoutError:
         raise AssertionError(f"timed out waiting for {what}") from None
+
+
+def into_influx(journal: Journal, url: str) -> None:
+    """Forward everything in ``journal`` to the InfluxDB database at ``url`` and wait until the
+    sink has confirmed it all (a read store with the journal's records)."""
+    from gateway.sinks.influx import make_influx
+
+    fwd = make_influx("influx", {"url": url, "batch_size": 200}, ctx())
+
+    async def forward() -> None:
+        async with forwarding(fwd, journal):
+            await until(lambda: sum(n for n, _ in journal.backlog("influx").values()) == 0, 30,
+                        "everything in InfluxDB")
+
+    asyncio.run(forward())

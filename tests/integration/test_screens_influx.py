@@ -4,16 +4,14 @@ maintenance) is said to be missing, not shown as empty."""
 
 from __future__ import annotations
 
-import asyncio
 from collections.abc import Iterator
 from pathlib import Path
 
 import pytest
 from streamlit.testing.v1 import AppTest
 
-from gateway.sinks.influx import make_influx
 from gateway.store import open_journal
-from tests.integration.sinks_data import ctx, forwarding, shift, until
+from tests.integration.sinks_data import into_influx, shift
 from tests.support.servers import InfluxServer
 
 pytestmark = [pytest.mark.integration, pytest.mark.timeout(120)]
@@ -27,14 +25,7 @@ def urls(influxdb: InfluxServer, tmp_path_factory: pytest.TempPathFactory
     journal = open_journal(str(path))
     journal.write(shift(1, 120))
     influxdb.create_database("screens")
-    fwd = make_influx("influx", {"url": influxdb.url("screens"), "batch_size": 200}, ctx())
-
-    async def forward() -> None:
-        async with forwarding(fwd, journal):
-            await until(lambda: sum(n for n, _ in journal.backlog("influx").values()) == 0, 30,
-                        "everything in InfluxDB")
-
-    asyncio.run(forward())
+    into_influx(journal, influxdb.url("screens"))
     journal.close()
     yield f"sqlite:///{path}", influxdb.url("screens")
     influxdb.drop_database("screens")

@@ -11,10 +11,9 @@ import pandas as pd
 import pytest
 
 from gateway.records import Record, TestResult
-from gateway.sinks.influx import make_influx
 from gateway.store import open_journal, open_store
 from gateway.store.base import QueryStore
-from tests.integration.sinks_data import T0, ctx, forwarding, result, shift, until
+from tests.integration.sinks_data import T0, into_influx, result, shift
 from tests.support.servers import InfluxServer
 
 pytestmark = [pytest.mark.integration, pytest.mark.timeout(90)]
@@ -43,20 +42,12 @@ def plant() -> list[Record]:
 @pytest.fixture(scope="module")
 def stores(influxdb: InfluxServer, tmp_path_factory: pytest.TempPathFactory
            ) -> Iterator[tuple[QueryStore, QueryStore]]:
-    import asyncio
 
     path = tmp_path_factory.mktemp("store") / "journal.db"
     journal = open_journal(str(path))
     journal.write(plant())
     influxdb.create_database("compare")
-    fwd = make_influx("influx", {"url": influxdb.url("compare"), "batch_size": 200}, ctx())
-
-    async def forward() -> None:
-        async with forwarding(fwd, journal):
-            await until(lambda: sum(n for n, _ in journal.backlog("influx").values()) == 0, 30,
-                        "everything in InfluxDB")
-
-    asyncio.run(forward())
+    into_influx(journal, influxdb.url("compare"))
     journal.close()
     sqlite = open_store(f"sqlite:///{path}")
     influx = open_store(influxdb.url("compare"))
