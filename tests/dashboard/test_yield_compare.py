@@ -129,3 +129,54 @@ def test_print_view_carries_the_choices(app: AppFactory, demo_journal: Path) -> 
     assert not at.dataframe and at.table
     assert {"Compare", "Rejects, Pareto"} <= {s.value for s in at.subheader}
     assert "Trend" not in {s.value for s in at.subheader}
+
+
+@pytest.fixture(scope="module")
+def week_journal(tmp_path_factory: pytest.TempPathFactory) -> Path:
+    """Two ISO weeks at one station: Monday to Saturday of 2026-W48 with 100 parts a day (99
+    pass), a Sunday with 2 parts (both rejected), and Monday of W49 with 100 parts (95 pass)."""
+    from datetime import UTC, datetime, timedelta
+
+    from gateway.records import TestResult
+    from gateway.store import open_journal
+
+    path = tmp_path_factory.mktemp("week") / "journal.db"
+    monday = datetime(2026, 11, 23, 9, 0, tzinfo=UTC)  # 10:00 in Berlin, early shift
+    plan = [(d, 100, 99) for d in range(6)] + [(6, 2, 0), (7, 100, 95)]
+    records, cycle = [], 0
+    for day, n, good in plan:
+        for i in range(n):
+            cycle += 1
+            at = monday + timedelta(days=day, seconds=60 * i)
+            records.append(TestResult(
+                station="W1", line="LW", cycle=cycle, ended_at=at, received_at=at,
+                program="P-1", verdict="pass" if i < good else "reject",
+                leak_rate_sccm=0.5 if i < good else 3.0, reject_limit_sccm=2.0,
+                part_id=f"W-{cycle:05d}", raw=f"w {cycle}", profile="lf-kv@1"))
+    with open_journal(f"sqlite:///{path}") as j:
+        j.write(records)
+    return path
+
+
+def test_a_thin_day_counts_by_its_volume(app: AppFactory, week_journal: Path) -> None:
+    at = app(week_journal, PAGE, query={"range": "Everything", "compare": "Day by day"})
+    assert not at.exception, [e.message for e in at.exception]
+    summary = next(m.value for m in at.markdown if "weighted by volume" in m.value)
+    # pooled: (6·99 + 0 + 95) / 702 parts; the plain mean of the 8 daily yields is far lower
+    assert f"**{689 / 702:.1%}** weighted" in summary
+    assert f"{(6 * 0.99 + 0 + 0.95) / 8:.1%} as a plain mean" in summary
+    assert "1 of them had under a quarter" in summary
+    table = next(df.value for df in at.dataframe if "Share of volume" in df.value.columns)
+    sunday = table[table["Day"] == "2026-11-29"].iloc[0]
+    assert (sunday["Volume"], sunday["Share of volume"], sunday["Yield"]) == (
+        "2", f"{2 / 702:.1%}", "0.0%")
+    assert sunday["Against target"] == "-98.0 pp"
+
+
+def test_week_over_week(app: AppFactory, week_journal: Path) -> None:
+    at = app(week_journal, PAGE, query={"range": "Everything", "compare": "Week over week"})
+    table = next(df.value for df in at.dataframe if "Week" in df.value.columns)
+    assert list(table["Week"]) == ["2026-W48", "2026-W49"]
+    assert list(table["From"]) == ["2026-11-23", "2026-11-30"]
+    assert list(table["Yield"]) == [f"{594 / 602:.1%}", "95.0%"]
+    assert table["Change on the week before"].iloc[1] == f"{(0.95 - 594 / 602) * 100:+.1f} pp"
