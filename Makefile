@@ -20,4 +20,4 @@ lint: $(VENV)/.installed
 	$(VENV)/bin/mypy
 
 test: $(VENV)/.installed services lint
-	$(PY) -m pytest
+	LEAKFLEET_SCREENSHOTS=$${LEAKFLEET_SCREENSHOTS:-$(CURDIR)/build/screenshots} $(PY) -m pytest

@@ -87,6 +87,7 @@ class AlarmRules:
     garbage_per_10min: int = 20  # quarantined lines a station may send in 10 minutes
     backlog_age: timedelta = timedelta(minutes=5)  # a sink's oldest unsent record
     clock_ahead: timedelta = timedelta(minutes=2)  # a station clock this far ahead is wrong
+    gap_window: timedelta = timedelta(hours=1)  # lost cycles keep a station's warning this long
 
 
 def epochs(times: Sequence[datetime] | pd.Series, events: Iterable[datetime]) -> np.ndarray:
@@ -337,10 +338,18 @@ def link_conditions(
         out.append(Condition(f"garbage:{station}", "garbage", station, "warning", now,
                              f"{quarantined_10min} unreadable lines in 10 minutes "
                              "(wrong line settings, a noisy cable, or another profile?)"))
-    for first, last, at in gaps:
-        what = f"cycle {first}" if first == last else f"cycles {first}..{last}"
-        out.append(Condition(f"gap:{station}:{first}", "gap", station, "warning", at,
-                             f"{what} lost before they could be read"))
+    gaps = [g for g in gaps if now - g[2] <= rules.gap_window]  # an event, not a state
+    if gaps:
+        # one alarm per station, however many gaps: a list with an entry per lost cycle
+        # would bury the station that is really failing
+        lost = sum(last - first + 1 for first, last, _ in gaps)
+        first, last, _ = max(gaps, key=lambda g: g[2])
+        newest = f"cycle {first}" if first == last else f"cycles {first}..{last}"
+        runs = f" in {len(gaps)} gaps" if len(gaps) > 1 else ""
+        out.append(Condition(f"gap:{station}", "gap", station, "warning",
+                             min(at for _, _, at in gaps),
+                             f"{lost} cycle{'s' if lost != 1 else ''} lost{runs} before they "
+                             f"could be read (newest: {newest})"))
     if conflicts:
         out.append(Condition(f"conflict:{station}", "conflict", station, "warning", now,
                              f"{conflicts} re-sent record(s) differ from what was stored"))

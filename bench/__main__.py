@@ -76,7 +76,7 @@ def bench_startup(quick: bool) -> dict[str, Any]:
 def bench_import(quick: bool) -> dict[str, Any]:
     from bench.importing import run
 
-    return run(lines=200_000 if quick else 2_000_000)
+    return run(lines=200_000 if quick else 10_000_000)
 
 
 def bench_modbus(quick: bool, shared: dict[str, Any]) -> dict[str, Any]:

@@ -108,11 +108,13 @@ def latest(url: str, kind: str) -> pd.DataFrame:
 
 @st.cache_data(ttl=LIVE_TTL, show_spinner=False)
 def newest_record_time(url: str) -> datetime | None:
-    """The newest result's end time over all stations (for the "data" clock)."""
+    """When the newest result was received (the "data" clock): the gateway's clock, which a
+    station whose own clock runs ahead cannot pull into the future."""
     df = latest(url, "result")
     if df.empty:
         return None
-    return pd.Timestamp(df["ended_at"].max()).to_pydatetime()
+    column = "received_at" if df["received_at"].notna().any() else "ended_at"
+    return pd.Timestamp(df[column].max()).to_pydatetime()
 
 
 @st.cache_data(ttl=LIVE_TTL, show_spinner=False)

@@ -101,6 +101,18 @@ def _conflict_counts(store: Any, now: datetime) -> dict[str, int]:
     return {str(s): int(n) for s, n in rows}
 
 
+def clock_now(store: Any, environ: Mapping[str, str]) -> datetime:
+    """Now for the rules: the wall clock, or with ``LEAKFLEET_CLOCK=data`` (a simulated plant
+    running faster than real time) when the newest result was received if that is later, as
+    the dashboard counts it."""
+    if environ.get("LEAKFLEET_CLOCK", "wall").strip() == "data":
+        latest = store.latest_results_per_station()
+        if not latest.empty and latest["received_at"].notna().any():
+            newest = pd.Timestamp(latest["received_at"].max()).to_pydatetime()
+            return max(newest, datetime.now(UTC))
+    return datetime.now(UTC)
+
+
 def evaluate(journal: Any, store: Any, now: datetime | None = None,
              rules: AlarmRules | None = None, sinks: Sequence[str] = ()) -> int:
     """One evaluation: conditions from ``store``, states into ``journal``'s logbook.

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import argparse
 import json
+import os
 from typing import Any
 
 ORDER = 44
@@ -23,7 +24,9 @@ def register(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
             "examples:\n"
             "  leakfleet alarms list\n"
             "  leakfleet alarms ack 12 --by 'J. Doe'\n"
-            "  leakfleet alarms evaluate     # once, e.g. on a journal without a gateway"
+            "  leakfleet alarms evaluate     # once, e.g. on a journal without a gateway\n\n"
+            "LEAKFLEET_CLOCK=data judges 'now' as the newest result's receipt when that is later\n"
+            "than the wall clock (a simulated plant running faster than real time)."
         ),
         formatter_class=argparse.RawDescriptionHelpFormatter,
     )
@@ -92,13 +95,13 @@ def _ack(args: argparse.Namespace) -> int:
 
 
 def _evaluate(args: argparse.Namespace) -> int:
-    from gateway.alarm_eval import evaluate
+    from gateway.alarm_eval import clock_now, evaluate
     from gateway.store import open_store
 
     journal, _ = _open(args.store)
     store = open_store(args.store)
     try:
-        n = evaluate(journal, store)
+        n = evaluate(journal, store, clock_now(store, os.environ))
     finally:
         journal.close()
         store.close()
@@ -113,7 +116,7 @@ def _watch(args: argparse.Namespace) -> int:
     import sys
     import time
 
-    from gateway.alarm_eval import evaluate
+    from gateway.alarm_eval import clock_now, evaluate
     from gateway.errors import LeakfleetError
     from gateway.store import open_journal, open_store
 
@@ -133,7 +136,7 @@ def _watch(args: argparse.Namespace) -> int:
             store = open_store(args.store)
             try:
                 with open_journal(args.store) as journal:
-                    n = evaluate(journal, store, sinks=sinks)
+                    n = evaluate(journal, store, clock_now(store, os.environ), sinks=sinks)
             finally:
                 store.close()
             if n:

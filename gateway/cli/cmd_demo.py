@@ -17,6 +17,7 @@ import asyncio
 import contextlib
 import dataclasses
 import logging
+import os
 import signal
 import socket
 import sys
@@ -188,6 +189,7 @@ async def _stop_process(proc: asyncio.subprocess.Process) -> None:
 
 
 async def _demo(args: argparse.Namespace, store: str, run_dir: Path) -> int:
+    from gateway import clock
     from gateway.cli.cmd_dashboard import streamlit_command
     from gateway.errors import LeakfleetError
     from gateway.runtime import Runtime
@@ -213,46 +215,51 @@ async def _demo(args: argparse.Namespace, store: str, run_dir: Path) -> int:
     failed = False
     try:
         async with Plant(scenario, speed=args.speed, keep_truth=False) as plant:
-            config = demo_config(plant, store, args.mqtt, args.influx)
-            from gateway.runtime import build_forwarders
+            # the gateway and its alarm rules live on the plant's fast clock, as the
+            # dashboard does (clock "data"): receipt and station stamps agree
+            assert plant.clock is not None
+            os.environ["LEAKFLEET_CLOCK"] = "data"  # for the alarm rules' own process
+            with clock.use_clock(plant.clock.datetime):
+                config = demo_config(plant, store, args.mqtt, args.influx)
+                from gateway.runtime import build_forwarders
 
-            build_forwarders(config)  # each sink checks its own table before anything runs
-            runtime = Runtime(config)
-            async with asyncio.TaskGroup() as tg:
-                gateway = tg.create_task(runtime.run(stop), name="gateway")
-                print(f"demo: {scenario.site}, {len(plant.endpoints)} stations at "
-                      f"{args.speed:g}x, journal {store}", flush=True)  # fmt: skip
-                for name in config.sinks:
-                    print(f"  forwarding to sink {name}", flush=True)
-                if not args.no_dashboard:
-                    argv, env = streamlit_command(
-                        store, port=args.port, config="demo", clock="data"
-                    )
-                    log_file = (run_dir / "dashboard.log").open("wb")
-                    dash = await asyncio.create_subprocess_exec(
-                        *argv, env=env, stdout=log_file, stderr=asyncio.subprocess.STDOUT,
-                        stdin=asyncio.subprocess.DEVNULL,
-                    )  # fmt: skip
-                    log_file.close()
-                    if await _wait_http(args.port, dash, stop, 60):
-                        print(f"dashboard: http://127.0.0.1:{args.port}  (Ctrl-C stops)",
-                              flush=True)  # fmt: skip
-                    else:
-                        failed = not stop.is_set()
-                        if failed:
-                            print(f"dashboard did not start; see {run_dir / 'dashboard.log'}",
-                                  file=sys.stderr, flush=True)  # fmt: skip
-                # until Ctrl-C / SIGTERM, --seconds, or the dashboard or gateway ending
-                watchers: list[asyncio.Task[Any]] = [tg.create_task(stop.wait())]
-                if dash is not None:
-                    watchers.append(tg.create_task(dash.wait()))
-                await asyncio.wait([*watchers, gateway], timeout=args.seconds,
-                                   return_when=asyncio.FIRST_COMPLETED)  # fmt: skip
-                for w in watchers:
-                    w.cancel()
-                if dash is not None:
-                    await _stop_process(dash)
-                stop.set()
+                build_forwarders(config)  # each sink checks its own table before anything runs
+                runtime = Runtime(config)
+                async with asyncio.TaskGroup() as tg:
+                    gateway = tg.create_task(runtime.run(stop), name="gateway")
+                    print(f"demo: {scenario.site}, {len(plant.endpoints)} stations at "
+                          f"{args.speed:g}x, journal {store}", flush=True)  # fmt: skip
+                    for name in config.sinks:
+                        print(f"  forwarding to sink {name}", flush=True)
+                    if not args.no_dashboard:
+                        argv, env = streamlit_command(
+                            store, port=args.port, config="demo", clock="data"
+                        )
+                        log_file = (run_dir / "dashboard.log").open("wb")
+                        dash = await asyncio.create_subprocess_exec(
+                            *argv, env=env, stdout=log_file, stderr=asyncio.subprocess.STDOUT,
+                            stdin=asyncio.subprocess.DEVNULL,
+                        )  # fmt: skip
+                        log_file.close()
+                        if await _wait_http(args.port, dash, stop, 60):
+                            print(f"dashboard: http://127.0.0.1:{args.port}  (Ctrl-C stops)",
+                                  flush=True)  # fmt: skip
+                        else:
+                            failed = not stop.is_set()
+                            if failed:
+                                print(f"dashboard did not start; see {run_dir / 'dashboard.log'}",
+                                      file=sys.stderr, flush=True)  # fmt: skip
+                    # until Ctrl-C / SIGTERM, --seconds, or the dashboard or gateway ending
+                    watchers: list[asyncio.Task[Any]] = [tg.create_task(stop.wait())]
+                    if dash is not None:
+                        watchers.append(tg.create_task(dash.wait()))
+                    await asyncio.wait([*watchers, gateway], timeout=args.seconds,
+                                       return_when=asyncio.FIRST_COMPLETED)  # fmt: skip
+                    for w in watchers:
+                        w.cancel()
+                    if dash is not None:
+                        await _stop_process(dash)
+                    stop.set()
     except OSError as exc:
         raise LeakfleetError(f"cannot start the demo: {exc}") from None
     finally:

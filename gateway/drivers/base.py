@@ -5,9 +5,10 @@ from __future__ import annotations
 import asyncio
 from collections.abc import Sequence
 from dataclasses import dataclass, field
-from datetime import UTC, datetime
+from datetime import datetime
 from typing import TYPE_CHECKING, Any, Protocol
 
+from gateway import clock
 from gateway.errors import ProtocolError, TransportError
 from gateway.health import Backoff, StationHealth
 from gateway.records import (
@@ -96,7 +97,8 @@ class StationTarget:
 
 
 def utcnow() -> datetime:
-    return datetime.now(UTC)
+    """The gateway's clock (``gateway.clock``: the wall clock, or a demo plant's)."""
+    return clock.utcnow()
 
 
 async def sleep_for(seconds: float) -> None:

@@ -12,9 +12,10 @@ from __future__ import annotations
 import json
 import sqlite3
 from collections.abc import Sequence
-from datetime import UTC, datetime
+from datetime import datetime
 from typing import Any
 
+from gateway.clock import utcnow
 from gateway.store._sqlite import from_us, to_us
 
 __all__ = ["CONFLICT_SCHEMA", "conflicts", "find_conflicts"]
@@ -73,7 +74,7 @@ def find_conflicts(conn: sqlite3.Connection, table: str, columns: Sequence[str],
             cur = conn.execute(
                 "INSERT OR IGNORE INTO conflicts (kind, record_id, station, detected_at, reason, "
                 "stored_raw, new_raw, new_record) VALUES (?, ?, ?, ?, ?, ?, ?, ?)",
-                (table.rstrip("s"), row[0], row[at["station"]], to_us(datetime.now(UTC)),
+                (table.rstrip("s"), row[0], row[at["station"]], to_us(utcnow()),
                  f"re-sent with other values: {shown}", have[-1], row[at["raw"]], new),
             )
             found += cur.rowcount

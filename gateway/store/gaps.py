@@ -11,9 +11,10 @@ from __future__ import annotations
 
 import sqlite3
 from collections.abc import Sequence
-from datetime import UTC, datetime
+from datetime import datetime
 from typing import Any
 
+from gateway.clock import utcnow
 from gateway.records import GapEvent
 from gateway.store._sqlite import from_us, to_us
 
@@ -49,7 +50,7 @@ def record_gaps(conn: sqlite3.Connection, reported: Sequence[GapEvent], after_se
         n += conn.execute(_INSERT, (g.record_id, g.station, g.line, to_us(g.at), g.first,
                                     g.last, g.source, g.detail)).rowcount
     found_seq = 0
-    now = datetime.now(UTC)
+    now = utcnow()
     rows = conn.execute("SELECT station, line, cycle FROM results WHERE seq > ? ORDER BY seq",
                         (after_seq,)).fetchall()
     for station, line, cycle in rows:

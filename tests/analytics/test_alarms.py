@@ -159,6 +159,18 @@ def test_link_conditions() -> None:
                             gaps=[(101, 104, now)], conflicts=2, rules=rules, now=now)
     assert [c.rule for c in quiet] == ["silent", "garbage", "gap", "conflict"]
     assert "cycles 101..104" in quiet[2].message
+    many = link_conditions("L1-S1", state="online", state_since=T0, last_result=now,
+                           typical_cycle=timedelta(seconds=40), quarantined_10min=0,
+                           gaps=[(5, 5, now - timedelta(minutes=30)), (9, 12, now)],
+                           rules=rules, now=now)  # fmt: skip
+    assert [(c.key, c.since) for c in many] == [("gap:L1-S1", now - timedelta(minutes=30))]
+    assert many[0].message.startswith("5 cycles lost in 2 gaps")  # one alarm, not one per gap
+    assert "cycles 9..12" in many[0].message
+    later = now + rules.gap_window + timedelta(minutes=31)  # both gaps older than the window
+    assert not link_conditions("L1-S1", state="online", state_since=T0, last_result=later,
+                               typical_cycle=timedelta(seconds=40), quarantined_10min=0,
+                               gaps=[(5, 5, now - timedelta(minutes=30)), (9, 12, now)],
+                               rules=rules, now=later)  # fmt: skip
 
 
 def test_transitions_raise_once_and_clear_when_gone() -> None:
