@@ -302,6 +302,8 @@ asked_range = st.query_params.get("range")
 c1, c2, c3 = st.columns(3)
 station = c1.selectbox("Station", names, index=names.index(wanted) if wanted in names else 0,
                        key="station_pick")
+if station is not None and not paper:
+    st.query_params["station"] = station  # the address names the station shown (to share)
 with c2:
     since, until = time_range(p, "station_range",
                               asked_range if asked_range in _RANGES else "Last 7 days")

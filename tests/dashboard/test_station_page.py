@@ -199,3 +199,11 @@ def test_limit_chart_layers_do_not_share_a_colour_legend_with_verdicts() -> None
     rule = spec["layer"][0]
     assert rule["mark"]["type"] == "rule"
     assert rule["encoding"]["color"]["scale"]["domain"][0] == "reject limit"
+
+
+def test_the_address_follows_the_station_picked(app: AppFactory, demo_journal: Path) -> None:
+    at = app(demo_journal, PAGE, query={"station": "L1-S1"})
+    at.selectbox(key="station_pick").set_value("L2-S3").run()
+    assert not at.exception
+    assert at.query_params["station"] == "L2-S3"
+    assert {m.label: m.value for m in at.metric}["Line"] == "L2"
