@@ -74,7 +74,7 @@ with c3:
     line = pick("Line", lines, "yield_line")
 with c4:
     station = pick("Station", stations, "yield_station")
-d1, d2, d3, d4 = st.columns(4)
+d1, d2, d3 = st.columns(3)
 with d1:
     program = pick("Program", progs, "yield_program")
 with d2:
@@ -84,7 +84,7 @@ with d3:
                            key="yield_measure",
                            help="first-pass yield counts parts (a part's first test decides); "
                                 "test yield counts every test with a verdict")
-with d4:
+with st.sidebar:  # a plant figure, kept while the viewer changes the selection
     target_pct = float(st.number_input(
         "Target yield [%]", min_value=50.0, max_value=100.0, step=0.5, format="%.1f",
         key="yield_target",
