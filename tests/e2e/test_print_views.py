@@ -1,7 +1,7 @@
-"""The print views (``?print=1``) of the station and yield pages, printed to A4 PDF by real
+"""The print views (``?print=1``) of the station and yield pages, printed to PDF by real
 Chromium on a running ``leakfleet demo``: no sidebar or widgets, the charts drawn, one or two
-pages each (a handout, not a scroll of screens). PDFs and print-media screenshots are left for
-review (``$LEAKFLEET_SCREENSHOTS``, else the test's temp dir)."""
+A4 or Letter pages each (a handout, not a scroll of screens). PDFs and print-media
+screenshots are left for review (``$LEAKFLEET_SCREENSHOTS``, else the test's temp dir)."""
 
 from __future__ import annotations
 
@@ -35,7 +35,7 @@ def _pdf_pages(pdf: bytes) -> int:
     return len(PdfReader(io.BytesIO(pdf)).pages)
 
 
-def test_station_and_yield_print_views_fit_a4(tmp_path: Path) -> None:
+def test_station_and_yield_print_views_fit_a4_and_letter(tmp_path: Path) -> None:
     from playwright.sync_api import sync_playwright
 
     shots = screenshot_dir(tmp_path, "print-views")
@@ -66,9 +66,10 @@ def test_station_and_yield_print_views_fit_a4(tmp_path: Path) -> None:
                 page.emulate_media(media="print")
                 page.screenshot(path=str(shots / f"{name}-print.png"), full_page=True)
                 page.emulate_media(media="screen")
-                pdf = page.pdf(format="A4")
-                (shots / f"{name}.pdf").write_bytes(pdf)
-                assert pdf.startswith(b"%PDF"), name
-                assert 1 <= _pdf_pages(pdf) <= 2, (name, _pdf_pages(pdf))
+                for paper in ("A4", "Letter"):
+                    pdf = page.pdf(format=paper)
+                    (shots / f"{name}-{paper}.pdf").write_bytes(pdf)
+                    assert pdf.startswith(b"%PDF"), name
+                    assert 1 <= _pdf_pages(pdf) <= 2, (name, paper, _pdf_pages(pdf))
         finally:
             browser.close()
