@@ -27,6 +27,7 @@ import numpy as np
 import pandas as pd
 
 from analytics._result import ResultMixin
+from analytics.audit import StandardStatus
 from analytics.drift import cusum_chart, ewma_chart
 
 __all__ = [
@@ -41,6 +42,8 @@ __all__ = [
     "link_conditions",
     "reject_conditions",
     "reject_streak",
+    "sink_conditions",
+    "standard_conditions",
     "transitions",
 ]
 
@@ -88,6 +91,7 @@ class AlarmRules:
     backlog_age: timedelta = timedelta(minutes=5)  # a sink's oldest unsent record
     clock_ahead: timedelta = timedelta(minutes=2)  # a station clock this far ahead is wrong
     gap_window: timedelta = timedelta(hours=1)  # lost cycles keep a station's warning this long
+    standard_due_days: int = 30  # a leak standard's recertification warns this many days ahead
 
 
 def epochs(times: Sequence[datetime] | pd.Series, events: Iterable[datetime]) -> np.ndarray:
@@ -353,6 +357,23 @@ def link_conditions(
     if conflicts:
         out.append(Condition(f"conflict:{station}", "conflict", station, "warning", now,
                              f"{conflicts} re-sent record(s) differ from what was stored"))
+    return out
+
+
+def standard_conditions(statuses: Iterable[StandardStatus], now: datetime) -> list[Condition]:
+    """Leak standards past their recertification date (an alarm: calibrations against them
+    are no longer traceable) or due within ``AlarmRules.standard_due_days`` (a warning)."""
+    out = []
+    for s in statuses:
+        if s.status == "overdue":
+            out.append(Condition(f"standard:{s.serial}", "standard-due", s.station, "alarm", now,
+                                 f"leak standard {s.serial} overdue for recertification since "
+                                 f"{s.due_date:%Y-%m-%d}"))
+        elif s.status == "due soon":
+            left = "today" if s.days_left == 0 else f"in {s.days_left} d"
+            out.append(Condition(f"standard:{s.serial}", "standard-due", s.station, "warning",
+                                 now, f"leak standard {s.serial} due for recertification {left} "
+                                 f"({s.due_date:%Y-%m-%d})"))
     return out
 
 

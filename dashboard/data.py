@@ -339,10 +339,22 @@ def acknowledge(url: str, alarm_id: int, by: str) -> bool:
 
 
 @st.cache_data(ttl=LIVE_TTL, show_spinner=False)
-def fleet_conditions(url: str, now: datetime) -> dict[str, list[Any]]:
-    """Each station's alarm conditions now, by the gateway's own evaluation code."""
-    from analytics.alarms import AlarmRules
+def fleet_conditions(
+    url: str,
+    now: datetime,
+    alarms: tuple[tuple[str, float | int | None], ...] = (),
+    standards: tuple[Any, ...] = (),
+    timezone: str = "UTC",
+) -> dict[str, list[Any]]:
+    """Each station's alarm conditions now, by the gateway's own evaluation code, with the
+    config's ``[alarms]`` thresholds and its leak standards due (as the journal's list has
+    them)."""
+    from zoneinfo import ZoneInfo
+
+    from analytics.alarms import standard_conditions
+    from analytics.audit import standards_due
     from gateway.alarm_eval import fleet_conditions as evaluate
+    from gateway.alarm_eval import rules_from
 
     events = maintenance(url)
     starts = events[events["kind"] != "note"]
@@ -351,10 +363,16 @@ def fleet_conditions(url: str, now: datetime) -> dict[str, list[Any]]:
         for s, g in starts.groupby("station")
     }
     store = _store(url)
+    rules = rules_from(dict(alarms))
     try:
-        return evaluate(store, now, maintenance=by_station, rules=AlarmRules())
+        out = evaluate(store, now, maintenance=by_station, rules=rules)
     except (LeakfleetError, sqlite3.Error, OSError) as exc:
         raise StoreUnavailable(str(exc)) from exc
+    today = now.astimezone(ZoneInfo(timezone)).date()
+    for c in standard_conditions(standards_due(standards, today, rules.standard_due_days), now):
+        if c.station in out:
+            out[c.station].append(c)
+    return out
 
 
 @st.cache_data(ttl=LIVE_TTL, show_spinner=False)

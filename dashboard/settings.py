@@ -17,6 +17,7 @@ from pathlib import Path
 from typing import Any, Literal
 
 from analytics import DEFAULT_SHIFTS, LeakStandard, ShiftCalendar
+from gateway.config import parse_alarms
 from gateway.errors import ConfigError
 
 __all__ = ["DEFAULT_STORE_URL", "Settings", "load_settings", "shifts_from_starts"]
@@ -34,6 +35,8 @@ class Settings:
     timezone: str = "UTC"
     shifts: tuple[tuple[str, str, str], ...] = DEFAULT_SHIFTS
     standards: tuple[LeakStandard, ...] = ()
+    #: the config's [alarms] thresholds (``gateway.config.parse_alarms``), as hashable pairs
+    alarms: tuple[tuple[str, float | int | None], ...] = ()
     clock: Clock = "wall"  # "data": "now" is the newest record when station clocks run ahead
     config_source: str | None = None
     notes: tuple[str, ...] = field(default_factory=tuple)
@@ -124,6 +127,7 @@ def load_settings(env: Mapping[str, str]) -> Settings:
         timezone=timezone,
         shifts=shifts,
         standards=_standards(doc.get("standards"), file),
+        alarms=tuple(sorted(parse_alarms(doc.get("alarms", {}), file).items())),
         clock=clock,  # type: ignore[arg-type]
         config_source=source,
     )

@@ -15,10 +15,19 @@ from typing import Any
 
 import pandas as pd
 
-from analytics.alarms import AlarmRules, Condition, clock_skew, sink_conditions, transitions
+from analytics.alarms import (
+    AlarmRules,
+    Condition,
+    clock_skew,
+    sink_conditions,
+    standard_conditions,
+    transitions,
+)
+from analytics.audit import standards_due
 from analytics.fleet import station_conditions
 
-__all__ = ["INTERVAL_S", "evaluate", "fleet_conditions", "station_inputs"]
+__all__ = ["INTERVAL_S", "clock_now", "evaluate", "fleet_conditions", "rules_from",
+           "station_inputs"]
 
 INTERVAL_S = 30.0
 RECENT = 60  # newest tests per station the streak, rate and silence rules look at
@@ -101,6 +110,18 @@ def _conflict_counts(store: Any, now: datetime) -> dict[str, int]:
     return {str(s): int(n) for s, n in rows}
 
 
+def rules_from(table: Mapping[str, float | int | None]) -> AlarmRules:
+    """The rules with a config's ``[alarms]`` thresholds (``gateway.config.parse_alarms``:
+    durations in seconds) over the defaults."""
+    seconds = ("calibration_interval", "silent_min", "backlog_age", "clock_ahead", "gap_window")
+    given: dict[str, Any] = {}
+    for key, value in table.items():
+        if value is None:
+            continue
+        given[key] = timedelta(seconds=float(value)) if key in seconds else value
+    return AlarmRules(**given)
+
+
 def clock_now(store: Any, environ: Mapping[str, str]) -> datetime:
     """Now for the rules: the wall clock, or with ``LEAKFLEET_CLOCK=data`` (a simulated plant
     running faster than real time) when the newest result was received if that is later, as
@@ -114,9 +135,13 @@ def clock_now(store: Any, environ: Mapping[str, str]) -> datetime:
 
 
 def evaluate(journal: Any, store: Any, now: datetime | None = None,
-             rules: AlarmRules | None = None, sinks: Sequence[str] = ()) -> int:
-    """One evaluation: conditions from ``store``, states into ``journal``'s logbook.
+             rules: AlarmRules | None = None, sinks: Sequence[str] = (),
+             standards: Sequence[Any] = (), timezone: str = "UTC") -> int:
+    """One evaluation: conditions from ``store`` (and the leak-standard register, judged on
+    the plant's local date in ``timezone``), states into ``journal``'s logbook.
     Returns how many alarms were raised or cleared."""
+    from zoneinfo import ZoneInfo
+
     from gateway.store.logbook import Logbook
 
     now = now or datetime.now(UTC)
@@ -137,6 +162,10 @@ def evaluate(journal: Any, store: Any, now: datetime | None = None,
             ages = [now - t for _, t in kinds.values() if t is not None]
             oldest[sink] = (count, max(ages) if ages else None)
         conds += sink_conditions(oldest, rules, now)
+    if standards:
+        today = now.astimezone(ZoneInfo(timezone)).date()
+        conds += standard_conditions(standards_due(standards, today, rules.standard_due_days),
+                                     now)
     opened = [a.key for a in book.open_alarms()]
     return book.apply(transitions(conds, opened), now)
 

@@ -137,6 +137,7 @@ class GatewayConfig:
     runtime: RuntimeConfig = field(default_factory=RuntimeConfig)
     metrics: MetricsConfig = field(default_factory=MetricsConfig)
     sinks: Mapping[str, Mapping[str, Any]] = field(default_factory=dict)
+    alarms: Mapping[str, float | int | None] = field(default_factory=dict)  # parse_alarms
 
 
 def resolve_config_path(ref: str | Path) -> Path:
@@ -233,7 +234,10 @@ class _Reader:
 
 
 _TOP = ("site", "gateway_id", "timezone", "store", "profile_dirs", "shifts", "standards",
-        "runtime", "metrics", "sinks", "parameters", "stations")
+        "runtime", "alarms", "metrics", "sinks", "parameters", "stations")
+_ALARMS = ("calibration_interval", "reject_streak", "reject_window", "reject_rate",
+           "silent_factor", "silent_min", "garbage_per_10min", "backlog_age", "clock_ahead",
+           "gap_window", "standard_due_days")
 _STATION = ("id", "line", "profile", "endpoint", "poll_interval", "timeout", "timezone",
             "programs", "overrides", "parameters", "traces")
 _RUNTIME = ("batch_size", "max_delay", "queue_size", "max_pending", "reconnect_initial",
@@ -298,6 +302,7 @@ def parse_config(
         raise r.fail("standards", "an array of [[standards]] tables", standards_raw)
     standards = tuple(r.table(t, f"standards[{i}]") for i, t in enumerate(standards_raw))
     runtime = _runtime(r, r.table(doc.get("runtime", {}), "runtime"))
+    alarms = parse_alarms(doc.get("alarms", {}), file)
     metrics = _metrics(r, r.table(doc.get("metrics", {}), "metrics"))
     sinks_raw = r.table(doc.get("sinks", {}), "sinks")
     sinks = {name: r.table(t, f"sinks.{name}") for name, t in sinks_raw.items()}
@@ -325,6 +330,7 @@ def parse_config(
         runtime=runtime,
         metrics=metrics,
         sinks=sinks,
+        alarms=alarms,
     )
 
 
@@ -362,6 +368,44 @@ def _retention(r: _Reader, t: dict[str, Any], p: str, key: str = "retention") ->
     if not 1 <= days <= 36_600:
         raise r.fail(p + key, expect, value)
     return days * 86400.0
+
+
+def parse_alarms(table: Any, file: str) -> dict[str, float | int | None]:
+    """``[alarms]``: the rules' thresholds, durations in seconds (only the keys given; the
+    rules' own defaults fill the rest). Shared with the dashboard, which reads the same file."""
+    r = _Reader(file)
+    t = r.table(table, "alarms")
+    p = "alarms."
+    r.known(t, p, _ALARMS)
+    out: dict[str, float | int | None] = {}
+    for key in ("silent_min", "backlog_age", "clock_ahead", "gap_window"):
+        if key in t:
+            out[key] = r.duration(t, key, p, None)
+    if "calibration_interval" in t:
+        value = t["calibration_interval"]
+        try:
+            from gateway.units import parse_quantity
+
+            seconds = (float(value) if isinstance(value, int | float) and not isinstance(
+                value, bool) else parse_quantity(str(value), "time", default_unit="s").canonical)
+        except (UnitError, ValueError):
+            raise r.fail(p + "calibration_interval", "a duration such as '8 h' or '7 d'",
+                         value) from None
+        if not 60 <= seconds <= 366 * 86400:
+            raise r.fail(p + "calibration_interval", "a duration from 1 min to a year", value)
+        out["calibration_interval"] = seconds
+    for key, lo, hi in (("reject_streak", 2, 1000), ("reject_window", 5, 100_000),
+                        ("garbage_per_10min", 0, 1_000_000), ("standard_due_days", 0, 366)):
+        if key in t:
+            out[key] = r.integer(t, key, p, 0, lo, hi)
+    for key, low, high in (("reject_rate", 0.0, 1.0), ("silent_factor", 1.0, 1000.0)):
+        if key in t:
+            number = t[key]
+            if isinstance(number, bool) or not isinstance(number, int | float) or not (
+                    low < number <= high):
+                raise r.fail(p + key, f"a number above {low:g}, at most {high:g}", number)
+            out[key] = float(number)
+    return out
 
 
 def _runtime(r: _Reader, t: dict[str, Any]) -> RuntimeConfig:

@@ -39,6 +39,23 @@ class Runtime(_Table):
         default=None, description="days pressure curves are kept (at most retention)")
 
 
+class Alarms(_Table):
+    """Thresholds of the alarm rules (common-practice defaults; docs/gateway-config.md)."""
+
+    calibration_interval: Duration | None = Field(
+        default=None, description="a station's calibration is overdue after this (off if unset)")
+    reject_streak: int = Field(default=3, ge=2, le=1000)
+    reject_window: int = Field(default=50, ge=5, le=100_000)
+    reject_rate: float = Field(default=0.15, gt=0, le=1)
+    silent_factor: float = Field(default=5.0, ge=1, le=1000)
+    silent_min: Duration = 300.0
+    garbage_per_10min: int = Field(default=20, ge=0, le=1_000_000)
+    backlog_age: Duration = 300.0
+    clock_ahead: Duration = 120.0
+    gap_window: Duration = 3600.0
+    standard_due_days: int = Field(default=30, ge=0, le=366)
+
+
 class Metrics(_Table):
     prometheus_port: int = Field(default=0, ge=0, le=65535)
     bind: str = "127.0.0.1"
@@ -110,6 +127,7 @@ class GatewayDocument(_Table):
     shifts: dict[str, str] = {}
     standards: list[Standard] = []
     runtime: Runtime = Field(default_factory=Runtime)
+    alarms: Alarms = Field(default_factory=Alarms)
     metrics: Metrics = Field(default_factory=Metrics)
     sinks: dict[str, dict[str, Any]] = {}
     parameters: dict[str, Parameters] = {}

@@ -636,7 +636,7 @@ class Runtime:
                 prune_task = None
             cap_task = tg.create_task(_cap_quarantine_forever(writer), name="quarantine bound")
             alarm_task = tg.create_task(
-                _alarms_forever(cfg.store, [f.name for f in self.forwarders]),
+                _alarms_forever(cfg.store, [f.name for f in self.forwarders], cfg.source),
                 name="alarm rules",
             )
             for fwd in self.forwarders:
@@ -732,18 +732,23 @@ async def _cap_quarantine_forever(writer: JournalWriter) -> None:
 INTERVAL_S = 30.0
 
 
-async def _alarms_forever(store_url: str, sinks: list[str]) -> None:
+async def _alarms_forever(store_url: str, sinks: list[str], config: str = "") -> None:
     """Keep ``leakfleet alarms watch`` running beside the gateway: the alarm rules evaluated
     every 30 s with their states in the journal. A process of its own, so pandas and scipy
     never weigh on the gateway's memory; it is restarted (with backoff) if it dies, and
     stopped with the gateway."""
     import sys
 
+    from gateway.config import SHIPPED
+
+    # the config's [alarms] thresholds and leak-standard register, when it is a file
+    with_config = ["--config", config] if config in SHIPPED or Path(config).is_file() else []
     backoff = 5.0
     await asyncio.sleep(INTERVAL_S)  # nothing to judge in the first seconds of a run
     while True:
         proc = await asyncio.create_subprocess_exec(
-            sys.executable, "-m", "gateway", "alarms", "--store", store_url, "watch",
+            sys.executable, "-m", "gateway", "alarms", "--store", store_url, *with_config,
+            "watch",
             "--interval", str(INTERVAL_S), "--sinks", ",".join(sinks),
             stdin=asyncio.subprocess.DEVNULL,
         )

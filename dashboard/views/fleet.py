@@ -48,7 +48,9 @@ def standings(p: Page) -> list[Standing]:
     """Every station's standing from the alarm rules (analytics.fleet), worst first."""
     status = data.latest(p.url, "status").set_index("station")
     res = data.latest(p.url, "result").set_index("station")
-    conditions = data.fleet_conditions(p.url, p.now)
+    plant = p.plant_settings  # a standard's due day is the plant's
+    conditions = data.fleet_conditions(p.url, p.now, plant.alarms, plant.standards,
+                                       plant.timezone)
     out = []
     for station, line in zip(p.stations["station"], p.stations["line"], strict=True):
         recent = data.results(p.url, station=station, limit=60, newest_first=True)

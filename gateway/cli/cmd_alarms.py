@@ -5,6 +5,7 @@ from __future__ import annotations
 import argparse
 import json
 import os
+from collections.abc import Sequence
 from typing import Any
 
 ORDER = 44
@@ -30,8 +31,12 @@ def register(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
         ),
         formatter_class=argparse.RawDescriptionHelpFormatter,
     )
-    parser.add_argument("--store", default="sqlite:///./leakfleet.db", metavar="URL",
-                        help="journal (default sqlite:///./leakfleet.db)")
+    parser.add_argument("--store", metavar="URL",
+                        help="journal (default: the config's store, else "
+                        "sqlite:///./leakfleet.db)")
+    parser.add_argument("--config", metavar="FILE|demo",
+                        help="gateway config: its [alarms] thresholds, leak-standard register "
+                        "([[standards]]: due for recertification) and time zone")
     verbs = parser.add_subparsers(dest="verb", required=True, metavar="list|ack|evaluate")
     ls = verbs.add_parser("list", help="open alarms (with --all, cleared ones too)")
     ls.add_argument("--all", action="store_true", help="include cleared alarms")
@@ -53,6 +58,36 @@ def register(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
     watch.set_defaults(func=_watch)
 
 
+class _Plant:
+    """What the rules read from the gateway config (defaults without one)."""
+
+    def __init__(self, args: argparse.Namespace) -> None:
+        from analytics.alarms import AlarmRules
+
+        self.rules = AlarmRules()
+        self.standards: list[Any] = []
+        self.timezone = "UTC"
+        store = None
+        if args.config:
+            from gateway.alarm_eval import rules_from
+            from gateway.config import load_config
+            from gateway.reports.inputs import config_standard
+
+            cfg = load_config(args.config)
+            self.rules = rules_from(cfg.alarms)
+            self.standards = [config_standard(cfg.source, i, t)
+                              for i, t in enumerate(cfg.standards)]
+            self.timezone = cfg.timezone
+            store = cfg.store
+        args.store = args.store or store or "sqlite:///./leakfleet.db"
+
+    def evaluate(self, journal: Any, store: Any, sinks: Sequence[str] = ()) -> int:
+        from gateway.alarm_eval import clock_now, evaluate
+
+        return evaluate(journal, store, clock_now(store, os.environ), self.rules, sinks,
+                        self.standards, self.timezone)
+
+
 def _open(url: str) -> tuple[Any, Any]:
     from gateway.store import open_journal
     from gateway.store.logbook import Logbook
@@ -62,6 +97,7 @@ def _open(url: str) -> tuple[Any, Any]:
 
 
 def _list(args: argparse.Namespace) -> int:
+    _Plant(args)
     journal, book = _open(args.store)
     try:
         rows = book.alarms() if args.all else book.open_alarms()
@@ -82,6 +118,7 @@ def _list(args: argparse.Namespace) -> int:
 
 
 def _ack(args: argparse.Namespace) -> int:
+    _Plant(args)
     journal, book = _open(args.store)
     try:
         done = book.acknowledge(args.id, args.by)
@@ -95,13 +132,13 @@ def _ack(args: argparse.Namespace) -> int:
 
 
 def _evaluate(args: argparse.Namespace) -> int:
-    from gateway.alarm_eval import clock_now, evaluate
     from gateway.store import open_store
 
+    plant = _Plant(args)
     journal, _ = _open(args.store)
     store = open_store(args.store)
     try:
-        n = evaluate(journal, store, clock_now(store, os.environ))
+        n = plant.evaluate(journal, store)
     finally:
         journal.close()
         store.close()
@@ -116,13 +153,13 @@ def _watch(args: argparse.Namespace) -> int:
     import sys
     import time
 
-    from gateway.alarm_eval import clock_now, evaluate
     from gateway.errors import LeakfleetError
     from gateway.store import open_journal, open_store
 
     if not 1.0 <= args.interval <= 86400:
         raise ValueError(f"--interval: expected 1..86400 s, got {args.interval:g}")
     sinks = [s for s in args.sinks.split(",") if s]
+    plant = _Plant(args)
     stopping = False
 
     def stop(signum: int, frame: object) -> None:
@@ -136,7 +173,7 @@ def _watch(args: argparse.Namespace) -> int:
             store = open_store(args.store)
             try:
                 with open_journal(args.store) as journal:
-                    n = evaluate(journal, store, clock_now(store, os.environ), sinks=sinks)
+                    n = plant.evaluate(journal, store, sinks)
             finally:
                 store.close()
             if n:

@@ -23,6 +23,12 @@ DEMO = (Path(__file__).resolve().parents[2] / "gateway" / "configs" / "demo.toml
     ('endpoint = "tcp://127.0.0.1:15101"', 'endpoint = "127.0.0.1:4001"', "endpoint"),
     ('endpoint = "tcp://127.0.0.1:15101"', 'endpoint = "htp:/x"', "endpoint"),
     ('programs = { 1 = "MV-44" }', 'programs = { "²" = "MV-44" }', "programs.²"),
+    ('calibration_interval = "8 h"', 'calibration_interval = "8 parsecs"',
+     "alarms.calibration_interval"),
+    ('calibration_interval = "8 h"', 'calibration_interval = "2 s"', "alarms.calibration_interval"),
+    ('calibration_interval = "8 h"', 'reject_rate = 1.5', "alarms.reject_rate"),
+    ('calibration_interval = "8 h"', 'reject_streak = 1', "alarms.reject_streak"),
+    ('calibration_interval = "8 h"', 'silent_after = "5 min"', "alarms.silent_after"),
 ])  # fmt: skip
 def test_check_refuses(old: str, new: str, key: str, tmp_path: Path,
                        capsys: pytest.CaptureFixture[str]) -> None:
