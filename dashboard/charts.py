@@ -311,21 +311,26 @@ _LIMIT_STYLE: dict[str, tuple[str, list[int]]] = {
 
 
 def station_leak(points: pd.DataFrame, band_df: pd.DataFrame, limits: pd.DataFrame,
-                 events: pd.DataFrame, unit: str, height: int = 280) -> Layered:
+                 events: pd.DataFrame, unit: str, height: int = 280,
+                 calibrations: pd.DataFrame | None = None) -> Layered:
     """A station's leak rate over days: hourly min–max band and mean, the newest tests as
     dots by verdict, each limit as the step it was in force (the reject limit solid, the
-    lower plausibility limit dotted and named as such), maintenance as vertical rules."""
+    lower plausibility limit dotted and named as such), maintenance as vertical rules and
+    calibrations (``ended_at``, ``outcome``, ``program``) as triangles along the bottom,
+    vermillion when one failed."""
     title = f"leak rate [{unit}]"
     layers: list[alt.Chart] = []
-    if not band_df.empty:
-        base = alt.Chart(band_df).encode(x=_time_x("bucket"))
+    if not band_df.empty:  # each hour as a box from its lowest to its highest test
+        base = alt.Chart(band_df).encode(x=_time_x("bucket"), x2="bucket_end:T")
+        tips = [_time_tip("bucket"), alt.Tooltip("n:Q", title="tests"),
+                alt.Tooltip("mean:Q", format=".3g", title="mean"),
+                alt.Tooltip("min:Q", format=".3g", title="lowest"),
+                alt.Tooltip("max:Q", format=".3g", title="highest")]
         layers += [
-            base.mark_area(opacity=0.2, color="#0072B2", interpolate="step-after").encode(
-                y=alt.Y("min:Q", title=title, scale=alt.Scale(zero=False)), y2="max:Q"),
-            base.mark_line(color="#0072B2", strokeWidth=1, interpolate="step-after").encode(
-                y="mean:Q", tooltip=[_time_tip("bucket"), alt.Tooltip("n:Q", title="tests"),
-                                     alt.Tooltip("mean:Q", format=".3g", title="mean"),
-                                     alt.Tooltip("max:Q", format=".3g", title="highest")]),
+            base.mark_rect(opacity=0.2, color="#0072B2").encode(
+                y=alt.Y("min:Q", title=title, scale=alt.Scale(zero=False)), y2="max:Q",
+                tooltip=tips),
+            base.mark_rule(color="#0072B2", strokeWidth=1.5).encode(y="mean:Q", tooltip=tips),
         ]
     if not points.empty:
         layers.append(
@@ -354,6 +359,18 @@ def station_leak(points: pd.DataFrame, band_df: pd.DataFrame, limits: pd.DataFra
             alt.Chart(events).mark_rule(color="#000000", strokeDash=[6, 3]).encode(
                 x=_time_x("at"), tooltip=[_time_tip("at"), alt.Tooltip("kind:N", title="what"),
                                           alt.Tooltip("note:N", title="note")]))
+    if calibrations is not None and not calibrations.empty:
+        lows = [f[c].min() for f, c in ((band_df, "min"), (points, "leak"), (limits, "value"))
+                if not f.empty and c in f]
+        floor = float(min(lows)) if lows else 0.0  # along the bottom of what is drawn
+        layers.append(
+            alt.Chart(calibrations.assign(y=floor)).mark_point(
+                shape="triangle-up", filled=True, size=30).encode(
+                x=_time_x("ended_at"), y=alt.Y("y:Q", title=title),
+                color=alt.condition("datum.outcome == 'FAILED'", alt.value("#D55E00"),
+                                    alt.value("#555555")),
+                tooltip=[_time_tip("ended_at"), alt.Tooltip("outcome:N", title="calibration"),
+                         alt.Tooltip("program:N", title="program")]))
     if not layers:
         layers.append(alt.Chart(pd.DataFrame({"x": []})).mark_point())
     return alt.layer(*layers).resolve_scale(color="independent").properties(height=height)

@@ -87,18 +87,28 @@ def _leak_chart(p: Page, station: str, program: str | None, since: datetime | No
     if since is not None and not events.empty:
         events = events[events["at"] >= pd.Timestamp(since)]
     tz = p.settings.timezone
+    cal = data.calibrations(p.url, since, until, station=station, limit=200, newest_first=True)
+    cal_marks = pd.DataFrame({
+        "ended_at": cal["ended_at"] if not cal.empty else pd.Series(dtype="datetime64[ns, UTC]"),
+        "outcome": cal["passed"].map({True: "passed", False: "FAILED"}).fillna("not judged")
+        if not cal.empty else pd.Series(dtype=object),
+        "program": cal["program"] if not cal.empty else pd.Series(dtype=object),
+    })  # fmt: skip
     chart = charts.station_leak(
         charts.plant_clock(points, tz),
-        charts.plant_clock(band.assign(**{c: band[c] * u.q_factor
+        charts.plant_clock(band.assign(bucket_end=band["bucket"] + pd.Timedelta(hours=1),
+                                       **{c: band[c] * u.q_factor
                                           for c in ("mean", "min", "max")}), tz),
         charts.plant_clock(limits.assign(value=limits["value"] * u.q_factor), tz),
         charts.plant_clock(events[["at", "kind", "note"]], tz),
         u.q_label, height=260 if printing() else 340,
+        calibrations=charts.plant_clock(cal_marks, tz),
     )
     st.altair_chart(chart, width="stretch", key="station_leak_chart")
     reject = limits[limits["what"] == "reject limit"]
-    notes = [f"Band: hourly lowest–highest of every test, line: hourly mean; dots: the newest "
-             f"{min(len(recent), _POINTS):,} tests by verdict; dashed black: maintenance."]
+    notes = [f"Boxes: each hour's lowest to highest test, its mean as a line; dots: the "
+             f"newest {min(len(recent), _POINTS):,} tests by verdict; dashed black: maintenance; "
+             "triangles along the bottom: calibrations (vermillion when failed)."]
     if reject.empty:
         notes.append("No reject limit: the station sends none and the gateway config gives "
                      "none for this program.")

@@ -207,3 +207,14 @@ def test_the_address_follows_the_station_picked(app: AppFactory, demo_journal: P
     assert not at.exception
     assert at.query_params["station"] == "L2-S3"
     assert {m.label: m.value for m in at.metric}["Line"] == "L2"
+
+
+def test_calibrations_are_marked_on_the_time_chart(app: AppFactory, demo_journal: Path) -> None:
+    at = app(demo_journal, PAGE, query={"station": "L1-S2"})
+    marks = _frame_with(at, "outcome")
+    with open_journal(f"sqlite:///{demo_journal}") as j:
+        n = j._query("SELECT COUNT(*) FROM calibrations WHERE station = 'L1-S2'", (), "test")[0][0]
+    assert len(marks) == n > 0
+    assert set(marks["outcome"]) <= {"passed", "FAILED"}
+    table = _table(at, "When", "Outcome")
+    assert len(table) == n and sorted(table["Outcome"]) == sorted(marks["outcome"])
