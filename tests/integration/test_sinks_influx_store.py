@@ -11,10 +11,9 @@ import pandas as pd
 import pytest
 
 from gateway.records import Record, TestResult
-from gateway.sinks.influx import make_influx
 from gateway.store import open_journal, open_store
 from gateway.store.base import QueryStore
-from tests.integration.sinks_data import T0, ctx, forwarding, result, shift, until
+from tests.integration.sinks_data import T0, into_influx, result, shift
 from tests.support.servers import InfluxServer
 
 pytestmark = [pytest.mark.integration, pytest.mark.timeout(90)]
@@ -46,25 +45,16 @@ def stores(influxdb: InfluxServer, tmp_path_factory: pytest.TempPathFactory,
     """The SQLite journal and an InfluxDB fed from it by the sink: with the part summaries
     the sink writes from the journal, and without them (a database an older sink wrote,
     where first-pass yield is judged from the tests themselves)."""
-    import asyncio
 
     path = tmp_path_factory.mktemp("store") / "journal.db"
     journal = open_journal(str(path))
     journal.write(plant())
     db = "compare_parts" if request.param == "part summaries" else "compare_tests"
     influxdb.create_database(db)
-    journal_url = f"sqlite:///{path}" if request.param == "part summaries" else ""
     # small batches: a retest reaches InfluxDB in a later batch than its part's first test,
     # and the part's summary points are overwritten with its new final verdict
-    fwd = make_influx("influx", {"url": influxdb.url(db), "batch_size": 7},
-                      ctx(store_url=journal_url))
-
-    async def forward() -> None:
-        async with forwarding(fwd, journal):
-            await until(lambda: sum(n for n, _ in journal.backlog("influx").values()) == 0, 30,
-                        "everything in InfluxDB")
-
-    asyncio.run(forward())
+    into_influx(journal, influxdb.url(db), summaries=request.param == "part summaries",
+                batch_size=7)
     journal.close()
     sqlite = open_store(f"sqlite:///{path}")
     influx = open_store(influxdb.url(db))
