@@ -130,8 +130,8 @@ async def _to_influx(db_path: Path, url: str) -> tuple[int, float]:
     from gateway.sinks.influx import make_influx
     from gateway.store import open_journal
 
-    ctx = SinkContext(site="Northmere Works", gateway_id="bench", store_url="",
-                      stations={})
+    ctx = SinkContext(site="Northmere Works", gateway_id="bench",
+                      store_url=f"sqlite:///{db_path}", stations={})  # its part summaries too
     fwd = make_influx("bulk", {"url": url, "batch_size": 5000, "timeout_s": 120,
                                "kinds": ["result", "calibration"]}, ctx)
     stop = asyncio.Event()
@@ -153,6 +153,18 @@ async def _to_influx(db_path: Path, url: str) -> tuple[int, float]:
     return total, time.monotonic() - t
 
 
+def _queries(url: str, end: datetime) -> dict[str, Any]:
+    """The dashboard's main store queries (``bench.store_queries``) timed on one store."""
+    from bench.store_queries import time_queries
+    from gateway.store import open_store
+
+    store = open_store(url)
+    try:
+        return {k: v for k, v in time_queries(store, end).items() if k.endswith("_s")}
+    finally:
+        store.close()
+
+
 def run(results: int, repeats: int = 2) -> dict[str, Any]:
     if not CHROMIUM.exists():
         return {"missing": "Debian's chromium is not installed (/usr/bin/chromium)"}
@@ -165,6 +177,7 @@ def run(results: int, repeats: int = 2) -> dict[str, Any]:
         db = tmp / "history.db"
         _log(f"dashboard_browser: backfill {results:,} results")
         stats = backfill(f"sqlite:///{db}", results, end=datetime.now(UTC))
+        out["queries"] = {"sqlite": _queries(f"sqlite:///{db}", stats.last)}
         proc, url = _serve(f"sqlite:///{db}", tmp)
         try:
             out["sqlite"] = _time_pages(url, True, repeats)
@@ -177,6 +190,7 @@ def run(results: int, repeats: int = 2) -> dict[str, Any]:
             influx.create_database("plant")
             loaded, load_s = asyncio.run(_to_influx(db, influx.url("plant")))
             out["influx_load"] = {"records": loaded, "seconds": round(load_s, 1)}
+            out["queries"]["influxdb"] = _queries(influx.url("plant"), stats.last)
             proc, url = _serve(influx.url("plant"), tmp)
             try:
                 out["influxdb"] = _time_pages(url, False, repeats)

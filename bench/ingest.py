@@ -8,6 +8,8 @@ queries independent of the history's length).
 Baseline: ``sqlite3.executemany`` of the same rows (prepared before the clock starts) into the
 journal's schema (same columns and indexes), same pragmas, same batch size, one transaction per
 batch, and no summaries: they are part of what the journal costs, so the ratio shows them.
+Ours and both baselines take turns batch by batch (same lines, same rows), so the load of a
+shared machine falls on all three alike.
 ``split`` tells where our time goes: parsing and ``Journal.write`` timed apart in the same run
 (the clock is read once per batch, not per line), and ``journal_sql_us_per_record`` from a
 second baseline that runs the journal's own SQL per batch (MAX(seq), executemany, fold) on the
@@ -73,67 +75,78 @@ def run(records: int, batch: int) -> dict[str, Any]:
         for s in stations
     }
     received = datetime(2026, 11, 2, 6, tzinfo=UTC)
+    line_batches = [lines[i : i + batch] for i in range(0, len(lines), batch)]
+    # the baselines' rows, prepared before any clock starts (an untimed parse of the same lines)
+    kept: list[TestResult] = []
+    rejected = 0
+    for no, (station, line) in enumerate(lines, 1):
+        for item in parsers[station].parse([line], no, received):
+            if isinstance(item, TestResult):
+                kept.append(item)
+            elif isinstance(item, Rejected):
+                rejected += 1
+            elif not isinstance(item, CalibrationEvent):
+                raise AssertionError(f"unexpected {item!r}")
+    if rejected:
+        raise AssertionError(f"{rejected} generated line(s) were rejected by {PROFILE}")
+    row_batches: list[list[tuple[Any, ...]]] = []
+    at = 0
+    for lb in line_batches:  # the result rows of each batch of lines
+        n = sum(1 for _, line in lb if line.startswith("R;"))
+        row_batches.append([_result_row(r) for r in kept[at : at + n]])
+        at += n
+    assert at == len(kept)
+    rows = [r for b in row_batches for r in b]
+    parsers = {  # fresh parsers: the timed run starts where the untimed one did
+        s: serial_parser(profile.serial,
+                         StationContext(station=s, line="L1", timezone="Europe/Berlin"))
+        for s in stations
+    }
+
+    def open_baseline(path: Path) -> sqlite3.Connection:
+        conn = sqlite3.connect(str(path), isolation_level=None)
+        conn.execute("PRAGMA journal_mode=WAL")
+        conn.execute("PRAGMA synchronous=NORMAL")
+        conn.execute(f"PRAGMA cache_size = {CACHE_SIZE}")
+        migrate(conn)
+        return conn
+
     with tempfile.TemporaryDirectory() as tmp:
         journal = open_journal(str(Path(tmp) / "ours.db"))
-        t = mark = time.perf_counter()
-        parse_s = write_s = 0.0
-        pending: list[Any] = []
-        kept: list[TestResult] = []
-        rejected = 0
-        for no, (station, line) in enumerate(lines, 1):
-            items = parsers[station].parse([line], no, received)
-            for item in items:
-                if isinstance(item, TestResult):
-                    kept.append(item)
-                elif isinstance(item, Rejected):
-                    rejected += 1
-                elif not isinstance(item, CalibrationEvent):
-                    raise AssertionError(f"unexpected {item!r}")
-            pending.extend(items)
-            if len(pending) >= batch:
-                now = time.perf_counter()
-                parse_s += now - mark
-                journal.write(pending)
-                mark = time.perf_counter()
-                write_s += mark - now
-                pending = []
-        if pending:
-            now = time.perf_counter()
-            parse_s += now - mark
+        plain_conn = open_baseline(Path(tmp) / "plain.db")
+        sql_conn = open_baseline(Path(tmp) / "summaries.db")
+        parse_s = write_s = plain = sql = 0.0
+        no = 0
+        # interleaved batch by batch, so a machine that speeds up or slows down meanwhile
+        # weighs on ours and on both baselines alike
+        for lb, b in zip(line_batches, row_batches, strict=True):
+            t0 = time.perf_counter()
+            pending: list[Any] = []
+            for station, line in lb:
+                no += 1
+                pending.extend(parsers[station].parse([line], no, received))
+            t1 = time.perf_counter()
             journal.write(pending)
-            mark = time.perf_counter()
-            write_s += mark - now
-        ours = mark - t
+            t2 = time.perf_counter()
+            plain_conn.execute("BEGIN")
+            plain_conn.executemany(_INSERT_RESULT, b)
+            plain_conn.execute("COMMIT")
+            t3 = time.perf_counter()
+            # the SQL of Journal.write, without its Python
+            sql_conn.execute("BEGIN IMMEDIATE")
+            before = sql_conn.execute(_MAX_RESULT_SEQ).fetchone()[0] or 0
+            sql_conn.executemany(_INSERT_RESULT, b)
+            fold_results(sql_conn, before)
+            sql_conn.execute("COMMIT")
+            t4 = time.perf_counter()
+            parse_s += t1 - t0
+            write_s += t2 - t1
+            plain += t3 - t2
+            sql += t4 - t3
+        ours = parse_s + write_s
         journal.close()
-        if rejected:
-            raise AssertionError(f"{rejected} generated line(s) were rejected by {PROFILE}")
-
-        rows = [_result_row(r) for r in kept]
-        row_batches = [rows[i : i + batch] for i in range(0, len(rows), batch)]
-
-        def baseline(name: str, with_summaries: bool) -> float:
-            conn = sqlite3.connect(str(Path(tmp) / name), isolation_level=None)
-            conn.execute("PRAGMA journal_mode=WAL")
-            conn.execute("PRAGMA synchronous=NORMAL")
-            conn.execute(f"PRAGMA cache_size = {CACHE_SIZE}")
-            migrate(conn)
-            t = time.perf_counter()
-            for b in row_batches:
-                if with_summaries:  # the SQL of Journal.write, without its Python
-                    conn.execute("BEGIN IMMEDIATE")
-                    before = conn.execute(_MAX_RESULT_SEQ).fetchone()[0] or 0
-                    conn.executemany(_INSERT_RESULT, b)
-                    fold_results(conn, before)
-                else:
-                    conn.execute("BEGIN")
-                    conn.executemany(_INSERT_RESULT, b)
-                conn.execute("COMMIT")
-            elapsed = time.perf_counter() - t
-            conn.close()
-            return elapsed
-
-        plain = baseline("plain.db", with_summaries=False)
-        sql = baseline("summaries.db", with_summaries=True)
+        plain_conn.close()
+        sql_conn.close()
     ours_rate = len(lines) / ours
     base_rate = len(rows) / plain
     sql_rate = len(rows) / sql

@@ -121,9 +121,9 @@ def _time(fn: Callable[[], pd.DataFrame], repeat: int = 3) -> tuple[float, int]:
     return round(best, 3), rows
 
 
-def run_queries(path: Path, n: int) -> dict[str, Any]:
-    store = SqliteStore(path)
-    end = START + timedelta(seconds=n * CYCLE_S / len(STATIONS))
+def time_queries(store: Any, end: datetime) -> dict[str, Any]:
+    """The dashboard's main queries on any store (SQLite journal or InfluxDB), best of three,
+    over the month and week before ``end``."""
     month = (end - timedelta(days=30), end)
     week = (end - timedelta(days=7), end)
     edges = list(np.linspace(0.0, 3.0, 51))
@@ -144,6 +144,14 @@ def run_queries(path: Path, n: int) -> dict[str, Any]:
         seconds, rows = _time(fn)
         out[name] = seconds
         out[name.removesuffix("_s") + "_rows"] = rows
+    return out
+
+
+def run_queries(path: Path, n: int) -> dict[str, Any]:
+    store = SqliteStore(path)
+    end = START + timedelta(seconds=n * CYCLE_S / len(STATIONS))
+    month = (end - timedelta(days=30), end)
+    out = time_queries(store, end)
     with sqlite3.connect(path) as conn:
         month_rows = conn.execute(
             "SELECT COUNT(*) FROM results WHERE ended_at >= ?",

@@ -24,6 +24,7 @@ st.set_page_config(page_title="leakfleet", layout="wide")
 
 _PAGES = [
     st.Page("views/fleet.py", title="Fleet live", default=True),
+    st.Page("views/station.py", title="Station"),
     st.Page("views/yields.py", title="Yield"),
     st.Page("views/shift.py", title="Shift report"),
     st.Page("views/readings.py", title="Readings vs limits"),

@@ -11,6 +11,7 @@ import pandas as pd
 from analytics import ControlChart, Histogram, ParetoReport
 
 __all__ = [
+    "SERIES_COLOURS",
     "advice_curve",
     "control_chart",
     "histogram",
@@ -18,7 +19,9 @@ __all__ = [
     "pareto",
     "plant_clock",
     "series",
+    "station_leak",
     "verdict_trend",
+    "yield_periods",
     "yield_trend",
 ]
 
@@ -71,19 +74,22 @@ _VERDICT_COLOURS = alt.Scale(
 )
 
 
-def yield_trend(df: pd.DataFrame, x: str, y: str, colour: str | None, title: str) -> alt.Chart:
-    """Yield (0..1) over time or periods, one line per group."""
+def yield_trend(df: pd.DataFrame, x: str, y: str, colour: str | None, title: str,
+                domain: tuple[float, float] = (0.9, 1.0)) -> alt.Chart:
+    """Yield (0..1) over time or periods, one line per group, on a fixed floor (``domain``,
+    from ``analytics.compare.yield_axis``) so noise is not stretched to the full height."""
     chart = (
         alt.Chart(df)
-        .mark_line(point=True)
+        .mark_line(point=True, color=SERIES_COLOURS[0])
         .encode(
             x=alt.X(f"{x}:O", title=None),
-            y=alt.Y(f"{y}:Q", title=title, axis=alt.Axis(format="%"), scale=alt.Scale(zero=False)),
+            y=alt.Y(f"{y}:Q", title=f"{title} [%]", axis=alt.Axis(format="%"),
+                    scale=alt.Scale(domain=list(domain), clamp=True)),
             tooltip=[alt.Tooltip(c) for c in df.columns],
         )
     )
     if colour:
-        chart = chart.encode(color=alt.Color(f"{colour}:N"))
+        chart = chart.encode(color=alt.Color(f"{colour}:N", scale=alt.Scale(range=SERIES_COLOURS)))
     return chart.properties(height=260)
 
 
@@ -110,7 +116,8 @@ def pareto(report: ParetoReport, title: str) -> Layered:
         alt.Chart(df)
         .mark_bar(color="#d9822b")
         .encode(
-            x=alt.X("category:N", sort=order, title=title),
+            x=alt.X("category:N", sort=order, title=title,
+                    axis=alt.Axis(labelLimit=220, labelAngle=-35)),
             y=alt.Y("n:Q", title="count"),
             tooltip=["category", "n", alt.Tooltip("share:Q", format=".1%")],
         )
@@ -289,3 +296,126 @@ def advice_curve(df: pd.DataFrame, target: float, current_s: float) -> Layered:
         alt.Chart(pd.DataFrame([{"x": current_s}])).mark_rule(color="#b23a48").encode(x="x:Q")
     )
     return alt.layer(line, target_rule, now_rule).properties(height=260)
+
+
+#: ordinary series (groups, periods, stations): the Okabe–Ito colour-blind-safe palette
+#: (Okabe & Ito 2008, "Color Universal Design"), blue and orange first, no red/green pair
+SERIES_COLOURS = ["#0072B2", "#E69F00", "#56B4E9", "#CC79A7", "#009E73", "#F0E442",
+                  "#D55E00", "#000000"]  # fmt: skip
+#: limit kind (analytics.station.LIMIT_KINDS) → colour and dash: the reject limit solid
+#: vermillion, the lower plausibility limit dotted grey
+_LIMIT_STYLE: dict[str, tuple[str, list[int]]] = {
+    "reject limit": ("#D55E00", [1, 0]),
+    "lower plausibility limit (not a reject limit)": ("#8d8d8d", [2, 3]),
+}
+
+
+def station_leak(points: pd.DataFrame, band_df: pd.DataFrame, limits: pd.DataFrame,
+                 events: pd.DataFrame, unit: str, height: int = 280,
+                 calibrations: pd.DataFrame | None = None) -> Layered:
+    """A station's leak rate over days: hourly min–max band and mean, the newest tests as
+    dots by verdict, each limit as the step it was in force (the reject limit solid, the
+    lower plausibility limit dotted and named as such), maintenance as vertical rules and
+    calibrations (``ended_at``, ``outcome``, ``program``) as triangles along the bottom,
+    vermillion when one failed."""
+    title = f"leak rate [{unit}]"
+    layers: list[alt.Chart] = []
+    if not band_df.empty:  # each hour as a box from its lowest to its highest test
+        base = alt.Chart(band_df).encode(x=_time_x("bucket"), x2="bucket_end:T")
+        tips = [_time_tip("bucket"), alt.Tooltip("n:Q", title="tests"),
+                alt.Tooltip("mean:Q", format=".3g", title="mean"),
+                alt.Tooltip("min:Q", format=".3g", title="lowest"),
+                alt.Tooltip("max:Q", format=".3g", title="highest")]
+        layers += [
+            base.mark_rect(opacity=0.2, color="#0072B2").encode(
+                y=alt.Y("min:Q", title=title, scale=alt.Scale(zero=False)), y2="max:Q",
+                tooltip=tips),
+            base.mark_rule(color="#0072B2", strokeWidth=1.5).encode(y="mean:Q", tooltip=tips),
+        ]
+    if not points.empty:
+        layers.append(
+            alt.Chart(points).mark_circle(size=16, opacity=0.7).encode(
+                x=_time_x("ended_at"), y=alt.Y("leak:Q", title=title),
+                color=alt.Color("verdict:N", scale=_VERDICT_COLOURS, title="verdict",
+                                legend=alt.Legend(orient="bottom")),
+                tooltip=[_time_tip("ended_at"), alt.Tooltip("cycle:Q", title="cycle"),
+                         alt.Tooltip("program:N", title="program"),
+                         alt.Tooltip("verdict:N", title="verdict"),
+                         alt.Tooltip("leak:Q", format=".3g", title=title)]))
+    if not limits.empty:
+        shown = [k for k in _LIMIT_STYLE if k in set(limits["what"])]
+        layers.append(
+            alt.Chart(limits).mark_rule(strokeWidth=2).encode(
+                x=_time_x("start"), x2="end:T", y=alt.Y("value:Q", title=title),
+                color=alt.Color("what:N", scale=alt.Scale(domain=shown, range=[
+                    _LIMIT_STYLE[k][0] for k in shown]), title="limits",
+                    legend=alt.Legend(labelLimit=320, orient="bottom")),
+                strokeDash=alt.StrokeDash("what:N", scale=alt.Scale(
+                    domain=shown, range=[_LIMIT_STYLE[k][1] for k in shown]), legend=None),
+                tooltip=[alt.Tooltip("what:N", title="limit"),
+                         alt.Tooltip("value:Q", format=".3g", title=unit)]))
+    if not events.empty:
+        layers.append(
+            alt.Chart(events).mark_rule(color="#000000", strokeDash=[6, 3]).encode(
+                x=_time_x("at"), tooltip=[_time_tip("at"), alt.Tooltip("kind:N", title="what"),
+                                          alt.Tooltip("note:N", title="note")]))
+    if calibrations is not None and not calibrations.empty:
+        lows = [f[c].min() for f, c in ((band_df, "min"), (points, "leak"), (limits, "value"))
+                if not f.empty and c in f]
+        floor = float(min(lows)) if lows else 0.0  # along the bottom of what is drawn
+        layers.append(
+            alt.Chart(calibrations.assign(y=floor)).mark_point(
+                shape="triangle-up", filled=True, size=30).encode(
+                x=_time_x("ended_at"), y=alt.Y("y:Q", title=title),
+                color=alt.condition("datum.outcome == 'FAILED'", alt.value("#D55E00"),
+                                    alt.value("#555555")),
+                tooltip=[_time_tip("ended_at"), alt.Tooltip("outcome:N", title="calibration"),
+                         alt.Tooltip("program:N", title="program")]))
+    if not layers:
+        layers.append(alt.Chart(pd.DataFrame({"x": []})).mark_point())
+    return alt.layer(*layers).resolve_scale(color="independent").properties(height=height)
+
+
+def yield_periods(df: pd.DataFrame, *, measure: str, domain: tuple[float, float],
+                  target: float | None, colour: str | None = None, x: str = "period",
+                  height: int = 240) -> tuple[Layered, alt.Chart]:
+    """Yield per period (day, week or shift) with its volume: points sized by volume on a
+    fixed-floor axis, the target as a dashed line, and the volume as bars below, so a period
+    with a handful of parts is seen to be one. ``df``: ``period``, ``yield``, ``total``,
+    ``share`` and optionally the ``colour`` column (e.g. the shift). Two charts (yield, then
+    volume), since a concatenated chart does not stretch to the page's width."""
+    order = list(dict.fromkeys(df[x]))
+    x_enc = alt.X(f"{x}:O", sort=order, title=None,
+                  axis=alt.Axis(labelAngle=0 if len(order) <= 8 else -40))
+    # Streamlit fits the whole chart, legends included, into its height: one legend, on top
+    colour_enc = (alt.Color(f"{colour}:N", scale=alt.Scale(range=SERIES_COLOURS), title=None,
+                            legend=alt.Legend(orient="top"))
+                  if colour else alt.value(SERIES_COLOURS[0]))
+    bar_colour = (alt.Color(f"{colour}:N", scale=alt.Scale(range=SERIES_COLOURS), legend=None)
+                  if colour else alt.value(SERIES_COLOURS[0]))
+    tips = [alt.Tooltip("period:N", title="period"),
+            alt.Tooltip("yield:Q", format=".2%", title=measure),
+            alt.Tooltip("total:Q", format=",", title="volume"),
+            alt.Tooltip("share:Q", format=".1%", title="share of volume")]
+    base = alt.Chart(df).encode(x=x_enc)
+    if colour:  # the same period's groups side by side, not on top of each other
+        base = base.encode(xOffset=alt.XOffset(f"{colour}:N"))
+    line = base.mark_line(strokeWidth=1, opacity=0.6).encode(
+        y=alt.Y("yield:Q", title=f"{measure} [%]", axis=alt.Axis(format="%"),
+                scale=alt.Scale(domain=list(domain), clamp=True)),
+        color=colour_enc)
+    points = base.mark_circle(opacity=0.9).encode(
+        y="yield:Q", color=colour_enc,
+        size=alt.Size("total:Q", title="volume", scale=alt.Scale(range=[15, 400]),
+                      legend=None),
+        tooltip=tips)
+    layers: list[alt.Chart] = [line, points]
+    if target is not None:
+        layers.append(alt.Chart(pd.DataFrame({"y": [target], "what": [f"target {target:.1%}"]}))
+                      .mark_rule(color="#000000", strokeDash=[6, 4])
+                      .encode(y="y:Q", tooltip=[alt.Tooltip("what:N", title="target")]))
+    top = alt.layer(*layers).properties(height=height)
+    bars = base.mark_bar(opacity=0.8).encode(
+        y=alt.Y("total:Q", title="volume"), color=bar_colour, tooltip=tips,
+    ).properties(height=140)
+    return top, bars

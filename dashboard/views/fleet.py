@@ -66,7 +66,8 @@ def standings(p: Page) -> list[Standing]:
 
 
 def _tile(
-    p: Page, s: Standing, last: pd.Series | None, cycles: int, shown: float | None, cal_at: Any
+    p: Page, s: Standing, last: pd.Series | None, cycles: int, shown: float | None, cal_at: Any,
+    link: bool = True,
 ) -> None:
     """One station: level in words and shape, what is wrong, the last reading against its
     limit. Text that wraps rather than metrics that truncate, so a 1024-px line PC shows it."""
@@ -106,6 +107,9 @@ def _tile(
     )
     streak = f" · {s.reject_streak} rejects in a row" if s.reject_streak else ""
     st.caption(f"Last calibration: {_age(p.now, cal_at)}{streak}")
+    if link:  # a wall screen has nothing to click
+        st.page_link("views/station.py", label=f"Station page of {s.station}",
+                     icon=":material/open_in_new:", query_params={"station": s.station})
     if len(s.conditions) > 1:
         with st.expander(f"{len(s.conditions)} open conditions"):
             for c in s.conditions:
@@ -153,6 +157,7 @@ def tiles(p: Page, kiosk_every: float | None = None) -> None:
                     p, s, _row(res, s.station),
                     int(cycles.get(s.station, 0)), shown,
                     cals.loc[s.station, "ended_at"] if s.station in cals.index else None,
+                    link=not kiosk_every,
                 )  # fmt: skip
 
 
@@ -161,6 +166,8 @@ def detail(p: Page) -> None:
     station = st.selectbox("Station", list(p.stations["station"]), key="fleet_station")
     if station is None:
         return
+    st.page_link("views/station.py", label=f"Everything about {station}: limits over days, "
+                 "calibrations, alarms, link, config", query_params={"station": station})
     latest = data.results(p.url, station=station, limit=500, newest_first=True)
     if latest.empty:
         st.info(f"{station} has reported no results yet.")

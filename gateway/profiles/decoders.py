@@ -2,12 +2,12 @@
 
 ``model`` holds what the loader read (plain, frozen data, no behaviour that reaches the
 parsing code); this module turns it into the objects drivers and ``profile check`` use. The
-imports run one way only: model <- registers/normalise/lines <- decoders.
+imports run one way only: model <- registers/normalise/lines <- register_block <- decoders.
 """
 
 from __future__ import annotations
 
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from datetime import datetime
 from typing import Literal
 
@@ -21,7 +21,7 @@ from gateway.profiles.model import (
     StationContext,
     TestResult,
 )
-from gateway.profiles.normalise import decode_block
+from gateway.profiles.register_block import BlockDecoder, counter_reader
 from gateway.profiles.registers import decode_registers, encode_value
 from gateway.records import Rejected, StationState
 
@@ -44,6 +44,18 @@ class ModbusDecoder:
 
     def __init__(self, spec: ModbusSpec) -> None:
         self.spec = spec
+        # block decoders compiled for the station last asked about (a reader has one)
+        self._compiled: tuple[StationContext, BlockDecoder, BlockDecoder | None] | None = None
+        self._counters: dict[str, Callable[[Sequence[int]], int | None]] = {}
+
+    def _blocks(self, ctx: StationContext) -> tuple[BlockDecoder, BlockDecoder | None]:
+        compiled = self._compiled
+        if compiled is None or compiled[0] is not ctx:
+            cal = self.spec.calibration
+            compiled = self._compiled = (
+                ctx, BlockDecoder(self.spec, "result", self.spec.result, ctx),
+                BlockDecoder(self.spec, "calibration", cal, ctx) if cal is not None else None)
+        return compiled[1], compiled[2]
 
     def decode_counter(self, regs: Sequence[int]) -> int:
         """The result counter from its registers as read (DecodeError if they are not words)."""
@@ -55,6 +67,14 @@ class ModbusDecoder:
         return self._counter(regs, self.spec.calibration.counter_type)
 
     def _counter(self, regs: Sequence[int], type_name: str) -> int:
+        fast = self._counters.get(type_name)
+        if fast is None:
+            fast = self._counters[type_name] = counter_reader(
+                type_name, self.spec.word_order, self.spec.byte_order)
+        quick = fast(regs)
+        if quick is not None:
+            return quick
+        # not plain words, or an unusual type: decode_registers says exactly what is wrong
         value = decode_registers(list(regs), type_name, word_order=self.spec.word_order,
                                  byte_order=self.spec.byte_order)
         assert isinstance(value, int)
@@ -75,8 +95,7 @@ class ModbusDecoder:
     def decode_result(self, regs: Sequence[int], expected_cycle: int, ctx: StationContext,
                       received_at: datetime) -> TestResult | Rejected:
         address = self.spec.result.slot_address(expected_cycle)
-        out = decode_block(self.spec, "result", self.spec.result, address, regs,
-                           expected_cycle, ctx, received_at)
+        out = self._blocks(ctx)[0](address, regs, expected_cycle, received_at)
         assert not isinstance(out, CalibrationEvent)
         return out
 
@@ -86,7 +105,8 @@ class ModbusDecoder:
         block = self.spec.calibration
         if block is None:
             raise ValueError("this profile has no calibration block")
-        out = decode_block(self.spec, "calibration", block, block.address, regs,
-                           expected_counter, ctx, received_at)
+        decode = self._blocks(ctx)[1]
+        assert decode is not None
+        out = decode(block.address, regs, expected_counter, received_at)
         assert not isinstance(out, TestResult)
         return out

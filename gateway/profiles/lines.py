@@ -340,9 +340,10 @@ class SerialParser:
         except FieldError as exc:
             return [reject(self.ctx, self.label, raw, str(exc), received_at, line_no)]
 
-    def _match(self, text: str, raw: str, line_no: int, received_at: datetime) -> list[Parsed]:
-        """The record a delimited/fixed/regex line is (FieldError: none, or a broken one)."""
-        parts: list[str] | None = None
+    def _match(self, text: str, raw: str, line_no: int, received_at: datetime,
+               parts: list[str] | None = None) -> list[Parsed]:
+        """The record a delimited/fixed/regex line is (FieldError: none, or a broken one);
+        ``parts``: the line already split by the dialect, when the caller did that."""
         for plan in self._plans:
             kind = plan.kind
             if not plan.delimited:
@@ -391,7 +392,7 @@ class SerialParser:
         if taken is not None:
             return cut + taken
         try:
-            out = self._match(text, raw, line_no, received_at)
+            out = self._match(text, raw, line_no, received_at, parts)
         except FieldError as exc:
             out = [reject(self.ctx, self.label, raw, str(exc), received_at, line_no)]
         for record in out:

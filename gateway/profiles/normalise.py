@@ -29,7 +29,8 @@ from gateway.records import CalibrationEvent, Rejected, TestResult, Verdict
 from gateway.units import same_value, to_canonical, to_canonical_fn
 
 __all__ = ["FieldError", "TextConverter", "build_record", "compile_text_field",
-           "convert_register", "convert_text", "decode_block", "make_record", "reject"]
+           "convert_register", "convert_text", "decode_block", "finish_register", "make_record",
+           "register_null", "reject"]
 
 _NUMBER = re.compile(r"^[+-]?(?:\d+(?:\.\d*)?|\.\d+)(?:[eE][+-]?\d{1,3})?$")
 _INT = re.compile(r"^[+-]?\d{1,18}$")
@@ -424,6 +425,14 @@ def convert_register(
                                  byte_order=reg.byte_order, encoding=encoding)
     except DecodeError as exc:
         raise _fail(spec, str(exc)) from None
+    return finish_register(spec, value, ctx, reference_c)
+
+
+def finish_register(spec: FieldSpec, value: int | float | str, ctx: StationContext,
+                    reference_c: float = 0.0) -> Any:
+    """The rest of ``convert_register`` once the registers are decoded: bits, null, kind."""
+    reg = spec.register
+    assert reg is not None
     if spec.bit_codes and isinstance(value, int):
         for bit, code in spec.bit_codes:  # priority order: the first set bit wins
             if value >> bit & 1:
@@ -435,16 +444,7 @@ def convert_register(
         value = (value & reg.mask) >> shift
     elif isinstance(value, int) and reg.bit is not None:
         value = value >> reg.bit & 1
-    is_null = False
-    if isinstance(value, float) and math.isnan(value):
-        if reg.null is None or not (isinstance(reg.null, float) and math.isnan(reg.null)):
-            raise _fail(spec, "is NaN (declare null = \"nan\" if NaN means no value)")
-        is_null = True
-    elif isinstance(value, str):
-        is_null = value == ""
-    elif reg.null is not None and value == reg.null:
-        is_null = True
-    if is_null:
+    if register_null(spec, value):
         if spec.empty_none:
             return None
         raise _fail(spec, f"holds the null value {value!r} but the field is required")
@@ -473,6 +473,19 @@ def convert_register(
     if not math.isfinite(value):
         raise _fail(spec, f"{value!r} is not a finite number")
     return _quantity(spec, float(value), None, reference_c)
+
+
+def register_null(spec: FieldSpec, value: int | float | str) -> bool:
+    """Whether a decoded register value is the field's "no value" (NaN only where declared)."""
+    reg = spec.register
+    assert reg is not None
+    if isinstance(value, float) and math.isnan(value):
+        if reg.null is None or not (isinstance(reg.null, float) and math.isnan(reg.null)):
+            raise _fail(spec, "is NaN (declare null = \"nan\" if NaN means no value)")
+        return True
+    if isinstance(value, str):
+        return value == ""
+    return reg.null is not None and value == reg.null
 
 
 def _bcd(word: int) -> int:

@@ -45,6 +45,7 @@ from gateway.sinks.forwarder import (
     SinkUnavailable,
     read_secret,
 )
+from gateway.sinks.influx_parts import part_summary_lines
 from gateway.store.journal import KINDS, Kind
 
 __all__ = ["InfluxClient", "InfluxOptions", "make_influx"]
@@ -178,6 +179,13 @@ class InfluxClient:
 
     async def send(self, kind: Kind, rows: Sequence[tuple[int, Record]]) -> None:
         body = encode(rows, site=self.ctx.site, lines=self.ctx.stations)
+        if kind == "result":
+            # the parts these results belong to, as the journal now judges them (first-pass
+            # yield without reading every test back: gateway.sinks.influx_parts)
+            summary = await asyncio.to_thread(part_summary_lines, self.ctx.store_url, rows,
+                                              site=self.ctx.site)
+            if summary:
+                body = "\n".join([body, *summary])
         http = self._prepare()
         try:
             if http.target.version == 2:

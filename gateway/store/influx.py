@@ -76,7 +76,6 @@ _SERIES_COLUMNS = (
 _INTERVAL = {"hour": "1h", "day": "1d"}
 _BUCKET_NS = {"hour": 3_600 * 10**9, "day": 86_400 * 10**9}
 # part ids per statement when fetching parts' histories (bound parameters, ORed)
-_IDS_PER_STATEMENT = 200
 #: how far before and after a range a part's other tests are looked for (retests come within
 #: hours at a station; a part tested again after more than this counts as a new part there)
 PART_WINDOW = timedelta(days=2)
@@ -405,38 +404,44 @@ class InfluxStore:
         names = _group_columns(by)
         _check_bucket(bucket)
         tag_filters = {"station": station, "line": line, "program": program}
-        where = _Where().time(since, until)
-        for column, value in tag_filters.items():
-            where.eq(column, value)
-        narrow = '"record_id", "part_id", "verdict", "seq", "station", "line", "program"'
-        # narrow rows; InfluxQL cannot group by a field (see the module docstring)
-        frame = self._frame(self._query(f"SELECT {narrow} FROM {_RESULTS}{where.sql()}",
-                                        where.params))
+        from gateway.store.influx_parts import first_pass_from_summaries
+
+        summarised = first_pass_from_summaries(self, since, until, names, bucket, tag_filters)
+        if summarised is not None:
+            return summarised
+        narrow = '"part_id", "verdict", "seq", "station", "line", "program"'
+        # One narrow read, no tag filter: a part is judged by all of its tests, wherever they
+        # ran, so the tests of every station within PART_WINDOW of the range are read (part
+        # ids are fields: InfluxQL can neither group by them nor ask for them by id without a
+        # scan per statement); the range and the filters then pick the tests in range, and
+        # the parts by their first test below, as the SQLite store's parts summary does.
+        wide = _Where().time(since - PART_WINDOW if since is not None else None,
+                             until + PART_WINDOW if until is not None else None)
+        around = self._frame(self._query(f"SELECT {narrow} FROM {_RESULTS}{wide.sql()}",
+                                         wide.params))
         counts = ["parts", "first_pass", "final_pass", "tests", "no_part_id"]
         cols = [*names, *(["bucket"] if bucket else []), *counts]
+        if around.empty:
+            return _empty(cols)
+        if "part_id" not in around.columns:
+            around["part_id"] = None
+        in_range = pd.Series(True, index=around.index)
+        lo, hi = _ns("since", since), _ns("until", until)
+        if lo is not None:
+            in_range &= around["time"] >= lo
+        if hi is not None:
+            in_range &= around["time"] < hi
+        for column, value in tag_filters.items():
+            if value is not None:
+                in_range &= around[column] == value
+        frame = around[in_range]
         if frame.empty:
             return _empty(cols)
-        if "part_id" not in frame.columns:
-            frame["part_id"] = None
         no_id = frame[frame["part_id"].isna()]
-        with_id = frame[frame["part_id"].notna()]
-        if not with_id.empty and (since is not None or until is not None):
-            # a part is judged by all of its tests, wherever they ran: the tests of every
-            # station within PART_WINDOW of the range, in one narrow read (part ids are
-            # fields: asking for them by id scans the measurement once per statement, which
-            # does not scale); the range and filters pick parts by their first test below,
-            # as the SQLite store's parts summary does
-            wide = _Where().time(since - PART_WINDOW if since is not None else None,
-                                 until + PART_WINDOW if until is not None else None)
-            around = self._frame(self._query(f"SELECT {narrow} FROM {_RESULTS}{wide.sql()}",
-                                             wide.params))
-            seen = set(with_id["part_id"])
-            with_id = around[around["part_id"].isin(seen)].drop_duplicates("record_id")
-        elif not with_id.empty and where.parts:
-            with_id = self._part_history(sorted(set(with_id["part_id"])), narrow)
+        ids = frame["part_id"].dropna().unique()
+        with_id = around[around["part_id"].isin(ids)]
         parts = _judge_parts(with_id)
         keep = pd.Series(True, index=parts.index)
-        lo, hi = _ns("since", since), _ns("until", until)
         if lo is not None:
             keep &= parts["time"] >= lo
         if hi is not None:
@@ -465,23 +470,6 @@ class InfluxStore:
         if bucket is not None:
             agg["bucket"] = _utc(agg["bucket_ns"])
         return agg[cols].reset_index(drop=True)
-
-    def _part_history(self, part_ids: Sequence[str], select: str) -> pd.DataFrame:
-        """Every stored test of ``part_ids`` (all stations, all time), narrow columns.
-
-        The part id is a field, so each statement scans the measurement on the server; the
-        ids go in as bound parameters, a few hundred per statement, all in one request.
-        """
-        statements: list[str] = []
-        params: dict[str, Any] = {}
-        for start in range(0, len(part_ids), _IDS_PER_STATEMENT):
-            chunk = part_ids[start : start + _IDS_PER_STATEMENT]
-            names = [f"id{start + i}" for i in range(len(chunk))]
-            params.update(zip(names, chunk, strict=True))
-            match = " OR ".join(f'"part_id" = ${n}' for n in names)
-            statements.append(f"SELECT {select} FROM {_RESULTS} WHERE ({match})")
-        frame = self._frame(self._query("; ".join(statements), params))
-        return frame.drop_duplicates("record_id")
 
     def histogram(
         self, since: datetime | None, until: datetime | None, edges: Sequence[float], *,

@@ -35,6 +35,7 @@ from tests.support.browser import (
 SIZES = ((1024, 768), (1920, 1080))
 PAGES = [  # (navigation entry, a text the page shows once it has data)
     ("Fleet live", "cycles in the last hour"),
+    ("Station", "Leak rate against the reject limit"),
     ("Yield", "First-pass yield"),
     ("Shift report", "Shift report"),
     ("Readings vs limits", "Ppu"),

@@ -97,3 +97,22 @@ async def until(predicate: Any, timeout: float, what: str) -> None:
                 await asyncio.sleep(0.05)
     except TimeoutError:
         raise AssertionError(f"timed out waiting for {what}") from None
+
+
+def into_influx(journal: Journal, url: str, *, summaries: bool = True,
+                batch_size: int = 200) -> None:
+    """Forward everything in ``journal`` to the InfluxDB database at ``url`` and wait until the
+    sink has confirmed it all (a read store with the journal's records); with ``summaries``
+    the sink reads the journal's part summaries too, as a gateway's sink does."""
+    from gateway.sinks.influx import make_influx
+
+    journal_url = f"sqlite:///{journal.path}" if summaries else ""
+    fwd = make_influx("influx", {"url": url, "batch_size": batch_size},
+                      ctx(store_url=journal_url))
+
+    async def forward() -> None:
+        async with forwarding(fwd, journal):
+            await until(lambda: sum(n for n, _ in journal.backlog("influx").values()) == 0, 30,
+                        "everything in InfluxDB")
+
+    asyncio.run(forward())

@@ -11,10 +11,9 @@ import pandas as pd
 import pytest
 
 from gateway.records import Record, TestResult
-from gateway.sinks.influx import make_influx
 from gateway.store import open_journal, open_store
 from gateway.store.base import QueryStore
-from tests.integration.sinks_data import T0, ctx, forwarding, result, shift, until
+from tests.integration.sinks_data import T0, into_influx, result, shift
 from tests.support.servers import InfluxServer
 
 pytestmark = [pytest.mark.integration, pytest.mark.timeout(90)]
@@ -40,33 +39,34 @@ def plant() -> list[Record]:
     ]
 
 
-@pytest.fixture(scope="module")
-def stores(influxdb: InfluxServer, tmp_path_factory: pytest.TempPathFactory
-           ) -> Iterator[tuple[QueryStore, QueryStore]]:
-    import asyncio
+@pytest.fixture(scope="module", params=["part summaries", "tests only"])
+def stores(influxdb: InfluxServer, tmp_path_factory: pytest.TempPathFactory,
+           request: pytest.FixtureRequest) -> Iterator[tuple[QueryStore, QueryStore]]:
+    """The SQLite journal and an InfluxDB fed from it by the sink: with the part summaries
+    the sink writes from the journal, and without them (a database an older sink wrote,
+    where first-pass yield is judged from the tests themselves)."""
 
     path = tmp_path_factory.mktemp("store") / "journal.db"
     journal = open_journal(str(path))
     journal.write(plant())
-    influxdb.create_database("compare")
-    fwd = make_influx("influx", {"url": influxdb.url("compare"), "batch_size": 200}, ctx())
-
-    async def forward() -> None:
-        async with forwarding(fwd, journal):
-            await until(lambda: sum(n for n, _ in journal.backlog("influx").values()) == 0, 30,
-                        "everything in InfluxDB")
-
-    asyncio.run(forward())
+    db = "compare_parts" if request.param == "part summaries" else "compare_tests"
+    influxdb.create_database(db)
+    # small batches: a retest reaches InfluxDB in a later batch than its part's first test,
+    # and the part's summary points are overwritten with its new final verdict
+    into_influx(journal, influxdb.url(db), summaries=request.param == "part summaries",
+                batch_size=7)
     journal.close()
     sqlite = open_store(f"sqlite:///{path}")
-    influx = open_store(influxdb.url("compare"))
+    influx = open_store(influxdb.url(db))
     yield sqlite, influx
     sqlite.close()
     influx.close()
-    influxdb.drop_database("compare")
+    influxdb.drop_database(db)
 
 
 H = timedelta(hours=1)
+M = timedelta(minutes=1)
+S = timedelta(seconds=1)
 QUERIES: dict[str, Callable[[QueryStore], pd.DataFrame]] = {
     "stations": lambda s: s.stations(),
     "results": lambda s: s.results(),
@@ -102,6 +102,18 @@ QUERIES: dict[str, Callable[[QueryStore], pd.DataFrame]] = {
         T0, T0 + 3 * H, line="L1", by=("station",)),
     "first pass by program, day, until": lambda s: s.first_pass_counts(
         None, T0 + H, by=("program",), bucket="day", line="L1"),
+    # ragged ends: whole hours from the hourly summary, the ends from the per-part points
+    "first pass, ragged range": lambda s: s.first_pass_counts(
+        T0 + 17 * M, T0 + 2 * H + 41 * M, by=("station",), bucket="hour"),
+    "first pass, within one hour": lambda s: s.first_pass_counts(
+        T0 + H + 5 * M, T0 + H + 50 * M, by=()),
+    "first pass, ragged since only": lambda s: s.first_pass_counts(T0 + 23 * M, None),
+    # cycle 1's part is retested as cycle 400 (T0 + 4 h 6 min 40 s): counted with its first
+    # test's window and its final verdict, not again in the retest's
+    "first pass, a first test in a ragged end": lambda s: s.first_pass_counts(
+        T0 + 30 * S, T0 + 50 * M, by=("station",)),
+    "first pass, only a retest in a ragged end": lambda s: s.first_pass_counts(
+        T0 + 4 * H + 5 * M, T0 + 4 * H + 10 * M, by=()),
     "histogram": lambda s: s.histogram(None, None, [0.0, 0.5, 1.0, 1.5, 2.0, 2.25]),
     "histogram pressure loss": lambda s: s.histogram(
         T0, T0 + 2 * H, [0.0, 10.0, 20.0, 40.0], station="L1-S1", value="pressure_loss_pa"),
@@ -156,3 +168,12 @@ def test_first_pass_by_hand(stores: tuple[QueryStore, QueryStore]) -> None:
         # the groups add up: a station filter is that station's row of the grouped answer
         grouped = store.first_pass_counts().set_index("station").loc["L1-S1"].to_dict()
         assert {k: int(v) for k, v in grouped.items()} == want
+
+
+def test_the_sink_writes_the_journal_part_summaries(stores: tuple[QueryStore, QueryStore],
+                                                    request: pytest.FixtureRequest) -> None:
+    """With a journal to read, the sink mirrors its per-part and hourly part summaries, and
+    first-pass yield is read from them (compared with the journal's in the tests above)."""
+    _, influx = stores
+    written = influx._query("SELECT * FROM leak_part_hours LIMIT 1")  # type: ignore[attr-defined]
+    assert bool(written) == (request.node.callspec.params["stores"] == "part summaries")

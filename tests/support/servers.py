@@ -308,6 +308,9 @@ class MosquittoServer(_Process):
             "log_type notice",
             "log_type information",
             "connection_messages true",
+            # as deploy/mosquitto/mosquitto.conf: without it the broker's Nagle holds a PUBACK
+            # or a delivery behind the previous one's TCP ACK (25-50 ms on a burst)
+            "set_tcp_nodelay true",
             # Started as root, mosquitto would drop to user "mosquitto", which cannot read a
             # password file or key in the test's temp dir; stay the current user instead.
             f"user {getpass.getuser()}",
