@@ -241,14 +241,20 @@ def shift_report(
     retest_groups: dict[str, dict[str, Any]] = {}
     retest_alarms: list[Any] = []
     if len(res):
-        y = yield_report(res, by=("line", "shift"), calendar=calendar)
+        # only the tests that can bear on this shift: every test of a part tested in it (its
+        # earlier tests decide whether it is this shift's part), and its tests without a part
+        # id; the figures of the other shifts in the history are not wanted here
+        touched = _in(res["ended_at"], window)
+        mine = res["part_id"].isin(res.loc[touched, "part_id"].dropna().unique())
+        focus = res[mine | (touched & _no_id(res))]
+        y = yield_report(focus, by=("line", "shift"), calendar=calendar)
         yields = {r.group["line"]: r for r in y.rows if r.group["shift"] == key}
-        ys = yield_report(res, by=("line", "station", "shift"), calendar=calendar)
+        ys = yield_report(focus, by=("line", "station", "shift"), calendar=calendar)
         for r in ys.rows:
             if r.group["shift"] == key:
                 per_station.setdefault(r.group["line"], []).append(r)
         rt = retest_analysis(
-            res, by=("line", "shift"), calendar=calendar, guard_band=guard_band,
+            focus, by=("line", "shift"), calendar=calendar, guard_band=guard_band,
             alarm_period="shift",
         )  # fmt: skip
         retest_groups = {g["line"]: g for g in rt.by_group if g["shift"] == key}

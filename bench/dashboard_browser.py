@@ -33,7 +33,9 @@ ARGS = ["--headless", "--no-sandbox", "--disable-gpu", "--disable-background-net
         "--disable-component-update", "--disable-sync", "--no-first-run"]
 PAGES = [  # (sidebar entry, a text the page shows once its data is there, journal only)
     ("Fleet live", "cycles in the last hour", False),
+    ("Station", "Leak rate against the reject limit", False),
     ("Yield", "First-pass yield", False),
+    ("Shift report", "Shift report", False),
     ("Readings vs limits", "Ppu", False),
     ("Calibration", "Calibrations", False),
     ("Gauge study & test time", "qualified person", False),

@@ -94,7 +94,14 @@ def shift_report_of(store: Any, calendar: Any, options: ShiftOptions) -> Report:
     window = calendar.window(o.day, o.shift)
     health = HealthConfig(min_ratio=o.min_ratio, master_loss_limit_pa=o.master_loss_limit_pa)
     since = window.start - timedelta(days=o.history_days)
-    results = store.results(since, window.end, line=o.line)
+    prev = previous_window(calendar, window)
+    # one read for this shift's history and the previous shift's (they overlap but for a
+    # shift's length)
+    first = since if prev is None else min(since, prev.start - timedelta(days=o.history_days))
+    both = store.results(first, window.end, line=o.line)
+    ended = pd.to_datetime(both["ended_at"], utc=True) if len(both) else None
+    results = both[ended >= pd.Timestamp(since)].reset_index(drop=True) if ended is not None \
+        else both
     cals = store.calibrations(window.end - timedelta(days=o.history_days), window.end,
                               line=o.line)  # fmt: skip
     stations = store.stations() if hasattr(store, "stations") else None
@@ -118,9 +125,10 @@ def shift_report_of(store: Any, calendar: Any, options: ShiftOptions) -> Report:
         ]
         frames = [f for f in frames if len(f)]
         statuses = pd.concat(frames, ignore_index=True) if frames else None
-    prev = previous_window(calendar, window)
-    prior = None if prev is None else store.results(
-        prev.start - timedelta(days=o.history_days), prev.end, line=o.line)
+    prior = None
+    if prev is not None:
+        prior = (both[ended < pd.Timestamp(prev.end)].reset_index(drop=True)
+                 if ended is not None else both)
     targets = ({} if o.target_first_pass_yield is None
                else {"first_pass_yield": o.target_first_pass_yield})
     r = shift_report(
