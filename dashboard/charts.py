@@ -85,7 +85,8 @@ def yield_trend(df: pd.DataFrame, x: str, y: str, colour: str | None, title: str
             x=alt.X(f"{x}:O", title=None),
             y=alt.Y(f"{y}:Q", title=f"{title} [%]", axis=alt.Axis(format="%"),
                     scale=alt.Scale(domain=list(domain), clamp=True)),
-            tooltip=[alt.Tooltip(c) for c in df.columns],
+            tooltip=[alt.Tooltip(c, title=c.replace("_", " "), format=".1%") if c == y
+                     else alt.Tooltip(c, title=c.replace("_", " ")) for c in df.columns],
         )
     )
     if colour:
@@ -102,7 +103,7 @@ def verdict_trend(df: pd.DataFrame, x: str) -> alt.Chart:
             x=alt.X(f"{x}:O", title=None),
             y=alt.Y("n:Q", title="tests"),
             color=alt.Color("verdict:N", scale=_VERDICT_COLOURS),
-            tooltip=[x, "verdict", "n"],
+            tooltip=[alt.Tooltip(x, title="period"), "verdict", alt.Tooltip("n:Q", title="tests")],
         )
         .properties(height=220)
     )
@@ -119,7 +120,8 @@ def pareto(report: ParetoReport, title: str) -> Layered:
             x=alt.X("category:N", sort=order, title=title,
                     axis=alt.Axis(labelLimit=220, labelAngle=-35)),
             y=alt.Y("n:Q", title="count"),
-            tooltip=["category", "n", alt.Tooltip("share:Q", format=".1%")],
+            tooltip=[alt.Tooltip("category:N", title="reason"), alt.Tooltip("n:Q", title="tests"),
+                     alt.Tooltip("share:Q", format=".1%", title="share")],
         )
     )
     line = (
@@ -148,7 +150,9 @@ def histogram(
             x=alt.X("lo:Q", title=f"leak rate [{unit}]", bin="binned"),
             x2="hi:Q",
             y=alt.Y("n:Q", title="tests"),
-            tooltip=[alt.Tooltip("lo:Q", format=".3g"), alt.Tooltip("hi:Q", format=".3g"), "n"],
+            tooltip=[alt.Tooltip("lo:Q", format=".3g", title=f"from [{unit}]"),
+                     alt.Tooltip("hi:Q", format=".3g", title=f"to [{unit}]"),
+                     alt.Tooltip("n:Q", title="tests")],
         )
     ]
     marks = []
@@ -184,7 +188,8 @@ def histogram(
                     ),
                     title=None,
                 ),
-                tooltip=["what", alt.Tooltip("x:Q", format=".3g")],
+                tooltip=[alt.Tooltip("what:N", title="line"),
+                         alt.Tooltip("x:Q", format=".3g", title=f"value [{unit}]")],
             )
         )
     return alt.layer(*layers).properties(height=240, title=title)
@@ -203,12 +208,14 @@ def series(df: pd.DataFrame, y: str, title: str, alarms: pd.DataFrame | None = N
             scale=alt.Scale(domain=["passed", "failed"], range=["#5b7fa6", "#b23a48"]),
             title=None,
         ),
-        tooltip=[_time_tip("ended_at"), alt.Tooltip(f"{y}:Q", format=".4g"), "outcome", "reason"],
+        tooltip=[_time_tip("ended_at"), alt.Tooltip(f"{y}:Q", format=".4g", title=title),
+                 "outcome", "reason"],
     )
     chart = line + points
     if alarms is not None and not alarms.empty:
         chart = chart + alt.Chart(alarms).mark_rule(color="#b23a48", strokeDash=[4, 3]).encode(
-            x=_time_x("at"), tooltip=["kind", "message"]
+            x=_time_x("at"), tooltip=[alt.Tooltip("kind:N", title="event"),
+                                      alt.Tooltip("message:N", title="note")]
         )
     return chart.properties(height=200)
 
@@ -259,7 +266,7 @@ def history(df: pd.DataFrame, y: str, title: str) -> alt.Chart:
                 "cycle",
                 "program",
                 "verdict",
-                alt.Tooltip(f"{y}:Q", format=".4g"),
+                alt.Tooltip(f"{y}:Q", format=".4g", title=title),
             ],
         )
         .properties(height=220)
@@ -287,7 +294,8 @@ def advice_curve(df: pd.DataFrame, target: float, current_s: float) -> Layered:
         .encode(
             x=alt.X("test_s:Q", title="test time [s]"),
             y=alt.Y("pct_grr:Q", title="%GRR of tolerance"),
-            tooltip=[alt.Tooltip("test_s:Q", format=".2f"), alt.Tooltip("pct_grr:Q", format=".1f")],
+            tooltip=[alt.Tooltip("test_s:Q", format=".2f", title="test time [s]"),
+                     alt.Tooltip("pct_grr:Q", format=".1f", title="%GRR")],
         )
     )
     rules = pd.DataFrame([{"y": target, "what": f"target {target:g} %"}])

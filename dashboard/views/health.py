@@ -66,7 +66,7 @@ else:
             x=alt.X("hour:T", title=f"hour ({tz})", axis=alt.Axis(format="%H:%M")),
             y=alt.Y("n:Q", title="quarantined lines per hour"),
             color=alt.Color("station:N", title="station"),
-            tooltip=["station", "n"],
+            tooltip=["station", alt.Tooltip("n:Q", title="quarantined lines")],
         ).properties(height=220),
         width="stretch",
     )  # fmt: skip

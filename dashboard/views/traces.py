@@ -105,7 +105,8 @@ band = alt.Chart(phases).mark_rect(opacity=0.5).encode(
 lines = alt.Chart(df).mark_line(strokeWidth=1).encode(
     x="t_s:Q", y=alt.Y("pressure:Q", title=f"pressure [{u.p_label}]", scale=alt.Scale(zero=False)),
     detail="curve:N", strokeDash=alt.StrokeDash("role:N", title="test"),
-    tooltip=["curve", alt.Tooltip("t_s:Q", format=".2f"), alt.Tooltip("pressure:Q", format=".6g")],
+    tooltip=["curve", alt.Tooltip("t_s:Q", format=".2f", title="time [s]"),
+             alt.Tooltip("pressure:Q", format=".6g", title="pressure")],
 )  # fmt: skip
 st.altair_chart((band + lines).properties(height=360), width="stretch")
 st.caption(
@@ -180,8 +181,10 @@ if not pts.empty:
         x=alt.X("cycle_s:Q", title="stabilise + test [s]"),
         y=alt.Y("pct_grr_high:Q", title="%GRR (upper bound), best split per cycle"),
         color=alt.Color("verdict:N", title=None),
-        tooltip=["stabilise_s", "test_s", alt.Tooltip("pct_grr:Q", format=".1f"),
-                 alt.Tooltip("pct_grr_high:Q", format=".1f")],
+        tooltip=[alt.Tooltip("stabilise_s:Q", title="stabilise [s]"),
+                 alt.Tooltip("test_s:Q", title="test [s]"),
+                 alt.Tooltip("pct_grr:Q", format=".1f", title="%GRR"),
+                 alt.Tooltip("pct_grr_high:Q", format=".1f", title="%GRR, upper bound")],
     )  # fmt: skip
     rule = (
         alt.Chart(pd.DataFrame({"y": [target]}))
