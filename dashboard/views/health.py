@@ -59,14 +59,18 @@ st.subheader("Quarantine per hour")
 if quarantine.empty:
     st.caption("Nothing quarantined in the last 24 hours.")
 else:
+    # by station (a cable, a setting) or by profile (a format the profile does not cover)
+    by = st.radio("Per", ["station", "profile"], horizontal=True, key="health_quarantine_by")
     q = quarantine.assign(hour=pd.to_datetime(quarantine["received_at"], utc=True).dt.floor("h"))
-    per_hour = charts.plant_clock(q.groupby(["hour", "station"]).size().reset_index(name="n"), tz)
+    if by not in q.columns:
+        q[by] = "–"
+    per_hour = charts.plant_clock(q.groupby(["hour", by]).size().reset_index(name="n"), tz)
     st.altair_chart(
         alt.Chart(per_hour).mark_bar().encode(
             x=alt.X("hour:T", title=f"hour ({tz})", axis=alt.Axis(format="%H:%M")),
             y=alt.Y("n:Q", title="quarantined lines per hour"),
-            color=alt.Color("station:N", title="station"),
-            tooltip=["station", alt.Tooltip("n:Q", title="quarantined lines")],
+            color=alt.Color(f"{by}:N", title=by),
+            tooltip=[by, alt.Tooltip("n:Q", title="quarantined lines")],
         ).properties(height=220),
         width="stretch",
     )  # fmt: skip

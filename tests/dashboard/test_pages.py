@@ -3,6 +3,8 @@ figures, reacts to its filters; and the messages for an empty, a lone and an unr
 
 from __future__ import annotations
 
+import json
+from datetime import UTC, datetime, timedelta
 from pathlib import Path
 
 import pandas as pd
@@ -246,12 +248,30 @@ def test_password_login_when_configured(app: AppFactory, demo_journal: Path) -> 
     assert " ".join(m.value for m in at.markdown).count("cycles in the last hour") == 6
 
 
-def test_health_page_lists_every_station_and_quarantine(app: AppFactory,
-                                                        demo_journal: Path) -> None:
-    at = app(demo_journal, "views/health.py")
+def test_health_page_lists_every_station_and_quarantine(app: AppFactory, demo_journal: Path,
+                                                        tmp_path: Path) -> None:
+    import shutil
+
+    from gateway.records import Rejected
+    from gateway.store import open_journal
+
+    db = tmp_path / "journal.db"
+    shutil.copy(demo_journal, db)
+    now = datetime.now(UTC)
+    with open_journal(f"sqlite:///{db}") as j:
+        j.write([Rejected(station=s, profile=f"{p}@1.0", raw=f"junk {i}", reason="noise",
+                          received_at=now - timedelta(minutes=i))
+                 for i, (s, p) in enumerate([("L1-S1", "lf-delim")] * 3 + [("L2-S1", "lf-kv")])])
+    at = app(db, "views/health.py")
     assert not at.exception
     stations = _table(at, "Station", "Link", "Quarantined lines, 24 h")
     assert len(stations) == 6
+    # quarantine per hour by station (a cable, a setting) or by profile (a format issue)
+    at.radio(key="health_quarantine_by").set_value("profile").run()
+    assert not at.exception
+    specs = [json.loads(el.proto.spec) for el in at.get("vega_lite_chart")]
+    assert any(sp.get("encoding", {}).get("color", {}).get("field") == "profile"
+               for sp in specs), specs
 
 
 def test_traces_page_overlays_curves_and_maps_the_backdown(
