@@ -43,6 +43,8 @@ from gateway.records import (
 
 __all__ = [
     "MEASUREMENTS",
+    "PARTS_MEASUREMENT",
+    "PART_HOURS_MEASUREMENT",
     "encode",
     "encode_line",
     "escape_field_key",
@@ -60,6 +62,11 @@ MEASUREMENTS = {
     "trace": "pressure_traces",
     "alarm": "alarm_events",
 }
+
+#: the journal's part summaries mirrored by the sink (gateway.sinks.influx_parts) and read by
+#: the store (gateway.store.influx_parts)
+PARTS_MEASUREMENT = "leak_parts"
+PART_HOURS_MEASUREMENT = "leak_part_hours"
 
 _EPOCH = datetime(1970, 1, 1, tzinfo=UTC)
 FieldValue = bool | int | float | str

@@ -27,15 +27,15 @@ from __future__ import annotations
 import sqlite3
 from collections.abc import Iterable, Sequence
 
-from gateway.influxdb.lineprotocol import encode_line
+from gateway.influxdb.lineprotocol import PART_HOURS_MEASUREMENT, PARTS_MEASUREMENT, encode_line
 from gateway.records import Record, TestResult
 from gateway.store._sqlite import sqlite_path
 from gateway.store.schema import HOUR_US
 
 __all__ = ["PARTS", "PART_HOURS", "part_summary_lines"]
 
-PARTS = "leak_parts"
-PART_HOURS = "leak_part_hours"
+PARTS = PARTS_MEASUREMENT
+PART_HOURS = PART_HOURS_MEASUREMENT
 _CHUNK = 500  # part ids per IN (...) list
 #: part_id, first_ended_at (µs), station, line, program, first_verdict, last_verdict, tests
 _Part = tuple[str, int, str, str, str, str, str, int]

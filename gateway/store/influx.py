@@ -31,7 +31,7 @@ import itertools
 import math
 import threading
 from collections.abc import Sequence
-from datetime import datetime, timedelta
+from datetime import datetime
 from typing import Any
 
 import numpy as np
@@ -45,7 +45,7 @@ from gateway.influxdb.http import (
     InfluxHttpError,
     parse_influx_url,
 )
-from gateway.influxdb.lineprotocol import MEASUREMENTS, timestamp_ns
+from gateway.influxdb.lineprotocol import MEASUREMENTS
 from gateway.store.base import (
     GROUP_COLUMNS,
     HISTOGRAM_VALUES,
@@ -54,6 +54,12 @@ from gateway.store.base import (
     GroupColumn,
     VerdictGroupColumn,
 )
+from gateway.store.influx_query import BUCKET_NS as _BUCKET_NS
+from gateway.store.influx_query import PART_WINDOW
+from gateway.store.influx_query import RESULTS as _RESULTS
+from gateway.store.influx_query import Where as _Where
+from gateway.store.influx_query import ns as _ns
+from gateway.store.influx_query import utc as _utc
 from gateway.store.schema import (
     CALIBRATION_COLUMNS,
     QUARANTINE_COLUMNS,
@@ -63,7 +69,6 @@ from gateway.store.schema import (
 
 __all__ = ["InfluxStore", "open_influx_store"]
 
-_RESULTS = MEASUREMENTS["result"]
 _CALS = MEASUREMENTS["calibration"]
 _STATUS = MEASUREMENTS["status"]
 _RESULT_SELECT = ("seq", "record_id", *RESULT_COLUMNS)
@@ -74,70 +79,12 @@ _SERIES_COLUMNS = (
     "sensitivity", "passed", "reason",
 )  # fmt: skip
 _INTERVAL = {"hour": "1h", "day": "1d"}
-_BUCKET_NS = {"hour": 3_600 * 10**9, "day": 86_400 * 10**9}
-# part ids per statement when fetching parts' histories (bound parameters, ORed)
-#: how far before and after a range a part's other tests are looked for (retests come within
-#: hours at a station; a part tested again after more than this counts as a new part there)
-PART_WINDOW = timedelta(days=2)
 _INT_COLUMNS = ("seq", "cycle")
 _FLOAT_COLUMNS = (
     "test_pressure_pa", "pressure_loss_pa", "leak_rate_sccm", "reject_limit_sccm", "fill_s",
     "stabilise_s", "test_s", "lower_limit_sccm", "temperature_c", "master_loss_pa",
     "standard_loss_pa", "standard_sccm", "standard_ref_pressure_pa", "ratio", "sensitivity",
 )  # fmt: skip
-
-
-def _ns(name: str, value: datetime | None) -> int | None:
-    if value is None:
-        return None
-    if not isinstance(value, datetime) or value.utcoffset() is None:
-        raise ValueError(f"{name} must be a timezone-aware datetime, got {value!r}")
-    return timestamp_ns(value)
-
-
-def _utc(ns: pd.Series) -> pd.Series:
-    """ns epochs → tz-aware UTC timestamps at µs resolution (as the SQLite store gives)."""
-    return pd.to_datetime(ns.astype("int64") // 1000, unit="us", utc=True)
-
-
-class _Where:
-    """``AND``-ed InfluxQL conditions from fixed fragments; values as bound parameters."""
-
-    def __init__(self) -> None:
-        self.parts: list[str] = []
-        self.params: dict[str, Any] = {}
-
-    def time(self, since: datetime | None, until: datetime | None) -> _Where:
-        lo, hi = _ns("since", since), _ns("until", until)
-        if lo is not None and hi is not None and hi < lo:
-            raise ValueError("until is before since")
-        if lo is not None:
-            self.parts.append("time >= $since")
-            self.params["since"] = lo
-        if hi is not None:
-            self.parts.append("time < $until")
-            self.params["until"] = hi
-        return self
-
-    def eq(self, column: str, value: str | None) -> _Where:
-        if value is not None:
-            name = f"p{len(self.params)}"
-            self.parts.append(f'"{column}" = ${name}')
-            self.params[name] = value
-        return self
-
-    def raw(self, fragment: str, **params: Any) -> _Where:
-        self.parts.append(fragment)
-        self.params.update(params)
-        return self
-
-    def sql(self) -> str:
-        return (" WHERE " + " AND ".join(self.parts)) if self.parts else ""
-
-    def copy(self) -> _Where:
-        other = _Where()
-        other.parts, other.params = list(self.parts), dict(self.params)
-        return other
 
 
 def _group_columns(by: Sequence[str], allowed: Sequence[str] = GROUP_COLUMNS) -> list[str]:

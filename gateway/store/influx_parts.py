@@ -20,7 +20,14 @@ from typing import Any
 
 import pandas as pd
 
-from gateway.sinks.influx_parts import PART_HOURS, PARTS
+from gateway.influxdb.lineprotocol import PART_HOURS_MEASUREMENT as PART_HOURS
+from gateway.influxdb.lineprotocol import PARTS_MEASUREMENT as PARTS
+from gateway.store.influx_query import BUCKET_NS as _BUCKET_NS
+from gateway.store.influx_query import PART_WINDOW
+from gateway.store.influx_query import RESULTS as _RESULTS
+from gateway.store.influx_query import Where as _Where
+from gateway.store.influx_query import ns as _ns
+from gateway.store.influx_query import utc as _utc
 
 __all__ = ["first_pass_from_summaries"]
 
@@ -33,7 +40,6 @@ def first_pass_from_summaries(
     bucket: str | None, filters: dict[str, str | None],
 ) -> pd.DataFrame | None:
     """``first_pass_counts`` rows (``names``, [bucket], COUNTS) or None without summaries."""
-    from gateway.store.influx import _BUCKET_NS, _RESULTS, _ns, _utc, _Where
 
     if not store._query(f"SELECT * FROM {PART_HOURS} LIMIT 1"):
         return None
@@ -106,7 +112,6 @@ def _ragged(store: Any, filters: dict[str, str | None], a: int, b: int) -> list[
     """The parts whose first test lies in [a, b) (less than an hour): those tested there,
     each judged by its ``leak_parts`` point when it was retested, by its one test otherwise;
     then the filters, on the tags of each part's first test."""
-    from gateway.store.influx import _RESULTS, PART_WINDOW
 
     if a >= b:
         return []
