@@ -28,6 +28,7 @@ after it; a trailing backslash is dropped).
 
 from __future__ import annotations
 
+import functools
 import json
 from collections.abc import Iterable, Mapping
 from datetime import UTC, datetime, timedelta
@@ -85,8 +86,10 @@ def escape_measurement(name: str) -> str:
     return _no_newlines(name).replace(",", r"\,").replace(" ", r"\ ")
 
 
+@functools.lru_cache(maxsize=4096)
 def escape_tag(text: str) -> str:
-    """For tag keys and values (comma, equals sign, space)."""
+    """For tag keys and values (comma, equals sign, space). Cached: field keys are fixed and
+    tag values few (site, line, station, program, verdict), and a record has ~30 of them."""
     text = _no_newlines(text).rstrip("\\")
     return text.replace(",", r"\,").replace("=", r"\=").replace(" ", r"\ ")
 
