@@ -203,7 +203,9 @@ async def _run(minutes: float, tmp: Path) -> dict[str, Any]:
         _journal(path, records)
         influx.create_database("ours")
         influx.create_database("bare")
-        ctx = SinkContext(site="bench", gateway_id="catchup", store_url="", stations={})
+        # the journal named, as a gateway's sink has it: the part summaries go out too
+        ctx = SinkContext(site="bench", gateway_id="catchup", store_url=f"sqlite:///{path}",
+                          stations={})
         fwd = make_influx("influx", {"url": influx.url("ours"), "batch_size": BATCH,
                                      "kinds": ["result"]}, ctx)
         with _Live(path):
