@@ -8,14 +8,13 @@ from dataclasses import dataclass
 
 import pandas as pd
 
-from gateway.units import from_canonical
+from gateway.units import from_canonical, unit_label
 
 __all__ = ["LABELS", "LEAK_UNITS", "PRESSURE_UNITS", "Units", "cut_note", "fmt", "labelled", "pct",
            "significant"]
 
 PRESSURE_UNITS = ("Pa", "kPa", "mbar", "psi")
 LEAK_UNITS = ("sccm", "mbar*L/s", "Pa*m3/s")
-_LABELS = {"mbar*L/s": "mbar·L/s", "Pa*m3/s": "Pa·m³/s"}
 
 
 def fmt(value: object, digits: int = 3) -> str:
@@ -50,11 +49,11 @@ class Units:
 
     @property
     def p_label(self) -> str:
-        return _LABELS.get(self.pressure, self.pressure)
+        return unit_label(self.pressure)
 
     @property
     def q_label(self) -> str:
-        return _LABELS.get(self.leak, self.leak)
+        return unit_label(self.leak)
 
     def p(self, value: float | None) -> float | None:
         return None if value is None or pd.isna(value) else float(value) * self.p_factor

@@ -45,6 +45,7 @@ __all__ = [
     "sccm_to",
     "to_canonical",
     "to_canonical_fn",
+    "unit_label",
 ]
 
 Kind = Literal["pressure", "leak", "volume", "time", "temperature"]
@@ -121,6 +122,14 @@ _ALIASES: dict[Kind, dict[str, str]] = {
 }
 
 _NUMBER = re.compile(r"^\s*([-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][-+]?\d+)?)\s*(.*?)\s*$")
+
+
+_PRINTED = {"mbar*L/s": "mbar·L/s", "Pa*m3/s": "Pa·m³/s"}
+
+
+def unit_label(unit: str) -> str:
+    """A unit as people read it on a page (``mbar*L/s`` → ``mbar·L/s``)."""
+    return _PRINTED.get(unit, unit)
 
 
 def reference_temperature_k(reference_c: float) -> float:

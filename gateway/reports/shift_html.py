@@ -34,7 +34,7 @@ from zoneinfo import ZoneInfo
 
 import jinja2
 
-from gateway.units import from_canonical
+from gateway.units import from_canonical, unit_label
 
 __all__ = ["PAPER_SIZES", "render_shift_html"]
 
@@ -68,7 +68,6 @@ def _signed(value: Any) -> str:
     return "–" if value is None else f"{float(value):+.0f}"
 
 
-_UNIT_LABELS = {"mbar*L/s": "mbar·L/s", "Pa*m3/s": "Pa·m³/s"}
 
 
 @dataclass(frozen=True)
@@ -80,11 +79,11 @@ class _Units:
 
     @property
     def p_label(self) -> str:
-        return _UNIT_LABELS.get(self.pressure, self.pressure)
+        return unit_label(self.pressure)
 
     @property
     def q_label(self) -> str:
-        return _UNIT_LABELS.get(self.leak, self.leak)
+        return unit_label(self.leak)
 
     def shown(self, value: Any, kind: Literal["pressure", "leak"]) -> str:
         if value is None:
