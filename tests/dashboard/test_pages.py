@@ -386,11 +386,20 @@ def test_the_kiosk_view_shows_one_line_at_a_time_and_nothing_to_click(
 
 
 def test_times_follow_the_zone_picked_in_the_sidebar_while_days_stay_the_plants(
-    app: AppFactory, demo_journal: Path
+    app: AppFactory, demo_journal: Path, tmp_path: Path
 ) -> None:
+    import shutil
+    import sqlite3
     from datetime import datetime, timedelta
 
-    at = app(demo_journal, clock="data")
+    # "now" from the data, a day ahead of the wall clock: both runs below see the same
+    # instant (on the wall clock, a rounding step could fall between them)
+    db = tmp_path / "journal.db"
+    shutil.copy(demo_journal, db)
+    with sqlite3.connect(db) as conn:
+        conn.execute("UPDATE results SET received_at = received_at + 86400000000 "
+                     "WHERE seq = (SELECT MAX(seq) FROM results)")
+    at = app(db, clock="data")
     assert at.selectbox(key="lf_timezone").value == "Europe/Berlin"  # the plant's by default
     plant = next(c.value for c in at.caption if c.value.startswith("As of "))
     assert "(Europe/Berlin)" in plant
